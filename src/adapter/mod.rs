@@ -1,0 +1,151 @@
+//! The [`Adapter`] trait every driver implements, and choosing a driver
+//! from the command line.
+//!
+//! Contract:
+//! - [`Adapter::execute`] puts one whole transaction on the bus (START to
+//!   STOP) and always returns an [`Outcome`]; a failure of the adapter or
+//!   its link is an outcome with [`Fault::Adapter`](crate::bus::Fault),
+//!   after which the bus state is unknown and callers stop.
+//! - A transaction is validated by the caller against
+//!   [`Capabilities::max_bytes_per_op`] before it is passed in.
+//! - [`Adapter::execute_batch`] runs independent transactions in order; a
+//!   driver may pipeline them, but the outcomes come back in order and a
+//!   NACK in one does not stop the others.
+//! - [`Adapter::recover`] frees a stuck bus: clock SCL up to nine times
+//!   until SDA is released, then send STOP.
+//! - Time: [`Adapter::now`] is the adapter's clock and [`Adapter::delay`]
+//!   waits on it. Hardware uses the wall clock; the simulator's clock is
+//!   virtual unless paced, so scripts that sleep run instantly in tests.
+//! - [`Adapter::close`] leaves the bus idle (STOP sent, lines released).
+
+use std::time::Duration;
+
+use anyhow::{Context, Result, bail};
+use serde::Serialize;
+
+use crate::bus::{BusSpeed, Outcome, Transaction};
+
+/// What a driver can do.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Capabilities {
+    /// Largest byte count of one operation.
+    pub max_bytes_per_op: usize,
+    pub ten_bit: bool,
+    pub min_speed_hz: u32,
+    pub max_speed_hz: u32,
+    /// How long the adapter waits for a target that stretches the clock.
+    pub stretch_timeout_us: u64,
+    /// Whether [`Adapter::line_levels`] reads real levels back.
+    pub line_readback: bool,
+    /// Whether [`Adapter::recover`] can clock a stuck bus free.
+    pub recovery: bool,
+}
+
+/// Who the adapter is.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Identity {
+    /// Driver kind: `simulated`, `native`, `dialect:NAME`.
+    pub driver: String,
+    /// What the driver is talking to: a bench file, a port path.
+    pub target: String,
+    /// Firmware or model description where known.
+    pub description: String,
+}
+
+/// SDA and SCL levels, true = high (released).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct LineLevels {
+    pub sda: bool,
+    pub scl: bool,
+}
+
+/// What a bus recovery did.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct Recovery {
+    /// SCL pulses sent before SDA went high.
+    pub pulses: u8,
+    /// Whether SDA is high (the bus is free) afterwards.
+    pub released: bool,
+}
+
+/// A bus adapter driver.
+pub trait Adapter {
+    fn identity(&self) -> &Identity;
+    fn capabilities(&self) -> &Capabilities;
+    fn speed(&self) -> BusSpeed;
+    /// Sets the SCL frequency; returns the frequency actually used.
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed>;
+    fn execute(&mut self, tx: &Transaction) -> Outcome;
+    fn execute_batch(&mut self, txs: &[Transaction]) -> Vec<Outcome> {
+        txs.iter().map(|t| self.execute(t)).collect()
+    }
+    fn recover(&mut self) -> Result<Recovery>;
+    /// Current line levels, if the adapter can read them back.
+    fn line_levels(&mut self) -> Result<Option<LineLevels>>;
+    fn now(&self) -> Duration;
+    fn delay(&mut self, d: Duration);
+    fn close(&mut self) -> Result<()>;
+}
+
+/// The bench that runs when no adapter is named.
+pub const DEMO_BENCH_NAME: &str = "adapters/greenhouse.toml";
+pub const DEMO_BENCH: &str = include_str!("../../adapters/greenhouse.toml");
+
+/// A parsed `--adapter` value.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum AdapterSpec {
+    /// The built-in demo bench.
+    DemoBench,
+    /// `sim:PATH`: a bench file.
+    Bench(std::path::PathBuf),
+}
+
+impl AdapterSpec {
+    /// Parses `sim`, `sim:PATH`. Serial forms arrive with the serial drivers.
+    pub fn parse(text: &str) -> Result<Self> {
+        let t = text.trim();
+        if t == "sim" || t.is_empty() {
+            return Ok(AdapterSpec::DemoBench);
+        }
+        if let Some(path) = t.strip_prefix("sim:") {
+            if path.is_empty() {
+                bail!("`sim:` needs a bench file path, as in sim:adapters/greenhouse.toml");
+            }
+            return Ok(AdapterSpec::Bench(path.into()));
+        }
+        bail!("`{t}` is not an adapter: use `sim` for the built-in bench or `sim:PATH` for a bench file")
+    }
+}
+
+/// Options that apply when opening any adapter.
+#[derive(Debug, Clone, Default)]
+pub struct OpenOptions {
+    /// Pace a simulated bench in real time instead of virtual time.
+    pub realtime: bool,
+}
+
+/// Opens the driver an [`AdapterSpec`] names.
+pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> {
+    use crate::sim::{Bench, SimAdapter};
+    let bench = match spec {
+        AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
+        AdapterSpec::Bench(path) => {
+            let text = std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
+            Bench::from_str(&text, &path.display().to_string())?
+        }
+    };
+    Ok(Box::new(SimAdapter::new(bench, opts.realtime)))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parses_specs() {
+        assert_eq!(AdapterSpec::parse("sim").unwrap(), AdapterSpec::DemoBench);
+        assert_eq!(AdapterSpec::parse("sim:x.toml").unwrap(), AdapterSpec::Bench("x.toml".into()));
+        assert!(AdapterSpec::parse("sim:").is_err());
+        assert!(AdapterSpec::parse("carrier-pigeon").is_err());
+    }
+}

@@ -1,0 +1,174 @@
+//! What happened when a transaction was put on the bus.
+//!
+//! Contract: an [`Outcome`] holds one [`OpOutcome`] per operation that was
+//! started, in order (a transaction cut short by a NACK holds the prefix
+//! that ran, including the operation that failed), the modelled bus time,
+//! the adapter's measured time where it reports one, and a result. A NACK
+//! ends the transaction: the controller sends STOP right after it.
+
+use std::time::Duration;
+
+use serde::{Deserialize, Serialize};
+use thiserror::Error;
+
+use super::transaction::Direction;
+
+/// What one operation did.
+#[derive(Debug, Clone, PartialEq, Eq, Default, Serialize, Deserialize)]
+pub struct OpOutcome {
+    /// For a write: ACK (true) or NACK (false) per byte that was sent.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub acks: Vec<bool>,
+    /// For a read: the bytes received.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub data: Vec<u8>,
+}
+
+/// Bus-level trouble on the lines themselves.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum LineFault {
+    SdaStuckLow,
+    SclStuckLow,
+    /// A START or STOP condition where none belongs.
+    MisplacedCondition,
+}
+
+/// How a transaction failed.
+#[derive(Debug, Clone, PartialEq, Eq, Error, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum Fault {
+    /// No target ACKed the address byte(s) of the phase starting at `op`.
+    #[error("address NACK ({direction:?} phase at operation {op})")]
+    AddressNack { op: usize, direction: Direction },
+    /// The target NACKed data byte `index` of write operation `op`.
+    #[error("data NACK at operation {op}, byte {index}")]
+    DataNack { op: usize, index: usize },
+    #[error("arbitration lost")]
+    ArbitrationLost,
+    #[error("bus error: {line:?}")]
+    Bus { line: LineFault },
+    /// A target held SCL low for longer than the adapter waits.
+    #[error("clock-stretch timeout after {waited_us} us")]
+    StretchTimeout { waited_us: u64 },
+    /// The adapter or the link to it failed; the bus state is unknown.
+    #[error("adapter or link failure: {detail}")]
+    Adapter { detail: String },
+}
+
+impl Fault {
+    /// NACKs are the faults a retry policy may retry: the target was busy
+    /// or absent. Everything else points at wiring, contention or the
+    /// adapter and is not retried blindly.
+    pub fn is_nack(&self) -> bool {
+        matches!(self, Fault::AddressNack { .. } | Fault::DataNack { .. })
+    }
+
+    pub fn is_adapter(&self) -> bool {
+        matches!(self, Fault::Adapter { .. })
+    }
+
+    /// The nearest embedded-hal 1.0 error kind.
+    pub fn kind(&self) -> embedded_hal::i2c::ErrorKind {
+        use embedded_hal::i2c::{ErrorKind, NoAcknowledgeSource};
+        match self {
+            Fault::AddressNack { .. } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address),
+            Fault::DataNack { .. } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data),
+            Fault::ArbitrationLost => ErrorKind::ArbitrationLoss,
+            Fault::Bus { .. } => ErrorKind::Bus,
+            Fault::StretchTimeout { .. } | Fault::Adapter { .. } => ErrorKind::Other,
+        }
+    }
+
+    /// A short label for frame logs.
+    pub fn label(&self) -> String {
+        match self {
+            Fault::AddressNack { .. } => "addr-NACK".into(),
+            Fault::DataNack { index, .. } => format!("data-NACK@{index}"),
+            Fault::ArbitrationLost => "arb-lost".into(),
+            Fault::Bus { line } => match line {
+                LineFault::SdaStuckLow => "SDA-stuck".into(),
+                LineFault::SclStuckLow => "SCL-stuck".into(),
+                LineFault::MisplacedCondition => "bus-error".into(),
+            },
+            Fault::StretchTimeout { .. } => "stretch-timeout".into(),
+            Fault::Adapter { .. } => "adapter-fail".into(),
+        }
+    }
+}
+
+/// The result of one transaction.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Outcome {
+    pub ops: Vec<OpOutcome>,
+    /// Modelled time on the wire, clock stretching included.
+    #[serde(with = "micros")]
+    pub bus_time: Duration,
+    /// Time the adapter measured, where it reports one.
+    #[serde(default, skip_serializing_if = "Option::is_none", with = "opt_micros")]
+    pub measured: Option<Duration>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fault: Option<Fault>,
+}
+
+impl Outcome {
+    pub fn is_ok(&self) -> bool {
+        self.fault.is_none()
+    }
+
+    /// An outcome for a transaction that never reached the bus.
+    pub fn adapter_failure(detail: impl Into<String>) -> Self {
+        Outcome { ops: Vec::new(), bus_time: Duration::ZERO, measured: None, fault: Some(Fault::Adapter { detail: detail.into() }) }
+    }
+
+    /// All bytes read, in order, across the read operations.
+    pub fn read_bytes(&self) -> Vec<u8> {
+        self.ops.iter().flat_map(|o| o.data.iter().copied()).collect()
+    }
+}
+
+/// Durations in trace records are whole microseconds.
+pub mod micros {
+    use serde::{Deserialize, Deserializer, Serializer};
+    use std::time::Duration;
+
+    pub fn serialize<S: Serializer>(d: &Duration, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_u64(d.as_micros() as u64)
+    }
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Duration, D::Error> {
+        Ok(Duration::from_micros(u64::deserialize(d)?))
+    }
+}
+
+pub mod opt_micros {
+    use serde::{Deserialize, Deserializer, Serializer};
+    use std::time::Duration;
+
+    pub fn serialize<S: Serializer>(d: &Option<Duration>, s: S) -> Result<S::Ok, S::Error> {
+        match d {
+            Some(d) => s.serialize_some(&(d.as_micros() as u64)),
+            None => s.serialize_none(),
+        }
+    }
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<Duration>, D::Error> {
+        Ok(Option::<u64>::deserialize(d)?.map(Duration::from_micros))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use embedded_hal::i2c::{Error as _, ErrorKind, NoAcknowledgeSource};
+
+    #[test]
+    fn faults_map_to_embedded_hal_kinds() {
+        let f = Fault::AddressNack { op: 0, direction: Direction::Write };
+        assert_eq!(f.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address));
+        assert_eq!(Fault::DataNack { op: 0, index: 2 }.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data));
+        assert_eq!(Fault::ArbitrationLost.kind(), ErrorKind::ArbitrationLoss);
+        assert_eq!(Fault::Bus { line: LineFault::SdaStuckLow }.kind(), ErrorKind::Bus);
+        assert_eq!(ErrorKind::Bus.kind(), ErrorKind::Bus);
+        assert!(f.is_nack());
+        assert!(!Fault::ArbitrationLost.is_nack());
+    }
+}

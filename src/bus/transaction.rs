@@ -1,0 +1,302 @@
+//! Transactions: one address and an ordered list of operations, and the
+//! bus events they stand for.
+//!
+//! Contract (the trade's semantics, also embedded-hal 1.0's
+//! `I2c::transaction`):
+//! - START, then address + R/W, then the bytes of the first operation;
+//! - between operations of different direction: repeated START, then
+//!   address + R/W again; adjacent operations of the same direction
+//!   continue without a repeated START or address;
+//! - STOP at the end;
+//! - the controller ACKs every byte it reads except the last byte before a
+//!   repeated START or STOP, which it NACKs;
+//! - 10-bit addresses send both address bytes with R/W = 0; a read after
+//!   that repeats only the first byte with R/W = 1 (UM10204 §3.1.11). A
+//!   transaction that starts with a read therefore opens with an
+//!   address-only write phase.
+//! - An empty write is legal (address-only, used for probing and ACK
+//!   polling); an empty read is not, because the controller could not NACK
+//!   the last byte.
+
+use serde::{Deserialize, Serialize};
+use thiserror::Error;
+
+use super::address::Address;
+
+/// Largest byte count one operation may ask for, whatever the adapter says.
+/// A guard against a script asking for gigabytes; no bus device needs more.
+pub const MAX_OPERATION_BYTES: usize = 65_535;
+
+/// Direction of an operation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Direction {
+    Write,
+    Read,
+}
+
+/// One operation of a transaction.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Operation {
+    /// Bytes the controller sends.
+    Write(Vec<u8>),
+    /// Number of bytes the controller reads.
+    Read(usize),
+}
+
+impl Operation {
+    pub fn direction(&self) -> Direction {
+        match self {
+            Operation::Write(_) => Direction::Write,
+            Operation::Read(_) => Direction::Read,
+        }
+    }
+
+    /// Number of data bytes the operation moves.
+    pub fn len(&self) -> usize {
+        match self {
+            Operation::Write(b) => b.len(),
+            Operation::Read(n) => *n,
+        }
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// A transaction: one target, operations in order, one START and one STOP.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Transaction {
+    pub address: Address,
+    pub ops: Vec<Operation>,
+}
+
+/// One event on the wire, in order.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Event {
+    Start,
+    RepeatedStart,
+    /// An address byte (R/W included) sent by the controller.
+    AddressByte(u8),
+    /// A data byte sent by the controller; `op` and `index` locate it.
+    WriteByte { op: usize, index: usize, byte: u8 },
+    /// A data byte sent by the target; the controller answers with ACK
+    /// (`ack = true`) or NACK.
+    ReadByte { op: usize, index: usize, ack: bool },
+    Stop,
+}
+
+/// Why a transaction cannot be put on the bus as asked.
+#[derive(Debug, Clone, PartialEq, Eq, Error)]
+pub enum ShapeError {
+    #[error("a transaction needs at least one operation")]
+    NoOperations,
+    #[error("operation {op} reads 0 bytes; a read must ask for at least one byte")]
+    EmptyRead { op: usize },
+    #[error("operation {op} moves {len} bytes; at most {max} are allowed per operation")]
+    TooLong { op: usize, len: usize, max: usize },
+    #[error("{address} is reserved ({purpose}); pass the reserved-address option to use it")]
+    Reserved { address: Address, purpose: &'static str },
+}
+
+impl Transaction {
+    pub fn new(address: Address, ops: Vec<Operation>) -> Self {
+        Transaction { address, ops }
+    }
+
+    /// Checks the shape against the contract and a per-operation limit.
+    /// Reserved 7-bit addresses are refused unless `allow_reserved`.
+    pub fn validate(&self, max_per_op: usize, allow_reserved: bool) -> Result<(), ShapeError> {
+        if self.ops.is_empty() {
+            return Err(ShapeError::NoOperations);
+        }
+        if !allow_reserved {
+            if let Some(r) = self.address.reserved() {
+                return Err(ShapeError::Reserved { address: self.address, purpose: r.describe() });
+            }
+        }
+        let max = max_per_op.min(MAX_OPERATION_BYTES);
+        for (op, o) in self.ops.iter().enumerate() {
+            if matches!(o, Operation::Read(0)) {
+                return Err(ShapeError::EmptyRead { op });
+            }
+            if o.len() > max {
+                return Err(ShapeError::TooLong { op, len: o.len(), max });
+            }
+        }
+        Ok(())
+    }
+
+    /// Total data bytes written and read.
+    pub fn byte_counts(&self) -> (usize, usize) {
+        self.ops.iter().fold((0, 0), |(w, r), o| match o {
+            Operation::Write(b) => (w + b.len(), r),
+            Operation::Read(n) => (w, r + n),
+        })
+    }
+
+    /// The events the transaction puts on the bus, assuming every byte is
+    /// ACKed. Drivers that bit-bang or speak a primitive-level dialect walk
+    /// this list; the simulator walks it too, so both agree by construction.
+    pub fn events(&self) -> Vec<Event> {
+        let mut ev = Vec::with_capacity(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
+        ev.push(Event::Start);
+        let mut prev: Option<Direction> = None;
+        let mut ten_bit_addressed = false;
+        for (op, o) in self.ops.iter().enumerate() {
+            let dir = o.direction();
+            if prev != Some(dir) {
+                if prev.is_some() {
+                    ev.push(Event::RepeatedStart);
+                }
+                self.address_phase(dir, &mut ten_bit_addressed, &mut ev);
+            }
+            match o {
+                Operation::Write(bytes) => {
+                    for (index, &byte) in bytes.iter().enumerate() {
+                        ev.push(Event::WriteByte { op, index, byte });
+                    }
+                }
+                Operation::Read(n) => {
+                    let next_is_read = matches!(self.ops.get(op + 1), Some(Operation::Read(_)));
+                    for index in 0..*n {
+                        let last = index + 1 == *n && !next_is_read;
+                        ev.push(Event::ReadByte { op, index, ack: !last });
+                    }
+                }
+            }
+            prev = Some(dir);
+        }
+        ev.push(Event::Stop);
+        ev
+    }
+
+    fn address_phase(&self, dir: Direction, ten_bit_addressed: &mut bool, ev: &mut Vec<Event>) {
+        let read = dir == Direction::Read;
+        match self.address.second_byte() {
+            None => ev.push(Event::AddressByte(self.address.first_byte(read))),
+            Some(low) => {
+                if !read {
+                    ev.push(Event::AddressByte(self.address.first_byte(false)));
+                    ev.push(Event::AddressByte(low));
+                    *ten_bit_addressed = true;
+                } else {
+                    if !*ten_bit_addressed {
+                        // UM10204 §3.1.11: a 10-bit read is addressed by a
+                        // write of both bytes, then Sr and the first byte.
+                        ev.push(Event::AddressByte(self.address.first_byte(false)));
+                        ev.push(Event::AddressByte(low));
+                        ev.push(Event::RepeatedStart);
+                        *ten_bit_addressed = true;
+                    }
+                    ev.push(Event::AddressByte(self.address.first_byte(true)));
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Event::*;
+    use super::*;
+
+    fn wb(op: usize, index: usize, byte: u8) -> Event {
+        WriteByte { op, index, byte }
+    }
+    fn rb(op: usize, index: usize, ack: bool) -> Event {
+        ReadByte { op, index, ack }
+    }
+
+    // UM10204 §3.1.10 Figure 13 (combined format): S, addr+W, data, Sr,
+    // addr+R, data, controller NACKs the last byte, P.
+    #[test]
+    fn write_then_read_uses_repeated_start() {
+        let t = Transaction::new(
+            Address::Seven(0x44),
+            vec![Operation::Write(vec![0x03]), Operation::Read(2)],
+        );
+        assert_eq!(
+            t.events(),
+            vec![Start, AddressByte(0x88), wb(0, 0, 0x03), RepeatedStart, AddressByte(0x89), rb(1, 0, true), rb(1, 1, false), Stop]
+        );
+    }
+
+    // embedded-hal 1.0 `I2c::transaction`: adjacent operations of the same
+    // direction continue without SR or address; NACK only the very last read byte.
+    #[test]
+    fn adjacent_same_direction_operations_merge() {
+        let t = Transaction::new(
+            Address::Seven(0x50),
+            vec![
+                Operation::Write(vec![0x00, 0x10]),
+                Operation::Write(vec![0xAA]),
+                Operation::Read(1),
+                Operation::Read(1),
+            ],
+        );
+        assert_eq!(
+            t.events(),
+            vec![
+                Start,
+                AddressByte(0xA0),
+                wb(0, 0, 0x00),
+                wb(0, 1, 0x10),
+                wb(1, 0, 0xAA),
+                RepeatedStart,
+                AddressByte(0xA1),
+                rb(2, 0, true),
+                rb(3, 0, false),
+                Stop
+            ]
+        );
+    }
+
+    // UM10204 §3.1.11 Figure 19 ("controller-receiver addresses a target
+    // with a 10-bit address"): S, 11110XX+W, A7..A0, Sr, 11110XX+R, data, P.
+    #[test]
+    fn ten_bit_read_is_addressed_by_a_write_first() {
+        let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Read(1)]);
+        assert_eq!(
+            t.events(),
+            vec![Start, AddressByte(0xF4), AddressByte(0xA5), RepeatedStart, AddressByte(0xF5), rb(0, 0, false), Stop]
+        );
+    }
+
+    // UM10204 §3.1.11 Figure 20 (combined format, 10-bit): after the write
+    // phase only the first address byte is repeated, with R/W = 1.
+    #[test]
+    fn ten_bit_write_then_read_repeats_only_first_byte() {
+        let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
+        assert_eq!(
+            t.events(),
+            vec![Start, AddressByte(0xF4), AddressByte(0xA5), wb(0, 0, 0x01), RepeatedStart, AddressByte(0xF5), rb(1, 0, false), Stop]
+        );
+    }
+
+    #[test]
+    fn empty_write_is_address_only() {
+        let t = Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![])]);
+        assert_eq!(t.events(), vec![Start, AddressByte(0xA0), Stop]);
+        assert!(t.validate(64, false).is_ok());
+    }
+
+    #[test]
+    fn validation() {
+        let a = Address::Seven(0x50);
+        assert_eq!(Transaction::new(a, vec![]).validate(64, false), Err(ShapeError::NoOperations));
+        assert_eq!(
+            Transaction::new(a, vec![Operation::Read(0)]).validate(64, false),
+            Err(ShapeError::EmptyRead { op: 0 })
+        );
+        assert_eq!(
+            Transaction::new(a, vec![Operation::Read(65)]).validate(64, false),
+            Err(ShapeError::TooLong { op: 0, len: 65, max: 64 })
+        );
+        let gc = Transaction::new(Address::Seven(0x00), vec![Operation::Write(vec![0x06])]);
+        assert!(matches!(gc.validate(64, false), Err(ShapeError::Reserved { .. })));
+        assert!(gc.validate(64, true).is_ok());
+    }
+}

@@ -1,0 +1,8 @@
+//! buscue: a scriptable I2C transaction-sequence player.
+//!
+//! Data flows one way: script -> bus model -> adapter -> outcome ->
+//! trace + view. See DEVELOPERS.md for the module map.
+
+pub mod adapter;
+pub mod bus;
+pub mod sim;
