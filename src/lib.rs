@@ -5,4 +5,8 @@
 
 pub mod adapter;
 pub mod bus;
+pub mod exit;
 pub mod sim;
+pub mod script;
+pub mod trace;
+pub mod view;

@@ -17,13 +17,24 @@ use thiserror::Error;
 
 /// A target address of either kind. The kinds never mix: 0x050 as a 10-bit
 /// address is a different target from 0x50 as a 7-bit one.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
-#[serde(tag = "bits", content = "addr")]
+/// In files an address is its display string: `0x48`, `10:0x2A5`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Address {
-    #[serde(rename = "7")]
     Seven(u8),
-    #[serde(rename = "10")]
     Ten(u16),
+}
+
+impl Serialize for Address {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.collect_str(self)
+    }
+}
+
+impl<'de> Deserialize<'de> for Address {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        let text = String::deserialize(d)?;
+        Address::parse(&text).map_err(serde::de::Error::custom)
+    }
 }
 
 /// Why a number is not an address.

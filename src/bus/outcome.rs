@@ -102,10 +102,10 @@ impl Fault {
 pub struct Outcome {
     pub ops: Vec<OpOutcome>,
     /// Modelled time on the wire, clock stretching included.
-    #[serde(with = "micros")]
+    #[serde(rename = "bus_ns", with = "nanos")]
     pub bus_time: Duration,
     /// Time the adapter measured, where it reports one.
-    #[serde(default, skip_serializing_if = "Option::is_none", with = "opt_micros")]
+    #[serde(rename = "measured_ns", default, skip_serializing_if = "Option::is_none", with = "opt_nanos")]
     pub measured: Option<Duration>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fault: Option<Fault>,
@@ -127,31 +127,31 @@ impl Outcome {
     }
 }
 
-/// Durations in trace records are whole microseconds.
-pub mod micros {
+/// Durations in trace records are whole nanoseconds.
+pub mod nanos {
     use serde::{Deserialize, Deserializer, Serializer};
     use std::time::Duration;
 
     pub fn serialize<S: Serializer>(d: &Duration, s: S) -> Result<S::Ok, S::Error> {
-        s.serialize_u64(d.as_micros() as u64)
+        s.serialize_u64(d.as_nanos() as u64)
     }
     pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Duration, D::Error> {
-        Ok(Duration::from_micros(u64::deserialize(d)?))
+        Ok(Duration::from_nanos(u64::deserialize(d)?))
     }
 }
 
-pub mod opt_micros {
+pub mod opt_nanos {
     use serde::{Deserialize, Deserializer, Serializer};
     use std::time::Duration;
 
     pub fn serialize<S: Serializer>(d: &Option<Duration>, s: S) -> Result<S::Ok, S::Error> {
         match d {
-            Some(d) => s.serialize_some(&(d.as_micros() as u64)),
+            Some(d) => s.serialize_some(&(d.as_nanos() as u64)),
             None => s.serialize_none(),
         }
     }
     pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<Duration>, D::Error> {
-        Ok(Option::<u64>::deserialize(d)?.map(Duration::from_micros))
+        Ok(Option::<u64>::deserialize(d)?.map(Duration::from_nanos))
     }
 }
 

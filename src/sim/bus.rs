@@ -118,7 +118,8 @@ impl SimBus {
                 match *e {
                     Event::Start | Event::RepeatedStart => {}
                     Event::AddressByte(byte) => {
-                        let dir = if byte & 1 == 1 { Direction::Read } else { Direction::Write };
+                        // The low byte of a 10-bit address carries A0, not R/W.
+                        let dir = if ten_low_next || byte & 1 == 0 { Direction::Write } else { Direction::Read };
                         phase_op = (phase_op..tx.ops.len()).find(|&i| tx.ops[i].direction() == dir).unwrap_or(phase_op);
                         last_op = last_op.max(phase_op);
                         let Some(i) = target.filter(|_| !addr_only_nack) else {

@@ -1,0 +1,139 @@
+//! Subcommands and their shared options.
+
+mod run;
+mod scan;
+
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
+
+use anyhow::{Result, bail};
+use clap::{Args, Parser, Subcommand};
+
+use buscue::adapter::{self, AdapterSpec, OpenOptions};
+use buscue::bus::BusSpeed;
+use buscue::view::ColourChoice;
+
+#[derive(Parser, Debug)]
+#[command(name = "buscue", version, about = "Play scripted I2C transaction sequences through a bus adapter or the simulated bench")]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Run a Lua script of bus transactions and show every frame.
+    Run(run::RunArgs),
+    /// List the addresses that answer on the bus.
+    Scan(scan::ScanArgs),
+}
+
+/// Options every bus-facing command takes.
+#[derive(Args, Debug, Clone)]
+pub struct BusArgs {
+    /// Adapter: `sim` (the built-in greenhouse bench, the default) or
+    /// `sim:PATH` for another bench file.
+    #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
+    pub adapter: AdapterSpec,
+    /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
+    #[arg(long, value_parser = parse_speed)]
+    pub speed: Option<BusSpeed>,
+    /// Pace the simulated bench in real time instead of virtual time.
+    #[arg(long)]
+    pub realtime: bool,
+    /// Colour the frame log: auto (a terminal, unless NO_COLOR is set), always, never.
+    #[arg(long, value_enum, default_value = "auto", alias = "color")]
+    pub colour: ColourChoice,
+}
+
+impl BusArgs {
+    pub fn open(&self) -> Result<Box<dyn adapter::Adapter>> {
+        let mut a = adapter::open(&self.adapter, &OpenOptions { realtime: self.realtime })?;
+        if let Some(s) = self.speed {
+            a.set_speed(s)?;
+        }
+        Ok(a)
+    }
+}
+
+fn parse_adapter(s: &str) -> Result<AdapterSpec, String> {
+    AdapterSpec::parse(s).map_err(|e| e.to_string())
+}
+
+fn parse_speed(s: &str) -> Result<BusSpeed, String> {
+    s.parse().map_err(|e: buscue::bus::speed::SpeedError| e.to_string())
+}
+
+/// Parses `30`, `30s`, `500ms`, `2m`, `1h`; `0` means no limit.
+pub fn parse_duration(s: &str) -> Result<Duration, String> {
+    let t = s.trim();
+    let (num, unit) = match t.find(|c: char| !(c.is_ascii_digit() || c == '.')) {
+        Some(i) => t.split_at(i),
+        None => (t, "s"),
+    };
+    let v: f64 = num.parse().map_err(|_| format!("`{s}` is not a duration: write 30, 30s, 500ms, 2m or 1h"))?;
+    let scale = match unit {
+        "ms" => 1e-3,
+        "s" => 1.0,
+        "m" | "min" => 60.0,
+        "h" => 3600.0,
+        _ => return Err(format!("`{s}`: unknown unit `{unit}`; use ms, s, m or h")),
+    };
+    let secs = v * scale;
+    if !(0.0..=1e7).contains(&secs) {
+        return Err(format!("`{s}` is out of range"));
+    }
+    Ok(Duration::from_secs_f64(secs))
+}
+
+/// Parses `name=value` for `--set`.
+pub fn parse_assignment(s: &str) -> Result<(String, String), String> {
+    let (k, v) = s.split_once('=').ok_or_else(|| format!("`{s}`: write --set name=value"))?;
+    let k = k.trim();
+    if k.is_empty() || !k.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') {
+        return Err(format!("`{k}` is not a parameter name: letters, digits and '_'"));
+    }
+    Ok((k.to_string(), v.to_string()))
+}
+
+/// Ctrl-C sets the flag; the run stops after the transaction on the bus.
+/// A second Ctrl-C exits at once.
+pub fn interrupt_flag() -> Result<Arc<AtomicBool>> {
+    let flag = Arc::new(AtomicBool::new(false));
+    let f = flag.clone();
+    let r = ctrlc::set_handler(move || {
+        if f.swap(true, Ordering::SeqCst) {
+            std::process::exit(buscue::exit::INTERRUPTED as i32);
+        }
+    });
+    if let Err(e) = r {
+        bail!("cannot install the Ctrl-C handler: {e}");
+    }
+    Ok(flag)
+}
+
+pub fn dispatch(cli: Cli) -> Result<u8> {
+    match cli.command {
+        Command::Run(a) => run::run(a),
+        Command::Scan(a) => scan::scan(a),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn durations_and_assignments() {
+        assert_eq!(parse_duration("30"), Ok(Duration::from_secs(30)));
+        assert_eq!(parse_duration("500ms"), Ok(Duration::from_millis(500)));
+        assert_eq!(parse_duration("2m"), Ok(Duration::from_secs(120)));
+        assert!(parse_duration("fast").is_err());
+        assert!(parse_duration("3 weeks").is_err());
+        assert_eq!(parse_assignment("n=5"), Ok(("n".into(), "5".into())));
+        assert_eq!(parse_assignment("msg=a=b"), Ok(("msg".into(), "a=b".into())));
+        assert!(parse_assignment("novalue").is_err());
+        assert!(parse_assignment("bad name=1").is_err());
+    }
+}

@@ -1,0 +1,118 @@
+//! `buscue scan`: which addresses answer.
+
+use std::io::Write;
+
+use anyhow::Result;
+use clap::{Args, ValueEnum};
+
+use buscue::exit;
+use buscue::script::Session;
+use buscue::script::retry::RetryPolicy;
+use buscue::script::session::{Probe, RunError, scan_range};
+use buscue::view::plain::PlainLog;
+
+use super::{BusArgs, interrupt_flag};
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ProbeArg {
+    /// START, address + W, STOP. No data byte crosses the bus, so a device
+    /// that follows the usual pointer-then-data convention changes no
+    /// register. The default.
+    Address,
+    /// START, address + R, one byte NACKed, STOP. For devices that treat an
+    /// address-only write as a command (SMBus Quick Command); beware that a
+    /// read can clear read-to-clear status bits or pop a FIFO.
+    Read,
+}
+
+/// Probe each address once and list the ones that ACK.
+///
+/// The default probe is an address-only write because it moves no data:
+/// a register device's pointer and contents stay as they were. Reserved
+/// addresses (UM10204 §3.1.12: 0x00-0x07 and 0x78-0x7F) are skipped unless
+/// --include-reserved, since probing the general-call address talks to
+/// every device at once.
+#[derive(Args, Debug)]
+#[command(verbatim_doc_comment)]
+pub struct ScanArgs {
+    #[command(flatten)]
+    pub bus: BusArgs,
+    /// How to ask each address.
+    #[arg(long, value_enum, default_value = "address")]
+    pub probe: ProbeArg,
+    /// Also probe the reserved 7-bit addresses.
+    #[arg(long)]
+    pub include_reserved: bool,
+    /// Also probe the 1024 10-bit addresses.
+    #[arg(long)]
+    pub ten_bit: bool,
+    /// Tries per address, for devices that NACK now and then.
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..=100))]
+    pub attempts: u32,
+    /// Show every probe frame, not only the answers.
+    #[arg(long)]
+    pub frames: bool,
+    /// Print the result as one JSON object.
+    #[arg(long)]
+    pub json: bool,
+}
+
+pub fn scan(a: ScanArgs) -> Result<u8> {
+    let interrupt = interrupt_flag()?;
+    let adapter = a.bus.open()?;
+    let speed = adapter.speed();
+    let mut session = Session::new(adapter, interrupt);
+    if a.frames && !a.json {
+        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
+    }
+    let probe = match a.probe {
+        ProbeArg::Address => Probe::AddressOnly,
+        ProbeArg::Read => Probe::ReadByte,
+    };
+    let range = scan_range(a.include_reserved, a.ten_bit);
+    let policy = RetryPolicy::new(a.attempts as i64, 1.0, 1.0)?;
+    let result = session.scan(&range, probe, policy, None);
+    let code = match &result {
+        Ok(_) => exit::OK,
+        Err(RunError::Interrupted) => exit::INTERRUPTED,
+        Err(RunError::Adapter(_)) => exit::ADAPTER,
+        Err(_) => exit::BUS_FAILURE,
+    };
+    let _ = session.finish(code, result.as_ref().err().map(|e| e.to_string()));
+    let mut out = std::io::stdout().lock();
+    let found = match result {
+        Ok(f) => f,
+        Err(e) => {
+            eprintln!("error: scan stopped: {e}");
+            return Ok(code);
+        }
+    };
+    let probe_name = match a.probe {
+        ProbeArg::Address => "address-only write",
+        ProbeArg::Read => "one-byte read",
+    };
+    let write = |out: &mut std::io::StdoutLock| -> std::io::Result<()> {
+        if a.json {
+            let v = serde_json::json!({
+                "probed": range.len(),
+                "speed_hz": speed.hz(),
+                "probe": format!("{:?}", a.probe).to_lowercase(),
+                "found": found.iter().map(|x| x.to_string()).collect::<Vec<_>>(),
+            });
+            writeln!(out, "{v}")
+        } else {
+            writeln!(out, "probed {} addresses at {speed} with an {probe_name} each", range.len())?;
+            for f in &found {
+                match f.reserved() {
+                    Some(r) => writeln!(out, "  {f:<9}  answers  (reserved: {})", r.describe())?,
+                    None => writeln!(out, "  {f:<9}  answers")?,
+                }
+            }
+            writeln!(out, "{} answered", found.len())
+        }
+    };
+    match write(&mut out) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(code),
+    }
+}

@@ -1,0 +1,359 @@
+//! The script API's global functions (the README's "Script API" lists
+//! them): the `bus` table, checks, parameters, logging, steps, time and
+//! small formatting helpers. The register helper is in [`super::device`].
+//!
+//! Every function that touches the bus goes through
+//! [`Session::transact`](super::session::Session::transact), so retries,
+//! frames and stats are the same whichever function a script calls.
+
+use std::rc::Rc;
+use std::time::Duration;
+
+use mlua::{Lua, LuaSerdeExt, Table, Value, Variadic};
+
+use crate::bus::{Address, Operation, Outcome, Transaction};
+use crate::trace::record::Level;
+
+use super::convert::{self, LuaResult, bad, call_options, ms_option};
+use super::device::DeviceHandle;
+use super::session::{Probe, Request, RunError, scan_range};
+use super::{Abort, Ctx, origin};
+
+/// Turns a plain error raised in a callback into an [`Abort`] that carries
+/// the script line; errors that already are one pass through.
+pub fn located(lua: &Lua, e: mlua::Error) -> mlua::Error {
+    match e {
+        mlua::Error::RuntimeError(message) => mlua::Error::external(Abort::Script { message, origin: origin(lua) }),
+        other => other,
+    }
+}
+
+pub fn run_error(lua: &Lua, error: RunError) -> mlua::Error {
+    mlua::Error::external(Abort::Run { error, origin: origin(lua) })
+}
+
+/// Executes one transaction for a script call.
+pub fn transact(lua: &Lua, ctx: &Ctx, tx: &Transaction, opts: &convert::CallOptions, purpose: Option<&str>, decoded: Option<String>) -> LuaResult<Outcome> {
+    let req = Request {
+        retry: opts.retry,
+        origin: origin(lua),
+        purpose: purpose.map(str::to_string),
+        decoded,
+        allow_reserved: opts.reserved,
+    };
+    let result = ctx.session.borrow_mut().transact(tx, &req);
+    result.map_err(|e| run_error(lua, e))
+}
+
+/// Registers a function under `table.name` with errors located at the
+/// calling script line.
+fn add<A, R, F>(lua: &Lua, table: &Table, name: &str, f: F) -> mlua::Result<()>
+where
+    A: mlua::FromLuaMulti,
+    R: mlua::IntoLuaMulti,
+    F: Fn(&Lua, A) -> LuaResult<R> + 'static,
+{
+    let func = lua.create_function(move |lua, args: A| f(lua, args).map_err(|e| located(lua, e)))?;
+    table.set(name, func)
+}
+
+fn default_retry(ctx: &Ctx) -> super::retry::RetryPolicy {
+    ctx.session.borrow().default_retry
+}
+
+pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
+    let g = lua.globals();
+    let bus = lua.create_table()?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "write", move |lua, (addr, data, opts): (Value, Value, Option<Table>)| {
+        let (o, _) = call_options(opts, default_retry(&c), &[])?;
+        let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Write(convert::bytes(&data, "write")?)]);
+        transact(lua, &c, &tx, &o, None, None)?;
+        Ok(())
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "read", move |lua, (addr, n, opts): (Value, Value, Option<Table>)| {
+        let (o, _) = call_options(opts, default_retry(&c), &[])?;
+        let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Read(convert::count(&n, "read count")?)]);
+        let out = transact(lua, &c, &tx, &o, None, None)?;
+        convert::byte_table(lua, &out.read_bytes())
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "write_read", move |lua, (addr, data, n, opts): (Value, Value, Value, Option<Table>)| {
+        let (o, _) = call_options(opts, default_retry(&c), &[])?;
+        let ops = vec![Operation::Write(convert::bytes(&data, "write")?), Operation::Read(convert::count(&n, "read count")?)];
+        let out = transact(lua, &c, &Transaction::new(convert::address(&addr)?, ops), &o, None, None)?;
+        convert::byte_table(lua, &out.read_bytes())
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "transfer", move |lua, (addr, ops_v, opts): (Value, Table, Option<Table>)| {
+        let (o, _) = call_options(opts, default_retry(&c), &[])?;
+        let mut ops = Vec::new();
+        for (i, op) in ops_v.sequence_values::<Table>().enumerate() {
+            let op = op.map_err(|_| bad(format!("transfer operation {} must be a table like {{write = {{...}}}} or {{read = N}}", i + 1)))?;
+            convert::check_keys(&op, &format!("transfer operation {}", i + 1), &["write", "read"])?;
+            let w: Value = op.get("write")?;
+            let r: Value = op.get("read")?;
+            ops.push(match (w.is_nil(), r.is_nil()) {
+                (false, true) => Operation::Write(convert::bytes(&w, &format!("operation {} write", i + 1))?),
+                (true, false) => Operation::Read(convert::count(&r, &format!("operation {} read count", i + 1))?),
+                _ => return Err(bad(format!("transfer operation {} needs exactly one of `write` or `read`", i + 1))),
+            });
+        }
+        let out = transact(lua, &c, &Transaction::new(convert::address(&addr)?, ops.clone()), &o, None, None)?;
+        let results = lua.create_table()?;
+        for (i, (op, oo)) in ops.iter().zip(&out.ops).enumerate() {
+            match op {
+                Operation::Write(_) => results.set(i + 1, true)?,
+                Operation::Read(_) => results.set(i + 1, convert::byte_table(lua, &oo.data)?)?,
+            }
+        }
+        Ok(results)
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "scan", move |lua, opts: Option<Table>| {
+        if let Some(t) = &opts {
+            convert::check_keys(t, "scan options", &["reserved", "ten_bit", "probe"])?;
+        }
+        let get = |k: &str| -> LuaResult<Option<Value>> { Ok(opts.as_ref().map(|t| t.get::<Value>(k)).transpose()?.filter(|v| !v.is_nil())) };
+        let reserved = matches!(get("reserved")?, Some(Value::Boolean(true)));
+        let ten = matches!(get("ten_bit")?, Some(Value::Boolean(true)));
+        let probe = match get("probe")? {
+            None => Probe::AddressOnly,
+            Some(Value::String(s)) if s.to_string_lossy() == "address" => Probe::AddressOnly,
+            Some(Value::String(s)) if s.to_string_lossy() == "read" => Probe::ReadByte,
+            Some(_) => return Err(bad("scan probe must be \"address\" or \"read\"")),
+        };
+        let policy = c.session.borrow().default_retry;
+        let found = c.session.borrow_mut().scan(&scan_range(reserved, ten), probe, policy, origin(lua));
+        let found = found.map_err(|e| run_error(lua, e))?;
+        let t = lua.create_table()?;
+        for (i, a) in found.iter().enumerate() {
+            match a {
+                Address::Seven(v) => t.set(i + 1, *v)?,
+                Address::Ten(_) => t.set(i + 1, a.to_string())?,
+            }
+        }
+        Ok(t)
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "speed", move |_, v: Value| {
+        if !v.is_nil() {
+            let s = convert::speed(&v)?;
+            c.session.borrow_mut().adapter().set_speed(s).map_err(|e| bad(e.to_string()))?;
+        }
+        Ok(c.session.borrow().adapter_ref().speed().hz())
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "retry", move |lua, v: Value| {
+        let mut s = c.session.borrow_mut();
+        let prev = s.default_retry;
+        if !v.is_nil() {
+            s.default_retry = convert::retry(&v, prev)?;
+        }
+        let t = lua.create_table()?;
+        t.set("attempts", prev.attempts)?;
+        t.set("delay_ms", prev.delay.as_secs_f64() * 1e3)?;
+        t.set("backoff", prev.backoff)?;
+        Ok(t)
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "wait_ack", move |lua, (addr, opts): (Value, Option<Table>)| {
+        if let Some(t) = &opts {
+            convert::check_keys(t, "wait_ack options", &["timeout_ms", "interval_ms"])?;
+        }
+        let timeout = ms_option(opts.as_ref(), "timeout_ms", 50.0)?;
+        let interval = ms_option(opts.as_ref(), "interval_ms", 0.5)?;
+        let a = convert::address(&addr)?;
+        let waited = c.session.borrow_mut().wait_ack(a, timeout, interval, origin(lua));
+        Ok(waited.map_err(|e| run_error(lua, e))?.as_secs_f64() * 1e3)
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "recover", move |_, ()| {
+        let r = c.session.borrow_mut().adapter().recover().map_err(|e| bad(e.to_string()))?;
+        Ok((r.pulses, r.released))
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "stats", move |lua, ()| lua.to_value(&c.session.borrow().stats))?;
+
+    add(lua, &bus, "ten", |_, v: Value| Ok(Address::ten(convert::integer(&v, "10-bit address")?).map_err(|e| bad(e.to_string()))?.to_string()))?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "device", move |lua, (addr, opts): (Value, Option<Table>)| {
+        let d = DeviceHandle::new(c.clone(), convert::address(&addr)?, opts, default_retry(&c))?;
+        lua.create_userdata(d)
+    })?;
+    g.set("bus", bus)?;
+
+    install_globals(lua, &g, ctx)
+}
+
+fn join_args(args: &Variadic<Value>) -> LuaResult<String> {
+    let mut parts = Vec::with_capacity(args.len());
+    for v in args.iter() {
+        parts.push(match v {
+            Value::String(s) => s.to_string_lossy(),
+            Value::Integer(i) => i.to_string(),
+            Value::Number(n) => n.to_string(),
+            Value::Boolean(b) => b.to_string(),
+            Value::Nil => "nil".into(),
+            other => format!("{}", other.to_string()?),
+        });
+    }
+    Ok(parts.join(" "))
+}
+
+/// Hex text of a number (`0x1A`, `0x5E11`) or of a byte list (`1A 2B`).
+pub fn hex_value(v: &Value) -> LuaResult<String> {
+    match v {
+        Value::Table(_) | Value::String(_) => Ok(crate::view::format::hex_bytes(&convert::bytes(v, "value")?)),
+        other => {
+            let n = convert::integer(other, "value")?;
+            Ok(match n {
+                i64::MIN..=-1 => format!("-0x{:X}", n.unsigned_abs()),
+                0..=0xFF => format!("0x{n:02X}"),
+                0x100..=0xFFFF => format!("0x{n:04X}"),
+                _ => format!("0x{n:X}"),
+            })
+        }
+    }
+}
+
+/// Whether two values are equal as a check sees them: numbers by value,
+/// byte lists element by element.
+fn same(a: &Value, b: &Value) -> LuaResult<bool> {
+    Ok(match (a, b) {
+        (Value::Table(_), _) | (_, Value::Table(_)) => match (convert::bytes(a, "actual"), convert::bytes(b, "expected")) {
+            (Ok(x), Ok(y)) => x == y,
+            _ => false,
+        },
+        (Value::Integer(_) | Value::Number(_), Value::Integer(_) | Value::Number(_)) => convert::number(a, "actual")? == convert::number(b, "expected")?,
+        _ => a.equals(b)?,
+    })
+}
+
+fn shown(v: &Value) -> String {
+    match v {
+        Value::Integer(_) | Value::Table(_) => hex_value(v).unwrap_or_else(|_| format!("{v:?}")),
+        Value::Number(n) => n.to_string(),
+        Value::String(s) => format!("\"{}\"", s.to_string_lossy()),
+        other => other.to_string().unwrap_or_else(|_| other.type_name().to_string()),
+    }
+}
+
+fn check_failed(lua: &Lua, message: String) -> mlua::Error {
+    mlua::Error::external(Abort::Check { message, origin: origin(lua) })
+}
+
+fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
+    let c = ctx.clone();
+    add(lua, g, "sleep_ms", move |_, ms: Value| {
+        let ms = convert::number(&ms, "sleep_ms")?;
+        if !(0.0..=86_400_000.0).contains(&ms) {
+            return Err(bad(format!("sleep_ms must be 0-86400000, got {ms}")));
+        }
+        let r = c.session.borrow_mut().delay(Duration::from_secs_f64(ms / 1e3));
+        r.map_err(|e| bad(e.to_string()))
+    })?;
+
+    let c = ctx.clone();
+    add(lua, g, "now_ms", move |_, ()| Ok(c.session.borrow().now().as_secs_f64() * 1e3))?;
+
+    for (name, level) in [("log", Level::Info), ("print", Level::Info), ("warn", Level::Warn)] {
+        let c = ctx.clone();
+        add(lua, g, name, move |lua, args: Variadic<Value>| {
+            let text = join_args(&args)?;
+            c.session.borrow_mut().log(level, text, origin(lua));
+            Ok(())
+        })?;
+    }
+
+    let c = ctx.clone();
+    add(lua, g, "step", move |lua, name: String| {
+        c.session.borrow_mut().step(name, origin(lua));
+        Ok(())
+    })?;
+
+    let c = ctx.clone();
+    add(lua, g, "param", move |lua, (name, default): (String, Value)| {
+        let given = c.params.borrow_mut().get(&name);
+        let Some(text) = given else {
+            if default.is_nil() {
+                return Err(bad(format!("parameter `{name}` is not set and has no default; pass --set {name}=VALUE")));
+            }
+            return Ok(default);
+        };
+        let as_number = || -> LuaResult<Value> {
+            if let Some(i) = crate::bus::address::parse_int(&text) {
+                return Ok(Value::Integer(i));
+            }
+            let t = text.trim();
+            if let Some(i) = t.strip_prefix('-').and_then(crate::bus::address::parse_int) {
+                return Ok(Value::Integer(-i));
+            }
+            t.parse::<f64>().ok().filter(|f| f.is_finite()).map(Value::Number).ok_or_else(|| bad(format!("parameter `{name}` must be a number, got \"{text}\"")))
+        };
+        match default {
+            Value::Integer(_) | Value::Number(_) => as_number(),
+            Value::Boolean(_) => match text.to_ascii_lowercase().as_str() {
+                "true" | "yes" | "on" | "1" => Ok(Value::Boolean(true)),
+                "false" | "no" | "off" | "0" => Ok(Value::Boolean(false)),
+                _ => Err(bad(format!("parameter `{name}` must be true or false, got \"{text}\""))),
+            },
+            Value::Nil => match as_number() {
+                Ok(v) => Ok(v),
+                Err(_) => Ok(Value::String(lua.create_string(&text)?)),
+            },
+            _ => Ok(Value::String(lua.create_string(&text)?)),
+        }
+    })?;
+
+    add(lua, g, "check", |lua, (cond, message): (Value, Option<String>)| {
+        if matches!(cond, Value::Nil | Value::Boolean(false)) {
+            return Err(check_failed(lua, message.unwrap_or_else(|| "condition is false".into())));
+        }
+        Ok(())
+    })?;
+
+    add(lua, g, "check_eq", |lua, (actual, expected, what): (Value, Value, Option<String>)| {
+        if !same(&actual, &expected)? {
+            let what = what.unwrap_or_else(|| "value".into());
+            return Err(check_failed(lua, format!("{what}: expected {}, got {}", shown(&expected), shown(&actual))));
+        }
+        Ok(())
+    })?;
+
+    add(lua, g, "check_range", |lua, (v, lo, hi, what): (Value, Value, Value, Option<String>)| {
+        let (x, l, h) = (convert::number(&v, "value")?, convert::number(&lo, "low")?, convert::number(&hi, "high")?);
+        if !(l..=h).contains(&x) {
+            let what = what.unwrap_or_else(|| "value".into());
+            return Err(check_failed(lua, format!("{what}: expected {l} to {h}, got {x}")));
+        }
+        Ok(())
+    })?;
+
+    add(lua, g, "hex", |_, v: Value| hex_value(&v))?;
+
+    add(lua, g, "signed", |_, (v, bits): (Value, Option<u32>)| {
+        let bits = bits.unwrap_or(16);
+        if !(2..=32).contains(&bits) {
+            return Err(bad(format!("signed: width must be 2-32 bits, got {bits}")));
+        }
+        let n = convert::integer(&v, "signed value")?;
+        if n < 0 || n >= 1i64 << bits {
+            return Err(bad(format!("signed: {n} is not a {bits}-bit pattern")));
+        }
+        Ok(if n >= 1i64 << (bits - 1) { n - (1i64 << bits) } else { n })
+    })?;
+    Ok(())
+}

@@ -1,0 +1,266 @@
+//! The Lua player: runs a script against a [`Session`], in a sandbox, with
+//! limits, and turns whatever stops it into an [`Abort`] with the script's
+//! file and line.
+//!
+//! Contract:
+//! - Scripts are Lua 5.4 text (binary chunks are refused). The API is
+//!   documented in the README ("Script API") and lives in [`api`] and
+//!   [`device`].
+//! - Untrusted by default ([`sandbox`]): no process spawning, no file
+//!   writes, no C modules, no `debug`, `require` only from the script's
+//!   folder and `scripts/`; a memory limit and a wall-clock limit apply.
+//!   `allow_io` opens `io`, `os` and the stock `require`.
+//! - Every failure names the script line it happened at; a short traceback
+//!   of the script's own frames comes with it.
+
+pub mod api;
+pub mod convert;
+pub mod device;
+pub mod retry;
+pub mod sandbox;
+pub mod session;
+
+use std::cell::RefCell;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Path, PathBuf};
+use std::rc::Rc;
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::{Duration, Instant};
+
+use mlua::{HookTriggers, Lua, LuaOptions, MultiValue, StdLib, Value, VmState};
+use thiserror::Error;
+
+use crate::trace::Origin;
+pub use session::{RunError, Session};
+
+/// Why a script run stopped early.
+#[derive(Debug, Clone, Error)]
+pub enum Abort {
+    #[error("{}check failed: {message}", at(origin))]
+    Check { message: String, origin: Option<Origin> },
+    #[error("{}{error}", at(origin))]
+    Run { error: RunError, origin: Option<Origin> },
+    #[error("{}{message}", at(origin))]
+    Script { message: String, origin: Option<Origin> },
+    #[error("{0}")]
+    Limit(String),
+}
+
+fn at(o: &Option<Origin>) -> String {
+    o.as_ref().map(|o| format!("{o}: ")).unwrap_or_default()
+}
+
+impl Abort {
+    pub fn exit_code(&self) -> u8 {
+        use crate::exit;
+        match self {
+            Abort::Check { .. } => exit::CHECK_FAILED,
+            Abort::Run { error, .. } => match error {
+                RunError::Bus { .. } | RunError::PollTimeout { .. } => exit::BUS_FAILURE,
+                RunError::Adapter(_) => exit::ADAPTER,
+                RunError::Interrupted => exit::INTERRUPTED,
+                RunError::Shape(_) => exit::INPUT,
+            },
+            Abort::Script { .. } | Abort::Limit(_) => exit::INPUT,
+        }
+    }
+}
+
+/// Parameters from `--set name=value`, and which of them the script read.
+#[derive(Debug, Default)]
+pub struct Params {
+    values: BTreeMap<String, String>,
+    used: BTreeSet<String>,
+}
+
+impl Params {
+    pub fn new(values: BTreeMap<String, String>) -> Self {
+        Params { values, used: BTreeSet::new() }
+    }
+
+    pub fn get(&mut self, name: &str) -> Option<String> {
+        let v = self.values.get(name).cloned();
+        if v.is_some() {
+            self.used.insert(name.to_string());
+        }
+        v
+    }
+
+    /// Names given on the command line that the script never read.
+    pub fn unused(&self) -> Vec<String> {
+        self.values.keys().filter(|k| !self.used.contains(*k)).cloned().collect()
+    }
+}
+
+/// What a script run needs besides the session.
+#[derive(Debug, Clone)]
+pub struct RunConfig {
+    pub script: PathBuf,
+    pub params: BTreeMap<String, String>,
+    /// Wall-clock limit on the script; `None` for none.
+    pub timeout: Option<Duration>,
+    pub memory_limit: usize,
+    pub allow_io: bool,
+}
+
+/// Default memory limit for a script: generous for any bus sequence, small
+/// enough that a runaway table cannot take the machine down.
+pub const DEFAULT_MEMORY_LIMIT: usize = 256 * 1024 * 1024;
+
+/// State the API callbacks share.
+pub struct Ctx {
+    pub session: RefCell<Session>,
+    pub params: RefCell<Params>,
+    /// Traceback captured where the last error was raised.
+    pub traceback: RefCell<Option<String>>,
+}
+
+/// The result of a run.
+pub struct Report {
+    pub abort: Option<Abort>,
+    pub traceback: Option<String>,
+    pub unused_params: Vec<String>,
+    pub session: Session,
+}
+
+/// Chunk name prefix of the tool's own Lua code, skipped when looking for
+/// the script line.
+pub const INTERNAL_CHUNK: &str = "=buscue";
+
+/// The innermost stack frame that belongs to a script.
+pub fn origin(lua: &Lua) -> Option<Origin> {
+    script_frames(lua, 1).into_iter().next()
+}
+
+fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
+    let mut out = Vec::new();
+    for level in 0..64 {
+        let Some(frame) = lua.inspect_stack(level, |d| {
+            let s = d.source();
+            let internal = s.source.as_deref().is_some_and(|src| src.starts_with(INTERNAL_CHUNK));
+            if s.what == "C" || internal {
+                return Some(None);
+            }
+            let line = d.current_line()?;
+            Some(Some(Origin { file: s.short_src.as_deref().unwrap_or("?").to_string(), line: line as u32 }))
+        }) else {
+            break;
+        };
+        if let Some(Some(o)) = frame {
+            out.push(o);
+            if out.len() >= max {
+                break;
+            }
+        }
+    }
+    out
+}
+
+/// Finds the [`Abort`] inside whatever error Lua hands back.
+fn classify(e: &mlua::Error) -> Abort {
+    match e {
+        mlua::Error::CallbackError { cause, .. } => classify(cause),
+        mlua::Error::WithContext { cause, .. } => classify(cause),
+        mlua::Error::ExternalError(x) => match x.downcast_ref::<Abort>() {
+            Some(a) => a.clone(),
+            None => Abort::Script { message: x.to_string(), origin: None },
+        },
+        mlua::Error::MemoryError(m) => Abort::Limit(format!("script memory limit reached ({m}); raise it with --memory-limit")),
+        mlua::Error::SyntaxError { message, .. } => Abort::Script { message: message.clone(), origin: None },
+        mlua::Error::RuntimeError(m) => Abort::Script { message: m.clone(), origin: None },
+        other => Abort::Script { message: other.to_string(), origin: None },
+    }
+}
+
+fn classify_value(v: &Value) -> Abort {
+    match v {
+        Value::Error(e) => classify(e),
+        Value::String(s) => Abort::Script { message: s.to_string_lossy(), origin: None },
+        Value::Nil => Abort::Script { message: "error(nil) raised".into(), origin: None },
+        other => Abort::Script { message: format!("error raised with a {} value", other.type_name()), origin: None },
+    }
+}
+
+/// Runs a script to its end or to its first failure.
+pub fn run(session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Report {
+    let ctx = Rc::new(Ctx {
+        session: RefCell::new(session),
+        params: RefCell::new(Params::new(cfg.params.clone())),
+        traceback: RefCell::new(None),
+    });
+    let abort = match execute(&ctx, cfg, interrupt) {
+        Ok(()) => None,
+        Err(a) => Some(a),
+    };
+    let ctx = match Rc::try_unwrap(ctx) {
+        Ok(c) => c,
+        Err(_) => unreachable!("the Lua state holding the context was dropped"),
+    };
+    let unused_params = ctx.params.borrow().unused();
+    Report { abort, traceback: ctx.traceback.into_inner(), unused_params, session: ctx.session.into_inner() }
+}
+
+fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
+    let script_err = |m: String| Abort::Script { message: m, origin: None };
+    let text = std::fs::read_to_string(&cfg.script).map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?;
+    let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
+    let search = search_dirs(&cfg.script);
+    let setup = || -> mlua::Result<()> {
+        sandbox::install(&lua, cfg.allow_io, &search)?;
+        api::install(&lua, ctx.clone())?;
+        Ok(())
+    };
+    setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
+    lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
+    let deadline = cfg.timeout.map(|t| (Instant::now() + t, t));
+    lua.set_hook(HookTriggers::new().every_nth_instruction(1000), move |_, _| {
+        if interrupt.load(Ordering::Relaxed) {
+            return Err(mlua::Error::external(Abort::Run { error: RunError::Interrupted, origin: None }));
+        }
+        if let Some((when, limit)) = deadline
+            && Instant::now() >= when
+        {
+            return Err(mlua::Error::external(Abort::Limit(format!("script ran past its time limit of {} s (--timeout)", limit.as_secs_f64()))));
+        }
+        Ok(VmState::Continue)
+    })
+    .map_err(|e| script_err(e.to_string()))?;
+
+    let name = format!("@{}", cfg.script.display());
+    let main = lua.load(&text).set_name(name).set_mode(mlua::ChunkMode::Text).into_function().map_err(|e| classify(&e))?;
+    let tb_ctx = ctx.clone();
+    let handler = lua
+        .create_function(move |lua, err: Value| {
+            let frames = script_frames(lua, 8);
+            if !frames.is_empty() {
+                let tb = frames.iter().map(|o| format!("  at {o}")).collect::<Vec<_>>().join("\n");
+                *tb_ctx.traceback.borrow_mut() = Some(tb);
+            }
+            Ok(err)
+        })
+        .map_err(|e| script_err(e.to_string()))?;
+    let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
+    let result: MultiValue = xpcall.call((main, handler)).map_err(|e| classify(&e))?;
+    let mut values = result.into_iter();
+    match values.next() {
+        Some(Value::Boolean(true)) => Ok(()),
+        _ => {
+            let err = values.next().unwrap_or(Value::Nil);
+            let abort = classify_value(&err);
+            Err(abort)
+        }
+    }
+}
+
+/// Where `require` looks: the script's folder, then `scripts/`.
+pub fn search_dirs(script: &Path) -> Vec<PathBuf> {
+    let mut dirs = Vec::new();
+    let parent = script.parent().map(Path::to_path_buf).unwrap_or_default();
+    dirs.push(if parent.as_os_str().is_empty() { PathBuf::from(".") } else { parent });
+    let scripts = PathBuf::from("scripts");
+    if !dirs.contains(&scripts) {
+        dirs.push(scripts);
+    }
+    dirs
+}

@@ -1,0 +1,89 @@
+//! The script sandbox.
+//!
+//! Untrusted (the default): `io` is gone; `os` keeps only `clock`, `date`,
+//! `difftime` and `time`; `dofile`, `loadfile`, `string.dump` and
+//! `package.loadlib` are gone; `load` accepts text chunks only; `require`
+//! loads `NAME.lua` (dots become folders) from the script's folder or
+//! `scripts/`, nowhere else; the `debug` library is never loaded.
+//! With `allow_io` the stock `io`, `os`, `dofile`, `loadfile` and
+//! `require` (searching the same folders first) are available; C modules
+//! stay off either way.
+
+use std::path::{Path, PathBuf};
+
+use mlua::{ChunkMode, Lua, Table, Value};
+
+use super::INTERNAL_CHUNK;
+
+const PRELUDE: &str = r#"
+local raw_load = load
+load = function(chunk, name, mode, env)
+  return raw_load(chunk, name, "t", env)
+end
+string.dump = nil
+"#;
+
+pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()> {
+    let g = lua.globals();
+    lua.load(PRELUDE).set_name(format!("{INTERNAL_CHUNK} sandbox")).exec()?;
+    let package: Table = g.get("package")?;
+    package.set("loadlib", Value::Nil)?;
+    package.set("cpath", "")?;
+    let path = search.iter().map(|d| format!("{}/?.lua", d.display())).collect::<Vec<_>>().join(";");
+    if allow_io {
+        let old: String = package.get("path")?;
+        package.set("path", format!("{path};{old}"))?;
+        return Ok(());
+    }
+    package.set("path", path)?;
+    g.set("io", Value::Nil)?;
+    g.set("dofile", Value::Nil)?;
+    g.set("loadfile", Value::Nil)?;
+    let os: Table = g.get("os")?;
+    let safe = lua.create_table()?;
+    for k in ["clock", "date", "difftime", "time"] {
+        safe.set(k, os.get::<Value>(k)?)?;
+    }
+    g.set("os", safe)?;
+    let loaded: Table = package.get("loaded")?;
+    for k in ["io", "os"] {
+        loaded.set(k, Value::Nil)?;
+    }
+    loaded.set("os", g.get::<Value>("os")?)?;
+    let dirs = search.to_vec();
+    let require = lua.create_function(move |lua, name: String| require(lua, &dirs, &name))?;
+    g.set("require", require)?;
+    Ok(())
+}
+
+fn valid_module_name(name: &str) -> bool {
+    !name.is_empty()
+        && name.split('.').all(|part| !part.is_empty() && part.chars().all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-'))
+}
+
+fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
+    let loaded: Table = lua.globals().get::<Table>("package")?.get("loaded")?;
+    let cached: Value = loaded.get(name)?;
+    if !cached.is_nil() {
+        return Ok(cached);
+    }
+    if !valid_module_name(name) {
+        return Err(mlua::Error::RuntimeError(format!(
+            "require \"{name}\": module names are letters, digits, '_' and '-', separated by dots"
+        )));
+    }
+    let rel: PathBuf = format!("{}.lua", name.replace('.', "/")).into();
+    let Some(path) = dirs.iter().map(|d| d.join(&rel)).find(|p| p.is_file()) else {
+        let tried = dirs.iter().map(|d| d.join(&rel).display().to_string()).collect::<Vec<_>>().join(", ");
+        return Err(mlua::Error::RuntimeError(format!("require \"{name}\": no module found (looked in {tried})")));
+    };
+    let text = std::fs::read_to_string(&path).map_err(|e| mlua::Error::RuntimeError(format!("require \"{name}\": {}: {e}", path.display())))?;
+    let value: Value = lua.load(&text).set_name(format!("@{}", display(&path))).set_mode(ChunkMode::Text).call(name)?;
+    let value = if value.is_nil() { Value::Boolean(true) } else { value };
+    loaded.set(name, value.clone())?;
+    Ok(value)
+}
+
+fn display(p: &Path) -> String {
+    p.strip_prefix("./").unwrap_or(p).display().to_string()
+}

@@ -1,0 +1,338 @@
+//! A run's bus session: the one path every transaction takes from a script
+//! (or a command such as `scan`) to the adapter and back.
+//!
+//! Contract:
+//! - [`Session::transact`] validates the transaction (shape, reserved
+//!   addresses, adapter limits), then tries it up to the policy's attempts,
+//!   retrying only NACKs, waiting the policy's delay on the adapter clock;
+//!   each try becomes one [`Frame`] handed to every sink before the next
+//!   thing happens.
+//! - An interrupt request (Ctrl-C) is honoured between transactions: the
+//!   transaction on the bus completes (with its STOP) and nothing new starts.
+//! - A sink that fails is dropped with one warning (a closed pipe silently),
+//!   so a viewer going away never stops a bus sequence half-way.
+
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
+
+use thiserror::Error;
+
+use crate::adapter::Adapter;
+use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
+use crate::trace::record::{Level, Stats};
+use crate::trace::{Frame, Origin, Record, Sink};
+
+use super::retry::RetryPolicy;
+
+/// Why a session operation stopped.
+#[derive(Debug, Clone, Error)]
+pub enum RunError {
+    #[error("{0}")]
+    Shape(#[from] ShapeError),
+    #[error("{address}: {} ({attempts} of {attempts} attempt{})", describe(fault, ops), if *attempts == 1 { "" } else { "s" })]
+    Bus { address: Address, fault: Fault, attempts: u32, ops: Vec<Operation> },
+    #[error("{address}: still NACKing after {waited_ms:.3} ms of ACK polling")]
+    PollTimeout { address: Address, waited_ms: f64 },
+    #[error("adapter: {0}")]
+    Adapter(String),
+    #[error("interrupted")]
+    Interrupted,
+}
+
+fn describe(fault: &Fault, ops: &[Operation]) -> String {
+    match fault {
+        Fault::AddressNack { direction, .. } => format!("address NACK on {direction:?}").to_lowercase().replace("nack", "NACK"),
+        Fault::DataNack { op, index } => {
+            let byte = match ops.get(*op) {
+                Some(Operation::Write(b)) => b.get(*index).map(|v| format!(" (0x{v:02X})")).unwrap_or_default(),
+                _ => String::new(),
+            };
+            format!("data NACK at operation {op}, byte {index}{byte}")
+        }
+        other => other.to_string(),
+    }
+}
+
+pub struct Session {
+    adapter: Box<dyn Adapter>,
+    sinks: Vec<Box<dyn Sink>>,
+    seq: u64,
+    pub default_retry: RetryPolicy,
+    pub stats: Stats,
+    pub allow_reserved: bool,
+    interrupt: Arc<AtomicBool>,
+    warnings: Vec<String>,
+}
+
+/// What a transaction request carries besides the transaction.
+#[derive(Debug, Clone, Default)]
+pub struct Request {
+    pub retry: Option<RetryPolicy>,
+    pub origin: Option<Origin>,
+    pub purpose: Option<String>,
+    pub decoded: Option<String>,
+    pub allow_reserved: bool,
+}
+
+impl Session {
+    pub fn new(adapter: Box<dyn Adapter>, interrupt: Arc<AtomicBool>) -> Self {
+        Session {
+            adapter,
+            sinks: Vec::new(),
+            seq: 0,
+            default_retry: RetryPolicy::default(),
+            stats: Stats::default(),
+            allow_reserved: false,
+            interrupt,
+            warnings: Vec::new(),
+        }
+    }
+
+    pub fn add_sink(&mut self, sink: Box<dyn Sink>) {
+        self.sinks.push(sink);
+    }
+
+    pub fn adapter(&mut self) -> &mut dyn Adapter {
+        self.adapter.as_mut()
+    }
+
+    pub fn adapter_ref(&self) -> &dyn Adapter {
+        self.adapter.as_ref()
+    }
+
+    pub fn now(&self) -> Duration {
+        self.adapter.now()
+    }
+
+    pub fn interrupted(&self) -> bool {
+        self.interrupt.load(Ordering::Relaxed)
+    }
+
+    /// Warnings collected from failed sinks, for the end of the run.
+    pub fn take_warnings(&mut self) -> Vec<String> {
+        std::mem::take(&mut self.warnings)
+    }
+
+    fn emit(&mut self, r: &Record) {
+        let mut failed = Vec::new();
+        for (i, s) in self.sinks.iter_mut().enumerate() {
+            if let Err(e) = s.record(r) {
+                failed.push((i, e));
+            }
+        }
+        for (i, e) in failed.into_iter().rev() {
+            self.sinks.remove(i);
+            if e.kind() != std::io::ErrorKind::BrokenPipe {
+                self.warnings.push(format!("stopped writing one output: {e}"));
+            }
+        }
+    }
+
+    pub fn log(&mut self, level: Level, text: String, origin: Option<Origin>) {
+        let r = Record::Log { t: self.now(), level, text, origin };
+        self.emit(&r);
+    }
+
+    pub fn step(&mut self, name: String, origin: Option<Origin>) {
+        let r = Record::Step { t: self.now(), name, origin };
+        self.emit(&r);
+    }
+
+    pub fn delay(&mut self, d: Duration) -> Result<(), RunError> {
+        // Sleep in slices so Ctrl-C is honoured during long waits on a
+        // paced or real clock.
+        let slice = Duration::from_millis(50);
+        let mut left = d;
+        while left > Duration::ZERO {
+            if self.interrupted() {
+                return Err(RunError::Interrupted);
+            }
+            let step = left.min(slice);
+            self.adapter.delay(step);
+            left -= step;
+        }
+        Ok(())
+    }
+
+    /// Puts a transaction on the bus with retries; see the module contract.
+    pub fn transact(&mut self, tx: &Transaction, req: &Request) -> Result<Outcome, RunError> {
+        let caps = self.adapter.capabilities();
+        tx.validate(caps.max_bytes_per_op, self.allow_reserved || req.allow_reserved)?;
+        if tx.address.is_ten_bit() && !caps.ten_bit {
+            return Err(RunError::Adapter(format!("{} is a 10-bit address and this adapter has no 10-bit support", tx.address)));
+        }
+        let policy = req.retry.unwrap_or(self.default_retry);
+        self.stats.transactions += 1;
+        let mut attempt = 1;
+        loop {
+            if self.interrupted() {
+                return Err(RunError::Interrupted);
+            }
+            let t = self.adapter.now();
+            let outcome = self.adapter.execute(tx);
+            self.seq += 1;
+            self.account(tx, &outcome, attempt > 1);
+            let frame = Frame {
+                seq: self.seq,
+                t,
+                address: tx.address,
+                ops: tx.ops.clone(),
+                outcome,
+                attempt,
+                attempts: policy.attempts,
+                purpose: req.purpose.clone(),
+                origin: req.origin.clone(),
+                decoded: req.decoded.clone(),
+            };
+            let record = Record::Frame(frame);
+            self.emit(&record);
+            let Record::Frame(Frame { outcome, .. }) = record else { unreachable!("built as a frame above") };
+            match &outcome.fault {
+                None => return Ok(outcome),
+                Some(Fault::Adapter { detail }) => return Err(RunError::Adapter(detail.clone())),
+                Some(f) if f.is_nack() && attempt < policy.attempts => {
+                    attempt += 1;
+                    self.delay(policy.delay_before(attempt))?;
+                }
+                Some(f) => {
+                    return Err(RunError::Bus { address: tx.address, fault: f.clone(), attempts: attempt, ops: tx.ops.clone() });
+                }
+            }
+        }
+    }
+
+    fn account(&mut self, tx: &Transaction, o: &Outcome, retry: bool) {
+        let s = &mut self.stats;
+        s.attempts += 1;
+        s.retries += retry as u64;
+        s.bus_time += o.bus_time;
+        if o.fault.as_ref().is_some_and(Fault::is_nack) {
+            s.nacks += 1;
+        }
+        for (op, oo) in tx.ops.iter().zip(&o.ops) {
+            match op {
+                Operation::Write(_) => s.bytes_written += oo.acks.len() as u64,
+                Operation::Read(_) => s.bytes_read += oo.data.len() as u64,
+            }
+        }
+    }
+
+    /// ACK polling: probes `address` with address-only writes until it
+    /// ACKs or `timeout` passes; returns the time waited.
+    pub fn wait_ack(&mut self, address: Address, timeout: Duration, interval: Duration, origin: Option<Origin>) -> Result<Duration, RunError> {
+        let start = self.now();
+        let probe = Transaction::new(address, vec![Operation::Write(Vec::new())]);
+        let req = Request { retry: Some(RetryPolicy::default()), origin, purpose: Some("ack-poll".into()), ..Request::default() };
+        loop {
+            match self.transact(&probe, &req) {
+                Ok(_) => return Ok(self.now() - start),
+                Err(RunError::Bus { fault: Fault::AddressNack { .. }, .. }) => {
+                    let waited = self.now() - start;
+                    if waited >= timeout {
+                        return Err(RunError::PollTimeout { address, waited_ms: waited.as_secs_f64() * 1e3 });
+                    }
+                    self.delay(interval)?;
+                }
+                Err(e) => return Err(e),
+            }
+        }
+    }
+
+    /// Probes each address once and returns those that ACKed.
+    pub fn scan(&mut self, addresses: &[Address], probe: Probe, retry: RetryPolicy, origin: Option<Origin>) -> Result<Vec<Address>, RunError> {
+        let mut found = Vec::new();
+        let req = Request {
+            retry: Some(retry),
+            origin,
+            purpose: Some("scan".into()),
+            allow_reserved: true,
+            ..Request::default()
+        };
+        for &a in addresses {
+            let op = match probe {
+                Probe::AddressOnly => Operation::Write(Vec::new()),
+                Probe::ReadByte => Operation::Read(1),
+            };
+            match self.transact(&Transaction::new(a, vec![op]), &req) {
+                Ok(_) => found.push(a),
+                Err(RunError::Bus { fault, .. }) if fault.is_nack() => {}
+                Err(e) => return Err(e),
+            }
+        }
+        Ok(found)
+    }
+
+    /// Writes the end record, flushes the sinks and closes the adapter,
+    /// leaving the bus idle.
+    pub fn finish(&mut self, exit: u8, error: Option<String>) -> anyhow::Result<()> {
+        let r = Record::End { t: self.now(), stats: self.stats.clone(), exit, error };
+        self.emit(&r);
+        for s in &mut self.sinks {
+            let _ = s.flush();
+        }
+        self.adapter.close()
+    }
+}
+
+/// How `scan` asks each address whether anyone is there.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Probe {
+    /// START, address + W, STOP: no data byte crosses the bus.
+    AddressOnly,
+    /// START, address + R, one byte (NACKed), STOP.
+    ReadByte,
+}
+
+/// The 7-bit addresses a scan covers: all but the reserved ones, unless
+/// `include_reserved`.
+pub fn scan_range(include_reserved: bool, ten_bit: bool) -> Vec<Address> {
+    let mut v: Vec<Address> = (0u8..=0x7F).map(Address::Seven).filter(|a| include_reserved || a.reserved().is_none()).collect();
+    if ten_bit {
+        v.extend((0u16..=0x3FF).map(Address::Ten));
+    }
+    v
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::adapter::{AdapterSpec, OpenOptions, open};
+
+    fn session() -> Session {
+        let a = open(&AdapterSpec::DemoBench, &OpenOptions::default()).unwrap();
+        Session::new(a, Arc::new(AtomicBool::new(false)))
+    }
+
+    #[test]
+    fn scan_finds_the_demo_devices() {
+        let mut s = session();
+        let found = s.scan(&scan_range(false, false), Probe::AddressOnly, RetryPolicy::default(), None).unwrap();
+        for a in [0x29, 0x44, 0x45, 0x50] {
+            assert!(found.contains(&Address::Seven(a)), "{a:#x} missing from {found:?}");
+        }
+        assert_eq!(s.stats.attempts, 112, "0x08-0x77 is 112 addresses (UM10204 Table 4 reserves the other 16)");
+    }
+
+    #[test]
+    fn retries_count_and_exhaust() {
+        let mut s = session();
+        let tx = Transaction::new(Address::Seven(0x13), vec![Operation::Write(vec![0])]);
+        let req = Request { retry: Some(RetryPolicy::new(4, 1.0, 2.0).unwrap()), ..Request::default() };
+        let t0 = s.now();
+        let e = s.transact(&tx, &req).unwrap_err();
+        assert!(matches!(e, RunError::Bus { attempts: 4, .. }), "{e}");
+        assert_eq!(s.stats.retries, 3);
+        assert_eq!(s.stats.nacks, 4);
+        assert!(s.now() - t0 >= Duration::from_millis(1 + 2 + 4));
+        assert_eq!(e.to_string(), "0x13: address NACK on write (4 of 4 attempts)");
+    }
+
+    #[test]
+    fn reserved_addresses_are_refused() {
+        let mut s = session();
+        let tx = Transaction::new(Address::Seven(0x00), vec![Operation::Write(vec![0x06])]);
+        assert!(matches!(s.transact(&tx, &Request::default()), Err(RunError::Shape(ShapeError::Reserved { .. }))));
+        assert_eq!(s.stats.attempts, 0, "nothing may reach the bus");
+    }
+}

@@ -1,0 +1,132 @@
+//! The record types. Serialized as one JSON object per line with a `kind`
+//! tag; field names are part of the trace format and change only with its
+//! version.
+
+use std::fmt;
+use std::time::Duration;
+
+use serde::{Deserialize, Serialize};
+
+use crate::bus::outcome::nanos;
+use crate::bus::{Address, Operation, Outcome};
+
+/// Where in a script something happened.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Origin {
+    pub file: String,
+    pub line: u32,
+}
+
+impl fmt::Display for Origin {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}:{}", self.file, self.line)
+    }
+}
+
+/// One attempt at one transaction.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Frame {
+    /// Sequence number of the attempt within the run, from 1.
+    pub seq: u64,
+    /// Adapter clock when the attempt started.
+    #[serde(rename = "t_ns", with = "nanos")]
+    pub t: Duration,
+    pub address: Address,
+    pub ops: Vec<Operation>,
+    pub outcome: Outcome,
+    /// Attempt number, from 1, and the most the retry policy allows.
+    pub attempt: u32,
+    pub attempts: u32,
+    /// Why the tool sent it when the script did not ask directly:
+    /// `scan`, `ack-poll`, `poll`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub purpose: Option<String>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub origin: Option<Origin>,
+    /// Register or field names, where a register map is known.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub decoded: Option<String>,
+}
+
+/// Severity of a script log line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Level {
+    Info,
+    Warn,
+}
+
+/// Counters a run reports at its end.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Stats {
+    /// Transactions asked for (a retried one counts once).
+    pub transactions: u64,
+    /// Tries put on the bus, retries included.
+    pub attempts: u64,
+    pub retries: u64,
+    pub nacks: u64,
+    pub bytes_written: u64,
+    pub bytes_read: u64,
+    #[serde(rename = "bus_ns", with = "nanos")]
+    pub bus_time: Duration,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "lowercase")]
+pub enum Record {
+    Frame(Frame),
+    Log {
+        #[serde(rename = "t_ns", with = "nanos")]
+        t: Duration,
+        level: Level,
+        text: String,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        origin: Option<Origin>,
+    },
+    Step {
+        #[serde(rename = "t_ns", with = "nanos")]
+        t: Duration,
+        name: String,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        origin: Option<Origin>,
+    },
+    /// The last record of a run: counters, exit code and the error, if any.
+    End {
+        #[serde(rename = "t_ns", with = "nanos")]
+        t: Duration,
+        stats: Stats,
+        exit: u8,
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        error: Option<String>,
+    },
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bus::{OpOutcome, Operation};
+
+    #[test]
+    fn frame_round_trips_through_json() {
+        let f = Record::Frame(Frame {
+            seq: 3,
+            t: Duration::from_nanos(1_234_567),
+            address: Address::Ten(0x2A5),
+            ops: vec![Operation::Write(vec![1]), Operation::Read(2)],
+            outcome: Outcome {
+                ops: vec![OpOutcome { acks: vec![true], data: vec![] }, OpOutcome { acks: vec![], data: vec![7, 8] }],
+                bus_time: Duration::from_nanos(38_500),
+                measured: None,
+                fault: None,
+            },
+            attempt: 1,
+            attempts: 3,
+            purpose: None,
+            origin: Some(Origin { file: "a.lua".into(), line: 4 }),
+            decoded: None,
+        });
+        let text = serde_json::to_string(&f).unwrap();
+        assert!(text.starts_with(r#"{"kind":"frame","seq":3,"t_ns":1234567,"address":"10:0x2A5""#), "{text}");
+        assert_eq!(serde_json::from_str::<Record>(&text).unwrap(), f);
+    }
+}

@@ -1,0 +1,218 @@
+//! Text renderings shared by every view: one frame on one line, times,
+//! byte lists, the end-of-run summary.
+//!
+//! Frame line layout (ours):
+//!
+//! ```text
+//!     0.000385  #1     0x44       W 00 | R 5E 11                 ok           bringup.lua:12
+//! ```
+//!
+//! time on the adapter clock (s), sequence number, address, each operation
+//! as `W` or `R` and its bytes (a NACKed written byte is marked `!`, bytes
+//! never sent after a NACK are counted as `+N unsent`, a read that never
+//! happened shows `?xN`), the result, the attempt when retried, why the
+//! tool sent it (scan, ack-poll, poll), decoded register names, and the
+//! script line.
+
+use std::fmt::Write as _;
+use std::time::Duration;
+
+use crate::bus::{Operation, Outcome};
+use crate::trace::record::Stats;
+use crate::trace::Frame;
+
+/// ANSI styles by role; empty strings when colour is off.
+struct Palette {
+    dim: &'static str,
+    ok: &'static str,
+    warn: &'static str,
+    bad: &'static str,
+    reset: &'static str,
+}
+
+const COLOUR: Palette = Palette { dim: "\x1b[2m", ok: "\x1b[32m", warn: "\x1b[33m", bad: "\x1b[31;1m", reset: "\x1b[0m" };
+const PLAIN: Palette = Palette { dim: "", ok: "", warn: "", bad: "", reset: "" };
+
+pub fn seconds(t: Duration) -> String {
+    format!("{:>12.6}", t.as_secs_f64())
+}
+
+/// Duration in the most readable unit.
+pub fn human(d: Duration) -> String {
+    let ns = d.as_nanos();
+    if ns < 10_000 {
+        format!("{:.1} us", ns as f64 / 1e3)
+    } else if ns < 10_000_000 {
+        format!("{:.3} ms", ns as f64 / 1e6)
+    } else {
+        format!("{:.3} s", ns as f64 / 1e9)
+    }
+}
+
+/// Space-separated hex bytes.
+pub fn hex_bytes(bytes: &[u8]) -> String {
+    let mut s = String::with_capacity(bytes.len() * 3);
+    for (i, b) in bytes.iter().enumerate() {
+        if i > 0 {
+            s.push(' ');
+        }
+        let _ = write!(s, "{b:02X}");
+    }
+    s
+}
+
+fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
+    for (i, op) in ops.iter().enumerate() {
+        if i > 0 {
+            out.push_str(" | ");
+        }
+        let done = outcome.ops.get(i);
+        match op {
+            Operation::Write(bytes) => {
+                out.push('W');
+                let acks = done.map(|d| d.acks.as_slice()).unwrap_or(&[]);
+                for (j, b) in bytes.iter().enumerate().take(acks.len()) {
+                    let _ = write!(out, " {b:02X}");
+                    if !acks[j] {
+                        out.push('!');
+                    }
+                }
+                let unsent = bytes.len() - acks.len().min(bytes.len());
+                if unsent > 0 {
+                    if done.is_some() || outcome.fault.is_some() {
+                        let _ = write!(out, " +{unsent} unsent");
+                    }
+                } else if bytes.is_empty() {
+                    out.push_str(" -");
+                }
+            }
+            Operation::Read(n) => {
+                out.push('R');
+                match done {
+                    Some(d) if !d.data.is_empty() => {
+                        out.push(' ');
+                        out.push_str(&hex_bytes(&d.data));
+                        if d.data.len() < *n {
+                            let _ = write!(out, " ?x{}", n - d.data.len());
+                        }
+                    }
+                    _ => {
+                        let _ = write!(out, " ?x{n}");
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// One frame as one line, without a trailing newline.
+pub fn frame_line(f: &Frame, colour: bool) -> String {
+    let p = if colour { &COLOUR } else { &PLAIN };
+    let mut ops = String::with_capacity(48);
+    ops_text(&f.ops, &f.outcome, &mut ops);
+    let (style, result) = match &f.outcome.fault {
+        None => (p.ok, "ok".to_string()),
+        Some(fault) if fault.is_nack() => (p.warn, fault.label()),
+        Some(fault) => (p.bad, fault.label()),
+    };
+    let mut s = String::with_capacity(120);
+    let _ = write!(s, "{}{}{}  #{:<5} {:<9}  {:<30} {}{:<15}{}", p.dim, seconds(f.t), p.reset, f.seq, f.address.to_string(), ops, style, result, p.reset);
+    let _ = write!(s, " {:>9}", human(f.outcome.bus_time));
+    let retrying = f.outcome.fault.as_ref().is_some_and(|x| x.is_nack()) && f.attempts > 1;
+    if f.attempt > 1 || retrying {
+        let _ = write!(s, " try {}/{}", f.attempt, f.attempts);
+    }
+    if let Some(purpose) = &f.purpose {
+        let _ = write!(s, " ({purpose})");
+    }
+    if let Some(d) = &f.decoded {
+        let _ = write!(s, " [{d}]");
+    }
+    if let Some(o) = &f.origin {
+        let _ = write!(s, "  {}{}{}", p.dim, o, p.reset);
+    }
+    s
+}
+
+/// A script log line.
+pub fn log_line(t: Duration, warn: bool, text: &str, colour: bool) -> String {
+    let p = if colour { &COLOUR } else { &PLAIN };
+    let (tag, style) = if warn { ("warn", p.warn) } else { ("note", "") };
+    format!("{}{}{}  {style}{tag}{}   {text}", p.dim, seconds(t), p.reset, p.reset)
+}
+
+/// A step boundary.
+pub fn step_line(t: Duration, name: &str, colour: bool) -> String {
+    let p = if colour { &COLOUR } else { &PLAIN };
+    format!("{}{}{}  == {name} ==", p.dim, seconds(t), p.reset)
+}
+
+/// The end-of-run summary.
+pub fn summary(s: &Stats, host: Duration) -> String {
+    format!(
+        "{} transaction{} ({} attempt{}, {} retr{}, {} NACK{}), {} B written, {} B read, bus time {} (modelled), host time {}",
+        s.transactions,
+        if s.transactions == 1 { "" } else { "s" },
+        s.attempts,
+        if s.attempts == 1 { "" } else { "s" },
+        s.retries,
+        if s.retries == 1 { "y" } else { "ies" },
+        s.nacks,
+        if s.nacks == 1 { "" } else { "s" },
+        s.bytes_written,
+        s.bytes_read,
+        human(s.bus_time),
+        human(host)
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bus::{Address, Fault, OpOutcome};
+    use crate::trace::Origin;
+
+    fn frame(ops: Vec<Operation>, done: Vec<OpOutcome>, fault: Option<Fault>) -> Frame {
+        Frame {
+            seq: 7,
+            t: Duration::from_micros(1500),
+            address: Address::Seven(0x50),
+            ops,
+            outcome: Outcome { ops: done, bus_time: Duration::ZERO, measured: None, fault },
+            attempt: 2,
+            attempts: 3,
+            purpose: None,
+            origin: Some(Origin { file: "e.lua".into(), line: 9 }),
+            decoded: None,
+        }
+    }
+
+    #[test]
+    fn marks_nacked_and_unsent_bytes() {
+        let f = frame(
+            vec![Operation::Write(vec![0x00, 0x1F, 0x55, 0x56])],
+            vec![OpOutcome { acks: vec![true, true, false], data: vec![] }],
+            Some(Fault::DataNack { op: 0, index: 2 }),
+        );
+        let line = frame_line(&f, false);
+        assert!(line.contains("W 00 1F 55! +1 unsent"), "{line}");
+        assert!(line.contains("data-NACK@2"), "{line}");
+        assert!(line.contains("try 2/3"), "{line}");
+        assert!(line.ends_with("e.lua:9"), "{line}");
+        assert!(!line.contains('\x1b'));
+        assert!(frame_line(&f, true).contains("\x1b[33m"));
+    }
+
+    #[test]
+    fn shows_reads_and_missing_reads() {
+        let ok = frame(
+            vec![Operation::Write(vec![0x00]), Operation::Read(2)],
+            vec![OpOutcome { acks: vec![true], data: vec![] }, OpOutcome { acks: vec![], data: vec![0x5E, 0x11] }],
+            None,
+        );
+        assert!(frame_line(&ok, false).contains("W 00 | R 5E 11"));
+        let nack = frame(vec![Operation::Read(2)], vec![OpOutcome::default()], Some(Fault::AddressNack { op: 0, direction: crate::bus::Direction::Read }));
+        assert!(frame_line(&nack, false).contains("R ?x2"));
+        assert!(frame_line(&nack, false).contains("addr-NACK"));
+    }
+}

@@ -1,0 +1,31 @@
+//! How records look to a person or a program: the plain frame log (with
+//! colour on a terminal) and the JSON stream. Views are sinks: they observe
+//! records and never talk to the adapter.
+
+pub mod format;
+pub mod json;
+pub mod plain;
+
+use std::io::IsTerminal;
+
+/// When to colour output.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ColourChoice {
+    Auto,
+    Always,
+    Never,
+}
+
+impl ColourChoice {
+    /// `auto` colours only a terminal and honours NO_COLOR
+    /// (no-color.org: any non-empty value turns colour off).
+    pub fn resolve(self) -> bool {
+        match self {
+            ColourChoice::Always => true,
+            ColourChoice::Never => false,
+            ColourChoice::Auto => {
+                std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty()) && std::io::stdout().is_terminal()
+            }
+        }
+    }
+}
