@@ -6,7 +6,7 @@
 pub mod adapter;
 pub mod bus;
 pub mod exit;
-pub mod sim;
 pub mod script;
+pub mod sim;
 pub mod trace;
 pub mod view;

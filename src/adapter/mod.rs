@@ -130,7 +130,8 @@ pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> 
     let bench = match spec {
         AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
         AdapterSpec::Bench(path) => {
-            let text = std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
+            let text =
+                std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
             Bench::from_str(&text, &path.display().to_string())?
         }
     };

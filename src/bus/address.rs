@@ -87,20 +87,12 @@ pub const TEN_BIT_PREFIX: u8 = 0b1111_0000;
 impl Address {
     /// A 7-bit address; refuses anything above 0x7F rather than masking it.
     pub fn seven(value: i64) -> Result<Self, AddressError> {
-        u8::try_from(value)
-            .ok()
-            .filter(|v| *v <= 0x7F)
-            .map(Address::Seven)
-            .ok_or(AddressError::SevenOutOfRange(value))
+        u8::try_from(value).ok().filter(|v| *v <= 0x7F).map(Address::Seven).ok_or(AddressError::SevenOutOfRange(value))
     }
 
     /// A 10-bit address; refuses anything above 0x3FF.
     pub fn ten(value: i64) -> Result<Self, AddressError> {
-        u16::try_from(value)
-            .ok()
-            .filter(|v| *v <= 0x3FF)
-            .map(Address::Ten)
-            .ok_or(AddressError::TenOutOfRange(value))
+        u16::try_from(value).ok().filter(|v| *v <= 0x3FF).map(Address::Ten).ok_or(AddressError::TenOutOfRange(value))
     }
 
     /// Parses `0x48`, `72`, `0b1001000` as 7-bit and `10:0x2A5` as 10-bit.

@@ -118,7 +118,12 @@ impl Outcome {
 
     /// An outcome for a transaction that never reached the bus.
     pub fn adapter_failure(detail: impl Into<String>) -> Self {
-        Outcome { ops: Vec::new(), bus_time: Duration::ZERO, measured: None, fault: Some(Fault::Adapter { detail: detail.into() }) }
+        Outcome {
+            ops: Vec::new(),
+            bus_time: Duration::ZERO,
+            measured: None,
+            fault: Some(Fault::Adapter { detail: detail.into() }),
+        }
     }
 
     /// All bytes read, in order, across the read operations.

@@ -81,10 +81,18 @@ pub enum Event {
     /// An address byte (R/W included) sent by the controller.
     AddressByte(u8),
     /// A data byte sent by the controller; `op` and `index` locate it.
-    WriteByte { op: usize, index: usize, byte: u8 },
+    WriteByte {
+        op: usize,
+        index: usize,
+        byte: u8,
+    },
     /// A data byte sent by the target; the controller answers with ACK
     /// (`ack = true`) or NACK.
-    ReadByte { op: usize, index: usize, ack: bool },
+    ReadByte {
+        op: usize,
+        index: usize,
+        ack: bool,
+    },
     Stop,
 }
 
@@ -112,10 +120,8 @@ impl Transaction {
         if self.ops.is_empty() {
             return Err(ShapeError::NoOperations);
         }
-        if !allow_reserved {
-            if let Some(r) = self.address.reserved() {
-                return Err(ShapeError::Reserved { address: self.address, purpose: r.describe() });
-            }
+        if !allow_reserved && let Some(r) = self.address.reserved() {
+            return Err(ShapeError::Reserved { address: self.address, purpose: r.describe() });
         }
         let max = max_per_op.min(MAX_OPERATION_BYTES);
         for (op, o) in self.ops.iter().enumerate() {
@@ -214,13 +220,19 @@ mod tests {
     // addr+R, data, controller NACKs the last byte, P.
     #[test]
     fn write_then_read_uses_repeated_start() {
-        let t = Transaction::new(
-            Address::Seven(0x44),
-            vec![Operation::Write(vec![0x03]), Operation::Read(2)],
-        );
+        let t = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)]);
         assert_eq!(
             t.events(),
-            vec![Start, AddressByte(0x88), wb(0, 0, 0x03), RepeatedStart, AddressByte(0x89), rb(1, 0, true), rb(1, 1, false), Stop]
+            vec![
+                Start,
+                AddressByte(0x88),
+                wb(0, 0, 0x03),
+                RepeatedStart,
+                AddressByte(0x89),
+                rb(1, 0, true),
+                rb(1, 1, false),
+                Stop
+            ]
         );
     }
 
@@ -272,7 +284,16 @@ mod tests {
         let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
         assert_eq!(
             t.events(),
-            vec![Start, AddressByte(0xF4), AddressByte(0xA5), wb(0, 0, 0x01), RepeatedStart, AddressByte(0xF5), rb(1, 0, false), Stop]
+            vec![
+                Start,
+                AddressByte(0xF4),
+                AddressByte(0xA5),
+                wb(0, 0, 0x01),
+                RepeatedStart,
+                AddressByte(0xF5),
+                rb(1, 0, false),
+                Stop
+            ]
         );
     }
 

@@ -15,7 +15,11 @@ use buscue::bus::BusSpeed;
 use buscue::view::ColourChoice;
 
 #[derive(Parser, Debug)]
-#[command(name = "buscue", version, about = "Play scripted I2C transaction sequences through a bus adapter or the simulated bench")]
+#[command(
+    name = "buscue",
+    version,
+    about = "Play scripted I2C transaction sequences through a bus adapter or the simulated bench"
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,

@@ -33,7 +33,14 @@ pub fn run_error(lua: &Lua, error: RunError) -> mlua::Error {
 }
 
 /// Executes one transaction for a script call.
-pub fn transact(lua: &Lua, ctx: &Ctx, tx: &Transaction, opts: &convert::CallOptions, purpose: Option<&str>, decoded: Option<String>) -> LuaResult<Outcome> {
+pub fn transact(
+    lua: &Lua,
+    ctx: &Ctx,
+    tx: &Transaction,
+    opts: &convert::CallOptions,
+    purpose: Option<&str>,
+    decoded: Option<String>,
+) -> LuaResult<Outcome> {
     let req = Request {
         retry: opts.retry,
         origin: origin(lua),
@@ -84,7 +91,8 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let c = ctx.clone();
     add(lua, &bus, "write_read", move |lua, (addr, data, n, opts): (Value, Value, Value, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
-        let ops = vec![Operation::Write(convert::bytes(&data, "write")?), Operation::Read(convert::count(&n, "read count")?)];
+        let ops =
+            vec![Operation::Write(convert::bytes(&data, "write")?), Operation::Read(convert::count(&n, "read count")?)];
         let out = transact(lua, &c, &Transaction::new(convert::address(&addr)?, ops), &o, None, None)?;
         convert::byte_table(lua, &out.read_bytes())
     })?;
@@ -94,7 +102,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let mut ops = Vec::new();
         for (i, op) in ops_v.sequence_values::<Table>().enumerate() {
-            let op = op.map_err(|_| bad(format!("transfer operation {} must be a table like {{write = {{...}}}} or {{read = N}}", i + 1)))?;
+            let op = op.map_err(|_| {
+                bad(format!("transfer operation {} must be a table like {{write = {{...}}}} or {{read = N}}", i + 1))
+            })?;
             convert::check_keys(&op, &format!("transfer operation {}", i + 1), &["write", "read"])?;
             let w: Value = op.get("write")?;
             let r: Value = op.get("read")?;
@@ -120,7 +130,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         if let Some(t) = &opts {
             convert::check_keys(t, "scan options", &["reserved", "ten_bit", "probe"])?;
         }
-        let get = |k: &str| -> LuaResult<Option<Value>> { Ok(opts.as_ref().map(|t| t.get::<Value>(k)).transpose()?.filter(|v| !v.is_nil())) };
+        let get = |k: &str| -> LuaResult<Option<Value>> {
+            Ok(opts.as_ref().map(|t| t.get::<Value>(k)).transpose()?.filter(|v| !v.is_nil()))
+        };
         let reserved = matches!(get("reserved")?, Some(Value::Boolean(true)));
         let ten = matches!(get("ten_bit")?, Some(Value::Boolean(true)));
         let probe = match get("probe")? {
@@ -186,7 +198,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let c = ctx.clone();
     add(lua, &bus, "stats", move |lua, ()| lua.to_value(&c.session.borrow().stats))?;
 
-    add(lua, &bus, "ten", |_, v: Value| Ok(Address::ten(convert::integer(&v, "10-bit address")?).map_err(|e| bad(e.to_string()))?.to_string()))?;
+    add(lua, &bus, "ten", |_, v: Value| {
+        Ok(Address::ten(convert::integer(&v, "10-bit address")?).map_err(|e| bad(e.to_string()))?.to_string())
+    })?;
 
     let c = ctx.clone();
     add(lua, &bus, "device", move |lua, (addr, opts): (Value, Option<Table>)| {
@@ -207,7 +221,7 @@ fn join_args(args: &Variadic<Value>) -> LuaResult<String> {
             Value::Number(n) => n.to_string(),
             Value::Boolean(b) => b.to_string(),
             Value::Nil => "nil".into(),
-            other => format!("{}", other.to_string()?),
+            other => other.to_string()?,
         });
     }
     Ok(parts.join(" "))
@@ -233,11 +247,15 @@ pub fn hex_value(v: &Value) -> LuaResult<String> {
 /// byte lists element by element.
 fn same(a: &Value, b: &Value) -> LuaResult<bool> {
     Ok(match (a, b) {
-        (Value::Table(_), _) | (_, Value::Table(_)) => match (convert::bytes(a, "actual"), convert::bytes(b, "expected")) {
-            (Ok(x), Ok(y)) => x == y,
-            _ => false,
-        },
-        (Value::Integer(_) | Value::Number(_), Value::Integer(_) | Value::Number(_)) => convert::number(a, "actual")? == convert::number(b, "expected")?,
+        (Value::Table(_), _) | (_, Value::Table(_)) => {
+            match (convert::bytes(a, "actual"), convert::bytes(b, "expected")) {
+                (Ok(x), Ok(y)) => x == y,
+                _ => false,
+            }
+        }
+        (Value::Integer(_) | Value::Number(_), Value::Integer(_) | Value::Number(_)) => {
+            convert::number(a, "actual")? == convert::number(b, "expected")?
+        }
         _ => a.equals(b)?,
     })
 }
@@ -301,7 +319,11 @@ fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
             if let Some(i) = t.strip_prefix('-').and_then(crate::bus::address::parse_int) {
                 return Ok(Value::Integer(-i));
             }
-            t.parse::<f64>().ok().filter(|f| f.is_finite()).map(Value::Number).ok_or_else(|| bad(format!("parameter `{name}` must be a number, got \"{text}\"")))
+            t.parse::<f64>()
+                .ok()
+                .filter(|f| f.is_finite())
+                .map(Value::Number)
+                .ok_or_else(|| bad(format!("parameter `{name}` must be a number, got \"{text}\"")))
         };
         match default {
             Value::Integer(_) | Value::Number(_) => as_number(),

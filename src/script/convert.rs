@@ -104,7 +104,8 @@ pub fn retry(v: &Value, base: RetryPolicy) -> LuaResult<RetryPolicy> {
     match v {
         Value::Boolean(false) => Ok(RetryPolicy::default()),
         Value::Integer(_) | Value::Number(_) => {
-            RetryPolicy::new(integer(v, "retry")?, base.delay.as_secs_f64() * 1e3, base.backoff).map_err(|e| bad(e.to_string()))
+            RetryPolicy::new(integer(v, "retry")?, base.delay.as_secs_f64() * 1e3, base.backoff)
+                .map_err(|e| bad(e.to_string()))
         }
         Value::Table(t) => {
             check_keys(t, "retry", &["attempts", "delay_ms", "backoff"])?;

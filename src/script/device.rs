@@ -23,10 +23,10 @@ use mlua::{Lua, Table, UserData, UserDataFields, UserDataMethods, Value};
 
 use crate::bus::{Address, Operation, Transaction};
 
+use super::Ctx;
 use super::api::{located, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
 use super::retry::RetryPolicy;
-use super::Ctx;
 
 #[derive(Debug, Clone)]
 struct Field {
@@ -108,7 +108,11 @@ impl DeviceHandle {
         match v {
             Value::String(s) => {
                 let name = s.to_string_lossy();
-                let r = self.map.regs.get(&name).ok_or_else(|| bad(format!("{}: no register `{name}` in the map", self.address)))?;
+                let r = self
+                    .map
+                    .regs
+                    .get(&name)
+                    .ok_or_else(|| bad(format!("{}: no register `{name}` in the map", self.address)))?;
                 Ok((r.at, Some(name)))
             }
             other => {
@@ -123,9 +127,14 @@ impl DeviceHandle {
     }
 
     fn field(&self, path: &str) -> LuaResult<(u32, String, Field)> {
-        let (reg, field) = path.split_once('.').ok_or_else(|| bad(format!("field `{path}` must be written REGISTER.FIELD")))?;
-        let r = self.map.regs.get(reg).ok_or_else(|| bad(format!("{}: no register `{reg}` in the map", self.address)))?;
-        let f = r.fields.get(field).ok_or_else(|| bad(format!("{}: register `{reg}` has no field `{field}`", self.address)))?;
+        let (reg, field) =
+            path.split_once('.').ok_or_else(|| bad(format!("field `{path}` must be written REGISTER.FIELD")))?;
+        let r =
+            self.map.regs.get(reg).ok_or_else(|| bad(format!("{}: no register `{reg}` in the map", self.address)))?;
+        let f = r
+            .fields
+            .get(field)
+            .ok_or_else(|| bad(format!("{}: register `{reg}` has no field `{field}`", self.address)))?;
         Ok((r.at, path.to_string(), f.clone()))
     }
 
@@ -168,7 +177,8 @@ impl DeviceHandle {
     }
 
     fn guard(&self, reg: u32, name: &Option<String>, unlock: bool) -> LuaResult<()> {
-        let guarded = name.as_ref().and_then(|n| self.map.regs.get(n.split('.').next().unwrap_or(n))).is_some_and(|r| r.guard);
+        let guarded =
+            name.as_ref().and_then(|n| self.map.regs.get(n.split('.').next().unwrap_or(n))).is_some_and(|r| r.guard);
         if guarded && !unlock {
             return Err(bad(format!(
                 "{} register 0x{reg:02X} ({}) is guarded; pass {{unlock = true}} to write it",
@@ -198,18 +208,28 @@ fn parse_map(m: &Table, pointer_bytes: usize, width: usize) -> LuaResult<RegMap>
         check_keys(&def, &format!("register map `{name}`"), &["at", "fields", "guard", "doc"])?;
         let at = convert::integer(&def.get::<Value>("at")?, &format!("register map `{name}`.at"))?;
         if !(0..=max_reg).contains(&at) {
-            return Err(bad(format!("register map `{name}`.at = 0x{at:X} does not fit a {}-bit pointer", pointer_bytes * 8)));
+            return Err(bad(format!(
+                "register map `{name}`.at = 0x{at:X} does not fit a {}-bit pointer",
+                pointer_bytes * 8
+            )));
         }
         let mut fields = HashMap::new();
         if let Some(ft) = def.get::<Option<Table>>("fields")? {
             for fp in ft.pairs::<String, Table>() {
-                let (fname, f) = fp.map_err(|_| bad(format!("register map `{name}`.fields entries must be NAME = {{ bit = N }} or {{ lsb = N, width = N }}")))?;
+                let (fname, f) = fp.map_err(|_| {
+                    bad(format!(
+                        "register map `{name}`.fields entries must be NAME = {{ bit = N }} or {{ lsb = N, width = N }}"
+                    ))
+                })?;
                 let key = format!("register map `{name}.{fname}`");
                 check_keys(&f, &key, &["bit", "lsb", "width", "doc"])?;
                 let (lsb, w) = match (f.get::<Value>("bit")?, f.get::<Value>("lsb")?) {
                     (Value::Nil, Value::Nil) => return Err(bad(format!("{key} needs `bit` or `lsb` and `width`"))),
                     (b, Value::Nil) => (convert::integer(&b, &format!("{key}.bit"))?, 1),
-                    (Value::Nil, l) => (convert::integer(&l, &format!("{key}.lsb"))?, convert::integer(&f.get::<Value>("width")?, &format!("{key}.width"))?),
+                    (Value::Nil, l) => (
+                        convert::integer(&l, &format!("{key}.lsb"))?,
+                        convert::integer(&f.get::<Value>("width")?, &format!("{key}.width"))?,
+                    ),
                     _ => return Err(bad(format!("{key}: give `bit` or `lsb`, not both"))),
                 };
                 let bits = (width * 8) as i64;
@@ -245,7 +265,10 @@ impl UserData for DeviceHandle {
                 let (reg, name) = this.register(&reg)?;
                 let v = convert::integer(&value, "register value")?;
                 if v < 0 {
-                    return Err(bad(format!("register value {v} is negative; registers hold 0-0x{:X}", this.max_value())));
+                    return Err(bad(format!(
+                        "register value {v} is negative; registers hold 0-0x{:X}",
+                        this.max_value()
+                    )));
                 }
                 this.write_reg(lua, reg, name, v.min(u32::MAX as i64) as u32, unlock_option(&opts)?)
             };
@@ -305,7 +328,10 @@ impl UserData for DeviceHandle {
         methods.add_method("read_bytes", |lua, this, (reg, n): (Value, Value)| {
             let r = || -> LuaResult<Table> {
                 let (reg, name) = this.register(&reg)?;
-                let tx = Transaction::new(this.address, vec![Operation::Write(this.pointer(reg)), Operation::Read(convert::count(&n, "read count")?)]);
+                let tx = Transaction::new(
+                    this.address,
+                    vec![Operation::Write(this.pointer(reg)), Operation::Read(convert::count(&n, "read count")?)],
+                );
                 let out = transact(lua, &this.ctx, &tx, &this.options(), None, name)?;
                 convert::byte_table(lua, &out.read_bytes())
             };
@@ -338,7 +364,11 @@ impl UserData for DeviceHandle {
                 let (reg, name, f) = this.field(&path)?;
                 let v = convert::integer(&value, &path)?;
                 if v < 0 || v >= 1i64 << f.width {
-                    return Err(bad(format!("{path} is {} bit{} wide; {v} does not fit", f.width, if f.width == 1 { "" } else { "s" })));
+                    return Err(bad(format!(
+                        "{path} is {} bit{} wide; {v} does not fit",
+                        f.width,
+                        if f.width == 1 { "" } else { "s" }
+                    )));
                 }
                 this.guard(reg, &Some(name.clone()), unlock_option(&opts)?)?;
                 let old = this.read_reg(lua, reg, Some(name.clone()), None)?;

@@ -166,7 +166,9 @@ fn classify(e: &mlua::Error) -> Abort {
             Some(a) => a.clone(),
             None => Abort::Script { message: x.to_string(), origin: None },
         },
-        mlua::Error::MemoryError(m) => Abort::Limit(format!("script memory limit reached ({m}); raise it with --memory-limit")),
+        mlua::Error::MemoryError(m) => {
+            Abort::Limit(format!("script memory limit reached ({m}); raise it with --memory-limit"))
+        }
         mlua::Error::SyntaxError { message, .. } => Abort::Script { message: message.clone(), origin: None },
         mlua::Error::RuntimeError(m) => Abort::Script { message: m.clone(), origin: None },
         other => Abort::Script { message: other.to_string(), origin: None },
@@ -189,10 +191,7 @@ pub fn run(session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Rep
         params: RefCell::new(Params::new(cfg.params.clone())),
         traceback: RefCell::new(None),
     });
-    let abort = match execute(&ctx, cfg, interrupt) {
-        Ok(()) => None,
-        Err(a) => Some(a),
-    };
+    let abort = execute(&ctx, cfg, interrupt).err();
     let ctx = match Rc::try_unwrap(ctx) {
         Ok(c) => c,
         Err(_) => unreachable!("the Lua state holding the context was dropped"),
@@ -203,7 +202,8 @@ pub fn run(session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Rep
 
 fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
     let script_err = |m: String| Abort::Script { message: m, origin: None };
-    let text = std::fs::read_to_string(&cfg.script).map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?;
+    let text = std::fs::read_to_string(&cfg.script)
+        .map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?;
     let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
     let search = search_dirs(&cfg.script);
     let setup = || -> mlua::Result<()> {
@@ -221,14 +221,18 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
         if let Some((when, limit)) = deadline
             && Instant::now() >= when
         {
-            return Err(mlua::Error::external(Abort::Limit(format!("script ran past its time limit of {} s (--timeout)", limit.as_secs_f64()))));
+            return Err(mlua::Error::external(Abort::Limit(format!(
+                "script ran past its time limit of {} s (--timeout)",
+                limit.as_secs_f64()
+            ))));
         }
         Ok(VmState::Continue)
     })
     .map_err(|e| script_err(e.to_string()))?;
 
     let name = format!("@{}", cfg.script.display());
-    let main = lua.load(&text).set_name(name).set_mode(mlua::ChunkMode::Text).into_function().map_err(|e| classify(&e))?;
+    let main =
+        lua.load(&text).set_name(name).set_mode(mlua::ChunkMode::Text).into_function().map_err(|e| classify(&e))?;
     let tb_ctx = ctx.clone();
     let handler = lua
         .create_function(move |lua, err: Value| {

@@ -58,7 +58,9 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
 
 fn valid_module_name(name: &str) -> bool {
     !name.is_empty()
-        && name.split('.').all(|part| !part.is_empty() && part.chars().all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-'))
+        && name
+            .split('.')
+            .all(|part| !part.is_empty() && part.chars().all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-'))
 }
 
 fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
@@ -77,7 +79,8 @@ fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
         let tried = dirs.iter().map(|d| d.join(&rel).display().to_string()).collect::<Vec<_>>().join(", ");
         return Err(mlua::Error::RuntimeError(format!("require \"{name}\": no module found (looked in {tried})")));
     };
-    let text = std::fs::read_to_string(&path).map_err(|e| mlua::Error::RuntimeError(format!("require \"{name}\": {}: {e}", path.display())))?;
+    let text = std::fs::read_to_string(&path)
+        .map_err(|e| mlua::Error::RuntimeError(format!("require \"{name}\": {}: {e}", path.display())))?;
     let value: Value = lua.load(&text).set_name(format!("@{}", display(&path))).set_mode(ChunkMode::Text).call(name)?;
     let value = if value.is_nil() { Value::Boolean(true) } else { value };
     loaded.set(name, value.clone())?;

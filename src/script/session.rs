@@ -42,7 +42,9 @@ pub enum RunError {
 
 fn describe(fault: &Fault, ops: &[Operation]) -> String {
     match fault {
-        Fault::AddressNack { direction, .. } => format!("address NACK on {direction:?}").to_lowercase().replace("nack", "NACK"),
+        Fault::AddressNack { direction, .. } => {
+            format!("address NACK on {direction:?}").to_lowercase().replace("nack", "NACK")
+        }
         Fault::DataNack { op, index } => {
             let byte = match ops.get(*op) {
                 Some(Operation::Write(b)) => b.get(*index).map(|v| format!(" (0x{v:02X})")).unwrap_or_default(),
@@ -160,7 +162,10 @@ impl Session {
         let caps = self.adapter.capabilities();
         tx.validate(caps.max_bytes_per_op, self.allow_reserved || req.allow_reserved)?;
         if tx.address.is_ten_bit() && !caps.ten_bit {
-            return Err(RunError::Adapter(format!("{} is a 10-bit address and this adapter has no 10-bit support", tx.address)));
+            return Err(RunError::Adapter(format!(
+                "{} is a 10-bit address and this adapter has no 10-bit support",
+                tx.address
+            )));
         }
         let policy = req.retry.unwrap_or(self.default_retry);
         self.stats.transactions += 1;
@@ -196,7 +201,12 @@ impl Session {
                     self.delay(policy.delay_before(attempt))?;
                 }
                 Some(f) => {
-                    return Err(RunError::Bus { address: tx.address, fault: f.clone(), attempts: attempt, ops: tx.ops.clone() });
+                    return Err(RunError::Bus {
+                        address: tx.address,
+                        fault: f.clone(),
+                        attempts: attempt,
+                        ops: tx.ops.clone(),
+                    });
                 }
             }
         }
@@ -220,10 +230,21 @@ impl Session {
 
     /// ACK polling: probes `address` with address-only writes until it
     /// ACKs or `timeout` passes; returns the time waited.
-    pub fn wait_ack(&mut self, address: Address, timeout: Duration, interval: Duration, origin: Option<Origin>) -> Result<Duration, RunError> {
+    pub fn wait_ack(
+        &mut self,
+        address: Address,
+        timeout: Duration,
+        interval: Duration,
+        origin: Option<Origin>,
+    ) -> Result<Duration, RunError> {
         let start = self.now();
         let probe = Transaction::new(address, vec![Operation::Write(Vec::new())]);
-        let req = Request { retry: Some(RetryPolicy::default()), origin, purpose: Some("ack-poll".into()), ..Request::default() };
+        let req = Request {
+            retry: Some(RetryPolicy::default()),
+            origin,
+            purpose: Some("ack-poll".into()),
+            ..Request::default()
+        };
         loop {
             match self.transact(&probe, &req) {
                 Ok(_) => return Ok(self.now() - start),
@@ -240,7 +261,13 @@ impl Session {
     }
 
     /// Probes each address once and returns those that ACKed.
-    pub fn scan(&mut self, addresses: &[Address], probe: Probe, retry: RetryPolicy, origin: Option<Origin>) -> Result<Vec<Address>, RunError> {
+    pub fn scan(
+        &mut self,
+        addresses: &[Address],
+        probe: Probe,
+        retry: RetryPolicy,
+        origin: Option<Origin>,
+    ) -> Result<Vec<Address>, RunError> {
         let mut found = Vec::new();
         let req = Request {
             retry: Some(retry),
@@ -287,7 +314,8 @@ pub enum Probe {
 /// The 7-bit addresses a scan covers: all but the reserved ones, unless
 /// `include_reserved`.
 pub fn scan_range(include_reserved: bool, ten_bit: bool) -> Vec<Address> {
-    let mut v: Vec<Address> = (0u8..=0x7F).map(Address::Seven).filter(|a| include_reserved || a.reserved().is_none()).collect();
+    let mut v: Vec<Address> =
+        (0u8..=0x7F).map(Address::Seven).filter(|a| include_reserved || a.reserved().is_none()).collect();
     if ten_bit {
         v.extend((0u16..=0x3FF).map(Address::Ten));
     }

@@ -42,7 +42,13 @@ pub struct SimBus {
 }
 
 impl SimBus {
-    pub fn new(slots: Vec<Slot>, clock: Clock, speed: BusSpeed, stretch_timeout: Duration, arbitration: Option<(f64, SplitMix64)>) -> Self {
+    pub fn new(
+        slots: Vec<Slot>,
+        clock: Clock,
+        speed: BusSpeed,
+        stretch_timeout: Duration,
+        arbitration: Option<(f64, SplitMix64)>,
+    ) -> Self {
         SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None }
     }
 
@@ -107,9 +113,8 @@ impl SimBus {
             done.extend(events.iter().take(2).copied());
         }
 
-        let addr_only_nack = target.is_some_and(|i| {
-            self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability))
-        });
+        let addr_only_nack = target
+            .is_some_and(|i| self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability)));
 
         if fault.is_none() {
             for e in &events {
@@ -143,7 +148,9 @@ impl SimBus {
                             Answer::AckAfter(d) => {
                                 if d > self.stretch_timeout {
                                     stretch += self.stretch_timeout;
-                                    fault = Some(Fault::StretchTimeout { waited_us: self.stretch_timeout.as_micros() as u64 });
+                                    fault = Some(Fault::StretchTimeout {
+                                        waited_us: self.stretch_timeout.as_micros() as u64,
+                                    });
                                     break;
                                 }
                                 stretch += d;

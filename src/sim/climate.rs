@@ -141,7 +141,9 @@ impl Device for ClimateSensor {
             Direction::Read => {
                 self.out_pos = 2;
                 match self.converting_until {
-                    Some(done) if self.busy == Busy::Stretch && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) => {
+                    Some(done)
+                        if self.busy == Busy::Stretch && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) =>
+                    {
                         Answer::AckAfter(done - now)
                     }
                     _ => Answer::Ack,

@@ -41,7 +41,16 @@ pub struct Eeprom {
 impl Eeprom {
     pub fn new(name: String, address: Address, cfg: EepromConfig, fill: u8) -> Self {
         let mem = vec![fill; cfg.size];
-        Eeprom { name, address, cfg, mem, pointer: 0, addr_bytes_seen: 0, staged: Vec::new(), busy_until: Duration::ZERO }
+        Eeprom {
+            name,
+            address,
+            cfg,
+            mem,
+            pointer: 0,
+            addr_bytes_seen: 0,
+            staged: Vec::new(),
+            busy_until: Duration::ZERO,
+        }
     }
 
     pub fn contents(&self) -> &[u8] {

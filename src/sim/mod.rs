@@ -37,7 +37,11 @@ impl SimAdapter {
         let identity = Identity {
             driver: "simulated".into(),
             target: bench.file.clone(),
-            description: if bench.description.is_empty() { bench.name.clone() } else { format!("{}: {}", bench.name, bench.description) },
+            description: if bench.description.is_empty() {
+                bench.name.clone()
+            } else {
+                format!("{}: {}", bench.name, bench.description)
+            },
         };
         let caps = Capabilities {
             max_bytes_per_op: bench.max_bytes_per_op,

@@ -18,8 +18,8 @@ use std::fmt::Write as _;
 use std::time::Duration;
 
 use crate::bus::{Operation, Outcome};
-use crate::trace::record::Stats;
 use crate::trace::Frame;
+use crate::trace::record::Stats;
 
 /// ANSI styles by role; empty strings when colour is off.
 struct Palette {
@@ -30,7 +30,8 @@ struct Palette {
     reset: &'static str,
 }
 
-const COLOUR: Palette = Palette { dim: "\x1b[2m", ok: "\x1b[32m", warn: "\x1b[33m", bad: "\x1b[31;1m", reset: "\x1b[0m" };
+const COLOUR: Palette =
+    Palette { dim: "\x1b[2m", ok: "\x1b[32m", warn: "\x1b[33m", bad: "\x1b[31;1m", reset: "\x1b[0m" };
 const PLAIN: Palette = Palette { dim: "", ok: "", warn: "", bad: "", reset: "" };
 
 pub fn seconds(t: Duration) -> String {
@@ -116,7 +117,19 @@ pub fn frame_line(f: &Frame, colour: bool) -> String {
         Some(fault) => (p.bad, fault.label()),
     };
     let mut s = String::with_capacity(120);
-    let _ = write!(s, "{}{}{}  #{:<5} {:<9}  {:<30} {}{:<15}{}", p.dim, seconds(f.t), p.reset, f.seq, f.address.to_string(), ops, style, result, p.reset);
+    let _ = write!(
+        s,
+        "{}{}{}  #{:<5} {:<9}  {:<30} {}{:<15}{}",
+        p.dim,
+        seconds(f.t),
+        p.reset,
+        f.seq,
+        f.address.to_string(),
+        ops,
+        style,
+        result,
+        p.reset
+    );
     let _ = write!(s, " {:>9}", human(f.outcome.bus_time));
     let retrying = f.outcome.fault.as_ref().is_some_and(|x| x.is_nack()) && f.attempts > 1;
     if f.attempt > 1 || retrying {
@@ -211,7 +224,11 @@ mod tests {
             None,
         );
         assert!(frame_line(&ok, false).contains("W 00 | R 5E 11"));
-        let nack = frame(vec![Operation::Read(2)], vec![OpOutcome::default()], Some(Fault::AddressNack { op: 0, direction: crate::bus::Direction::Read }));
+        let nack = frame(
+            vec![Operation::Read(2)],
+            vec![OpOutcome::default()],
+            Some(Fault::AddressNack { op: 0, direction: crate::bus::Direction::Read }),
+        );
         assert!(frame_line(&nack, false).contains("R ?x2"));
         assert!(frame_line(&nack, false).contains("addr-NACK"));
     }

@@ -25,7 +25,9 @@ impl<W: Write> Sink for PlainLog<W> {
         match r {
             Record::Frame(f) if self.frames => writeln!(self.out, "{}", frame_line(f, self.colour)),
             Record::Frame(_) => Ok(()),
-            Record::Log { t, level, text, .. } => writeln!(self.out, "{}", log_line(*t, *level == Level::Warn, text, self.colour)),
+            Record::Log { t, level, text, .. } => {
+                writeln!(self.out, "{}", log_line(*t, *level == Level::Warn, text, self.colour))
+            }
             Record::Step { t, name, .. } => writeln!(self.out, "{}", step_line(*t, name, self.colour)),
             // The summary goes to standard error, written by the command.
             Record::End { .. } => Ok(()),
