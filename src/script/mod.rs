@@ -178,6 +178,10 @@ fn classify(e: &mlua::Error) -> Abort {
 fn classify_value(v: &Value) -> Abort {
     match v {
         Value::Error(e) => classify(e),
+        // Lua reports running out of its allowance as this plain string.
+        Value::String(s) if s.to_string_lossy() == "not enough memory" => {
+            Abort::Limit("script memory limit reached; raise it with --memory-limit".into())
+        }
         Value::String(s) => Abort::Script { message: s.to_string_lossy(), origin: None },
         Value::Nil => Abort::Script { message: "error(nil) raised".into(), origin: None },
         other => Abort::Script { message: format!("error raised with a {} value", other.type_name()), origin: None },
@@ -214,19 +218,24 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
     let deadline = cfg.timeout.map(|t| (Instant::now() + t, t));
-    lua.set_hook(HookTriggers::new().every_nth_instruction(1000), move |_, _| {
-        if interrupt.load(Ordering::Relaxed) {
-            return Err(mlua::Error::external(Abort::Run { error: RunError::Interrupted, origin: None }));
-        }
-        if let Some((when, limit)) = deadline
+    lua.set_hook(HookTriggers::new().every_nth_instruction(1000), move |lua, _| {
+        let abort = if interrupt.load(Ordering::Relaxed) {
+            Abort::Run { error: RunError::Interrupted, origin: None }
+        } else if let Some((when, limit)) = deadline
             && Instant::now() >= when
         {
-            return Err(mlua::Error::external(Abort::Limit(format!(
-                "script ran past its time limit of {} s (--timeout)",
-                limit.as_secs_f64()
-            ))));
-        }
-        Ok(VmState::Continue)
+            Abort::Limit(format!("script ran past its time limit of {} s (--timeout)", limit.as_secs_f64()))
+        } else {
+            return Ok(VmState::Continue);
+        };
+        // From now on every instruction fails, so a `pcall` in the script
+        // cannot swallow the stop: the first instruction after it raises
+        // again, outside it.
+        let again = abort.clone();
+        lua.set_hook(HookTriggers::new().every_nth_instruction(1), move |_, _| {
+            Err(mlua::Error::external(again.clone()))
+        })?;
+        Err(mlua::Error::external(abort))
     })
     .map_err(|e| script_err(e.to_string()))?;
 
