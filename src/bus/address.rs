@@ -220,7 +220,9 @@ mod tests {
         for (a, r) in expect {
             assert_eq!(Address::Seven(a).reserved(), Some(r), "0x{a:02X}");
         }
-        let count = (0..=0x7F).filter(|a| Address::Seven(*a).reserved().is_some()).count();
+        let count = (0..=0x7F)
+            .filter(|a| Address::Seven(*a).reserved().is_some())
+            .count();
         assert_eq!(count, 16);
         assert_eq!(Address::Seven(0x08).reserved(), None);
         assert_eq!(Address::Seven(0x77).reserved(), None);
@@ -229,7 +231,10 @@ mod tests {
 
     #[test]
     fn out_of_range_is_refused_not_masked() {
-        assert_eq!(Address::seven(0x80), Err(AddressError::SevenOutOfRange(0x80)));
+        assert_eq!(
+            Address::seven(0x80),
+            Err(AddressError::SevenOutOfRange(0x80))
+        );
         assert!(Address::seven(-1).is_err());
         assert!(Address::ten(0x400).is_err());
         assert!(Address::parse("0x80").is_err());

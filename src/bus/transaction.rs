@@ -81,10 +81,18 @@ pub enum Event {
     /// An address byte (R/W included) sent by the controller.
     AddressByte(u8),
     /// A data byte sent by the controller; `op` and `index` locate it.
-    WriteByte { op: usize, index: usize, byte: u8 },
+    WriteByte {
+        op: usize,
+        index: usize,
+        byte: u8,
+    },
     /// A data byte sent by the target; the controller answers with ACK
     /// (`ack = true`) or NACK.
-    ReadByte { op: usize, index: usize, ack: bool },
+    ReadByte {
+        op: usize,
+        index: usize,
+        ack: bool,
+    },
     Stop,
 }
 
@@ -98,7 +106,10 @@ pub enum ShapeError {
     #[error("operation {op} moves {len} bytes; at most {max} are allowed per operation")]
     TooLong { op: usize, len: usize, max: usize },
     #[error("{address} is reserved ({purpose}); pass the reserved-address option to use it")]
-    Reserved { address: Address, purpose: &'static str },
+    Reserved {
+        address: Address,
+        purpose: &'static str,
+    },
 }
 
 impl Transaction {
@@ -114,7 +125,10 @@ impl Transaction {
         }
         if !allow_reserved {
             if let Some(r) = self.address.reserved() {
-                return Err(ShapeError::Reserved { address: self.address, purpose: r.describe() });
+                return Err(ShapeError::Reserved {
+                    address: self.address,
+                    purpose: r.describe(),
+                });
             }
         }
         let max = max_per_op.min(MAX_OPERATION_BYTES);
@@ -123,7 +137,11 @@ impl Transaction {
                 return Err(ShapeError::EmptyRead { op });
             }
             if o.len() > max {
-                return Err(ShapeError::TooLong { op, len: o.len(), max });
+                return Err(ShapeError::TooLong {
+                    op,
+                    len: o.len(),
+                    max,
+                });
             }
         }
         Ok(())
@@ -163,7 +181,11 @@ impl Transaction {
                     let next_is_read = matches!(self.ops.get(op + 1), Some(Operation::Read(_)));
                     for index in 0..*n {
                         let last = index + 1 == *n && !next_is_read;
-                        ev.push(Event::ReadByte { op, index, ack: !last });
+                        ev.push(Event::ReadByte {
+                            op,
+                            index,
+                            ack: !last,
+                        });
                     }
                 }
             }
@@ -220,7 +242,16 @@ mod tests {
         );
         assert_eq!(
             t.events(),
-            vec![Start, AddressByte(0x88), wb(0, 0, 0x03), RepeatedStart, AddressByte(0x89), rb(1, 0, true), rb(1, 1, false), Stop]
+            vec![
+                Start,
+                AddressByte(0x88),
+                wb(0, 0, 0x03),
+                RepeatedStart,
+                AddressByte(0x89),
+                rb(1, 0, true),
+                rb(1, 1, false),
+                Stop
+            ]
         );
     }
 
@@ -261,7 +292,15 @@ mod tests {
         let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Read(1)]);
         assert_eq!(
             t.events(),
-            vec![Start, AddressByte(0xF4), AddressByte(0xA5), RepeatedStart, AddressByte(0xF5), rb(0, 0, false), Stop]
+            vec![
+                Start,
+                AddressByte(0xF4),
+                AddressByte(0xA5),
+                RepeatedStart,
+                AddressByte(0xF5),
+                rb(0, 0, false),
+                Stop
+            ]
         );
     }
 
@@ -269,10 +308,22 @@ mod tests {
     // phase only the first address byte is repeated, with R/W = 1.
     #[test]
     fn ten_bit_write_then_read_repeats_only_first_byte() {
-        let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
+        let t = Transaction::new(
+            Address::Ten(0x2A5),
+            vec![Operation::Write(vec![0x01]), Operation::Read(1)],
+        );
         assert_eq!(
             t.events(),
-            vec![Start, AddressByte(0xF4), AddressByte(0xA5), wb(0, 0, 0x01), RepeatedStart, AddressByte(0xF5), rb(1, 0, false), Stop]
+            vec![
+                Start,
+                AddressByte(0xF4),
+                AddressByte(0xA5),
+                wb(0, 0, 0x01),
+                RepeatedStart,
+                AddressByte(0xF5),
+                rb(1, 0, false),
+                Stop
+            ]
         );
     }
 
@@ -286,17 +337,27 @@ mod tests {
     #[test]
     fn validation() {
         let a = Address::Seven(0x50);
-        assert_eq!(Transaction::new(a, vec![]).validate(64, false), Err(ShapeError::NoOperations));
+        assert_eq!(
+            Transaction::new(a, vec![]).validate(64, false),
+            Err(ShapeError::NoOperations)
+        );
         assert_eq!(
             Transaction::new(a, vec![Operation::Read(0)]).validate(64, false),
             Err(ShapeError::EmptyRead { op: 0 })
         );
         assert_eq!(
             Transaction::new(a, vec![Operation::Read(65)]).validate(64, false),
-            Err(ShapeError::TooLong { op: 0, len: 65, max: 64 })
+            Err(ShapeError::TooLong {
+                op: 0,
+                len: 65,
+                max: 64
+            })
         );
         let gc = Transaction::new(Address::Seven(0x00), vec![Operation::Write(vec![0x06])]);
-        assert!(matches!(gc.validate(64, false), Err(ShapeError::Reserved { .. })));
+        assert!(matches!(
+            gc.validate(64, false),
+            Err(ShapeError::Reserved { .. })
+        ));
         assert!(gc.validate(64, true).is_ok());
     }
 }

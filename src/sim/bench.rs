@@ -215,8 +215,16 @@ pub struct Bench {
 /// Finds the line of `key` inside the n-th `[[device]]` block (or the top
 /// level when `device` is None); falls back to the block's header line.
 fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
-    let leaf = key.rsplit(['.', '[']).next().unwrap_or(key).trim_end_matches(']');
-    let leaf = if leaf.chars().all(|c| c.is_ascii_digit()) { key.split(['.', '[']).next().unwrap_or(key) } else { leaf };
+    let leaf = key
+        .rsplit(['.', '['])
+        .next()
+        .unwrap_or(key)
+        .trim_end_matches(']');
+    let leaf = if leaf.chars().all(|c| c.is_ascii_digit()) {
+        key.split(['.', '[']).next().unwrap_or(key)
+    } else {
+        leaf
+    };
     let mut block: Option<usize> = None;
     let mut seen = 0usize;
     let mut header = None;
@@ -230,13 +238,17 @@ fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
             }
             continue;
         }
-        if line.starts_with('[') && !line.starts_with("[[device.") && !line.starts_with("[device.") {
+        if line.starts_with('[') && !line.starts_with("[[device.") && !line.starts_with("[device.")
+        {
             block = None;
             continue;
         }
         if block == device {
             let rest = line.strip_prefix(leaf).map(str::trim_start);
-            if rest.is_some_and(|r| r.starts_with('=')) || line.contains(&format!("{leaf} =")) || line.contains(&format!("{leaf}=")) {
+            if rest.is_some_and(|r| r.starts_with('='))
+                || line.contains(&format!("{leaf} ="))
+                || line.contains(&format!("{leaf}="))
+            {
                 return Some(i + 1);
             }
         }
@@ -251,21 +263,43 @@ struct Ctx<'a> {
 
 impl Ctx<'_> {
     fn err(&self, device: Option<usize>, key: &str, message: impl Into<String>) -> BenchError {
-        BenchError { file: self.file.to_string(), line: locate(self.text, device, key), key: key.to_string(), message: message.into() }
+        BenchError {
+            file: self.file.to_string(),
+            line: locate(self.text, device, key),
+            key: key.to_string(),
+            message: message.into(),
+        }
     }
 
-    fn parse<T: DeserializeOwned>(&self, device: Option<usize>, prefix: &str, table: toml::Table) -> Result<T, BenchError> {
+    fn parse<T: DeserializeOwned>(
+        &self,
+        device: Option<usize>,
+        prefix: &str,
+        table: toml::Table,
+    ) -> Result<T, BenchError> {
         serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| {
             let path = e.path().to_string();
-            let key = if path == "." { prefix.to_string() } else if prefix.is_empty() { path } else { format!("{prefix}.{path}") };
+            let key = if path == "." {
+                prefix.to_string()
+            } else if prefix.is_empty() {
+                path
+            } else {
+                format!("{prefix}.{path}")
+            };
             let msg = e.into_inner().to_string();
             let msg = msg.trim().lines().last().unwrap_or_default().to_string();
             // A missing or unknown field names itself in the message.
             let named = msg.split('`').nth(1).map(str::to_string);
             let key = match (&named, key.is_empty() || key == ".") {
                 (Some(n), true) => n.clone(),
-                (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
-                    if prefix.is_empty() { n.clone() } else { format!("{prefix}.{n}") }
+                (Some(n), false)
+                    if msg.starts_with("unknown field") || msg.starts_with("missing field") =>
+                {
+                    if prefix.is_empty() {
+                        n.clone()
+                    } else {
+                        format!("{prefix}.{n}")
+                    }
                 }
                 _ => key,
             };
@@ -279,21 +313,36 @@ impl Bench {
     pub fn from_str(text: &str, file: &str) -> Result<Bench, BenchError> {
         let cx = Ctx { file, text };
         let table: toml::Table = text.parse().map_err(|e: toml::de::Error| {
-            let line = e.span().map(|s| text[..s.start.min(text.len())].lines().count().max(1));
-            BenchError { file: file.to_string(), line, key: String::new(), message: e.message().to_string() }
+            let line = e
+                .span()
+                .map(|s| text[..s.start.min(text.len())].lines().count().max(1));
+            BenchError {
+                file: file.to_string(),
+                line,
+                key: String::new(),
+                message: e.message().to_string(),
+            }
         })?;
         let top: Top = cx.parse(None, "", table)?;
         check_format(&top.format).map_err(|m| cx.err(None, "format", m))?;
-        let speed: BusSpeed = top.speed.parse().map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
+        let speed: BusSpeed = top
+            .speed
+            .parse()
+            .map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
         if !(top.stretch_timeout_ms > 0.0 && top.stretch_timeout_ms <= 10_000.0) {
-            return Err(cx.err(None, "stretch_timeout_ms", "must be more than 0 and at most 10000"));
+            return Err(cx.err(
+                None,
+                "stretch_timeout_ms",
+                "must be more than 0 and at most 10000",
+            ));
         }
         if !(1..=65_535).contains(&top.max_bytes_per_op) {
             return Err(cx.err(None, "max_bytes_per_op", "must be 1-65535"));
         }
         let arbitration = match top.bus_faults {
             Some(b) => {
-                probability(b.arbitration_loss_probability).map_err(|m| cx.err(None, "arbitration_loss_probability", m))?;
+                probability(b.arbitration_loss_probability)
+                    .map_err(|m| cx.err(None, "arbitration_loss_probability", m))?;
                 Some((b.arbitration_loss_probability, SplitMix64::new(b.seed)))
             }
             None => None,
@@ -316,10 +365,18 @@ impl Bench {
             }
             .map_err(|e| cx.err(Some(n), "address", e.to_string()))?;
             if address.reserved().is_some() {
-                return Err(cx.err(Some(n), "address", format!("{address} is a reserved address (UM10204 §3.1.12)")));
+                return Err(cx.err(
+                    Some(n),
+                    "address",
+                    format!("{address} is a reserved address (UM10204 §3.1.12)"),
+                ));
             }
             if !addresses.insert(address) {
-                return Err(cx.err(Some(n), "address", format!("{address} is used by two devices")));
+                return Err(cx.err(
+                    Some(n),
+                    "address",
+                    format!("{address} is used by two devices"),
+                ));
             }
             if !names.insert(c.name.clone()) {
                 return Err(cx.err(Some(n), "name", format!("`{}` names two devices", c.name)));
@@ -327,7 +384,8 @@ impl Bench {
             let device = build_device(&cx, n, &c, address, t)?;
             let faults = match c.faults {
                 Some(f) => {
-                    probability(f.address_nack_probability).map_err(|m| cx.err(Some(n), "faults.address_nack_probability", m))?;
+                    probability(f.address_nack_probability)
+                        .map_err(|m| cx.err(Some(n), "faults.address_nack_probability", m))?;
                     Some(DeviceFaults {
                         address_nack_probability: f.address_nack_probability,
                         hold_sda_after: f.hold_sda_after,
@@ -337,7 +395,11 @@ impl Bench {
                 }
                 None => None,
             };
-            slots.push(Slot { device, faults, executions: 0 });
+            slots.push(Slot {
+                device,
+                faults,
+                executions: 0,
+            });
         }
         Ok(Bench {
             file: file.to_string(),
@@ -359,32 +421,60 @@ fn check_format(format: &str) -> Result<(), String> {
     };
     let major = ver.split('.').next().unwrap_or_default();
     if major != "1" {
-        return Err(format!("bench format version {ver} is not supported; this buscue reads major version 1"));
+        return Err(format!(
+            "bench format version {ver} is not supported; this buscue reads major version 1"
+        ));
     }
     Ok(())
 }
 
 fn probability(p: f64) -> Result<(), String> {
-    if (0.0..=1.0).contains(&p) { Ok(()) } else { Err(format!("{p} is not a probability (0 to 1)")) }
+    if (0.0..=1.0).contains(&p) {
+        Ok(())
+    } else {
+        Err(format!("{p} is not a probability (0 to 1)"))
+    }
 }
 
-fn build_device(cx: &Ctx, n: usize, c: &Common, address: Address, rest: toml::Table) -> Result<Box<dyn Device>, BenchError> {
+fn build_device(
+    cx: &Ctx,
+    n: usize,
+    c: &Common,
+    address: Address,
+    rest: toml::Table,
+) -> Result<Box<dyn Device>, BenchError> {
     let name = c.name.clone();
     Ok(match c.model.as_str() {
         "register" => {
             let s: RegisterSpec = cx.parse(Some(n), "", rest)?;
-            let bits = |k: &str, v: u8| if v == 8 || v == 16 { Ok(v as usize / 8) } else { Err(cx.err(Some(n), k, format!("must be 8 or 16, got {v}"))) };
+            let bits = |k: &str, v: u8| {
+                if v == 8 || v == 16 {
+                    Ok(v as usize / 8)
+                } else {
+                    Err(cx.err(Some(n), k, format!("must be 8 or 16, got {v}")))
+                }
+            };
             let pointer_bytes = bits("pointer_bits", s.pointer_bits)?;
             let register_bytes = bits("register_bits", s.register_bits)?;
             let order = match s.byte_order.as_str() {
                 "big" => ByteOrder::Big,
                 "little" => ByteOrder::Little,
-                o => return Err(cx.err(Some(n), "byte_order", format!("must be \"big\" or \"little\", got \"{o}\""))),
+                o => {
+                    return Err(cx.err(
+                        Some(n),
+                        "byte_order",
+                        format!("must be \"big\" or \"little\", got \"{o}\""),
+                    ));
+                }
             };
             let max_count = 1usize << (8 * pointer_bytes);
             let register_count = s.register_count.unwrap_or(max_count.min(256));
             if register_count == 0 || register_count > max_count {
-                return Err(cx.err(Some(n), "register_count", format!("must be 1-{max_count} for a {}-bit pointer", s.pointer_bits)));
+                return Err(cx.err(
+                    Some(n),
+                    "register_count",
+                    format!("must be 1-{max_count} for a {}-bit pointer", s.pointer_bits),
+                ));
             }
             let max_value = if register_bytes == 2 { 0xFFFF } else { 0xFF };
             let mut regs = Vec::new();
@@ -392,24 +482,60 @@ fn build_device(cx: &Ctx, n: usize, c: &Common, address: Address, rest: toml::Ta
             for (i, r) in s.register.into_iter().enumerate() {
                 let key = |k: &str| format!("register[{i}].{k}");
                 if r.at < 0 || r.at as usize >= register_count {
-                    return Err(cx.err(Some(n), &key("at"), format!("register 0x{:X} is outside 0-0x{:X}", r.at, register_count - 1)));
+                    return Err(cx.err(
+                        Some(n),
+                        &key("at"),
+                        format!(
+                            "register 0x{:X} is outside 0-0x{:X}",
+                            r.at,
+                            register_count - 1
+                        ),
+                    ));
                 }
                 if !seen.insert(r.at) {
-                    return Err(cx.err(Some(n), &key("at"), format!("register 0x{:X} is defined twice", r.at)));
+                    return Err(cx.err(
+                        Some(n),
+                        &key("at"),
+                        format!("register 0x{:X} is defined twice", r.at),
+                    ));
                 }
                 if r.reset < 0 || r.reset > max_value {
-                    return Err(cx.err(Some(n), &key("reset"), format!("{} does not fit a {}-bit register", r.reset, s.register_bits)));
+                    return Err(cx.err(
+                        Some(n),
+                        &key("reset"),
+                        format!(
+                            "{} does not fit a {}-bit register",
+                            r.reset, s.register_bits
+                        ),
+                    ));
                 }
                 let access = match r.access.as_str() {
                     "rw" => Access::ReadWrite,
                     "ro" => Access::ReadOnly,
                     "wo" => Access::WriteOnly,
-                    a => return Err(cx.err(Some(n), &key("access"), format!("must be \"rw\", \"ro\" or \"wo\", got \"{a}\""))),
+                    a => {
+                        return Err(cx.err(
+                            Some(n),
+                            &key("access"),
+                            format!("must be \"rw\", \"ro\" or \"wo\", got \"{a}\""),
+                        ));
+                    }
                 };
                 let _ = r.name;
-                regs.push(RegisterInit { at: r.at as usize, reset: r.reset as u16, access, signal: r.signal.map(Signal::new) });
+                regs.push(RegisterInit {
+                    at: r.at as usize,
+                    reset: r.reset as u16,
+                    access,
+                    signal: r.signal.map(Signal::new),
+                });
             }
-            let layout = Layout { pointer_bytes, register_bytes, order, auto_increment: s.auto_increment, register_count };
+            let layout = Layout {
+                pointer_bytes,
+                register_bytes,
+                order,
+                auto_increment: s.auto_increment,
+                register_count,
+            };
             Box::new(RegisterDevice::new(name, address, layout, regs))
         }
         "eeprom" => {
@@ -417,14 +543,31 @@ fn build_device(cx: &Ctx, n: usize, c: &Common, address: Address, rest: toml::Ta
             let word_address_bytes = match s.word_address_bits {
                 8 => 1,
                 16 => 2,
-                b => return Err(cx.err(Some(n), "word_address_bits", format!("must be 8 or 16, got {b}"))),
+                b => {
+                    return Err(cx.err(
+                        Some(n),
+                        "word_address_bits",
+                        format!("must be 8 or 16, got {b}"),
+                    ));
+                }
             };
             let max = 1usize << (8 * word_address_bytes);
             if s.size == 0 || s.size > max || !s.size.is_power_of_two() {
-                return Err(cx.err(Some(n), "size", format!("must be a power of two up to {max} bytes for {}-bit word addresses", s.word_address_bits)));
+                return Err(cx.err(
+                    Some(n),
+                    "size",
+                    format!(
+                        "must be a power of two up to {max} bytes for {}-bit word addresses",
+                        s.word_address_bits
+                    ),
+                ));
             }
             if s.page_size == 0 || !s.page_size.is_power_of_two() || s.page_size > s.size {
-                return Err(cx.err(Some(n), "page_size", "must be a power of two no larger than size"));
+                return Err(cx.err(
+                    Some(n),
+                    "page_size",
+                    "must be a power of two no larger than size",
+                ));
             }
             if !(0.0..=1000.0).contains(&s.write_cycle_ms) {
                 return Err(cx.err(Some(n), "write_cycle_ms", "must be 0-1000"));
@@ -447,12 +590,28 @@ fn build_device(cx: &Ctx, n: usize, c: &Common, address: Address, rest: toml::Ta
                 "stretch" => Busy::Stretch,
                 "nack" => Busy::Nack,
                 "none" => Busy::None,
-                b => return Err(cx.err(Some(n), "busy", format!("must be \"stretch\", \"nack\" or \"none\", got \"{b}\""))),
+                b => {
+                    return Err(cx.err(
+                        Some(n),
+                        "busy",
+                        format!("must be \"stretch\", \"nack\" or \"none\", got \"{b}\""),
+                    ));
+                }
             };
-            Box::new(ClimateSensor::new(name, address, busy, Signal::new(s.temperature_c), Signal::new(s.humidity_pct)))
+            Box::new(ClimateSensor::new(
+                name,
+                address,
+                busy,
+                Signal::new(s.temperature_c),
+                Signal::new(s.humidity_pct),
+            ))
         }
         m => {
-            return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));
+            return Err(cx.err(
+                Some(n),
+                "model",
+                format!("unknown model \"{m}\"; known: {}", MODELS.join(", ")),
+            ));
         }
     })
 }
@@ -487,26 +646,55 @@ mod tests {
 
     #[test]
     fn unknown_key_is_named_with_its_line() {
-        let e = err(&format!("{HEAD}\n[[device]]\nname = \"e\"\nmodel = \"eeprom\"\naddress = 0x50\nsize = 256\npage_size = 16\npage_wrap = true\n"));
+        let e = err(&format!(
+            "{HEAD}\n[[device]]\nname = \"e\"\nmodel = \"eeprom\"\naddress = 0x50\nsize = 256\npage_size = 16\npage_wrap = true\n"
+        ));
         assert_eq!(e.key, "page_wrap");
         assert_eq!(e.line, Some(10), "{e}");
-        assert!(e.to_string().starts_with("b.toml:10: key `page_wrap`"), "{e}");
+        assert!(
+            e.to_string().starts_with("b.toml:10: key `page_wrap`"),
+            "{e}"
+        );
     }
 
     #[test]
     fn bad_values_name_their_key() {
-        let dev = |body: &str| format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x20\n{body}\n");
+        let dev = |body: &str| {
+            format!(
+                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x20\n{body}\n"
+            )
+        };
         assert_eq!(err(&dev("register_bits = 12")).key, "register_bits");
         assert_eq!(err(&dev("byte_order = \"middle\"")).key, "byte_order");
         let e = err(&dev("[[device.register]]\nat = 300\n"));
         assert_eq!(e.key, "register[0].at");
         assert_eq!(e.line, Some(8), "{e}");
-        let e = err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x80\n"));
+        let e = err(&format!(
+            "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x80\n"
+        ));
         assert_eq!(e.key, "address");
         assert!(e.message.contains("0x80"), "{e}");
-        assert_eq!(err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"toaster\"\naddress = 0x20\n")).key, "model");
-        assert_eq!(err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\n")).key, "address");
-        assert_eq!(err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x00\n")).key, "address");
+        assert_eq!(
+            err(&format!(
+                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"toaster\"\naddress = 0x20\n"
+            ))
+            .key,
+            "model"
+        );
+        assert_eq!(
+            err(&format!(
+                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\n"
+            ))
+            .key,
+            "address"
+        );
+        assert_eq!(
+            err(&format!(
+                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x00\n"
+            ))
+            .key,
+            "address"
+        );
     }
 
     #[test]

@@ -56,7 +56,13 @@ pub struct ClimateSensor {
 }
 
 impl ClimateSensor {
-    pub fn new(name: String, address: Address, busy: Busy, temperature: Signal, humidity: Signal) -> Self {
+    pub fn new(
+        name: String,
+        address: Address,
+        busy: Busy,
+        temperature: Signal,
+        humidity: Signal,
+    ) -> Self {
         let mut regs = [0u16; REGS];
         regs[0] = ID;
         regs[TEMP_HIGH] = 3000;
@@ -82,14 +88,24 @@ impl ClimateSensor {
 
     /// Finishes a conversion whose time has come.
     fn settle(&mut self, now: Duration) {
-        let Some(done) = self.converting_until else { return };
+        let Some(done) = self.converting_until else {
+            return;
+        };
         if now < done {
             return;
         }
         let t = done.as_secs_f64();
-        let heater = if self.regs[CONTROL] & 0b1000 != 0 { 0.8 } else { 0.0 };
-        let temp = ((self.temperature.sample(t) + heater) * 100.0).round().clamp(-32768.0, 32767.0) as i16;
-        let hum = (self.humidity.sample(t) * 100.0).round().clamp(0.0, 10_000.0) as u16;
+        let heater = if self.regs[CONTROL] & 0b1000 != 0 {
+            0.8
+        } else {
+            0.0
+        };
+        let temp = ((self.temperature.sample(t) + heater) * 100.0)
+            .round()
+            .clamp(-32768.0, 32767.0) as i16;
+        let hum = (self.humidity.sample(t) * 100.0)
+            .round()
+            .clamp(0.0, 10_000.0) as u16;
         self.regs[TEMPERATURE] = temp as u16;
         self.regs[HUMIDITY] = hum;
         let alert = temp > self.regs[TEMP_HIGH] as i16;
@@ -141,7 +157,10 @@ impl Device for ClimateSensor {
             Direction::Read => {
                 self.out_pos = 2;
                 match self.converting_until {
-                    Some(done) if self.busy == Busy::Stretch && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) => {
+                    Some(done)
+                        if self.busy == Busy::Stretch
+                            && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) =>
+                    {
                         Answer::AckAfter(done - now)
                     }
                     _ => Answer::Ack,
@@ -197,8 +216,22 @@ mod tests {
     use crate::sim::signal::SignalSpec;
 
     fn sensor(busy: Busy, base: f64) -> ClimateSensor {
-        let flat = |b| Signal::new(SignalSpec { base: b, swing: 0.0, period_s: 1.0, noise: 0.0, seed: 0 });
-        ClimateSensor::new("c".into(), Address::Seven(0x44), busy, flat(base), flat(55.5))
+        let flat = |b| {
+            Signal::new(SignalSpec {
+                base: b,
+                swing: 0.0,
+                period_s: 1.0,
+                noise: 0.0,
+                seed: 0,
+            })
+        };
+        ClimateSensor::new(
+            "c".into(),
+            Address::Seven(0x44),
+            busy,
+            flat(base),
+            flat(55.5),
+        )
     }
 
     fn read_reg(s: &mut ClimateSensor, reg: u8, now: Duration) -> (Answer, u16) {
@@ -237,7 +270,10 @@ mod tests {
     fn data_ready_and_nack_while_busy() {
         let mut s = sensor(Busy::Nack, 23.0);
         start(&mut s, Duration::ZERO);
-        assert_eq!(s.select(Direction::Write, Duration::from_millis(2)), Answer::Nack);
+        assert_eq!(
+            s.select(Direction::Write, Duration::from_millis(2)),
+            Answer::Nack
+        );
         let (_, status) = read_reg(&mut s, STATUS as u8, Duration::from_millis(4));
         assert_eq!(status & 1, 1);
         let (_, t) = read_reg(&mut s, TEMPERATURE as u8, Duration::from_millis(4));

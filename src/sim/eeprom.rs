@@ -41,7 +41,16 @@ pub struct Eeprom {
 impl Eeprom {
     pub fn new(name: String, address: Address, cfg: EepromConfig, fill: u8) -> Self {
         let mem = vec![fill; cfg.size];
-        Eeprom { name, address, cfg, mem, pointer: 0, addr_bytes_seen: 0, staged: Vec::new(), busy_until: Duration::ZERO }
+        Eeprom {
+            name,
+            address,
+            cfg,
+            mem,
+            pointer: 0,
+            addr_bytes_seen: 0,
+            staged: Vec::new(),
+            busy_until: Duration::ZERO,
+        }
     }
 
     pub fn contents(&self) -> &[u8] {
@@ -152,7 +161,13 @@ mod tests {
         let mut e = eeprom();
         let t0 = Duration::from_millis(1);
         assert!(write(&mut e, t0, &[0x00, 0x00, 9]));
-        assert_eq!(e.select(Direction::Write, t0 + Duration::from_millis(4)), Answer::Nack);
-        assert_eq!(e.select(Direction::Write, t0 + Duration::from_millis(5)), Answer::Ack);
+        assert_eq!(
+            e.select(Direction::Write, t0 + Duration::from_millis(4)),
+            Answer::Nack
+        );
+        assert_eq!(
+            e.select(Direction::Write, t0 + Duration::from_millis(5)),
+            Answer::Ack
+        );
     }
 }

@@ -37,7 +37,11 @@ impl SimAdapter {
         let identity = Identity {
             driver: "simulated".into(),
             target: bench.file.clone(),
-            description: if bench.description.is_empty() { bench.name.clone() } else { format!("{}: {}", bench.name, bench.description) },
+            description: if bench.description.is_empty() {
+                bench.name.clone()
+            } else {
+                format!("{}: {}", bench.name, bench.description)
+            },
         };
         let caps = Capabilities {
             max_bytes_per_op: bench.max_bytes_per_op,
@@ -48,8 +52,18 @@ impl SimAdapter {
             line_readback: true,
             recovery: true,
         };
-        let bus = SimBus::new(bench.slots, Clock::new(realtime), bench.speed, bench.stretch_timeout, bench.arbitration);
-        SimAdapter { identity, caps, bus }
+        let bus = SimBus::new(
+            bench.slots,
+            Clock::new(realtime),
+            bench.speed,
+            bench.stretch_timeout,
+            bench.arbitration,
+        );
+        SimAdapter {
+            identity,
+            caps,
+            bus,
+        }
     }
 
     /// The simulated bus, for tests that look at the board side.
@@ -96,7 +110,10 @@ impl Adapter for SimAdapter {
     }
 
     fn line_levels(&mut self) -> Result<Option<LineLevels>> {
-        Ok(Some(LineLevels { sda: !self.bus.sda_held(), scl: true }))
+        Ok(Some(LineLevels {
+            sda: !self.bus.sda_held(),
+            scl: true,
+        }))
     }
 
     fn now(&self) -> Duration {
