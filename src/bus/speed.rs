@@ -113,9 +113,9 @@ impl FromStr for BusSpeed {
 impl fmt::Display for BusSpeed {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         let hz = self.0;
-        if hz % 1_000_000 == 0 {
+        if hz.is_multiple_of(1_000_000) {
             write!(f, "{} MHz", hz / 1_000_000)
-        } else if hz % 1_000 == 0 {
+        } else if hz.is_multiple_of(1_000) {
             write!(f, "{} kHz", hz / 1_000)
         } else if hz >= 1_000 {
             write!(f, "{} kHz", hz as f64 / 1e3)

@@ -157,13 +157,11 @@ impl Transaction {
         if self.ops.is_empty() {
             return Err(ShapeError::NoOperations);
         }
-        if !allow_reserved {
-            if let Some(r) = self.address.reserved() {
-                return Err(ShapeError::Reserved {
-                    address: self.address,
-                    purpose: r.describe(),
-                });
-            }
+        if !allow_reserved && let Some(r) = self.address.reserved() {
+            return Err(ShapeError::Reserved {
+                address: self.address,
+                purpose: r.describe(),
+            });
         }
         let max = max_per_op.min(MAX_OPERATION_BYTES);
         for (op, o) in self.ops.iter().enumerate() {
