@@ -6,3 +6,4 @@
 pub mod adapter;
 pub mod bus;
 pub mod sim;
+pub mod smbus;
