@@ -5,5 +5,6 @@
 
 pub mod adapter;
 pub mod bus;
+pub mod electrical;
 pub mod sim;
 pub mod smbus;
