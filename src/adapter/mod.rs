@@ -113,9 +113,7 @@ impl AdapterSpec {
             }
             return Ok(AdapterSpec::Bench(path.into()));
         }
-        bail!(
-            "`{t}` is not an adapter: use `sim` for the built-in bench or `sim:PATH` for a bench file"
-        )
+        bail!("`{t}` is not an adapter: use `sim` for the built-in bench or `sim:PATH` for a bench file")
     }
 }
 
@@ -132,8 +130,8 @@ pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> 
     let bench = match spec {
         AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
         AdapterSpec::Bench(path) => {
-            let text = std::fs::read_to_string(path)
-                .with_context(|| format!("cannot read bench file {}", path.display()))?;
+            let text =
+                std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
             Bench::from_str(&text, &path.display().to_string())?
         }
     };
@@ -147,10 +145,7 @@ mod tests {
     #[test]
     fn parses_specs() {
         assert_eq!(AdapterSpec::parse("sim").unwrap(), AdapterSpec::DemoBench);
-        assert_eq!(
-            AdapterSpec::parse("sim:x.toml").unwrap(),
-            AdapterSpec::Bench("x.toml".into())
-        );
+        assert_eq!(AdapterSpec::parse("sim:x.toml").unwrap(), AdapterSpec::Bench("x.toml".into()));
         assert!(AdapterSpec::parse("sim:").is_err());
         assert!(AdapterSpec::parse("carrier-pigeon").is_err());
     }

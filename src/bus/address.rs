@@ -76,20 +76,12 @@ pub const TEN_BIT_PREFIX: u8 = 0b1111_0000;
 impl Address {
     /// A 7-bit address; refuses anything above 0x7F rather than masking it.
     pub fn seven(value: i64) -> Result<Self, AddressError> {
-        u8::try_from(value)
-            .ok()
-            .filter(|v| *v <= 0x7F)
-            .map(Address::Seven)
-            .ok_or(AddressError::SevenOutOfRange(value))
+        u8::try_from(value).ok().filter(|v| *v <= 0x7F).map(Address::Seven).ok_or(AddressError::SevenOutOfRange(value))
     }
 
     /// A 10-bit address; refuses anything above 0x3FF.
     pub fn ten(value: i64) -> Result<Self, AddressError> {
-        u16::try_from(value)
-            .ok()
-            .filter(|v| *v <= 0x3FF)
-            .map(Address::Ten)
-            .ok_or(AddressError::TenOutOfRange(value))
+        u16::try_from(value).ok().filter(|v| *v <= 0x3FF).map(Address::Ten).ok_or(AddressError::TenOutOfRange(value))
     }
 
     /// Parses `0x48`, `72`, `0b1001000` as 7-bit and `10:0x2A5` as 10-bit.
@@ -220,9 +212,7 @@ mod tests {
         for (a, r) in expect {
             assert_eq!(Address::Seven(a).reserved(), Some(r), "0x{a:02X}");
         }
-        let count = (0..=0x7F)
-            .filter(|a| Address::Seven(*a).reserved().is_some())
-            .count();
+        let count = (0..=0x7F).filter(|a| Address::Seven(*a).reserved().is_some()).count();
         assert_eq!(count, 16);
         assert_eq!(Address::Seven(0x08).reserved(), None);
         assert_eq!(Address::Seven(0x77).reserved(), None);
@@ -231,10 +221,7 @@ mod tests {
 
     #[test]
     fn out_of_range_is_refused_not_masked() {
-        assert_eq!(
-            Address::seven(0x80),
-            Err(AddressError::SevenOutOfRange(0x80))
-        );
+        assert_eq!(Address::seven(0x80), Err(AddressError::SevenOutOfRange(0x80)));
         assert!(Address::seven(-1).is_err());
         assert!(Address::ten(0x400).is_err());
         assert!(Address::parse("0x80").is_err());

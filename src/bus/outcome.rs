@@ -123,18 +123,13 @@ impl Outcome {
             ops: Vec::new(),
             bus_time: Duration::ZERO,
             measured: None,
-            fault: Some(Fault::Adapter {
-                detail: detail.into(),
-            }),
+            fault: Some(Fault::Adapter { detail: detail.into() }),
         }
     }
 
     /// All bytes read, in order, across the read operations.
     pub fn read_bytes(&self) -> Vec<u8> {
-        self.ops
-            .iter()
-            .flat_map(|o| o.data.iter().copied())
-            .collect()
+        self.ops.iter().flat_map(|o| o.data.iter().copied()).collect()
     }
 }
 
@@ -173,26 +168,11 @@ mod tests {
 
     #[test]
     fn faults_map_to_embedded_hal_kinds() {
-        let f = Fault::AddressNack {
-            op: 0,
-            direction: Direction::Write,
-        };
-        assert_eq!(
-            f.kind(),
-            ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address)
-        );
-        assert_eq!(
-            Fault::DataNack { op: 0, index: 2 }.kind(),
-            ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data)
-        );
+        let f = Fault::AddressNack { op: 0, direction: Direction::Write };
+        assert_eq!(f.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address));
+        assert_eq!(Fault::DataNack { op: 0, index: 2 }.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data));
         assert_eq!(Fault::ArbitrationLost.kind(), ErrorKind::ArbitrationLoss);
-        assert_eq!(
-            Fault::Bus {
-                line: LineFault::SdaStuckLow
-            }
-            .kind(),
-            ErrorKind::Bus
-        );
+        assert_eq!(Fault::Bus { line: LineFault::SdaStuckLow }.kind(), ErrorKind::Bus);
         assert_eq!(ErrorKind::Bus.kind(), ErrorKind::Bus);
         assert!(f.is_nack());
         assert!(!Fault::ArbitrationLost.is_nack());

@@ -89,10 +89,7 @@ impl FromStr for BusSpeed {
     fn from_str(text: &str) -> Result<Self, Self::Err> {
         let syntax = || SpeedError::Syntax(text.to_string());
         let t = text.trim();
-        let t = t
-            .strip_suffix("Hz")
-            .or_else(|| t.strip_suffix("hz"))
-            .unwrap_or(t);
+        let t = t.strip_suffix("Hz").or_else(|| t.strip_suffix("hz")).unwrap_or(t);
         let (num, scale) = match t.chars().last() {
             Some('k') | Some('K') => (&t[..t.len() - 1], 1e3),
             Some('M') | Some('m') => (&t[..t.len() - 1], 1e6),
@@ -151,10 +148,7 @@ mod tests {
         assert_eq!(BusSpeed::from_hz(100_001).unwrap().mode(), Mode::Fast);
         assert_eq!(BusSpeed::FAST.mode(), Mode::Fast);
         assert_eq!(BusSpeed::FAST_PLUS.mode(), Mode::FastPlus);
-        assert_eq!(
-            BusSpeed::from_hz(3_400_000).unwrap().mode(),
-            Mode::AboveFastPlus
-        );
+        assert_eq!(BusSpeed::from_hz(3_400_000).unwrap().mode(), Mode::AboveFastPlus);
         assert_eq!(BusSpeed::FAST.to_string(), "400 kHz");
     }
 }

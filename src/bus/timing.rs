@@ -35,24 +35,9 @@ pub struct ConditionTimes {
 /// check them against your copy of the specification).
 pub fn condition_times(mode: Mode) -> ConditionTimes {
     match mode {
-        Mode::Standard => ConditionTimes {
-            hd_sta: 4_000,
-            su_sta: 4_700,
-            su_sto: 4_000,
-            buf: 4_700,
-        },
-        Mode::Fast => ConditionTimes {
-            hd_sta: 600,
-            su_sta: 600,
-            su_sto: 600,
-            buf: 1_300,
-        },
-        Mode::FastPlus | Mode::AboveFastPlus => ConditionTimes {
-            hd_sta: 260,
-            su_sta: 260,
-            su_sto: 260,
-            buf: 500,
-        },
+        Mode::Standard => ConditionTimes { hd_sta: 4_000, su_sta: 4_700, su_sto: 4_000, buf: 4_700 },
+        Mode::Fast => ConditionTimes { hd_sta: 600, su_sta: 600, su_sto: 600, buf: 1_300 },
+        Mode::FastPlus | Mode::AboveFastPlus => ConditionTimes { hd_sta: 260, su_sta: 260, su_sto: 260, buf: 500 },
     }
 }
 
@@ -77,22 +62,14 @@ impl Breakdown {
     /// Payload bytes per second over the whole transaction time.
     pub fn payload_rate(&self) -> f64 {
         let t = self.total().as_secs_f64();
-        if t == 0.0 {
-            0.0
-        } else {
-            self.payload_bytes as f64 / t
-        }
+        if t == 0.0 { 0.0 } else { self.payload_bytes as f64 / t }
     }
 
     /// Fraction of the time that carried payload data bits (8 of each data
     /// byte's 9 clocks).
     pub fn efficiency(&self) -> f64 {
         let total = self.total().as_nanos() as f64;
-        if total == 0.0 {
-            0.0
-        } else {
-            self.data_ns as f64 * 8.0 / 9.0 / total
-        }
+        if total == 0.0 { 0.0 } else { self.data_ns as f64 * 8.0 / 9.0 / total }
     }
 }
 
@@ -113,12 +90,7 @@ pub fn breakdown_events(events: &[Event], speed: BusSpeed) -> Breakdown {
     let c = condition_times(speed.mode());
     let at_least = |min: u32| (min as u64).max(half);
     let byte = 9 * t;
-    let mut b = Breakdown {
-        conditions_ns: 0,
-        address_ns: 0,
-        data_ns: 0,
-        payload_bytes: 0,
-    };
+    let mut b = Breakdown { conditions_ns: 0, address_ns: 0, data_ns: 0, payload_bytes: 0 };
     for e in events {
         match e {
             Event::Start => b.conditions_ns += at_least(c.hd_sta),
@@ -145,10 +117,7 @@ mod tests {
     use crate::bus::{Address, Operation};
 
     fn reg_read() -> Transaction {
-        Transaction::new(
-            Address::Seven(0x44),
-            vec![Operation::Write(vec![0x03]), Operation::Read(1)],
-        )
+        Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(1)])
     }
 
     // A one-byte register read is 4 bytes of 9 clocks: 36 us at 1 MHz plus
@@ -187,10 +156,7 @@ mod tests {
     fn throughput_rises_with_payload() {
         let small = breakdown(&reg_read(), BusSpeed::FAST);
         let big = breakdown(
-            &Transaction::new(
-                Address::Seven(0x50),
-                vec![Operation::Write(vec![0; 2]), Operation::Read(64)],
-            ),
+            &Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![0; 2]), Operation::Read(64)]),
             BusSpeed::FAST,
         );
         assert!(big.efficiency() > small.efficiency());

@@ -81,9 +81,7 @@ impl Operation {
         match self {
             Operation::Write(b) => b.len(),
             Operation::Read(n) => *n,
-            Operation::ReadCounted { max, trailer } => {
-                1 + count.map_or(*max, |c| (c as usize).min(*max)) + trailer
-            }
+            Operation::ReadCounted { max, trailer } => 1 + count.map_or(*max, |c| (c as usize).min(*max)) + trailer,
         }
     }
 
@@ -135,15 +133,10 @@ pub enum ShapeError {
     EmptyRead { op: usize },
     #[error("operation {op} moves {len} bytes; at most {max} are allowed per operation")]
     TooLong { op: usize, len: usize, max: usize },
-    #[error(
-        "operation {op} is a counted read of up to {max} bytes; a count byte announces at most 255"
-    )]
+    #[error("operation {op} is a counted read of up to {max} bytes; a count byte announces at most 255")]
     CountTooLarge { op: usize, max: usize },
     #[error("{address} is reserved ({purpose}); pass the reserved-address option to use it")]
-    Reserved {
-        address: Address,
-        purpose: &'static str,
-    },
+    Reserved { address: Address, purpose: &'static str },
 }
 
 impl Transaction {
@@ -158,10 +151,7 @@ impl Transaction {
             return Err(ShapeError::NoOperations);
         }
         if !allow_reserved && let Some(r) = self.address.reserved() {
-            return Err(ShapeError::Reserved {
-                address: self.address,
-                purpose: r.describe(),
-            });
+            return Err(ShapeError::Reserved { address: self.address, purpose: r.describe() });
         }
         let max = max_per_op.min(MAX_OPERATION_BYTES);
         for (op, o) in self.ops.iter().enumerate() {
@@ -174,11 +164,7 @@ impl Transaction {
                 return Err(ShapeError::CountTooLarge { op, max: *max });
             }
             if o.len() > max {
-                return Err(ShapeError::TooLong {
-                    op,
-                    len: o.len(),
-                    max,
-                });
+                return Err(ShapeError::TooLong { op, len: o.len(), max });
             }
         }
         Ok(())
@@ -186,12 +172,10 @@ impl Transaction {
 
     /// Total data bytes written and read (counted reads at their most).
     pub fn byte_counts(&self) -> (usize, usize) {
-        self.ops
-            .iter()
-            .fold((0, 0), |(w, r), o| match o.direction() {
-                Direction::Write => (w + o.len(), r),
-                Direction::Read => (w, r + o.len()),
-            })
+        self.ops.iter().fold((0, 0), |(w, r), o| match o.direction() {
+            Direction::Write => (w + o.len(), r),
+            Direction::Read => (w, r + o.len()),
+        })
     }
 
     /// The events the transaction puts on the bus, assuming every byte is
@@ -231,17 +215,10 @@ impl Transaction {
                 }
                 Operation::Read(_) | Operation::ReadCounted { .. } => {
                     let n = o.len_given(if o.is_counted() { count(op) } else { None });
-                    let next_is_read = self
-                        .ops
-                        .get(op + 1)
-                        .is_some_and(|next| next.direction() == Direction::Read);
+                    let next_is_read = self.ops.get(op + 1).is_some_and(|next| next.direction() == Direction::Read);
                     for index in 0..n {
                         let last = index + 1 == n && !next_is_read;
-                        ev.push(Event::ReadByte {
-                            op,
-                            index,
-                            ack: !last,
-                        });
+                        ev.push(Event::ReadByte { op, index, ack: !last });
                     }
                 }
             }
@@ -292,10 +269,7 @@ mod tests {
     // addr+R, data, controller NACKs the last byte, P.
     #[test]
     fn write_then_read_uses_repeated_start() {
-        let t = Transaction::new(
-            Address::Seven(0x44),
-            vec![Operation::Write(vec![0x03]), Operation::Read(2)],
-        );
+        let t = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)]);
         assert_eq!(
             t.events(),
             vec![
@@ -348,15 +322,7 @@ mod tests {
         let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Read(1)]);
         assert_eq!(
             t.events(),
-            vec![
-                Start,
-                AddressByte(0xF4),
-                AddressByte(0xA5),
-                RepeatedStart,
-                AddressByte(0xF5),
-                rb(0, 0, false),
-                Stop
-            ]
+            vec![Start, AddressByte(0xF4), AddressByte(0xA5), RepeatedStart, AddressByte(0xF5), rb(0, 0, false), Stop]
         );
     }
 
@@ -364,10 +330,7 @@ mod tests {
     // phase only the first address byte is repeated, with R/W = 1.
     #[test]
     fn ten_bit_write_then_read_repeats_only_first_byte() {
-        let t = Transaction::new(
-            Address::Ten(0x2A5),
-            vec![Operation::Write(vec![0x01]), Operation::Read(1)],
-        );
+        let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
         assert_eq!(
             t.events(),
             vec![
@@ -390,13 +353,7 @@ mod tests {
     fn counted_read_length_follows_the_count_byte() {
         let t = Transaction::new(
             Address::Seven(0x0B),
-            vec![
-                Operation::Write(vec![0x20]),
-                Operation::ReadCounted {
-                    max: 32,
-                    trailer: 1,
-                },
-            ],
+            vec![Operation::Write(vec![0x20]), Operation::ReadCounted { max: 32, trailer: 1 }],
         );
         let ev = t.events_resolved(|op| (op == 1).then_some(2));
         assert_eq!(
@@ -415,63 +372,28 @@ mod tests {
             ]
         );
         // Unresolved: the worst case of 1 + 32 + 1 bytes.
-        let worst = t
-            .events()
-            .iter()
-            .filter(|e| matches!(e, ReadByte { .. }))
-            .count();
+        let worst = t.events().iter().filter(|e| matches!(e, ReadByte { .. })).count();
         assert_eq!(worst, 34);
         // A count above max is cut to max.
-        let capped = t
-            .events_resolved(|_| Some(200))
-            .iter()
-            .filter(|e| matches!(e, ReadByte { .. }))
-            .count();
+        let capped = t.events_resolved(|_| Some(200)).iter().filter(|e| matches!(e, ReadByte { .. })).count();
         assert_eq!(capped, 34);
         // A zero count with no trailer: the count byte is the last byte and
         // is NACKed.
-        let z = Transaction::new(
-            Address::Seven(0x0B),
-            vec![Operation::ReadCounted {
-                max: 32,
-                trailer: 0,
-            }],
-        );
-        assert_eq!(
-            z.events_resolved(|_| Some(0)),
-            vec![Start, AddressByte(0x17), rb(0, 0, false), Stop]
-        );
+        let z = Transaction::new(Address::Seven(0x0B), vec![Operation::ReadCounted { max: 32, trailer: 0 }]);
+        assert_eq!(z.events_resolved(|_| Some(0)), vec![Start, AddressByte(0x17), rb(0, 0, false), Stop]);
     }
 
     #[test]
     fn events_observed_takes_counts_from_the_outcome() {
         use crate::bus::OpOutcome;
-        let t = Transaction::new(
-            Address::Seven(0x0B),
-            vec![Operation::ReadCounted {
-                max: 32,
-                trailer: 0,
-            }],
-        );
+        let t = Transaction::new(Address::Seven(0x0B), vec![Operation::ReadCounted { max: 32, trailer: 0 }]);
         let outcome = Outcome {
-            ops: vec![OpOutcome {
-                acks: vec![],
-                data: vec![1, 0xAB],
-            }],
+            ops: vec![OpOutcome { acks: vec![], data: vec![1, 0xAB] }],
             bus_time: std::time::Duration::ZERO,
             measured: None,
             fault: None,
         };
-        assert_eq!(
-            t.events_observed(&outcome),
-            vec![
-                Start,
-                AddressByte(0x17),
-                rb(0, 0, true),
-                rb(0, 1, false),
-                Stop
-            ]
-        );
+        assert_eq!(t.events_observed(&outcome), vec![Start, AddressByte(0x17), rb(0, 0, true), rb(0, 1, false), Stop]);
         assert_eq!(t.byte_counts(), (0, 33));
     }
 
@@ -485,68 +407,33 @@ mod tests {
     #[test]
     fn validation() {
         let a = Address::Seven(0x50);
-        assert_eq!(
-            Transaction::new(a, vec![]).validate(64, false),
-            Err(ShapeError::NoOperations)
-        );
+        assert_eq!(Transaction::new(a, vec![]).validate(64, false), Err(ShapeError::NoOperations));
         assert_eq!(
             Transaction::new(a, vec![Operation::Read(0)]).validate(64, false),
             Err(ShapeError::EmptyRead { op: 0 })
         );
         assert_eq!(
             Transaction::new(a, vec![Operation::Read(65)]).validate(64, false),
-            Err(ShapeError::TooLong {
-                op: 0,
-                len: 65,
-                max: 64
-            })
+            Err(ShapeError::TooLong { op: 0, len: 65, max: 64 })
         );
         let gc = Transaction::new(Address::Seven(0x00), vec![Operation::Write(vec![0x06])]);
-        assert!(matches!(
-            gc.validate(64, false),
-            Err(ShapeError::Reserved { .. })
-        ));
+        assert!(matches!(gc.validate(64, false), Err(ShapeError::Reserved { .. })));
         assert!(gc.validate(64, true).is_ok());
         assert_eq!(
-            Transaction::new(
-                a,
-                vec![Operation::ReadCounted {
-                    max: 256,
-                    trailer: 0
-                }]
-            )
-            .validate(1024, false),
+            Transaction::new(a, vec![Operation::ReadCounted { max: 256, trailer: 0 }]).validate(1024, false),
             Err(ShapeError::CountTooLarge { op: 0, max: 256 })
         );
         assert_eq!(
-            Transaction::new(
-                a,
-                vec![Operation::ReadCounted {
-                    max: 64,
-                    trailer: 1
-                }]
-            )
-            .validate(64, false),
-            Err(ShapeError::TooLong {
-                op: 0,
-                len: 66,
-                max: 64
-            })
+            Transaction::new(a, vec![Operation::ReadCounted { max: 64, trailer: 1 }]).validate(64, false),
+            Err(ShapeError::TooLong { op: 0, len: 66, max: 64 })
         );
     }
 
     // Trace records name the operation kinds; the counted read has its own.
     #[test]
     fn counted_read_serializes_with_its_own_name() {
-        let j = serde_json::to_string(&Operation::ReadCounted {
-            max: 32,
-            trailer: 1,
-        })
-        .unwrap();
+        let j = serde_json::to_string(&Operation::ReadCounted { max: 32, trailer: 1 }).unwrap();
         assert_eq!(j, r#"{"read-counted":{"max":32,"trailer":1}}"#);
-        assert_eq!(
-            serde_json::to_string(&Operation::Read(2)).unwrap(),
-            r#"{"read":2}"#
-        );
+        assert_eq!(serde_json::to_string(&Operation::Read(2)).unwrap(), r#"{"read":2}"#);
     }
 }

@@ -91,11 +91,7 @@ pub fn parse_ops(text: &str) -> Result<Vec<Operation>, ElectricalError> {
 pub fn shape(address_bits: u8, ops: Vec<Operation>) -> Result<Transaction, ElectricalError> {
     // 0x08 is the first unreserved 7-bit address (UM10204 §3.1.12); the
     // time does not depend on it.
-    let address = if address_bits == 10 {
-        Address::Ten(0x000)
-    } else {
-        Address::Seven(0x08)
-    };
+    let address = if address_bits == 10 { Address::Ten(0x000) } else { Address::Seven(0x08) };
     let tx = Transaction::new(address, ops);
     tx.validate(MAX_OPERATION_BYTES, false)?;
     Ok(tx)
@@ -112,10 +108,7 @@ mod tests {
         let tx = shape(7, parse_ops("w1,r1").unwrap()).unwrap();
         let r = bus_time(&tx, BusSpeed::FAST_PLUS);
         assert_eq!(r.total_ns, 38_500);
-        assert_eq!(
-            (r.conditions_ns, r.address_ns, r.data_ns, r.payload_bytes),
-            (2_500, 18_000, 18_000, 2)
-        );
+        assert_eq!((r.conditions_ns, r.address_ns, r.data_ns, r.payload_bytes), (2_500, 18_000, 18_000, 2));
         assert_eq!(r.ops, vec!["w1", "r1"]);
         assert_eq!(r.mode_name, "Fast-mode Plus");
     }
@@ -124,14 +117,8 @@ mod tests {
     // (two with R/W = 0, then the first again with R/W = 1).
     #[test]
     fn ten_bit_costs_an_address_byte_more() {
-        let seven = bus_time(
-            &shape(7, parse_ops("w2 r6").unwrap()).unwrap(),
-            BusSpeed::FAST,
-        );
-        let ten = bus_time(
-            &shape(10, parse_ops("w2 r6").unwrap()).unwrap(),
-            BusSpeed::FAST,
-        );
+        let seven = bus_time(&shape(7, parse_ops("w2 r6").unwrap()).unwrap(), BusSpeed::FAST);
+        let ten = bus_time(&shape(10, parse_ops("w2 r6").unwrap()).unwrap(), BusSpeed::FAST);
         assert_eq!(ten.address_ns, seven.address_ns * 3 / 2);
         assert_eq!(ten.address_bits, 10);
         assert!(ten.payload_bytes_per_s < seven.payload_bytes_per_s);
@@ -139,21 +126,12 @@ mod tests {
 
     #[test]
     fn bad_shapes() {
-        assert_eq!(
-            parse_ops("w2,x3"),
-            Err(ElectricalError::Ops("w2,x3".into()))
-        );
+        assert_eq!(parse_ops("w2,x3"), Err(ElectricalError::Ops("w2,x3".into())));
         assert!(parse_ops("").is_err());
         assert!(parse_ops("r").is_err());
         assert!(parse_ops("r-1").is_err());
         assert!(parse_ops("é2").is_err());
-        assert!(matches!(
-            shape(7, parse_ops("r0").unwrap()),
-            Err(ElectricalError::Shape(_))
-        ));
-        assert!(matches!(
-            shape(7, parse_ops("w999999").unwrap()),
-            Err(ElectricalError::Shape(_))
-        ));
+        assert!(matches!(shape(7, parse_ops("r0").unwrap()), Err(ElectricalError::Shape(_))));
+        assert!(matches!(shape(7, parse_ops("w999999").unwrap()), Err(ElectricalError::Shape(_))));
     }
 }

@@ -15,9 +15,7 @@ use crate::bus::BusSpeed;
 
 use super::bustime::{BusTimeReport, bus_time, parse_ops, shape, stand_in_write};
 use super::limits;
-use super::pullup::{
-    Capacitance, ElectricalError, Fit, Pullup, PullupInput, PullupReport, SpeedTarget, size_pullups,
-};
+use super::pullup::{Capacitance, ElectricalError, Fit, Pullup, PullupInput, PullupReport, SpeedTarget, size_pullups};
 use super::units::{self, Si};
 
 fn speed_target(text: &str) -> Result<SpeedTarget, String> {
@@ -94,11 +92,7 @@ pub fn run(args: &PullupArgs) -> Result<ExitCode> {
     } else {
         print!("{}", pullup_table(&report));
     }
-    Ok(if report.ok {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(1)
-    })
+    Ok(if report.ok { ExitCode::SUCCESS } else { ExitCode::from(1) })
 }
 
 fn ohms(r: f64) -> Si {
@@ -118,16 +112,9 @@ fn fit_word(f: Fit) -> &'static str {
 }
 
 fn pullup_line(p: &Pullup) -> String {
-    let list: Vec<String> = p
-        .resistors_ohm
-        .iter()
-        .map(|&r| ohms(r).to_string())
-        .collect();
-    let value = if list.len() == 1 {
-        list.join("")
-    } else {
-        format!("{} = {}", list.join(" ∥ "), ohms(p.equivalent_ohm))
-    };
+    let list: Vec<String> = p.resistors_ohm.iter().map(|&r| ohms(r).to_string()).collect();
+    let value =
+        if list.len() == 1 { list.join("") } else { format!("{} = {}", list.join(" ∥ "), ohms(p.equivalent_ohm)) };
     format!("{value}, {}, rise {:.0} ns", fit_word(p.fit), p.rise_ns)
 }
 
@@ -135,11 +122,7 @@ fn value_list(values: &[f64]) -> String {
     if values.is_empty() {
         return "none".into();
     }
-    values
-        .iter()
-        .map(|&v| ohms(v).to_string())
-        .collect::<Vec<_>>()
-        .join(", ")
+    values.iter().map(|&v| ohms(v).to_string()).collect::<Vec<_>>().join(", ")
 }
 
 /// The readable form of a report: one fact per line, label then value.
@@ -165,28 +148,11 @@ pub fn pullup_table(r: &PullupReport) -> String {
             pf(l.cb_max_pf)
         ),
     );
-    let cb_how = if r.cb_estimate.is_some() {
-        "estimated"
-    } else {
-        "measured"
-    };
+    let cb_how = if r.cb_estimate.is_some() { "estimated" } else { "measured" };
     row("bus capacitance", format!("{} ({cb_how})", pf(r.cb_pf)));
-    row(
-        "Rp(min)",
-        format!("{}  = (VDD − VOL(max)) / IOL", ohms(r.rp_min_ohm)),
-    );
-    row(
-        "Rp(max)",
-        format!("{}  = tr(max) / (0.8473 × Cb)", ohms(r.rp_max_ohm)),
-    );
-    row(
-        "window",
-        if r.window_open {
-            "open".into()
-        } else {
-            "closed: no value fits".to_string()
-        },
-    );
+    row("Rp(min)", format!("{}  = (VDD − VOL(max)) / IOL", ohms(r.rp_min_ohm)));
+    row("Rp(max)", format!("{}  = tr(max) / (0.8473 × Cb)", ohms(r.rp_max_ohm)));
+    row("window", if r.window_open { "open".into() } else { "closed: no value fits".to_string() });
     if let Some(p) = &r.existing {
         row("existing", pullup_line(p));
     }
@@ -202,19 +168,10 @@ pub fn pullup_table(r: &PullupReport) -> String {
         row("modules", format!("{} each: {text}", ohms(m.module_ohm)));
     }
     row("E12 to fit", value_list(&r.suggestions.e12_ohm));
-    let e24_only: Vec<f64> = r
-        .suggestions
-        .e24_ohm
-        .iter()
-        .copied()
-        .filter(|v| !r.suggestions.e12_ohm.contains(v))
-        .collect();
+    let e24_only: Vec<f64> =
+        r.suggestions.e24_ohm.iter().copied().filter(|v| !r.suggestions.e12_ohm.contains(v)).collect();
     row("E24 also", value_list(&e24_only));
-    row(
-        "fastest mode",
-        r.fastest_mode
-            .map_or("none".into(), |m| m.name().to_string()),
-    );
+    row("fastest mode", r.fastest_mode.map_or("none".into(), |m| m.name().to_string()));
     for w in &r.warnings {
         let _ = writeln!(out, "warning: {w}");
     }
@@ -277,9 +234,7 @@ impl BusTimeArgs {
                     ops.push(crate::bus::Operation::Read(n));
                 }
                 if ops.is_empty() {
-                    return Err(ElectricalError::Ops(
-                        "(nothing: give --write, --read or --ops)".into(),
-                    ));
+                    return Err(ElectricalError::Ops("(nothing: give --write, --read or --ops)".into()));
                 }
                 ops
             }
@@ -306,22 +261,14 @@ fn micros(ns: u64) -> String {
 pub fn bus_time_table(r: &BusTimeReport) -> String {
     let mut out = String::new();
     let share = |ns: u64| {
-        if r.total_ns == 0 {
-            0.0
-        } else {
-            ns as f64 * 100.0 / r.total_ns as f64
-        }
+        if r.total_ns == 0 { 0.0 } else { ns as f64 * 100.0 / r.total_ns as f64 }
     };
     let mut row = |label: &str, value: String| {
         let _ = writeln!(out, "  {label:<18} {value}");
     };
-    let clock = BusSpeed::from_hz(r.speed_hz as u64)
-        .map_or(format!("{} Hz", r.speed_hz), |s| s.to_string());
+    let clock = BusSpeed::from_hz(r.speed_hz as u64).map_or(format!("{} Hz", r.speed_hz), |s| s.to_string());
     row("clock", format!("{clock} ({})", r.mode_name));
-    row(
-        "shape",
-        format!("{}-bit address, {}", r.address_bits, r.ops.join(" ")),
-    );
+    row("shape", format!("{}-bit address, {}", r.address_bits, r.ops.join(" ")));
     row("on the wire", micros(r.total_ns));
     row(
         "  conditions",
@@ -331,14 +278,8 @@ pub fn bus_time_table(r: &BusTimeReport) -> String {
             share(r.conditions_ns)
         ),
     );
-    row(
-        "  address",
-        format!("{}  {:>5.1} %", micros(r.address_ns), share(r.address_ns)),
-    );
-    row(
-        "  data",
-        format!("{}  {:>5.1} %", micros(r.data_ns), share(r.data_ns)),
-    );
+    row("  address", format!("{}  {:>5.1} %", micros(r.address_ns), share(r.address_ns)));
+    row("  data", format!("{}  {:>5.1} %", micros(r.data_ns), share(r.data_ns)));
     row(
         "payload",
         format!(
@@ -379,19 +320,9 @@ mod tests {
 
     #[test]
     fn pullup_options_read_engineering_values() {
-        let a = pull(&[
-            "--vdd",
-            "3V3",
-            "--speed",
-            "fast",
-            "--bus-cap",
-            "150p",
-            "--existing",
-            "10k,4k7",
-            "--fit",
-            "2.2k",
-        ])
-        .unwrap();
+        let a =
+            pull(&["--vdd", "3V3", "--speed", "fast", "--bus-cap", "150p", "--existing", "10k,4k7", "--fit", "2.2k"])
+                .unwrap();
         let i = a.input().unwrap();
         assert_eq!(i.vdd_v, 3.3);
         assert_eq!(i.capacitance, Capacitance::Measured { pf: 150.0 });
@@ -399,10 +330,7 @@ mod tests {
         let r = size_pullups(&i).unwrap();
         let t = pullup_table(&r);
         assert!(t.contains("Rp(min)") && t.contains("967 Ω"), "{t}");
-        assert!(
-            t.contains("caution:") && t.contains("level shifting"),
-            "{t}"
-        );
+        assert!(t.contains("caution:") && t.contains("level shifting"), "{t}");
         // JSON carries the same numbers.
         let j = serde_json::to_value(&r).unwrap();
         assert_eq!(j["cb_pf"], 150.0);
@@ -413,24 +341,12 @@ mod tests {
         let a = pull(&["--vdd", "5", "--devices", "4", "--wire-length", "50cm"]).unwrap();
         assert_eq!(
             a.input().unwrap().capacitance,
-            Capacitance::Estimated {
-                devices: 4,
-                wire_pf_per_m: 100.0,
-                length_m: 0.5
-            }
+            Capacitance::Estimated { devices: 4, wire_pf_per_m: 100.0, length_m: 0.5 }
         );
-        assert_eq!(
-            pull(&["--vdd", "5"]).unwrap().input(),
-            Err(ElectricalError::NoCapacitance)
-        );
+        assert_eq!(pull(&["--vdd", "5"]).unwrap().input(), Err(ElectricalError::NoCapacitance));
         // Negative values reach the library, which names the field.
         let a = pull(&["--vdd", "5", "--bus-cap", "-150p"]).unwrap();
-        assert!(
-            size_pullups(&a.input().unwrap())
-                .unwrap_err()
-                .to_string()
-                .contains("bus capacitance")
-        );
+        assert!(size_pullups(&a.input().unwrap()).unwrap_err().to_string().contains("bus capacitance"));
         // Unit errors come from the parser, before the library.
         assert!(pull(&["--vdd", "5", "--bus-cap", "150"]).is_err());
         assert!(pull(&["--vdd", "5", "--bus-cap", "150p", "--devices", "3"]).is_err());
@@ -439,36 +355,17 @@ mod tests {
 
     #[test]
     fn bus_time_options() {
-        let t = |args: &[&str]| {
-            Time::try_parse_from(std::iter::once("t").chain(args.iter().copied())).map(|p| p.a)
-        };
-        let r = t(&["--speed", "1M", "--write", "1", "--read", "1"])
-            .unwrap()
-            .report()
-            .unwrap();
+        let t = |args: &[&str]| Time::try_parse_from(std::iter::once("t").chain(args.iter().copied())).map(|p| p.a);
+        let r = t(&["--speed", "1M", "--write", "1", "--read", "1"]).unwrap().report().unwrap();
         assert_eq!(r.total_ns, 38_500); // bus::timing's worked example
-        let r2 = t(&["--speed", "1M", "--ops", "w1,r1"])
-            .unwrap()
-            .report()
-            .unwrap();
+        let r2 = t(&["--speed", "1M", "--ops", "w1,r1"]).unwrap().report().unwrap();
         assert_eq!(r, r2);
         let table = bus_time_table(&r);
         assert!(table.contains("38.50 µs"), "{table}");
         assert!(t(&["--address-bits", "9", "--read", "1"]).is_err());
-        assert_eq!(
-            t(&["--address-bits", "10", "--read", "1"])
-                .unwrap()
-                .address_bits,
-            10
-        );
+        assert_eq!(t(&["--address-bits", "10", "--read", "1"]).unwrap().address_bits, 10);
         assert!(t(&["--write", "1", "--ops", "w1"]).is_err());
-        assert!(matches!(
-            t(&[]).unwrap().report(),
-            Err(ElectricalError::Ops(_))
-        ));
-        assert!(matches!(
-            t(&["--read", "0"]).unwrap().report(),
-            Err(ElectricalError::Shape(_))
-        ));
+        assert!(matches!(t(&[]).unwrap().report(), Err(ElectricalError::Ops(_))));
+        assert!(matches!(t(&["--read", "0"]).unwrap().report(), Err(ElectricalError::Shape(_))));
     }
 }

@@ -16,9 +16,8 @@ pub enum Series {
 pub const E12: [u16; 12] = [10, 12, 15, 18, 22, 27, 33, 39, 47, 56, 68, 82];
 
 /// IEC 60063 E24 mantissas (two significant digits).
-pub const E24: [u16; 24] = [
-    10, 11, 12, 13, 15, 16, 18, 20, 22, 24, 27, 30, 33, 36, 39, 43, 47, 51, 56, 62, 68, 75, 82, 91,
-];
+pub const E24: [u16; 24] =
+    [10, 11, 12, 13, 15, 16, 18, 20, 22, 24, 27, 30, 33, 36, 39, 43, 47, 51, 56, 62, 68, 75, 82, 91];
 
 impl Series {
     pub fn mantissas(self) -> &'static [u16] {
@@ -33,13 +32,9 @@ impl Series {
         // Scale by exact integer steps so 4.7 kΩ comes out as 4700.0, not
         // 4700.000000000001 (the reports print these values).
         (0..=6).flat_map(move |decade| {
-            self.mantissas().iter().map(move |&m| {
-                if decade == 0 {
-                    m as f64 / 10.0
-                } else {
-                    (m as u64 * 10u64.pow(decade - 1)) as f64
-                }
-            })
+            self.mantissas()
+                .iter()
+                .map(move |&m| if decade == 0 { m as f64 / 10.0 } else { (m as u64 * 10u64.pow(decade - 1)) as f64 })
         })
     }
 

@@ -13,7 +13,8 @@ use serde::Serialize;
 use crate::bus::Mode;
 
 /// Named in every report, so a reader can check the numbers.
-pub const SOURCE: &str = "UM10204 rev. 7: §7.1 pull-up sizing, Table 9 (VOL, IOL, Ci), Table 10 (tr, Cb); values from memory";
+pub const SOURCE: &str =
+    "UM10204 rev. 7: §7.1 pull-up sizing, Table 9 (VOL, IOL, Ci), Table 10 (tr, Cb); values from memory";
 
 /// Rise time from 0.3 × VDD to 0.7 × VDD of an RC line, as a multiple of
 /// R × C: ln(0.7 / 0.3) = 0.8473 (UM10204 §7.1).
@@ -51,27 +52,9 @@ pub struct ModeLimits {
 
 /// Standard-mode, Fast-mode, Fast-mode Plus, slowest first.
 pub const LIMITS: [ModeLimits; 3] = [
-    ModeLimits {
-        mode: Mode::Standard,
-        vol_max_v: 0.4,
-        iol_ma: 3.0,
-        rise_max_ns: 1000.0,
-        cb_max_pf: 400.0,
-    },
-    ModeLimits {
-        mode: Mode::Fast,
-        vol_max_v: 0.4,
-        iol_ma: 3.0,
-        rise_max_ns: 300.0,
-        cb_max_pf: 400.0,
-    },
-    ModeLimits {
-        mode: Mode::FastPlus,
-        vol_max_v: 0.4,
-        iol_ma: 20.0,
-        rise_max_ns: 120.0,
-        cb_max_pf: 550.0,
-    },
+    ModeLimits { mode: Mode::Standard, vol_max_v: 0.4, iol_ma: 3.0, rise_max_ns: 1000.0, cb_max_pf: 400.0 },
+    ModeLimits { mode: Mode::Fast, vol_max_v: 0.4, iol_ma: 3.0, rise_max_ns: 300.0, cb_max_pf: 400.0 },
+    ModeLimits { mode: Mode::FastPlus, vol_max_v: 0.4, iol_ma: 20.0, rise_max_ns: 120.0, cb_max_pf: 550.0 },
 ];
 
 /// The limits of a mode; None above Fast-mode Plus (not modelled).
@@ -82,11 +65,7 @@ pub fn limits(mode: Mode) -> Option<&'static ModeLimits> {
 impl ModeLimits {
     /// VOL(max) at supply `vdd`: 0.2 × VDD below 2 V (Table 9).
     pub fn vol_max(&self, vdd: f64) -> f64 {
-        if vdd < LOW_SUPPLY_V {
-            0.2 * vdd
-        } else {
-            self.vol_max_v
-        }
+        if vdd < LOW_SUPPLY_V { 0.2 * vdd } else { self.vol_max_v }
     }
 
     /// Rp(min) = (VDD − VOL(max)) / IOL, in ohms (UM10204 §7.1).
@@ -118,22 +97,10 @@ mod tests {
     #[test]
     fn rp_min_at_5v_and_3v3() {
         let sm = limits(Mode::Standard).unwrap();
-        assert!(
-            close(sm.rp_min_ohm(5.0), 1533.3, 0.1),
-            "{}",
-            sm.rp_min_ohm(5.0)
-        );
-        assert!(
-            close(sm.rp_min_ohm(3.3), 966.7, 0.1),
-            "{}",
-            sm.rp_min_ohm(3.3)
-        );
+        assert!(close(sm.rp_min_ohm(5.0), 1533.3, 0.1), "{}", sm.rp_min_ohm(5.0));
+        assert!(close(sm.rp_min_ohm(3.3), 966.7, 0.1), "{}", sm.rp_min_ohm(3.3));
         // Fast-mode Plus sinks 20 mA: (5 − 0.4) / 20 mA = 230 Ω.
-        assert!(close(
-            limits(Mode::FastPlus).unwrap().rp_min_ohm(5.0),
-            230.0,
-            1e-9
-        ));
+        assert!(close(limits(Mode::FastPlus).unwrap().rp_min_ohm(5.0), 230.0, 1e-9));
     }
 
     // UM10204 §7.1: Rp(max) = tr / (0.8473 × Cb); tr = 1000 ns (Sm),
@@ -142,17 +109,9 @@ mod tests {
     #[test]
     fn rp_max_from_the_formula() {
         let sm = limits(Mode::Standard).unwrap();
-        assert!(
-            close(sm.rp_max_ohm(400.0), 2950.6, 0.1),
-            "{}",
-            sm.rp_max_ohm(400.0)
-        );
+        assert!(close(sm.rp_max_ohm(400.0), 2950.6, 0.1), "{}", sm.rp_max_ohm(400.0));
         let fm = limits(Mode::Fast).unwrap();
-        assert!(
-            close(fm.rp_max_ohm(200.0), 1770.3, 0.1),
-            "{}",
-            fm.rp_max_ohm(200.0)
-        );
+        assert!(close(fm.rp_max_ohm(200.0), 1770.3, 0.1), "{}", fm.rp_max_ohm(200.0));
         // The rise time of Rp(max) is tr(max) by construction.
         assert!(close(rise_ns(fm.rp_max_ohm(200.0), 200.0), 300.0, 1e-9));
     }
@@ -166,11 +125,7 @@ mod tests {
         assert_eq!(by(Mode::Fast).cb_max_pf, 400.0);
         assert_eq!(by(Mode::FastPlus).cb_max_pf, 550.0);
         assert_eq!(
-            [
-                by(Mode::Standard).rise_max_ns,
-                by(Mode::Fast).rise_max_ns,
-                by(Mode::FastPlus).rise_max_ns
-            ],
+            [by(Mode::Standard).rise_max_ns, by(Mode::Fast).rise_max_ns, by(Mode::FastPlus).rise_max_ns],
             [1000.0, 300.0, 120.0]
         );
         assert!(limits(Mode::AboveFastPlus).is_none());

@@ -16,6 +16,4 @@ pub mod units;
 
 pub use bustime::{BusTimeReport, bus_time};
 pub use cli::{BusTimeArgs, PullupArgs, run, run_bus_time};
-pub use pullup::{
-    Capacitance, ElectricalError, Fit, PullupInput, PullupReport, SpeedTarget, size_pullups,
-};
+pub use pullup::{Capacitance, ElectricalError, Fit, PullupInput, PullupReport, SpeedTarget, size_pullups};

@@ -66,11 +66,7 @@ pub enum Capacitance {
     /// Measured on the bus line, in pF.
     Measured { pf: f64 },
     /// Devices × pin capacitance + wire capacitance per metre × length.
-    Estimated {
-        devices: u32,
-        wire_pf_per_m: f64,
-        length_m: f64,
-    },
+    Estimated { devices: u32, wire_pf_per_m: f64, length_m: f64 },
 }
 
 /// Everything [`size_pullups`] needs. Resistances in ohms, capacitances
@@ -105,24 +101,14 @@ pub enum ElectricalError {
     #[error("supply voltage must be {lo} V to {hi} V (common practice), got {0} V", lo = limits::VDD_RANGE_V.0, hi = limits::VDD_RANGE_V.1)]
     Vdd(f64),
     #[error("{field} must not be negative, got {value} {unit}")]
-    Negative {
-        field: String,
-        value: f64,
-        unit: &'static str,
-    },
+    Negative { field: String, value: f64, unit: &'static str },
     #[error("{field} must be more than zero, got {value} {unit}")]
-    NotPositive {
-        field: String,
-        value: f64,
-        unit: &'static str,
-    },
+    NotPositive { field: String, value: f64, unit: &'static str },
     #[error("{field} is not a finite number")]
     NotFinite { field: String },
     #[error("`{0}` is not a speed mode: write standard, fast, fast-plus, or a clock such as 400k")]
     UnknownMode(String),
-    #[error(
-        "{0} is above Fast-mode Plus; the pull-up arithmetic covers Standard-mode to Fast-mode Plus"
-    )]
+    #[error("{0} is above Fast-mode Plus; the pull-up arithmetic covers Standard-mode to Fast-mode Plus")]
     NotModelled(BusSpeed),
     #[error("give the bus capacitance: measured, or devices and wire length to estimate it")]
     NoCapacitance,
@@ -223,22 +209,12 @@ pub const CAUTION: &str = "Check every device's datasheet and the supply levels:
 const MODULE_SEARCH: usize = 10_000;
 
 fn check_finite(field: &str, v: f64) -> Result<f64, ElectricalError> {
-    if v.is_finite() {
-        Ok(v)
-    } else {
-        Err(ElectricalError::NotFinite {
-            field: field.to_string(),
-        })
-    }
+    if v.is_finite() { Ok(v) } else { Err(ElectricalError::NotFinite { field: field.to_string() }) }
 }
 
 fn non_negative(field: &str, unit: &'static str, v: f64) -> Result<f64, ElectricalError> {
     if check_finite(field, v)? < 0.0 {
-        Err(ElectricalError::Negative {
-            field: field.to_string(),
-            value: v,
-            unit,
-        })
+        Err(ElectricalError::Negative { field: field.to_string(), value: v, unit })
     } else {
         Ok(v)
     }
@@ -246,11 +222,7 @@ fn non_negative(field: &str, unit: &'static str, v: f64) -> Result<f64, Electric
 
 fn positive(field: &str, unit: &'static str, v: f64) -> Result<f64, ElectricalError> {
     if non_negative(field, unit, v)? == 0.0 {
-        Err(ElectricalError::NotPositive {
-            field: field.to_string(),
-            value: v,
-            unit,
-        })
+        Err(ElectricalError::NotPositive { field: field.to_string(), value: v, unit })
     } else {
         Ok(v)
     }
@@ -284,12 +256,7 @@ impl Window<'_> {
 
     fn pullup(&self, resistors: Vec<f64>, cb_pf: f64) -> Pullup {
         let r = parallel(resistors.iter().copied());
-        Pullup {
-            fit: self.fit(r, cb_pf),
-            rise_ns: rise_ns(r, cb_pf),
-            equivalent_ohm: r,
-            resistors_ohm: resistors,
-        }
+        Pullup { fit: self.fit(r, cb_pf), rise_ns: rise_ns(r, cb_pf), equivalent_ohm: r, resistors_ohm: resistors }
     }
 }
 
@@ -309,22 +276,13 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     let pin_pf = non_negative("pin capacitance", "pF", input.pin_pf)?;
     let (cb_pf, cb_estimate) = match input.capacitance {
         Capacitance::Measured { pf } => (positive("bus capacitance", "pF", pf)?, None),
-        Capacitance::Estimated {
-            devices,
-            wire_pf_per_m,
-            length_m,
-        } => {
+        Capacitance::Estimated { devices, wire_pf_per_m, length_m } => {
             let per_m = non_negative("wire capacitance per metre", "pF/m", wire_pf_per_m)?;
             let len = non_negative("wire length", "m", length_m)?;
             let cb = devices as f64 * pin_pf + per_m * len;
             (
                 positive("estimated bus capacitance", "pF", cb)?,
-                Some(CbEstimate {
-                    devices,
-                    pin_pf,
-                    wire_pf_per_m: per_m,
-                    length_m: len,
-                }),
+                Some(CbEstimate { devices, pin_pf, wire_pf_per_m: per_m, length_m: len }),
             )
         }
     };
@@ -334,14 +292,8 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
         .enumerate()
         .map(|(i, &r)| positive(&format!("existing pull-up #{}", i + 1), "Ω", r))
         .collect::<Result<_, _>>()?;
-    let fit = input
-        .fit_ohm
-        .map(|r| positive("pull-up to fit", "Ω", r))
-        .transpose()?;
-    let module = input
-        .module_ohm
-        .map(|r| positive("module pull-up", "Ω", r))
-        .transpose()?;
+    let fit = input.fit_ohm.map(|r| positive("pull-up to fit", "Ω", r)).transpose()?;
+    let module = input.module_ohm.map(|r| positive("module pull-up", "Ω", r)).transpose()?;
 
     let w = Window { limits: lim, vdd };
     let rp_min = lim.rp_min_ohm(vdd);
@@ -357,23 +309,13 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
         // too strong or over Cb(max) no further module can help: stop there.
         let base_siemens: f64 = on_bus.iter().map(|r| 1.0 / r).sum();
         let mut inside = (0..=MODULE_SEARCH)
-            .map(|n| {
-                (
-                    n,
-                    1.0 / (base_siemens + n as f64 / m),
-                    cb_pf + n as f64 * pin_pf,
-                )
-            })
+            .map(|n| (n, 1.0 / (base_siemens + n as f64 / m), cb_pf + n as f64 * pin_pf))
             .take_while(|&(_, r, cb)| r >= rp_min && cb <= lim.cb_max_pf)
             .filter(|&(_, r, cb)| w.inside(r, cb))
             .map(|(n, _, _)| n);
         let fewest = inside.next();
         let most = fewest.map(|f| inside.last().unwrap_or(f));
-        ModuleRoom {
-            module_ohm: m,
-            fewest,
-            most,
-        }
+        ModuleRoom { module_ohm: m, fewest, most }
     });
 
     // A suggestion is inside the window on its own (it could replace the
@@ -382,15 +324,10 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     let suggest = |series: Series| -> Vec<f64> {
         series
             .values()
-            .filter(|&v| {
-                w.inside(v, cb_pf) && w.inside(parallel(existing.iter().copied().chain([v])), cb_pf)
-            })
+            .filter(|&v| w.inside(v, cb_pf) && w.inside(parallel(existing.iter().copied().chain([v])), cb_pf))
             .collect()
     };
-    let suggestions = Suggestions {
-        e12_ohm: suggest(Series::E12),
-        e24_ohm: suggest(Series::E24),
-    };
+    let suggestions = Suggestions { e12_ohm: suggest(Series::E12), e24_ohm: suggest(Series::E24) };
 
     let fastest_mode = LIMITS
         .iter()
@@ -455,17 +392,10 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     if let Some(m) = &modules
         && m.most.is_none()
     {
-        warnings.push(format!(
-            "No number of {} modules added keeps the bus inside the window.",
-            ohms(m.module_ohm)
-        ));
+        warnings.push(format!("No number of {} modules added keeps the bus inside the window.", ohms(m.module_ohm)));
     }
     if vdd < limits::LOW_SUPPLY_V {
-        notes.push(format!(
-            "Below {} V, VOL(max) is 0.2 × VDD = {:.2} V.",
-            limits::LOW_SUPPLY_V,
-            lim.vol_max(vdd)
-        ));
+        notes.push(format!("Below {} V, VOL(max) is 0.2 × VDD = {:.2} V.", limits::LOW_SUPPLY_V, lim.vol_max(vdd)));
     }
     if mode == Mode::FastPlus {
         notes.push(
@@ -474,10 +404,7 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
         );
     }
     if let SpeedTarget::Clock(c) = input.speed {
-        notes.push(format!(
-            "A {c} clock is held to the {} limits, the slowest mode that covers it.",
-            mode.name()
-        ));
+        notes.push(format!("A {c} clock is held to the {} limits, the slowest mode that covers it.", mode.name()));
     }
     if let Some(e) = cb_estimate {
         notes.push(format!(
@@ -489,10 +416,7 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
         ));
     }
     if modules.is_some() {
-        notes.push(format!(
-            "Each added module is counted with {} of pin capacitance.",
-            Si(pin_pf * 1e-12, "F")
-        ));
+        notes.push(format!("Each added module is counted with {} of pin capacitance.", Si(pin_pf * 1e-12, "F")));
     }
 
     Ok(PullupReport {
@@ -575,11 +499,7 @@ mod tests {
         i.existing_ohm = vec![10_000.0; 10];
         let r = size_pullups(&i).unwrap();
         assert_eq!(r.existing.unwrap().fit, Fit::TooStrong);
-        assert!(
-            !r.ok && r.warnings[0].contains("below Rp(min)"),
-            "{:?}",
-            r.warnings
-        );
+        assert!(!r.ok && r.warnings[0].contains("below Rp(min)"), "{:?}", r.warnings);
         assert_eq!(r.modules.unwrap().most, None);
     }
 
@@ -617,10 +537,7 @@ mod tests {
         }
         assert!(r.suggestions.e24_ohm.len() > r.suggestions.e12_ohm.len());
         // 967 Ω to 2.36 kΩ: E12 1k, 1k2, 1k5, 1k8, 2k2.
-        assert_eq!(
-            r.suggestions.e12_ohm,
-            vec![1000.0, 1200.0, 1500.0, 1800.0, 2200.0]
-        );
+        assert_eq!(r.suggestions.e12_ohm, vec![1000.0, 1200.0, 1500.0, 1800.0, 2200.0]);
     }
 
     #[test]
@@ -649,13 +566,7 @@ mod tests {
     fn capacitance_limits_and_fastest_mode() {
         let r = size_pullups(&input(3.3, Mode::Fast, 450.0)).unwrap();
         assert!(!r.window_open);
-        assert!(
-            r.warnings
-                .iter()
-                .any(|w| w.contains("above the Fast-mode limit of 400 pF")),
-            "{:?}",
-            r.warnings
-        );
+        assert!(r.warnings.iter().any(|w| w.contains("above the Fast-mode limit of 400 pF")), "{:?}", r.warnings);
         // 450 pF fits only Fast-mode Plus's 550 pF: (3.3 − 0.4) / 20 mA =
         // 145 Ω ≤ 120 ns / (0.8473 × 450 pF) = 315 Ω.
         assert_eq!(r.fastest_mode, Some(Mode::FastPlus));
@@ -676,12 +587,7 @@ mod tests {
         assert!(!r.window_open);
         assert!(r.suggestions.e24_ohm.is_empty());
         let w = r.warnings.join(" ");
-        assert!(
-            w.contains("No pull-up value fits")
-                && w.contains("bus buffer")
-                && w.contains("shorter wires"),
-            "{w}"
-        );
+        assert!(w.contains("No pull-up value fits") && w.contains("bus buffer") && w.contains("shorter wires"), "{w}");
     }
 
     #[test]
@@ -698,11 +604,7 @@ mod tests {
     #[test]
     fn estimated_capacitance() {
         let mut i = input(3.3, Mode::Standard, 1.0);
-        i.capacitance = Capacitance::Estimated {
-            devices: 6,
-            wire_pf_per_m: 100.0,
-            length_m: 0.5,
-        };
+        i.capacitance = Capacitance::Estimated { devices: 6, wire_pf_per_m: 100.0, length_m: 0.5 };
         let r = size_pullups(&i).unwrap();
         assert_eq!(r.cb_pf, 6.0 * 10.0 + 50.0);
         assert!(r.cb_estimate.is_some());
@@ -726,43 +628,26 @@ mod tests {
             err(&|i| i.capacitance = Capacitance::Measured { pf: 0.0 })
                 .contains("bus capacitance must be more than zero")
         );
-        assert!(
-            err(&|i| i.existing_ohm = vec![4700.0, -10.0])
-                .contains("existing pull-up #2 must not be negative")
-        );
+        assert!(err(&|i| i.existing_ohm = vec![4700.0, -10.0]).contains("existing pull-up #2 must not be negative"));
         assert!(err(&|i| i.fit_ohm = Some(-1.0)).contains("pull-up to fit"));
         assert!(err(&|i| i.module_ohm = Some(0.0)).contains("module pull-up"));
         assert!(err(&|i| i.pin_pf = -1.0).contains("pin capacitance"));
         assert!(
-            err(&|i| i.capacitance = Capacitance::Estimated {
-                devices: 2,
-                wire_pf_per_m: -5.0,
-                length_m: 1.0
-            })
-            .contains("wire capacitance per metre")
+            err(&|i| i.capacitance = Capacitance::Estimated { devices: 2, wire_pf_per_m: -5.0, length_m: 1.0 })
+                .contains("wire capacitance per metre")
         );
         assert!(
             err(&|i| i.speed = SpeedTarget::Clock(BusSpeed::from_hz(3_400_000).unwrap()))
                 .contains("above Fast-mode Plus")
         );
-        assert_eq!(
-            SpeedTarget::parse("warp"),
-            Err(ElectricalError::UnknownMode("warp".into()))
-        );
-        assert_eq!(
-            SpeedTarget::parse("Fm+"),
-            Ok(SpeedTarget::Mode(Mode::FastPlus))
-        );
-        assert_eq!(
-            SpeedTarget::parse("Fast-mode Plus"),
-            Ok(SpeedTarget::Mode(Mode::FastPlus))
-        );
+        assert_eq!(SpeedTarget::parse("warp"), Err(ElectricalError::UnknownMode("warp".into())));
+        assert_eq!(SpeedTarget::parse("Fm+"), Ok(SpeedTarget::Mode(Mode::FastPlus)));
+        assert_eq!(SpeedTarget::parse("Fast-mode Plus"), Ok(SpeedTarget::Mode(Mode::FastPlus)));
     }
 
     #[test]
     fn report_serializes() {
-        let j =
-            serde_json::to_value(size_pullups(&input(3.3, Mode::Fast, 100.0)).unwrap()).unwrap();
+        let j = serde_json::to_value(size_pullups(&input(3.3, Mode::Fast, 100.0)).unwrap()).unwrap();
         assert_eq!(j["mode"], "fast");
         assert_eq!(j["limits"]["rise_max_ns"], 300.0);
         assert!(j["caution"].as_str().unwrap().contains("datasheet"));

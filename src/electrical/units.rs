@@ -92,11 +92,7 @@ fn prefix(c: char) -> Option<i32> {
 /// `x` × 10^`exp`, by one exact power of ten and one rounding, so that
 /// `150p` in picofarads is exactly 150.
 fn scale(x: f64, exp: i32) -> f64 {
-    if exp >= 0 {
-        x * 10f64.powi(exp)
-    } else {
-        x / 10f64.powi(-exp)
-    }
+    if exp >= 0 { x * 10f64.powi(exp) } else { x / 10f64.powi(-exp) }
 }
 
 /// Parses `text` as a quantity of `unit`, in base SI units.
@@ -107,10 +103,7 @@ pub fn parse(text: &str, unit: Unit) -> Result<f64, QuantityError> {
 /// Parses `text` as a quantity of `unit`, in units of 10^`exp` of the base
 /// unit (`exp` = -12: picofarads).
 pub fn parse_in(text: &str, unit: Unit, exp: i32) -> Result<f64, QuantityError> {
-    let err = || QuantityError {
-        text: text.to_string(),
-        unit,
-    };
+    let err = || QuantityError { text: text.to_string(), unit };
     let mut t = text.trim();
     if unit == Unit::FaradPerMetre {
         t = t.strip_suffix("/m").unwrap_or(t);
@@ -119,17 +112,11 @@ pub fn parse_in(text: &str, unit: Unit, exp: i32) -> Result<f64, QuantityError> 
         t = rest;
     }
     // A scale letter (prefix or marker) at the end or between digits.
-    let letter = t
-        .char_indices()
-        .find(|&(_, c)| prefix(c).is_some() || Some(c) == unit.marker());
+    let letter = t.char_indices().find(|&(_, c)| prefix(c).is_some() || Some(c) == unit.marker());
     let (number, power) = match letter {
         None => (t.to_string(), 0),
         Some((i, c)) => {
-            let power = if Some(c) == unit.marker() {
-                0
-            } else {
-                prefix(c).ok_or_else(err)?
-            };
+            let power = if Some(c) == unit.marker() { 0 } else { prefix(c).ok_or_else(err)? };
             let (head, tail) = (&t[..i], &t[i + c.len_utf8()..]);
             if tail.is_empty() {
                 (head.to_string(), power)
@@ -142,9 +129,7 @@ pub fn parse_in(text: &str, unit: Unit, exp: i32) -> Result<f64, QuantityError> 
     };
     let plain = !number.is_empty()
         && number.chars().any(|c| c.is_ascii_digit())
-        && number
-            .chars()
-            .all(|c| c.is_ascii_digit() || matches!(c, '.' | '-' | '+' | 'e' | 'E'));
+        && number.chars().all(|c| c.is_ascii_digit() || matches!(c, '.' | '-' | '+' | 'e' | 'E'));
     if !plain {
         return Err(err());
     }
@@ -184,25 +169,13 @@ impl fmt::Display for Si {
         if !v.is_finite() {
             return write!(f, "{v} {unit}");
         }
-        const STEPS: [(f64, &str); 8] = [
-            (1e9, "G"),
-            (1e6, "M"),
-            (1e3, "k"),
-            (1.0, ""),
-            (1e-3, "m"),
-            (1e-6, "µ"),
-            (1e-9, "n"),
-            (1e-12, "p"),
-        ];
+        const STEPS: [(f64, &str); 8] =
+            [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p")];
         let a = v.abs();
         let (scale, p) = if a == 0.0 {
             (1.0, "")
         } else {
-            STEPS
-                .iter()
-                .copied()
-                .find(|(s, _)| a >= *s * 0.9995)
-                .unwrap_or((1e-12, "p"))
+            STEPS.iter().copied().find(|(s, _)| a >= *s * 0.9995).unwrap_or((1e-12, "p"))
         };
         let x = if a == 0.0 { 0.0 } else { v / scale };
         let digits = if x.abs() >= 99.95 {
@@ -213,11 +186,7 @@ impl fmt::Display for Si {
             2
         };
         let s = format!("{x:.digits$}");
-        let s = if s.contains('.') {
-            s.trim_end_matches('0').trim_end_matches('.').to_string()
-        } else {
-            s
-        };
+        let s = if s.contains('.') { s.trim_end_matches('0').trim_end_matches('.').to_string() } else { s };
         write!(f, "{s} {p}{unit}")
     }
 }
@@ -263,10 +232,7 @@ mod tests {
         // In picofarads, exactly: the reports print these numbers.
         assert_eq!(picofarads("150p"), Ok(150.0));
         assert_eq!(picofarads("0.2n"), Ok(200.0));
-        assert!(
-            picofarads("150").is_err(),
-            "a bare capacitance would be farads"
-        );
+        assert!(picofarads("150").is_err(), "a bare capacitance would be farads");
         assert_eq!(picofarads_per_metre("60pF/m"), Ok(60.0));
         assert_eq!(ohms("4k7"), Ok(4700.0));
     }

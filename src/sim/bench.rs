@@ -189,13 +189,7 @@ fn default_capacity() -> f64 {
     2200.0
 }
 fn flat(base: f64) -> SignalSpec {
-    SignalSpec {
-        base,
-        swing: 0.0,
-        period_s: 600.0,
-        noise: 0.0,
-        seed: 0,
-    }
+    SignalSpec { base, swing: 0.0, period_s: 600.0, noise: 0.0, seed: 0 }
 }
 
 fn default_speed() -> String {
@@ -254,16 +248,9 @@ pub struct Bench {
 /// Finds the line of `key` inside the n-th `[[device]]` block (or the top
 /// level when `device` is None); falls back to the block's header line.
 fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
-    let leaf = key
-        .rsplit(['.', '['])
-        .next()
-        .unwrap_or(key)
-        .trim_end_matches(']');
-    let leaf = if leaf.chars().all(|c| c.is_ascii_digit()) {
-        key.split(['.', '[']).next().unwrap_or(key)
-    } else {
-        leaf
-    };
+    let leaf = key.rsplit(['.', '[']).next().unwrap_or(key).trim_end_matches(']');
+    let leaf =
+        if leaf.chars().all(|c| c.is_ascii_digit()) { key.split(['.', '[']).next().unwrap_or(key) } else { leaf };
     let mut block: Option<usize> = None;
     let mut seen = 0usize;
     let mut header = None;
@@ -277,8 +264,7 @@ fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
             }
             continue;
         }
-        if line.starts_with('[') && !line.starts_with("[[device.") && !line.starts_with("[device.")
-        {
+        if line.starts_with('[') && !line.starts_with("[[device.") && !line.starts_with("[device.") {
             block = None;
             continue;
         }
@@ -331,14 +317,8 @@ impl Ctx<'_> {
             let named = msg.split('`').nth(1).map(str::to_string);
             let key = match (&named, key.is_empty() || key == ".") {
                 (Some(n), true) => n.clone(),
-                (Some(n), false)
-                    if msg.starts_with("unknown field") || msg.starts_with("missing field") =>
-                {
-                    if prefix.is_empty() {
-                        n.clone()
-                    } else {
-                        format!("{prefix}.{n}")
-                    }
+                (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
+                    if prefix.is_empty() { n.clone() } else { format!("{prefix}.{n}") }
                 }
                 _ => key,
             };
@@ -352,28 +332,15 @@ impl Bench {
     pub fn from_str(text: &str, file: &str) -> Result<Bench, BenchError> {
         let cx = Ctx { file, text };
         let table: toml::Table = text.parse().map_err(|e: toml::de::Error| {
-            let line = e
-                .span()
-                .map(|s| text[..s.start.min(text.len())].lines().count().max(1));
-            BenchError {
-                file: file.to_string(),
-                line,
-                key: String::new(),
-                message: e.message().to_string(),
-            }
+            let line = e.span().map(|s| text[..s.start.min(text.len())].lines().count().max(1));
+            BenchError { file: file.to_string(), line, key: String::new(), message: e.message().to_string() }
         })?;
         let top: Top = cx.parse(None, "", table)?;
         check_format(&top.format).map_err(|m| cx.err(None, "format", m))?;
-        let speed: BusSpeed = top
-            .speed
-            .parse()
-            .map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
+        let speed: BusSpeed =
+            top.speed.parse().map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
         if !(top.stretch_timeout_ms > 0.0 && top.stretch_timeout_ms <= 10_000.0) {
-            return Err(cx.err(
-                None,
-                "stretch_timeout_ms",
-                "must be more than 0 and at most 10000",
-            ));
+            return Err(cx.err(None, "stretch_timeout_ms", "must be more than 0 and at most 10000"));
         }
         if !(1..=65_535).contains(&top.max_bytes_per_op) {
             return Err(cx.err(None, "max_bytes_per_op", "must be 1-65535"));
@@ -404,18 +371,10 @@ impl Bench {
             }
             .map_err(|e| cx.err(Some(n), "address", e.to_string()))?;
             if address.reserved().is_some() {
-                return Err(cx.err(
-                    Some(n),
-                    "address",
-                    format!("{address} is a reserved address (UM10204 §3.1.12)"),
-                ));
+                return Err(cx.err(Some(n), "address", format!("{address} is a reserved address (UM10204 §3.1.12)")));
             }
             if !addresses.insert(address) {
-                return Err(cx.err(
-                    Some(n),
-                    "address",
-                    format!("{address} is used by two devices"),
-                ));
+                return Err(cx.err(Some(n), "address", format!("{address} is used by two devices")));
             }
             if !names.insert(c.name.clone()) {
                 return Err(cx.err(Some(n), "name", format!("`{}` names two devices", c.name)));
@@ -434,11 +393,7 @@ impl Bench {
                 }
                 None => None,
             };
-            slots.push(Slot {
-                device,
-                faults,
-                executions: 0,
-            });
+            slots.push(Slot { device, faults, executions: 0 });
         }
         Ok(Bench {
             file: file.to_string(),
@@ -460,19 +415,13 @@ fn check_format(format: &str) -> Result<(), String> {
     };
     let major = ver.split('.').next().unwrap_or_default();
     if major != "1" {
-        return Err(format!(
-            "bench format version {ver} is not supported; this buscue reads major version 1"
-        ));
+        return Err(format!("bench format version {ver} is not supported; this buscue reads major version 1"));
     }
     Ok(())
 }
 
 fn probability(p: f64) -> Result<(), String> {
-    if (0.0..=1.0).contains(&p) {
-        Ok(())
-    } else {
-        Err(format!("{p} is not a probability (0 to 1)"))
-    }
+    if (0.0..=1.0).contains(&p) { Ok(()) } else { Err(format!("{p} is not a probability (0 to 1)")) }
 }
 
 fn build_device(
@@ -499,11 +448,7 @@ fn build_device(
                 "big" => ByteOrder::Big,
                 "little" => ByteOrder::Little,
                 o => {
-                    return Err(cx.err(
-                        Some(n),
-                        "byte_order",
-                        format!("must be \"big\" or \"little\", got \"{o}\""),
-                    ));
+                    return Err(cx.err(Some(n), "byte_order", format!("must be \"big\" or \"little\", got \"{o}\"")));
                 }
             };
             let max_count = 1usize << (8 * pointer_bytes);
@@ -524,28 +469,17 @@ fn build_device(
                     return Err(cx.err(
                         Some(n),
                         &key("at"),
-                        format!(
-                            "register 0x{:X} is outside 0-0x{:X}",
-                            r.at,
-                            register_count - 1
-                        ),
+                        format!("register 0x{:X} is outside 0-0x{:X}", r.at, register_count - 1),
                     ));
                 }
                 if !seen.insert(r.at) {
-                    return Err(cx.err(
-                        Some(n),
-                        &key("at"),
-                        format!("register 0x{:X} is defined twice", r.at),
-                    ));
+                    return Err(cx.err(Some(n), &key("at"), format!("register 0x{:X} is defined twice", r.at)));
                 }
                 if r.reset < 0 || r.reset > max_value {
                     return Err(cx.err(
                         Some(n),
                         &key("reset"),
-                        format!(
-                            "{} does not fit a {}-bit register",
-                            r.reset, s.register_bits
-                        ),
+                        format!("{} does not fit a {}-bit register", r.reset, s.register_bits),
                     ));
                 }
                 let access = match r.access.as_str() {
@@ -568,13 +502,8 @@ fn build_device(
                     signal: r.signal.map(Signal::new),
                 });
             }
-            let layout = Layout {
-                pointer_bytes,
-                register_bytes,
-                order,
-                auto_increment: s.auto_increment,
-                register_count,
-            };
+            let layout =
+                Layout { pointer_bytes, register_bytes, order, auto_increment: s.auto_increment, register_count };
             Box::new(RegisterDevice::new(name, address, layout, regs))
         }
         "eeprom" => {
@@ -583,11 +512,7 @@ fn build_device(
                 8 => 1,
                 16 => 2,
                 b => {
-                    return Err(cx.err(
-                        Some(n),
-                        "word_address_bits",
-                        format!("must be 8 or 16, got {b}"),
-                    ));
+                    return Err(cx.err(Some(n), "word_address_bits", format!("must be 8 or 16, got {b}")));
                 }
             };
             let max = 1usize << (8 * word_address_bytes);
@@ -595,18 +520,11 @@ fn build_device(
                 return Err(cx.err(
                     Some(n),
                     "size",
-                    format!(
-                        "must be a power of two up to {max} bytes for {}-bit word addresses",
-                        s.word_address_bits
-                    ),
+                    format!("must be a power of two up to {max} bytes for {}-bit word addresses", s.word_address_bits),
                 ));
             }
             if s.page_size == 0 || !s.page_size.is_power_of_two() || s.page_size > s.size {
-                return Err(cx.err(
-                    Some(n),
-                    "page_size",
-                    "must be a power of two no larger than size",
-                ));
+                return Err(cx.err(Some(n), "page_size", "must be a power of two no larger than size"));
             }
             if !(0.0..=1000.0).contains(&s.write_cycle_ms) {
                 return Err(cx.err(Some(n), "write_cycle_ms", "must be 0-1000"));
@@ -637,32 +555,18 @@ fn build_device(
                     ));
                 }
             };
-            Box::new(ClimateSensor::new(
-                name,
-                address,
-                busy,
-                Signal::new(s.temperature_c),
-                Signal::new(s.humidity_pct),
-            ))
+            Box::new(ClimateSensor::new(name, address, busy, Signal::new(s.temperature_c), Signal::new(s.humidity_pct)))
         }
         "smbus-gauge" => {
             let s: GaugeSpec = cx.parse(Some(n), "", rest)?;
             if !s.pack_name.is_ascii() || s.pack_name.len() > 32 {
-                return Err(cx.err(
-                    Some(n),
-                    "pack_name",
-                    "must be ASCII, at most 32 characters (one SMBus 2.0 block)",
-                ));
+                return Err(cx.err(Some(n), "pack_name", "must be ASCII, at most 32 characters (one SMBus 2.0 block)"));
             }
             if !(0.0..=100.0).contains(&s.charge_pct) {
                 return Err(cx.err(Some(n), "charge_pct", "must be 0-100"));
             }
             if !(s.capacity_mah > 0.0 && s.capacity_mah <= 1.0e6) {
-                return Err(cx.err(
-                    Some(n),
-                    "capacity_mah",
-                    "must be more than 0 and at most 1000000",
-                ));
+                return Err(cx.err(Some(n), "capacity_mah", "must be more than 0 and at most 1000000"));
             }
             let cfg = GaugeConfig {
                 pec: s.pec,
@@ -676,11 +580,7 @@ fn build_device(
             Box::new(Gauge::new(name, address, cfg))
         }
         m => {
-            return Err(cx.err(
-                Some(n),
-                "model",
-                format!("unknown model \"{m}\"; known: {}", MODELS.join(", ")),
-            ));
+            return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));
         }
     })
 }
@@ -720,48 +620,25 @@ mod tests {
         ));
         assert_eq!(e.key, "page_wrap");
         assert_eq!(e.line, Some(10), "{e}");
-        assert!(
-            e.to_string().starts_with("b.toml:10: key `page_wrap`"),
-            "{e}"
-        );
+        assert!(e.to_string().starts_with("b.toml:10: key `page_wrap`"), "{e}");
     }
 
     #[test]
     fn bad_values_name_their_key() {
-        let dev = |body: &str| {
-            format!(
-                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x20\n{body}\n"
-            )
-        };
+        let dev =
+            |body: &str| format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x20\n{body}\n");
         assert_eq!(err(&dev("register_bits = 12")).key, "register_bits");
         assert_eq!(err(&dev("byte_order = \"middle\"")).key, "byte_order");
         let e = err(&dev("[[device.register]]\nat = 300\n"));
         assert_eq!(e.key, "register[0].at");
         assert_eq!(e.line, Some(8), "{e}");
-        let e = err(&format!(
-            "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x80\n"
-        ));
+        let e = err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x80\n"));
         assert_eq!(e.key, "address");
         assert!(e.message.contains("0x80"), "{e}");
+        assert_eq!(err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"toaster\"\naddress = 0x20\n")).key, "model");
+        assert_eq!(err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\n")).key, "address");
         assert_eq!(
-            err(&format!(
-                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"toaster\"\naddress = 0x20\n"
-            ))
-            .key,
-            "model"
-        );
-        assert_eq!(
-            err(&format!(
-                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\n"
-            ))
-            .key,
-            "address"
-        );
-        assert_eq!(
-            err(&format!(
-                "{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x00\n"
-            ))
-            .key,
+            err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x00\n")).key,
             "address"
         );
     }

@@ -4,9 +4,7 @@
 use std::time::Duration;
 
 use crate::bus::timing::breakdown_events;
-use crate::bus::{
-    Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, Transaction,
-};
+use crate::bus::{Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, Transaction};
 
 use super::clock::Clock;
 use super::device::{Answer, Device};
@@ -51,14 +49,7 @@ impl SimBus {
         stretch_timeout: Duration,
         arbitration: Option<(f64, SplitMix64)>,
     ) -> Self {
-        SimBus {
-            slots,
-            clock,
-            speed,
-            stretch_timeout,
-            arbitration,
-            sda_held_by: None,
-        }
+        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None }
     }
 
     pub fn slots(&self) -> &[Slot] {
@@ -67,16 +58,11 @@ impl SimBus {
 
     /// Times a device took part in a transaction, by device name.
     pub fn executions(&self, name: &str) -> Option<u64> {
-        self.slots
-            .iter()
-            .find(|s| s.device.name() == name)
-            .map(|s| s.executions)
+        self.slots.iter().find(|s| s.device.name() == name).map(|s| s.executions)
     }
 
     fn find(&self, address: Address) -> Option<usize> {
-        self.slots
-            .iter()
-            .position(|s| s.device.address() == address)
+        self.slots.iter().position(|s| s.device.address() == address)
     }
 
     pub fn sda_held(&self) -> bool {
@@ -89,10 +75,7 @@ impl SimBus {
         let Some(i) = self.sda_held_by else {
             return (0, true);
         };
-        let needed = self.slots[i]
-            .faults
-            .as_ref()
-            .map_or(1, |f| f.release_after_pulses.max(1));
+        let needed = self.slots[i].faults.as_ref().map_or(1, |f| f.release_after_pulses.max(1));
         let t = Duration::from_nanos(1_000_000_000 / self.speed.hz() as u64);
         let pulses = needed.min(9);
         self.clock.advance(t * pulses as u32);
@@ -125,9 +108,7 @@ impl SimBus {
         let mut ten_low_next = false;
 
         if self.sda_held_by.is_some() {
-            fault = Some(Fault::Bus {
-                line: LineFault::SdaStuckLow,
-            });
+            fault = Some(Fault::Bus { line: LineFault::SdaStuckLow });
             done.push(Event::Start);
         } else if let Some((p, rng)) = self.arbitration.as_mut()
             && rng.chance(*p)
@@ -136,12 +117,8 @@ impl SimBus {
             done.extend(events.iter().take(2).copied());
         }
 
-        let addr_only_nack = target.is_some_and(|i| {
-            self.slots[i]
-                .faults
-                .as_mut()
-                .is_some_and(|f| f.rng.chance(f.address_nack_probability))
-        });
+        let addr_only_nack = target
+            .is_some_and(|i| self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability)));
 
         if fault.is_none() {
             let mut next = 0;
@@ -152,20 +129,11 @@ impl SimBus {
                 match e {
                     Event::Start | Event::RepeatedStart => {}
                     Event::AddressByte(byte) => {
-                        let dir = if byte & 1 == 1 {
-                            Direction::Read
-                        } else {
-                            Direction::Write
-                        };
-                        phase_op = (phase_op..tx.ops.len())
-                            .find(|&i| tx.ops[i].direction() == dir)
-                            .unwrap_or(phase_op);
+                        let dir = if byte & 1 == 1 { Direction::Read } else { Direction::Write };
+                        phase_op = (phase_op..tx.ops.len()).find(|&i| tx.ops[i].direction() == dir).unwrap_or(phase_op);
                         last_op = last_op.max(phase_op);
                         let Some(i) = target.filter(|_| !addr_only_nack) else {
-                            fault = Some(Fault::AddressNack {
-                                op: phase_op,
-                                direction: dir,
-                            });
+                            fault = Some(Fault::AddressNack { op: phase_op, direction: dir });
                             break;
                         };
                         // A 10-bit write phase is two address bytes: the
@@ -178,10 +146,7 @@ impl SimBus {
                         ten_low_next = false;
                         match self.slots[i].device.select(dir, now) {
                             Answer::Nack => {
-                                fault = Some(Fault::AddressNack {
-                                    op: phase_op,
-                                    direction: dir,
-                                });
+                                fault = Some(Fault::AddressNack { op: phase_op, direction: dir });
                                 break;
                             }
                             Answer::Ack => {}
@@ -244,11 +209,6 @@ impl SimBus {
         }
         let bus_time = breakdown_events(&done, self.speed).total() + stretch;
         self.clock.advance(bus_time);
-        Outcome {
-            ops,
-            bus_time,
-            measured: None,
-            fault,
-        }
+        Outcome { ops, bus_time, measured: None, fault }
     }
 }

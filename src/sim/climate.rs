@@ -56,13 +56,7 @@ pub struct ClimateSensor {
 }
 
 impl ClimateSensor {
-    pub fn new(
-        name: String,
-        address: Address,
-        busy: Busy,
-        temperature: Signal,
-        humidity: Signal,
-    ) -> Self {
+    pub fn new(name: String, address: Address, busy: Busy, temperature: Signal, humidity: Signal) -> Self {
         let mut regs = [0u16; REGS];
         regs[0] = ID;
         regs[TEMP_HIGH] = 3000;
@@ -95,17 +89,9 @@ impl ClimateSensor {
             return;
         }
         let t = done.as_secs_f64();
-        let heater = if self.regs[CONTROL] & 0b1000 != 0 {
-            0.8
-        } else {
-            0.0
-        };
-        let temp = ((self.temperature.sample(t) + heater) * 100.0)
-            .round()
-            .clamp(-32768.0, 32767.0) as i16;
-        let hum = (self.humidity.sample(t) * 100.0)
-            .round()
-            .clamp(0.0, 10_000.0) as u16;
+        let heater = if self.regs[CONTROL] & 0b1000 != 0 { 0.8 } else { 0.0 };
+        let temp = ((self.temperature.sample(t) + heater) * 100.0).round().clamp(-32768.0, 32767.0) as i16;
+        let hum = (self.humidity.sample(t) * 100.0).round().clamp(0.0, 10_000.0) as u16;
         self.regs[TEMPERATURE] = temp as u16;
         self.regs[HUMIDITY] = hum;
         let alert = temp > self.regs[TEMP_HIGH] as i16;
@@ -158,8 +144,7 @@ impl Device for ClimateSensor {
                 self.out_pos = 2;
                 match self.converting_until {
                     Some(done)
-                        if self.busy == Busy::Stretch
-                            && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) =>
+                        if self.busy == Busy::Stretch && (self.pointer == TEMPERATURE || self.pointer == HUMIDITY) =>
                     {
                         Answer::AckAfter(done - now)
                     }
@@ -216,22 +201,8 @@ mod tests {
     use crate::sim::signal::SignalSpec;
 
     fn sensor(busy: Busy, base: f64) -> ClimateSensor {
-        let flat = |b| {
-            Signal::new(SignalSpec {
-                base: b,
-                swing: 0.0,
-                period_s: 1.0,
-                noise: 0.0,
-                seed: 0,
-            })
-        };
-        ClimateSensor::new(
-            "c".into(),
-            Address::Seven(0x44),
-            busy,
-            flat(base),
-            flat(55.5),
-        )
+        let flat = |b| Signal::new(SignalSpec { base: b, swing: 0.0, period_s: 1.0, noise: 0.0, seed: 0 });
+        ClimateSensor::new("c".into(), Address::Seven(0x44), busy, flat(base), flat(55.5))
     }
 
     fn read_reg(s: &mut ClimateSensor, reg: u8, now: Duration) -> (Answer, u16) {
@@ -270,10 +241,7 @@ mod tests {
     fn data_ready_and_nack_while_busy() {
         let mut s = sensor(Busy::Nack, 23.0);
         start(&mut s, Duration::ZERO);
-        assert_eq!(
-            s.select(Direction::Write, Duration::from_millis(2)),
-            Answer::Nack
-        );
+        assert_eq!(s.select(Direction::Write, Duration::from_millis(2)), Answer::Nack);
         let (_, status) = read_reg(&mut s, STATUS as u8, Duration::from_millis(4));
         assert_eq!(status & 1, 1);
         let (_, t) = read_reg(&mut s, TEMPERATURE as u8, Duration::from_millis(4));

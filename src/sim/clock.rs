@@ -15,10 +15,7 @@ pub struct Clock {
 
 impl Clock {
     pub fn new(realtime: bool) -> Self {
-        Clock {
-            now: Duration::ZERO,
-            paced_from: realtime.then(Instant::now),
-        }
+        Clock { now: Duration::ZERO, paced_from: realtime.then(Instant::now) }
     }
 
     pub fn now(&self) -> Duration {

@@ -161,13 +161,7 @@ mod tests {
         let mut e = eeprom();
         let t0 = Duration::from_millis(1);
         assert!(write(&mut e, t0, &[0x00, 0x00, 9]));
-        assert_eq!(
-            e.select(Direction::Write, t0 + Duration::from_millis(4)),
-            Answer::Nack
-        );
-        assert_eq!(
-            e.select(Direction::Write, t0 + Duration::from_millis(5)),
-            Answer::Ack
-        );
+        assert_eq!(e.select(Direction::Write, t0 + Duration::from_millis(4)), Answer::Nack);
+        assert_eq!(e.select(Direction::Write, t0 + Duration::from_millis(5)), Answer::Ack);
     }
 }

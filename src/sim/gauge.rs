@@ -163,16 +163,10 @@ impl Gauge {
     /// Integrates the current since the last access and samples it anew.
     fn update(&mut self, now: Duration) {
         let dt_h = now.saturating_sub(self.last_update).as_secs_f64() / 3600.0;
-        self.charge_pct = (self.charge_pct
-            + self.current_ma as f64 * dt_h / self.cfg.capacity_mah * 100.0)
-            .clamp(0.0, 100.0);
+        self.charge_pct =
+            (self.charge_pct + self.current_ma as f64 * dt_h / self.cfg.capacity_mah * 100.0).clamp(0.0, 100.0);
         self.last_update = now;
-        self.current_ma = self
-            .cfg
-            .current_ma
-            .sample(now.as_secs_f64())
-            .round()
-            .clamp(-32768.0, 32767.0) as i16;
+        self.current_ma = self.cfg.current_ma.sample(now.as_secs_f64()).round().clamp(-32768.0, 32767.0) as i16;
         let live = self.live_status();
         if live & (status::LOW_CHARGE | status::LOW_VOLTAGE) != 0 {
             self.status_latched |= status::ALARM;
@@ -215,9 +209,9 @@ impl Gauge {
         Some(match code {
             PACK_MV => self.pack_mv(),
             PACK_MA => self.current_ma as u16,
-            CELL_TEMP => ((self.cfg.temperature_c.sample(now.as_secs_f64()) + 273.15) * 10.0)
-                .round()
-                .clamp(0.0, 65535.0) as u16,
+            CELL_TEMP => {
+                ((self.cfg.temperature_c.sample(now.as_secs_f64()) + 273.15) * 10.0).round().clamp(0.0, 65535.0) as u16
+            }
             CYCLES => self.cfg.cycles,
             STATUS => self.live_status() | self.status_latched,
             ALARM_MV => self.alarm_mv,
@@ -262,26 +256,15 @@ impl Gauge {
             Kind::ReadOnly | Kind::Byte | Kind::Word | Kind::Block if !complete(1) => None,
             Kind::ReadOnly if code == CHARGE_PCT => Some(vec![self.charge()]),
             Kind::Byte => Some(vec![self.alarm_pct]),
-            Kind::ReadOnly | Kind::Word => {
-                self.read_word(code, now).map(|w| w.to_le_bytes().to_vec())
-            }
+            Kind::ReadOnly | Kind::Word => self.read_word(code, now).map(|w| w.to_le_bytes().to_vec()),
             Kind::Block => Some(block(&self.cfg.pack_name)),
             Kind::ProcessCall if complete(3) => {
                 let cell = u16::from_le_bytes([self.written[1], self.written[2]]) as usize;
-                Some(
-                    (if cell < CELLS { self.cell_mv() } else { 0xFFFF })
-                        .to_le_bytes()
-                        .to_vec(),
-                )
+                Some((if cell < CELLS { self.cell_mv() } else { 0xFFFF }).to_le_bytes().to_vec())
             }
-            Kind::BlockProcessCall
-                if self.written.len() >= 2 && complete(2 + self.written[1] as usize) =>
-            {
+            Kind::BlockProcessCall if self.written.len() >= 2 && complete(2 + self.written[1] as usize) => {
                 let args = &self.written[2..];
-                let (first, hours) = (
-                    args.first().copied().unwrap_or(0),
-                    args.get(1).copied().unwrap_or(1),
-                );
+                let (first, hours) = (args.first().copied().unwrap_or(0), args.get(1).copied().unwrap_or(1));
                 Some(block(&self.history(first, hours)))
             }
             Kind::ProcessCall | Kind::BlockProcessCall => None,
@@ -298,9 +281,7 @@ impl Gauge {
             }
             (Some(Kind::Byte), 2) => self.alarm_pct = w[1].min(100),
             (Some(Kind::Word), 3) => self.alarm_mv = u16::from_le_bytes([w[1], w[2]]),
-            (Some(Kind::Block), n) if n >= 2 && n == 2 + w[1] as usize => {
-                self.cfg.pack_name = w[2..].to_vec()
-            }
+            (Some(Kind::Block), n) if n >= 2 && n == 2 + w[1] as usize => self.cfg.pack_name = w[2..].to_vec(),
             _ => {}
         }
     }
@@ -362,10 +343,7 @@ impl Device for Gauge {
     fn write(&mut self, byte: u8, _now: Duration) -> bool {
         let unknown_code = self.written.is_empty() && kind(byte).is_none();
         let count_too_big = self.written.len() == 1
-            && matches!(
-                kind(self.written[0]),
-                Some(Kind::Block | Kind::BlockProcessCall)
-            )
+            && matches!(kind(self.written[0]), Some(Kind::Block | Kind::BlockProcessCall))
             && byte as usize > BLOCK_MAX;
         let acceptable = !(self.rejected || self.pec_seen || unknown_code || count_too_big);
         if !acceptable {
@@ -452,26 +430,11 @@ mod tests {
         assert_eq!(word(&mut a, CELL_TEMP), 3000);
         assert_eq!(word(&mut a, CYCLES), 212);
         let s = word(&mut a, STATUS);
-        assert_eq!(
-            s & (status::DISCHARGING | status::PEC_ON),
-            status::DISCHARGING | status::PEC_ON
-        );
-        assert_eq!(
-            run(
-                &mut a,
-                Request::ReadByte {
-                    command: CHARGE_PCT
-                },
-                true
-            ),
-            Ok(Value::Byte(76))
-        );
+        assert_eq!(s & (status::DISCHARGING | status::PEC_ON), status::DISCHARGING | status::PEC_ON);
+        assert_eq!(run(&mut a, Request::ReadByte { command: CHARGE_PCT }, true), Ok(Value::Byte(76)));
         assert_eq!(run(&mut a, Request::ReceiveByte, true), Ok(Value::Byte(76)));
         // A controller may leave PEC out: it reads two bytes, NACKs the second.
-        assert_eq!(
-            run(&mut a, Request::ReadWord { command: CYCLES }, false),
-            Ok(Value::Word(212))
-        );
+        assert_eq!(run(&mut a, Request::ReadWord { command: CYCLES }, false), Ok(Value::Word(212)));
     }
 
     #[test]
@@ -481,15 +444,8 @@ mod tests {
         let tx = call.transaction().unwrap();
         let outcome = a.execute(&tx);
         assert!(outcome.is_ok(), "{:?}", outcome.fault);
-        assert_eq!(
-            outcome.ops[1].data.len(),
-            1 + 10 + 1,
-            "count, GH-PACK-01, PEC"
-        );
-        assert_eq!(
-            call.decode(&outcome).unwrap().value,
-            Value::Block(b"GH-PACK-01".to_vec())
-        );
+        assert_eq!(outcome.ops[1].data.len(), 1 + 10 + 1, "count, GH-PACK-01, PEC");
+        assert_eq!(call.decode(&outcome).unwrap().value, Value::Block(b"GH-PACK-01".to_vec()));
         // The simulated bus accounts the bytes actually read, not the worst case.
         let actual = breakdown_events(&tx.events_observed(&outcome), BusSpeed::STANDARD).total();
         assert_eq!(outcome.bus_time, actual);
@@ -499,110 +455,29 @@ mod tests {
     #[test]
     fn writes_apply_at_stop_and_read_back() {
         let mut a = adapter(true);
-        assert_eq!(
-            run(
-                &mut a,
-                Request::WriteWord {
-                    command: ALARM_MV,
-                    data: 11_000
-                },
-                true
-            ),
-            Ok(Value::None)
-        );
+        assert_eq!(run(&mut a, Request::WriteWord { command: ALARM_MV, data: 11_000 }, true), Ok(Value::None));
         assert_eq!(word(&mut a, ALARM_MV), 11_000);
-        assert_eq!(
-            run(
-                &mut a,
-                Request::WriteByte {
-                    command: ALARM_PCT,
-                    data: 20
-                },
-                false
-            ),
-            Ok(Value::None)
-        );
-        assert_eq!(
-            run(&mut a, Request::ReadByte { command: ALARM_PCT }, true),
-            Ok(Value::Byte(20))
-        );
+        assert_eq!(run(&mut a, Request::WriteByte { command: ALARM_PCT, data: 20 }, false), Ok(Value::None));
+        assert_eq!(run(&mut a, Request::ReadByte { command: ALARM_PCT }, true), Ok(Value::Byte(20)));
         let name = b"GH-SPARE-7".to_vec();
-        assert_eq!(
-            run(
-                &mut a,
-                Request::BlockWrite {
-                    command: PACK_NAME,
-                    data: name.clone()
-                },
-                true
-            ),
-            Ok(Value::None)
-        );
-        assert_eq!(
-            run(&mut a, Request::BlockRead { command: PACK_NAME }, true),
-            Ok(Value::Block(name))
-        );
+        assert_eq!(run(&mut a, Request::BlockWrite { command: PACK_NAME, data: name.clone() }, true), Ok(Value::None));
+        assert_eq!(run(&mut a, Request::BlockRead { command: PACK_NAME }, true), Ok(Value::Block(name)));
         // An 11000 mV threshold is below the 11952 mV pack: no LOW_VOLTAGE;
         // 12000 mV is above it, and the alarm latches.
         assert_eq!(word(&mut a, STATUS) & status::LOW_VOLTAGE, 0);
-        run(
-            &mut a,
-            Request::WriteWord {
-                command: ALARM_MV,
-                data: 12_000,
-            },
-            true,
-        )
-        .unwrap();
-        assert_ne!(
-            word(&mut a, STATUS) & (status::LOW_VOLTAGE | status::ALARM),
-            0
-        );
+        run(&mut a, Request::WriteWord { command: ALARM_MV, data: 12_000 }, true).unwrap();
+        assert_ne!(word(&mut a, STATUS) & (status::LOW_VOLTAGE | status::ALARM), 0);
     }
 
     #[test]
     fn process_calls() {
         let mut a = adapter(true);
-        assert_eq!(
-            run(
-                &mut a,
-                Request::ProcessCall {
-                    command: CELL_MV,
-                    data: 1
-                },
-                true
-            ),
-            Ok(Value::Word(3984))
-        );
-        assert_eq!(
-            run(
-                &mut a,
-                Request::ProcessCall {
-                    command: CELL_MV,
-                    data: 7
-                },
-                true
-            ),
-            Ok(Value::Word(0xFFFF))
-        );
+        assert_eq!(run(&mut a, Request::ProcessCall { command: CELL_MV, data: 1 }, true), Ok(Value::Word(3984)));
+        assert_eq!(run(&mut a, Request::ProcessCall { command: CELL_MV, data: 7 }, true), Ok(Value::Word(0xFFFF)));
         // 76 % now, 2 % more per hour back (command map above).
-        let h = run(
-            &mut a,
-            Request::BlockProcessCall {
-                command: HISTORY,
-                data: vec![0, 3],
-            },
-            true,
-        );
+        let h = run(&mut a, Request::BlockProcessCall { command: HISTORY, data: vec![0, 3] }, true);
         assert_eq!(h, Ok(Value::Block(vec![76, 78, 80])));
-        let h = run(
-            &mut a,
-            Request::BlockProcessCall {
-                command: HISTORY,
-                data: vec![5, 2],
-            },
-            true,
-        );
+        let h = run(&mut a, Request::BlockProcessCall { command: HISTORY, data: vec![5, 2] }, true);
         assert_eq!(h, Ok(Value::Block(vec![86, 88])));
     }
 
@@ -611,24 +486,14 @@ mod tests {
     #[test]
     fn bad_pec_is_nacked_and_flagged() {
         let mut a = adapter(true);
-        let call = Call::new(
-            ADDR,
-            Request::WriteWord {
-                command: ALARM_MV,
-                data: 9_000,
-            },
-            true,
-        );
+        let call = Call::new(ADDR, Request::WriteWord { command: ALARM_MV, data: 9_000 }, true);
         let mut tx = call.transaction().unwrap();
         if let crate::bus::Operation::Write(bytes) = &mut tx.ops[0] {
             *bytes.last_mut().unwrap() ^= 0x5A;
         }
         let outcome = a.execute(&tx);
         assert_eq!(outcome.fault, Some(Fault::DataNack { op: 0, index: 3 }));
-        assert_eq!(
-            call.decode(&outcome),
-            Err(SmbusError::PecRejected { op: 0, index: 3 })
-        );
+        assert_eq!(call.decode(&outcome), Err(SmbusError::PecRejected { op: 0, index: 3 }));
         assert_eq!(word(&mut a, ALARM_MV), 10_500, "write dropped");
         assert_ne!(word(&mut a, STATUS) & status::PEC_ERROR, 0);
         run(&mut a, Request::SendByte { data: CLEAR_FLAGS }, true).unwrap();
@@ -638,8 +503,7 @@ mod tests {
     #[test]
     fn quick_command_toggles_locate() {
         let mut a = adapter(false);
-        let locate = |a: &mut SimAdapter| match run(a, Request::ReadWord { command: STATUS }, false)
-        {
+        let locate = |a: &mut SimAdapter| match run(a, Request::ReadWord { command: STATUS }, false) {
             Ok(Value::Word(w)) => w & status::LOCATE != 0,
             other => panic!("{other:?}"),
         };
@@ -657,47 +521,21 @@ mod tests {
         let r = run(&mut a, Request::ReadWord { command: 0x7E }, false);
         assert_eq!(r, Err(SmbusError::Bus(Fault::DataNack { op: 0, index: 0 })));
         // PEC off: a byte after the data is one byte too many.
-        let r = run(
-            &mut a,
-            Request::WriteByte {
-                command: ALARM_PCT,
-                data: 5,
-            },
-            true,
-        );
+        let r = run(&mut a, Request::WriteByte { command: ALARM_PCT, data: 5 }, true);
         assert_eq!(r, Err(SmbusError::PecRejected { op: 0, index: 2 }));
-        assert_eq!(
-            run(&mut a, Request::ReadByte { command: ALARM_PCT }, false),
-            Ok(Value::Byte(15))
-        );
+        assert_eq!(run(&mut a, Request::ReadByte { command: ALARM_PCT }, false), Ok(Value::Byte(15)));
         // A PEC-off gauge sends no PEC: asking for one leaves a 0xFF that fails the check.
-        assert!(matches!(
-            run(&mut a, Request::ReadWord { command: CYCLES }, true),
-            Err(SmbusError::PecMismatch(_))
-        ));
+        assert!(matches!(run(&mut a, Request::ReadWord { command: CYCLES }, true), Err(SmbusError::PecMismatch(_))));
         // A read of a write-only command code NACKs the read address.
-        let r = run(
-            &mut a,
-            Request::ReadByte {
-                command: CLEAR_FLAGS,
-            },
-            false,
-        );
-        assert!(
-            matches!(r, Err(SmbusError::Bus(Fault::AddressNack { .. }))),
-            "{r:?}"
-        );
+        let r = run(&mut a, Request::ReadByte { command: CLEAR_FLAGS }, false);
+        assert!(matches!(r, Err(SmbusError::Bus(Fault::AddressNack { .. }))), "{r:?}");
     }
 
     #[test]
     fn demo_bench_has_the_gauge_with_pec() {
         let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse.toml").unwrap();
         let mut a = SimAdapter::new(bench, false);
-        let r = execute(
-            &mut a,
-            &Call::new(ADDR, Request::BlockRead { command: PACK_NAME }, true),
-        )
-        .unwrap();
+        let r = execute(&mut a, &Call::new(ADDR, Request::BlockRead { command: PACK_NAME }, true)).unwrap();
         assert_eq!(r.value, Value::Block(b"GH-PACK-01".to_vec()));
         assert!(r.pec.is_some_and(|p| p.ok));
     }
@@ -715,10 +553,7 @@ mod tests {
         };
         assert_eq!(key("charge_pct = 120"), "charge_pct");
         assert_eq!(key("capacity_mah = 0"), "capacity_mah");
-        assert_eq!(
-            key(&format!("pack_name = \"{}\"", "X".repeat(33))),
-            "pack_name"
-        );
+        assert_eq!(key(&format!("pack_name = \"{}\"", "X".repeat(33))), "pack_name");
         assert_eq!(key("cycles = 70000"), "cycles");
         assert_eq!(key("pec = 1"), "pec");
     }

@@ -53,18 +53,8 @@ impl SimAdapter {
             line_readback: true,
             recovery: true,
         };
-        let bus = SimBus::new(
-            bench.slots,
-            Clock::new(realtime),
-            bench.speed,
-            bench.stretch_timeout,
-            bench.arbitration,
-        );
-        SimAdapter {
-            identity,
-            caps,
-            bus,
-        }
+        let bus = SimBus::new(bench.slots, Clock::new(realtime), bench.speed, bench.stretch_timeout, bench.arbitration);
+        SimAdapter { identity, caps, bus }
     }
 
     /// The simulated bus, for tests that look at the board side.
@@ -111,10 +101,7 @@ impl Adapter for SimAdapter {
     }
 
     fn line_levels(&mut self) -> Result<Option<LineLevels>> {
-        Ok(Some(LineLevels {
-            sda: !self.bus.sda_held(),
-            scl: true,
-        }))
+        Ok(Some(LineLevels { sda: !self.bus.sda_held(), scl: true }))
     }
 
     fn now(&self) -> Duration {

@@ -103,11 +103,7 @@ impl RegisterDevice {
         let v = match (&mut self.signals[p], self.access[p]) {
             (_, Access::WriteOnly) => 0,
             (Some(sig), _) => {
-                let max = if self.layout.register_bytes == 2 {
-                    65_535.0
-                } else {
-                    255.0
-                };
+                let max = if self.layout.register_bytes == 2 { 65_535.0 } else { 255.0 };
                 sig.sample(now.as_secs_f64()).round().clamp(0.0, max) as u16
             }
             (None, _) => self.values[p],
@@ -197,26 +193,10 @@ mod tests {
     use super::*;
 
     fn dev(order: ByteOrder, register_bytes: usize) -> RegisterDevice {
-        let layout = Layout {
-            pointer_bytes: 1,
-            register_bytes,
-            order,
-            auto_increment: true,
-            register_count: 4,
-        };
+        let layout = Layout { pointer_bytes: 1, register_bytes, order, auto_increment: true, register_count: 4 };
         let regs = vec![
-            RegisterInit {
-                at: 0,
-                reset: 0x1234,
-                access: Access::ReadOnly,
-                signal: None,
-            },
-            RegisterInit {
-                at: 3,
-                reset: 0xBEEF,
-                access: Access::WriteOnly,
-                signal: None,
-            },
+            RegisterInit { at: 0, reset: 0x1234, access: Access::ReadOnly, signal: None },
+            RegisterInit { at: 3, reset: 0xBEEF, access: Access::WriteOnly, signal: None },
         ];
         RegisterDevice::new("t".into(), Address::Seven(0x10), layout, regs)
     }

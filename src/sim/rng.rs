@@ -49,12 +49,8 @@ mod tests {
 
     #[test]
     fn seeded_runs_repeat_and_chance_tracks_probability() {
-        let a: Vec<u64> = (0..5)
-            .scan(SplitMix64::new(7), |r, _| Some(r.next_u64()))
-            .collect();
-        let b: Vec<u64> = (0..5)
-            .scan(SplitMix64::new(7), |r, _| Some(r.next_u64()))
-            .collect();
+        let a: Vec<u64> = (0..5).scan(SplitMix64::new(7), |r, _| Some(r.next_u64())).collect();
+        let b: Vec<u64> = (0..5).scan(SplitMix64::new(7), |r, _| Some(r.next_u64())).collect();
         assert_eq!(a, b);
         let mut r = SplitMix64::new(99);
         let hits = (0..100_000).filter(|_| r.chance(0.25)).count();

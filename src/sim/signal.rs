@@ -39,11 +39,7 @@ impl Signal {
     /// One sample at time `t_s` seconds; each call draws fresh noise.
     pub fn sample(&mut self, t_s: f64) -> f64 {
         let s = &self.spec;
-        let wave = if s.period_s > 0.0 {
-            (std::f64::consts::TAU * t_s / s.period_s).sin()
-        } else {
-            0.0
-        };
+        let wave = if s.period_s > 0.0 { (std::f64::consts::TAU * t_s / s.period_s).sin() } else { 0.0 };
         let noise = (self.rng.next_f64() * 2.0 - 1.0) * s.noise;
         s.base + s.swing * wave + noise
     }
@@ -55,24 +51,12 @@ mod tests {
 
     #[test]
     fn stays_within_swing_and_noise() {
-        let mut s = Signal::new(SignalSpec {
-            base: 20.0,
-            swing: 2.0,
-            period_s: 60.0,
-            noise: 0.5,
-            seed: 3,
-        });
+        let mut s = Signal::new(SignalSpec { base: 20.0, swing: 2.0, period_s: 60.0, noise: 0.5, seed: 3 });
         for i in 0..1000 {
             let v = s.sample(i as f64 * 0.37);
             assert!((17.5..=22.5).contains(&v), "{v}");
         }
-        let mut flat = Signal::new(SignalSpec {
-            base: -4.5,
-            swing: 0.0,
-            period_s: 60.0,
-            noise: 0.0,
-            seed: 0,
-        });
+        let mut flat = Signal::new(SignalSpec { base: -4.5, swing: 0.0, period_s: 60.0, noise: 0.0, seed: 0 });
         assert_eq!(flat.sample(12.0), -4.5);
     }
 }

@@ -9,6 +9,4 @@ pub mod pec;
 pub mod protocol;
 
 pub use pec::{Pec, crc8};
-pub use protocol::{
-    BlockLimit, Call, PecCheck, PecSender, Reply, Request, SmbusError, Value, execute, message,
-};
+pub use protocol::{BlockLimit, Call, PecCheck, PecSender, Reply, Request, SmbusError, Value, execute, message};

@@ -21,11 +21,7 @@ const TABLE: [u8; 256] = {
         let mut crc = i as u8;
         let mut bit = 0;
         while bit < 8 {
-            crc = if crc & 0x80 != 0 {
-                (crc << 1) ^ POLY
-            } else {
-                crc << 1
-            };
+            crc = if crc & 0x80 != 0 { (crc << 1) ^ POLY } else { crc << 1 };
             bit += 1;
         }
         table[i] = crc;
@@ -77,11 +73,7 @@ mod tests {
         for &b in bytes {
             crc ^= b;
             for _ in 0..8 {
-                crc = if crc & 0x80 != 0 {
-                    (crc << 1) ^ POLY
-                } else {
-                    crc << 1
-                };
+                crc = if crc & 0x80 != 0 { (crc << 1) ^ POLY } else { crc << 1 };
             }
         }
         crc
@@ -98,13 +90,7 @@ mod tests {
     #[test]
     fn agrees_with_the_crc_crate() {
         const REF: crc::Crc<u8> = crc::Crc::<u8>::new(&crc::CRC_8_SMBUS);
-        let messages: [&[u8]; 5] = [
-            b"",
-            b"\x00",
-            b"\xFF\xFF",
-            b"123456789",
-            &[0x16, 0x09, 0x17, 0x34, 0x12],
-        ];
+        let messages: [&[u8]; 5] = [b"", b"\x00", b"\xFF\xFF", b"123456789", &[0x16, 0x09, 0x17, 0x34, 0x12]];
         for m in messages {
             assert_eq!(crc8(m), REF.checksum(m), "{m:02X?}");
             assert_eq!(crc8(m), bitwise(m), "{m:02X?}");

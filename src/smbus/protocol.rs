@@ -128,10 +128,7 @@ impl Request {
     fn plan(&self, limit: BlockLimit) -> Result<(Vec<u8>, Reading), SmbusError> {
         let block = |command: u8, data: &[u8]| {
             if data.len() > limit.max() {
-                return Err(SmbusError::BlockTooLong {
-                    len: data.len(),
-                    limit: limit.max(),
-                });
+                return Err(SmbusError::BlockTooLong { len: data.len(), limit: limit.max() });
             }
             let mut out = vec![command, data.len() as u8];
             out.extend_from_slice(data);
@@ -223,9 +220,7 @@ pub enum SmbusError {
     Shape(#[from] ShapeError),
     #[error("the transaction failed: {0}")]
     Bus(Fault),
-    #[error(
-        "the target NACKed the PEC byte (operation {op}, byte {index}): it found the PEC wrong"
-    )]
+    #[error("the target NACKed the PEC byte (operation {op}, byte {index}): it found the PEC wrong")]
     PecRejected { op: usize, index: usize },
     #[error("PEC mismatch: expected 0x{:02X}, received 0x{:02X}", .0.expected, .0.received.unwrap_or_default())]
     PecMismatch(PecCheck),
@@ -248,12 +243,7 @@ pub struct Call {
 
 impl Call {
     pub fn new(address: Address, request: Request, pec: bool) -> Self {
-        Call {
-            address,
-            request,
-            pec,
-            limit: BlockLimit::default(),
-        }
+        Call { address, request, pec, limit: BlockLimit::default() }
     }
 
     /// The transaction that carries this exchange.
@@ -269,8 +259,7 @@ impl Call {
         let ops = match reading {
             Reading::Nothing => {
                 if self.pec {
-                    let unsealed =
-                        Transaction::new(self.address, vec![Operation::Write(out.clone())]);
+                    let unsealed = Transaction::new(self.address, vec![Operation::Write(out.clone())]);
                     out.push(crc8(&message(&unsealed, None)));
                 }
                 vec![Operation::Write(out)]
@@ -278,19 +267,9 @@ impl Call {
             Reading::Byte | Reading::Word => {
                 let n = if reading == Reading::Byte { 1 } else { 2 };
                 let read = Operation::Read(n + trailer);
-                if out.is_empty() {
-                    vec![read]
-                } else {
-                    vec![Operation::Write(out), read]
-                }
+                if out.is_empty() { vec![read] } else { vec![Operation::Write(out), read] }
             }
-            Reading::Block => vec![
-                Operation::Write(out),
-                Operation::ReadCounted {
-                    max: self.limit.max(),
-                    trailer,
-                },
-            ],
+            Reading::Block => vec![Operation::Write(out), Operation::ReadCounted { max: self.limit.max(), trailer }],
         };
         Ok(Transaction::new(self.address, ops))
     }
@@ -301,9 +280,7 @@ impl Call {
         let (out, reading) = self.request.plan(self.limit)?;
         if let Some(fault) = &outcome.fault {
             return Err(match *fault {
-                Fault::DataNack { op: 0, index }
-                    if self.pec && reading == Reading::Nothing && index == out.len() =>
-                {
+                Fault::DataNack { op: 0, index } if self.pec && reading == Reading::Nothing && index == out.len() => {
                     SmbusError::PecRejected { op: 0, index }
                 }
                 _ => SmbusError::Bus(fault.clone()),
@@ -320,26 +297,17 @@ impl Call {
                 received: None,
                 ok: true,
             });
-            return Ok(Reply {
-                protocol,
-                value: Value::None,
-                pec,
-            });
+            return Ok(Reply { protocol, value: Value::None, pec });
         }
         let read_op = tx.ops.len() - 1;
         let data: &[u8] = outcome.ops.get(read_op).map_or(&[], |o| &o.data);
         let trailer = self.pec as usize;
         let payload = match reading {
             Reading::Block => {
-                let count = *data.first().ok_or(SmbusError::ReplyLength {
-                    expected: 1 + trailer,
-                    received: 0,
-                })? as usize;
+                let count =
+                    *data.first().ok_or(SmbusError::ReplyLength { expected: 1 + trailer, received: 0 })? as usize;
                 if count > self.limit.max() {
-                    return Err(SmbusError::BlockCount {
-                        count,
-                        limit: self.limit.max(),
-                    });
+                    return Err(SmbusError::BlockCount { count, limit: self.limit.max() });
                 }
                 1..1 + count
             }
@@ -347,16 +315,11 @@ impl Call {
         };
         let expected = payload.end + trailer;
         if data.len() != expected {
-            return Err(SmbusError::ReplyLength {
-                expected,
-                received: data.len(),
-            });
+            return Err(SmbusError::ReplyLength { expected, received: data.len() });
         }
         let pec = if self.pec {
             let whole = message(&tx, Some(outcome));
-            let (received, covered) = whole
-                .split_last()
-                .expect("a read protocol's message has bytes");
+            let (received, covered) = whole.split_last().expect("a read protocol's message has bytes");
             let computed = crc8(covered);
             let check = PecCheck {
                 sender: PecSender::Target,
@@ -379,11 +342,7 @@ impl Call {
             Reading::Word => Value::Word(u16::from_le_bytes([bytes[0], bytes[1]])),
             _ => Value::Block(bytes.to_vec()),
         };
-        Ok(Reply {
-            protocol,
-            value,
-            pec,
-        })
+        Ok(Reply { protocol, value, pec })
     }
 }
 
@@ -447,16 +406,8 @@ mod tests {
         c.transaction().unwrap().events_resolved(|_| count)
     }
     fn outcome(ops: Vec<Vec<u8>>) -> Outcome {
-        let ops = ops
-            .into_iter()
-            .map(|data| OpOutcome { acks: vec![], data })
-            .collect();
-        Outcome {
-            ops,
-            bus_time: Duration::ZERO,
-            measured: None,
-            fault: None,
-        }
+        let ops = ops.into_iter().map(|data| OpOutcome { acks: vec![], data }).collect();
+        Outcome { ops, bus_time: Duration::ZERO, measured: None, fault: None }
     }
 
     // Protocol diagrams of the SMBus specification, 3.x §6.5.1-§6.5.8
@@ -467,14 +418,8 @@ mod tests {
     fn quick_command() {
         let c = call(Request::QuickCommand { read: false }, false);
         assert_eq!(events(&c, None), vec![Start, AddressByte(W), Stop]);
-        assert_eq!(
-            call(Request::QuickCommand { read: false }, true).transaction(),
-            Err(SmbusError::QuickWithPec)
-        );
-        assert_eq!(
-            call(Request::QuickCommand { read: true }, false).transaction(),
-            Err(SmbusError::QuickRead)
-        );
+        assert_eq!(call(Request::QuickCommand { read: false }, true).transaction(), Err(SmbusError::QuickWithPec));
+        assert_eq!(call(Request::QuickCommand { read: true }, false).transaction(), Err(SmbusError::QuickRead));
     }
 
     // §6.5.2 Send Byte: S, Addr Wr, Data byte, [PEC], P; the controller
@@ -483,15 +428,9 @@ mod tests {
     fn send_byte() {
         let c = call(Request::SendByte { data: 0x50 }, true);
         let pec = reference_pec(&[W, 0x50]);
-        assert_eq!(
-            events(&c, None),
-            vec![Start, AddressByte(W), wb(0, 0, 0x50), wb(0, 1, pec), Stop]
-        );
+        assert_eq!(events(&c, None), vec![Start, AddressByte(W), wb(0, 0, 0x50), wb(0, 1, pec), Stop]);
         let plain = call(Request::SendByte { data: 0x50 }, false);
-        assert_eq!(
-            events(&plain, None),
-            vec![Start, AddressByte(W), wb(0, 0, 0x50), Stop]
-        );
+        assert_eq!(events(&plain, None), vec![Start, AddressByte(W), wb(0, 0, 0x50), Stop]);
     }
 
     // §6.5.3 Receive Byte: S, Addr Rd, Data (ACK), PEC from the target,
@@ -499,68 +438,31 @@ mod tests {
     #[test]
     fn receive_byte() {
         let c = call(Request::ReceiveByte, true);
-        assert_eq!(
-            events(&c, None),
-            vec![Start, AddressByte(R), rb(0, 0, true), rb(0, 1, false), Stop]
-        );
-        let reply = c
-            .decode(&outcome(vec![vec![76, reference_pec(&[R, 76])]]))
-            .unwrap();
+        assert_eq!(events(&c, None), vec![Start, AddressByte(R), rb(0, 0, true), rb(0, 1, false), Stop]);
+        let reply = c.decode(&outcome(vec![vec![76, reference_pec(&[R, 76])]])).unwrap();
         assert_eq!(reply.value, Value::Byte(76));
         let plain = call(Request::ReceiveByte, false);
-        assert_eq!(
-            events(&plain, None),
-            vec![Start, AddressByte(R), rb(0, 0, false), Stop]
-        );
+        assert_eq!(events(&plain, None), vec![Start, AddressByte(R), rb(0, 0, false), Stop]);
     }
 
     // §6.5.4 Write Byte/Word: S, Addr Wr, Command, Data byte low, Data byte
     // high, [PEC], P; words low byte first; the controller sends the PEC.
     #[test]
     fn write_byte_and_word() {
-        let c = call(
-            Request::WriteWord {
-                command: 0x11,
-                data: 0x2904,
-            },
-            true,
-        );
+        let c = call(Request::WriteWord { command: 0x11, data: 0x2904 }, true);
         let pec = reference_pec(&[W, 0x11, 0x04, 0x29]);
         assert_eq!(
             events(&c, None),
-            vec![
-                Start,
-                AddressByte(W),
-                wb(0, 0, 0x11),
-                wb(0, 1, 0x04),
-                wb(0, 2, 0x29),
-                wb(0, 3, pec),
-                Stop
-            ]
+            vec![Start, AddressByte(W), wb(0, 0, 0x11), wb(0, 1, 0x04), wb(0, 2, 0x29), wb(0, 3, pec), Stop]
         );
         let reply = c.decode(&outcome(vec![vec![]])).unwrap();
         let check = reply.pec.unwrap();
         assert_eq!(
-            (
-                check.sender,
-                check.op,
-                check.index,
-                check.expected,
-                check.ok
-            ),
+            (check.sender, check.op, check.index, check.expected, check.ok),
             (PecSender::Controller, 0, 3, pec, true)
         );
-        let b = call(
-            Request::WriteByte {
-                command: 0x10,
-                data: 20,
-            },
-            false,
-        );
-        assert_eq!(
-            events(&b, None),
-            vec![Start, AddressByte(W), wb(0, 0, 0x10), wb(0, 1, 20), Stop]
-        );
+        let b = call(Request::WriteByte { command: 0x10, data: 20 }, false);
+        assert_eq!(events(&b, None), vec![Start, AddressByte(W), wb(0, 0, 0x10), wb(0, 1, 20), Stop]);
     }
 
     // §6.5.5 Read Byte/Word: S, Addr Wr, Command, Sr, Addr Rd, Data low
@@ -585,22 +487,11 @@ mod tests {
         );
         // Without PEC, the high data byte is the last and is NACKed.
         let plain = call(Request::ReadWord { command: 0x09 }, false);
-        assert_eq!(
-            events(&plain, None)[5..],
-            [rb(1, 0, true), rb(1, 1, false), Stop]
-        );
+        assert_eq!(events(&plain, None)[5..], [rb(1, 0, true), rb(1, 1, false), Stop]);
         let byte = call(Request::ReadByte { command: 0x04 }, false);
         assert_eq!(
             events(&byte, None),
-            vec![
-                Start,
-                AddressByte(W),
-                wb(0, 0, 0x04),
-                RepeatedStart,
-                AddressByte(R),
-                rb(1, 0, false),
-                Stop
-            ]
+            vec![Start, AddressByte(W), wb(0, 0, 0x04), RepeatedStart, AddressByte(R), rb(1, 0, false), Stop]
         );
     }
 
@@ -611,19 +502,11 @@ mod tests {
     fn read_word_pec_covers_both_address_bytes() {
         let c = call(Request::ReadWord { command: 0x09 }, true);
         let good = reference_pec(&[W, 0x09, R, 0x34, 0x12]);
-        let reply = c
-            .decode(&outcome(vec![vec![], vec![0x34, 0x12, good]]))
-            .unwrap();
+        let reply = c.decode(&outcome(vec![vec![], vec![0x34, 0x12, good]])).unwrap();
         assert_eq!(reply.value, Value::Word(0x1234), "low byte first");
         let check = reply.pec.unwrap();
         assert_eq!(
-            (
-                check.sender,
-                check.op,
-                check.index,
-                check.received,
-                check.ok
-            ),
+            (check.sender, check.op, check.index, check.received, check.ok),
             (PecSender::Target, 1, 2, Some(good), true)
         );
         // A PEC that left out the repeated address byte is wrong.
@@ -631,10 +514,7 @@ mod tests {
         assert_ne!(without_sr_address, good);
         match c.decode(&outcome(vec![vec![], vec![0x34, 0x12, without_sr_address]])) {
             Err(SmbusError::PecMismatch(p)) => {
-                assert_eq!(
-                    (p.expected, p.received, p.ok),
-                    (good, Some(without_sr_address), false)
-                );
+                assert_eq!((p.expected, p.received, p.ok), (good, Some(without_sr_address), false));
             }
             other => panic!("expected a PEC mismatch, got {other:?}"),
         }
@@ -645,13 +525,7 @@ mod tests {
     // one from the target over the whole message.
     #[test]
     fn process_call() {
-        let c = call(
-            Request::ProcessCall {
-                command: 0x40,
-                data: 0x0001,
-            },
-            true,
-        );
+        let c = call(Request::ProcessCall { command: 0x40, data: 0x0001 }, true);
         assert_eq!(
             events(&c, None),
             vec![
@@ -669,25 +543,14 @@ mod tests {
             ]
         );
         let pec = reference_pec(&[W, 0x40, 0x01, 0x00, R, 0x2C, 0x10]);
-        assert_eq!(
-            c.decode(&outcome(vec![vec![], vec![0x2C, 0x10, pec]]))
-                .unwrap()
-                .value,
-            Value::Word(0x102C)
-        );
+        assert_eq!(c.decode(&outcome(vec![vec![], vec![0x2C, 0x10, pec]])).unwrap().value, Value::Word(0x102C));
     }
 
     // §6.5.7 Block Write: S, Addr Wr, Command, Byte count N, N data bytes,
     // [PEC], P.
     #[test]
     fn block_write() {
-        let c = call(
-            Request::BlockWrite {
-                command: 0x30,
-                data: b"AB".to_vec(),
-            },
-            true,
-        );
+        let c = call(Request::BlockWrite { command: 0x30, data: b"AB".to_vec() }, true);
         let pec = reference_pec(&[W, 0x30, 2, b'A', b'B']);
         assert_eq!(
             events(&c, None),
@@ -702,21 +565,9 @@ mod tests {
                 Stop
             ]
         );
-        let long = call(
-            Request::BlockWrite {
-                command: 0x30,
-                data: vec![0; 33],
-            },
-            false,
-        );
-        assert_eq!(
-            long.transaction(),
-            Err(SmbusError::BlockTooLong { len: 33, limit: 32 })
-        );
-        let three = Call {
-            limit: BlockLimit::Smbus3,
-            ..long
-        };
+        let long = call(Request::BlockWrite { command: 0x30, data: vec![0; 33] }, false);
+        assert_eq!(long.transaction(), Err(SmbusError::BlockTooLong { len: 33, limit: 32 }));
+        let three = Call { limit: BlockLimit::Smbus3, ..long };
         assert!(three.transaction().is_ok());
     }
 
@@ -742,28 +593,18 @@ mod tests {
         );
         let body = [W, 0x30, R, 3, b'G', b'H', b'-'];
         let pec = reference_pec(&body);
-        let reply = c
-            .decode(&outcome(vec![vec![], vec![3, b'G', b'H', b'-', pec]]))
-            .unwrap();
+        let reply = c.decode(&outcome(vec![vec![], vec![3, b'G', b'H', b'-', pec]])).unwrap();
         assert_eq!(reply.value, Value::Block(b"GH-".to_vec()));
         assert_eq!(reply.pec.map(|p| (p.index, p.ok)), Some((4, true)));
         let bad = c.decode(&outcome(vec![vec![], vec![3, b'G', b'H', b'-', pec ^ 1]]));
-        assert!(
-            matches!(bad, Err(SmbusError::PecMismatch(p)) if p.expected == pec && p.received == Some(pec ^ 1))
-        );
+        assert!(matches!(bad, Err(SmbusError::PecMismatch(p)) if p.expected == pec && p.received == Some(pec ^ 1)));
     }
 
     // §6.5.8 Block Write-Block Read Process Call: the write block, Sr, then
     // the read block with its own count, PEC from the target only.
     #[test]
     fn block_process_call() {
-        let c = call(
-            Request::BlockProcessCall {
-                command: 0x41,
-                data: vec![0, 2],
-            },
-            true,
-        );
+        let c = call(Request::BlockProcessCall { command: 0x41, data: vec![0, 2] }, true);
         assert_eq!(
             events(&c, Some(2)),
             vec![
@@ -783,99 +624,45 @@ mod tests {
             ]
         );
         let pec = reference_pec(&[W, 0x41, 2, 0, 2, R, 2, 80, 79]);
-        assert_eq!(
-            c.decode(&outcome(vec![vec![], vec![2, 80, 79, pec]]))
-                .unwrap()
-                .value,
-            Value::Block(vec![80, 79])
-        );
+        assert_eq!(c.decode(&outcome(vec![vec![], vec![2, 80, 79, pec]])).unwrap().value, Value::Block(vec![80, 79]));
     }
 
     #[test]
     fn count_errors_name_expected_and_received() {
         let c = call(Request::BlockRead { command: 0x30 }, false);
-        assert_eq!(
-            c.decode(&outcome(vec![vec![], vec![40]])),
-            Err(SmbusError::BlockCount {
-                count: 40,
-                limit: 32
-            })
-        );
+        assert_eq!(c.decode(&outcome(vec![vec![], vec![40]])), Err(SmbusError::BlockCount { count: 40, limit: 32 }));
         // Under SMBus 3.x limits, 40 is a legal count; here the bytes are missing.
-        let three = Call {
-            limit: BlockLimit::Smbus3,
-            ..c.clone()
-        };
+        let three = Call { limit: BlockLimit::Smbus3, ..c.clone() };
         assert_eq!(
             three.decode(&outcome(vec![vec![], vec![40, 1, 2]])),
-            Err(SmbusError::ReplyLength {
-                expected: 41,
-                received: 3
-            })
+            Err(SmbusError::ReplyLength { expected: 41, received: 3 })
         );
-        assert_eq!(
-            c.decode(&outcome(vec![vec![], vec![]])),
-            Err(SmbusError::ReplyLength {
-                expected: 1,
-                received: 0
-            })
-        );
+        assert_eq!(c.decode(&outcome(vec![vec![], vec![]])), Err(SmbusError::ReplyLength { expected: 1, received: 0 }));
         let word = call(Request::ReadWord { command: 1 }, true);
         assert_eq!(
             word.decode(&outcome(vec![vec![], vec![1, 2]])),
-            Err(SmbusError::ReplyLength {
-                expected: 3,
-                received: 2
-            })
+            Err(SmbusError::ReplyLength { expected: 3, received: 2 })
         );
-        let msg = SmbusError::ReplyLength {
-            expected: 3,
-            received: 2,
-        }
-        .to_string();
-        assert!(
-            msg.contains("expected 3") && msg.contains("received 2"),
-            "{msg}"
-        );
+        let msg = SmbusError::ReplyLength { expected: 3, received: 2 }.to_string();
+        assert!(msg.contains("expected 3") && msg.contains("received 2"), "{msg}");
     }
 
     #[test]
     fn a_nacked_pec_byte_is_a_rejected_pec() {
-        let c = call(
-            Request::WriteWord {
-                command: 0x11,
-                data: 1,
-            },
-            true,
-        );
+        let c = call(Request::WriteWord { command: 0x11, data: 1 }, true);
         let mut o = outcome(vec![vec![]]);
         o.fault = Some(Fault::DataNack { op: 0, index: 3 });
-        assert_eq!(
-            c.decode(&o),
-            Err(SmbusError::PecRejected { op: 0, index: 3 })
-        );
+        assert_eq!(c.decode(&o), Err(SmbusError::PecRejected { op: 0, index: 3 }));
         o.fault = Some(Fault::DataNack { op: 0, index: 1 });
-        assert_eq!(
-            c.decode(&o),
-            Err(SmbusError::Bus(Fault::DataNack { op: 0, index: 1 }))
-        );
-        o.fault = Some(Fault::AddressNack {
-            op: 0,
-            direction: Direction::Write,
-        });
-        assert!(matches!(
-            c.decode(&o),
-            Err(SmbusError::Bus(Fault::AddressNack { .. }))
-        ));
+        assert_eq!(c.decode(&o), Err(SmbusError::Bus(Fault::DataNack { op: 0, index: 1 })));
+        o.fault = Some(Fault::AddressNack { op: 0, direction: Direction::Write });
+        assert!(matches!(c.decode(&o), Err(SmbusError::Bus(Fault::AddressNack { .. }))));
     }
 
     #[test]
     fn ten_bit_addresses_are_refused() {
         let c = Call::new(Address::Ten(0x2A5), Request::ReceiveByte, false);
-        assert_eq!(
-            c.transaction(),
-            Err(SmbusError::TenBitAddress(Address::Ten(0x2A5)))
-        );
+        assert_eq!(c.transaction(), Err(SmbusError::TenBitAddress(Address::Ten(0x2A5))));
     }
 
     // The frame log shows the PEC check; its JSON names are part of that.
@@ -883,9 +670,7 @@ mod tests {
     fn reply_serializes_for_the_frame_log() {
         let c = call(Request::ReadWord { command: 0x09 }, true);
         let pec = reference_pec(&[W, 0x09, R, 0x34, 0x12]);
-        let reply = c
-            .decode(&outcome(vec![vec![], vec![0x34, 0x12, pec]]))
-            .unwrap();
+        let reply = c.decode(&outcome(vec![vec![], vec![0x34, 0x12, pec]])).unwrap();
         let j = serde_json::to_value(&reply).unwrap();
         assert_eq!(j["protocol"], "Read Word");
         assert_eq!(j["value"]["kind"], "word");
