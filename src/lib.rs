@@ -5,8 +5,10 @@
 
 pub mod adapter;
 pub mod bus;
+pub mod electrical;
 pub mod exit;
 pub mod script;
 pub mod sim;
+pub mod smbus;
 pub mod trace;
 pub mod view;

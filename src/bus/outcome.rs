@@ -19,7 +19,8 @@ pub struct OpOutcome {
     /// For a write: ACK (true) or NACK (false) per byte that was sent.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub acks: Vec<bool>,
-    /// For a read: the bytes received.
+    /// For a read: the bytes received; for a counted read, the count
+    /// byte first, then the data, then the trailer.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub data: Vec<u8>,
 }

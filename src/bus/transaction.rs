@@ -17,11 +17,22 @@
 //! - An empty write is legal (address-only, used for probing and ACK
 //!   polling); an empty read is not, because the controller could not NACK
 //!   the last byte.
+//! - A counted read ([`Operation::ReadCounted`]) is a read whose length the
+//!   target decides: its first byte is a count N, then min(N, max) data
+//!   bytes follow, then a fixed number of trailer bytes (SMBus Block Read:
+//!   the count byte, the block, and the PEC byte). The controller learns N
+//!   before it must ACK or NACK the count byte, so the NACK still lands on
+//!   the true last byte. A target announcing more than `max` gets only
+//!   `max` bytes read; whoever decodes the reply sees the count and reports
+//!   it. [`Transaction::events`] assumes every counted read announces its
+//!   `max` (the worst case, used for bus-time estimates);
+//!   [`Transaction::events_resolved`] takes the counts the target sent.
 
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
 use super::address::Address;
+use super::outcome::Outcome;
 
 /// Largest byte count one operation may ask for, whatever the adapter says.
 /// A guard against a script asking for gigabytes; no bus device needs more.
@@ -43,22 +54,39 @@ pub enum Operation {
     Write(Vec<u8>),
     /// Number of bytes the controller reads.
     Read(usize),
+    /// A read whose first byte is a count of the data bytes that follow
+    /// (at most `max`, which is at most 255), then `trailer` more bytes.
+    #[serde(rename = "read-counted")]
+    ReadCounted { max: usize, trailer: usize },
 }
 
 impl Operation {
     pub fn direction(&self) -> Direction {
         match self {
             Operation::Write(_) => Direction::Write,
-            Operation::Read(_) => Direction::Read,
+            Operation::Read(_) | Operation::ReadCounted { .. } => Direction::Read,
         }
     }
 
-    /// Number of data bytes the operation moves.
+    /// Number of data bytes the operation moves; for a counted read, the
+    /// most it can move (count byte, `max` data bytes, trailer).
     pub fn len(&self) -> usize {
+        self.len_given(None)
+    }
+
+    /// Number of data bytes the operation moves when a counted read's
+    /// target announced `count` (None: assume `max`). Other operations
+    /// ignore `count`.
+    pub fn len_given(&self, count: Option<u8>) -> usize {
         match self {
             Operation::Write(b) => b.len(),
             Operation::Read(n) => *n,
+            Operation::ReadCounted { max, trailer } => 1 + count.map_or(*max, |c| (c as usize).min(*max)) + trailer,
         }
+    }
+
+    pub fn is_counted(&self) -> bool {
+        matches!(self, Operation::ReadCounted { .. })
     }
 
     pub fn is_empty(&self) -> bool {
@@ -105,6 +133,8 @@ pub enum ShapeError {
     EmptyRead { op: usize },
     #[error("operation {op} moves {len} bytes; at most {max} are allowed per operation")]
     TooLong { op: usize, len: usize, max: usize },
+    #[error("operation {op} is a counted read of up to {max} bytes; a count byte announces at most 255")]
+    CountTooLarge { op: usize, max: usize },
     #[error("{address} is reserved ({purpose}); pass the reserved-address option to use it")]
     Reserved { address: Address, purpose: &'static str },
 }
@@ -128,6 +158,11 @@ impl Transaction {
             if matches!(o, Operation::Read(0)) {
                 return Err(ShapeError::EmptyRead { op });
             }
+            if let Operation::ReadCounted { max, .. } = o
+                && *max > 255
+            {
+                return Err(ShapeError::CountTooLarge { op, max: *max });
+            }
             if o.len() > max {
                 return Err(ShapeError::TooLong { op, len: o.len(), max });
             }
@@ -135,18 +170,31 @@ impl Transaction {
         Ok(())
     }
 
-    /// Total data bytes written and read.
+    /// Total data bytes written and read (counted reads at their most).
     pub fn byte_counts(&self) -> (usize, usize) {
-        self.ops.iter().fold((0, 0), |(w, r), o| match o {
-            Operation::Write(b) => (w + b.len(), r),
-            Operation::Read(n) => (w, r + n),
+        self.ops.iter().fold((0, 0), |(w, r), o| match o.direction() {
+            Direction::Write => (w + o.len(), r),
+            Direction::Read => (w, r + o.len()),
         })
     }
 
     /// The events the transaction puts on the bus, assuming every byte is
-    /// ACKed. Drivers that bit-bang or speak a primitive-level dialect walk
-    /// this list; the simulator walks it too, so both agree by construction.
+    /// ACKed and every counted read announces its `max`. Drivers that
+    /// bit-bang or speak a primitive-level dialect walk this list; the
+    /// simulator walks it too, so both agree by construction.
     pub fn events(&self) -> Vec<Event> {
+        self.events_resolved(|_| None)
+    }
+
+    /// The events as they happened, given an outcome: each counted read
+    /// takes its count from the first byte the outcome holds for it.
+    pub fn events_observed(&self, outcome: &Outcome) -> Vec<Event> {
+        self.events_resolved(|op| outcome.ops.get(op).and_then(|o| o.data.first().copied()))
+    }
+
+    /// The events when counted read `op` announced `count(op)` (None:
+    /// assume its `max`). `count` is asked only about counted reads.
+    pub fn events_resolved(&self, count: impl Fn(usize) -> Option<u8>) -> Vec<Event> {
         let mut ev = Vec::with_capacity(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
         ev.push(Event::Start);
         let mut prev: Option<Direction> = None;
@@ -165,10 +213,11 @@ impl Transaction {
                         ev.push(Event::WriteByte { op, index, byte });
                     }
                 }
-                Operation::Read(n) => {
-                    let next_is_read = matches!(self.ops.get(op + 1), Some(Operation::Read(_)));
-                    for index in 0..*n {
-                        let last = index + 1 == *n && !next_is_read;
+                Operation::Read(_) | Operation::ReadCounted { .. } => {
+                    let n = o.len_given(if o.is_counted() { count(op) } else { None });
+                    let next_is_read = self.ops.get(op + 1).is_some_and(|next| next.direction() == Direction::Read);
+                    for index in 0..n {
+                        let last = index + 1 == n && !next_is_read;
                         ev.push(Event::ReadByte { op, index, ack: !last });
                     }
                 }
@@ -297,6 +346,57 @@ mod tests {
         );
     }
 
+    // A counted read: the count byte is ACKed while data follows; the
+    // controller NACKs the true last byte (here the trailer), so the
+    // transaction's end follows the count the target sent. Contract above.
+    #[test]
+    fn counted_read_length_follows_the_count_byte() {
+        let t = Transaction::new(
+            Address::Seven(0x0B),
+            vec![Operation::Write(vec![0x20]), Operation::ReadCounted { max: 32, trailer: 1 }],
+        );
+        let ev = t.events_resolved(|op| (op == 1).then_some(2));
+        assert_eq!(
+            ev,
+            vec![
+                Start,
+                AddressByte(0x16),
+                wb(0, 0, 0x20),
+                RepeatedStart,
+                AddressByte(0x17),
+                rb(1, 0, true),
+                rb(1, 1, true),
+                rb(1, 2, true),
+                rb(1, 3, false),
+                Stop
+            ]
+        );
+        // Unresolved: the worst case of 1 + 32 + 1 bytes.
+        let worst = t.events().iter().filter(|e| matches!(e, ReadByte { .. })).count();
+        assert_eq!(worst, 34);
+        // A count above max is cut to max.
+        let capped = t.events_resolved(|_| Some(200)).iter().filter(|e| matches!(e, ReadByte { .. })).count();
+        assert_eq!(capped, 34);
+        // A zero count with no trailer: the count byte is the last byte and
+        // is NACKed.
+        let z = Transaction::new(Address::Seven(0x0B), vec![Operation::ReadCounted { max: 32, trailer: 0 }]);
+        assert_eq!(z.events_resolved(|_| Some(0)), vec![Start, AddressByte(0x17), rb(0, 0, false), Stop]);
+    }
+
+    #[test]
+    fn events_observed_takes_counts_from_the_outcome() {
+        use crate::bus::OpOutcome;
+        let t = Transaction::new(Address::Seven(0x0B), vec![Operation::ReadCounted { max: 32, trailer: 0 }]);
+        let outcome = Outcome {
+            ops: vec![OpOutcome { acks: vec![], data: vec![1, 0xAB] }],
+            bus_time: std::time::Duration::ZERO,
+            measured: None,
+            fault: None,
+        };
+        assert_eq!(t.events_observed(&outcome), vec![Start, AddressByte(0x17), rb(0, 0, true), rb(0, 1, false), Stop]);
+        assert_eq!(t.byte_counts(), (0, 33));
+    }
+
     #[test]
     fn empty_write_is_address_only() {
         let t = Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![])]);
@@ -319,5 +419,21 @@ mod tests {
         let gc = Transaction::new(Address::Seven(0x00), vec![Operation::Write(vec![0x06])]);
         assert!(matches!(gc.validate(64, false), Err(ShapeError::Reserved { .. })));
         assert!(gc.validate(64, true).is_ok());
+        assert_eq!(
+            Transaction::new(a, vec![Operation::ReadCounted { max: 256, trailer: 0 }]).validate(1024, false),
+            Err(ShapeError::CountTooLarge { op: 0, max: 256 })
+        );
+        assert_eq!(
+            Transaction::new(a, vec![Operation::ReadCounted { max: 64, trailer: 1 }]).validate(64, false),
+            Err(ShapeError::TooLong { op: 0, len: 66, max: 64 })
+        );
+    }
+
+    // Trace records name the operation kinds; the counted read has its own.
+    #[test]
+    fn counted_read_serializes_with_its_own_name() {
+        let j = serde_json::to_string(&Operation::ReadCounted { max: 32, trailer: 1 }).unwrap();
+        assert_eq!(j, r#"{"read-counted":{"max":32,"trailer":1}}"#);
+        assert_eq!(serde_json::to_string(&Operation::Read(2)).unwrap(), r#"{"read":2}"#);
     }
 }

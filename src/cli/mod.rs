@@ -31,6 +31,10 @@ pub enum Command {
     Run(run::RunArgs),
     /// List the addresses that answer on the bus.
     Scan(scan::ScanArgs),
+    /// Size pull-up resistors: the window UM10204 allows, bus loading, E-series picks.
+    Pullup(buscue::electrical::cli::PullupArgs),
+    /// Model the time a transaction shape takes on the wire.
+    Bustime(buscue::electrical::cli::BusTimeArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -121,6 +125,8 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Run(a) => run::run(a),
         Command::Scan(a) => scan::scan(a),
+        Command::Pullup(a) => buscue::electrical::cli::run(&a),
+        Command::Bustime(a) => buscue::electrical::cli::run_bus_time(&a),
     }
 }
 

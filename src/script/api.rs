@@ -54,7 +54,7 @@ pub fn transact(
 
 /// Registers a function under `table.name` with errors located at the
 /// calling script line.
-fn add<A, R, F>(lua: &Lua, table: &Table, name: &str, f: F) -> mlua::Result<()>
+pub fn add<A, R, F>(lua: &Lua, table: &Table, name: &str, f: F) -> mlua::Result<()>
 where
     A: mlua::FromLuaMulti,
     R: mlua::IntoLuaMulti,
@@ -64,7 +64,7 @@ where
     table.set(name, func)
 }
 
-fn default_retry(ctx: &Ctx) -> super::retry::RetryPolicy {
+pub fn default_retry(ctx: &Ctx) -> super::retry::RetryPolicy {
     ctx.session.borrow().default_retry
 }
 
@@ -119,7 +119,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         for (i, (op, oo)) in ops.iter().zip(&out.ops).enumerate() {
             match op {
                 Operation::Write(_) => results.set(i + 1, true)?,
-                Operation::Read(_) => results.set(i + 1, convert::byte_table(lua, &oo.data)?)?,
+                Operation::Read(_) | Operation::ReadCounted { .. } => {
+                    results.set(i + 1, convert::byte_table(lua, &oo.data)?)?
+                }
             }
         }
         Ok(results)
@@ -209,6 +211,8 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
     g.set("bus", bus)?;
 
+    super::smbus_api::install(lua, &g, ctx.clone())?;
+    super::electrical_api::install(lua, &g)?;
     install_globals(lua, &g, ctx)
 }
 

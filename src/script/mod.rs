@@ -16,9 +16,11 @@
 pub mod api;
 pub mod convert;
 pub mod device;
+pub mod electrical_api;
 pub mod retry;
 pub mod sandbox;
 pub mod session;
+pub mod smbus_api;
 
 use std::cell::RefCell;
 use std::collections::{BTreeMap, BTreeSet};
@@ -57,7 +59,7 @@ impl Abort {
         match self {
             Abort::Check { .. } => exit::CHECK_FAILED,
             Abort::Run { error, .. } => match error {
-                RunError::Bus { .. } | RunError::PollTimeout { .. } => exit::BUS_FAILURE,
+                RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => exit::BUS_FAILURE,
                 RunError::Adapter(_) => exit::ADAPTER,
                 RunError::Interrupted => exit::INTERRUPTED,
                 RunError::Shape(_) => exit::INPUT,

@@ -20,7 +20,7 @@ use thiserror::Error;
 
 use crate::adapter::Adapter;
 use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
-use crate::trace::record::{Level, Stats};
+use crate::trace::record::{Level, PecMark, Stats};
 use crate::trace::{Frame, Origin, Record, Sink};
 
 use super::retry::RetryPolicy;
@@ -34,6 +34,10 @@ pub enum RunError {
     Bus { address: Address, fault: Fault, attempts: u32, ops: Vec<Operation> },
     #[error("{address}: still NACKing after {waited_ms:.3} ms of ACK polling")]
     PollTimeout { address: Address, waited_ms: f64 },
+    /// The bus exchange worked but its content broke the protocol (a PEC
+    /// or block count that does not check out).
+    #[error("{address}: {message}")]
+    Protocol { address: Address, message: String },
     #[error("adapter: {0}")]
     Adapter(String),
     #[error("interrupted")]
@@ -159,6 +163,17 @@ impl Session {
 
     /// Puts a transaction on the bus with retries; see the module contract.
     pub fn transact(&mut self, tx: &Transaction, req: &Request) -> Result<Outcome, RunError> {
+        self.transact_marked(tx, req, &|_| None)
+    }
+
+    /// [`Session::transact`], with `pec` working out each attempt's PEC
+    /// mark for its frame before the frame is emitted.
+    pub fn transact_marked(
+        &mut self,
+        tx: &Transaction,
+        req: &Request,
+        pec: &dyn Fn(&Outcome) -> Option<PecMark>,
+    ) -> Result<Outcome, RunError> {
         let caps = self.adapter.capabilities();
         tx.validate(caps.max_bytes_per_op, self.allow_reserved || req.allow_reserved)?;
         if tx.address.is_ten_bit() && !caps.ten_bit {
@@ -176,6 +191,7 @@ impl Session {
             }
             let t = self.adapter.now();
             let outcome = self.adapter.execute(tx);
+            let pec = pec(&outcome);
             self.seq += 1;
             self.account(tx, &outcome, attempt > 1);
             let frame = Frame {
@@ -189,6 +205,7 @@ impl Session {
                 purpose: req.purpose.clone(),
                 origin: req.origin.clone(),
                 decoded: req.decoded.clone(),
+                pec,
             };
             let record = Record::Frame(frame);
             self.emit(&record);
@@ -223,7 +240,7 @@ impl Session {
         for (op, oo) in tx.ops.iter().zip(&o.ops) {
             match op {
                 Operation::Write(_) => s.bytes_written += oo.acks.len() as u64,
-                Operation::Read(_) => s.bytes_read += oo.data.len() as u64,
+                Operation::Read(_) | Operation::ReadCounted { .. } => s.bytes_read += oo.data.len() as u64,
             }
         }
     }

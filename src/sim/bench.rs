@@ -18,6 +18,7 @@ use super::bus::{DeviceFaults, Slot};
 use super::climate::{Busy, ClimateSensor};
 use super::device::Device;
 use super::eeprom::{Eeprom, EepromConfig};
+use super::gauge::{Gauge, GaugeConfig};
 use super::register::{Access, ByteOrder, Layout, RegisterDevice, RegisterInit};
 use super::rng::SplitMix64;
 use super::signal::{Signal, SignalSpec};
@@ -157,6 +158,38 @@ struct ClimateSpec {
     busy: String,
     temperature_c: SignalSpec,
     humidity_pct: SignalSpec,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct GaugeSpec {
+    #[serde(default = "yes")]
+    pec: bool,
+    #[serde(default = "default_pack_name")]
+    pack_name: String,
+    #[serde(default = "default_charge")]
+    charge_pct: f64,
+    #[serde(default = "default_capacity")]
+    capacity_mah: f64,
+    #[serde(default)]
+    cycles: u16,
+    #[serde(default)]
+    current_ma: Option<SignalSpec>,
+    #[serde(default)]
+    temperature_c: Option<SignalSpec>,
+}
+
+fn default_pack_name() -> String {
+    "GH-PACK-01".into()
+}
+fn default_charge() -> f64 {
+    80.0
+}
+fn default_capacity() -> f64 {
+    2200.0
+}
+fn flat(base: f64) -> SignalSpec {
+    SignalSpec { base, swing: 0.0, period_s: 600.0, noise: 0.0, seed: 0 }
 }
 
 fn default_speed() -> String {
@@ -414,7 +447,9 @@ fn build_device(
             let order = match s.byte_order.as_str() {
                 "big" => ByteOrder::Big,
                 "little" => ByteOrder::Little,
-                o => return Err(cx.err(Some(n), "byte_order", format!("must be \"big\" or \"little\", got \"{o}\""))),
+                o => {
+                    return Err(cx.err(Some(n), "byte_order", format!("must be \"big\" or \"little\", got \"{o}\"")));
+                }
             };
             let max_count = 1usize << (8 * pointer_bytes);
             let register_count = s.register_count.unwrap_or(max_count.min(256));
@@ -476,7 +511,9 @@ fn build_device(
             let word_address_bytes = match s.word_address_bits {
                 8 => 1,
                 16 => 2,
-                b => return Err(cx.err(Some(n), "word_address_bits", format!("must be 8 or 16, got {b}"))),
+                b => {
+                    return Err(cx.err(Some(n), "word_address_bits", format!("must be 8 or 16, got {b}")));
+                }
             };
             let max = 1usize << (8 * word_address_bytes);
             if s.size == 0 || s.size > max || !s.size.is_power_of_two() {
@@ -520,6 +557,28 @@ fn build_device(
             };
             Box::new(ClimateSensor::new(name, address, busy, Signal::new(s.temperature_c), Signal::new(s.humidity_pct)))
         }
+        "smbus-gauge" => {
+            let s: GaugeSpec = cx.parse(Some(n), "", rest)?;
+            if !s.pack_name.is_ascii() || s.pack_name.len() > 32 {
+                return Err(cx.err(Some(n), "pack_name", "must be ASCII, at most 32 characters (one SMBus 2.0 block)"));
+            }
+            if !(0.0..=100.0).contains(&s.charge_pct) {
+                return Err(cx.err(Some(n), "charge_pct", "must be 0-100"));
+            }
+            if !(s.capacity_mah > 0.0 && s.capacity_mah <= 1.0e6) {
+                return Err(cx.err(Some(n), "capacity_mah", "must be more than 0 and at most 1000000"));
+            }
+            let cfg = GaugeConfig {
+                pec: s.pec,
+                pack_name: s.pack_name.into_bytes(),
+                charge_pct: s.charge_pct,
+                capacity_mah: s.capacity_mah,
+                cycles: s.cycles,
+                current_ma: Signal::new(s.current_ma.unwrap_or_else(|| flat(-250.0))),
+                temperature_c: Signal::new(s.temperature_c.unwrap_or_else(|| flat(24.0))),
+            };
+            Box::new(Gauge::new(name, address, cfg))
+        }
         m => {
             return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));
         }
@@ -527,7 +586,7 @@ fn build_device(
 }
 
 /// Device models a bench file can name.
-pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor"];
+pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor", "smbus-gauge"];
 
 #[cfg(test)]
 mod tests {

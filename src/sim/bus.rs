@@ -92,7 +92,11 @@ impl SimBus {
 
     pub fn execute(&mut self, tx: &Transaction) -> Outcome {
         let start = self.clock.now();
-        let events = tx.events();
+        // Counted reads learn their length from the target's count byte,
+        // so the plan is re-made from the transaction when one arrives;
+        // the events so far stay the same (Transaction contract).
+        let mut counts: Vec<Option<u8>> = vec![None; tx.ops.len()];
+        let mut events = tx.events();
         let mut done: Vec<Event> = Vec::with_capacity(events.len());
         let mut ops: Vec<OpOutcome> = vec![OpOutcome::default(); tx.ops.len()];
         let mut last_op = 0usize;
@@ -117,10 +121,12 @@ impl SimBus {
             .is_some_and(|i| self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability)));
 
         if fault.is_none() {
-            for e in &events {
-                done.push(*e);
+            let mut next = 0;
+            while let Some(&e) = events.get(next) {
+                next += 1;
+                done.push(e);
                 let now = start + stretch;
-                match *e {
+                match e {
                     Event::Start | Event::RepeatedStart => {}
                     Event::AddressByte(byte) => {
                         // The low byte of a 10-bit address carries A0, not R/W.
@@ -168,10 +174,19 @@ impl SimBus {
                             break;
                         }
                     }
-                    Event::ReadByte { op, .. } => {
+                    Event::ReadByte { op, index, .. } => {
                         last_op = op;
                         let dev = &mut self.slots[target.expect("selected")].device;
-                        ops[op].data.push(dev.read(now));
+                        let byte = dev.read(now);
+                        ops[op].data.push(byte);
+                        if index == 0 && tx.ops[op].is_counted() {
+                            counts[op] = Some(byte);
+                            events = tx.events_resolved(|o| counts[o]);
+                            // The count byte's own ACK/NACK depends on it.
+                            if let Some(last) = done.last_mut() {
+                                *last = events[next - 1];
+                            }
+                        }
                     }
                     Event::Stop => {}
                 }

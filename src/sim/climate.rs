@@ -82,7 +82,9 @@ impl ClimateSensor {
 
     /// Finishes a conversion whose time has come.
     fn settle(&mut self, now: Duration) {
-        let Some(done) = self.converting_until else { return };
+        let Some(done) = self.converting_until else {
+            return;
+        };
         if now < done {
             return;
         }

@@ -11,6 +11,7 @@ pub mod climate;
 pub mod clock;
 pub mod device;
 pub mod eeprom;
+pub mod gauge;
 pub mod register;
 pub mod rng;
 pub mod signal;

@@ -46,6 +46,23 @@ pub struct Frame {
     /// Register or field names, where a register map is known.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub decoded: Option<String>,
+    /// The SMBus PEC byte of the frame, where it carried one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pec: Option<PecMark>,
+}
+
+/// Where a frame's PEC byte sits and whether it checked out.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct PecMark {
+    /// Operation and byte index of the PEC byte.
+    pub op: usize,
+    pub index: usize,
+    /// The PEC the message calls for (computed, or sent by the controller).
+    pub expected: u8,
+    /// The PEC the target sent, for PECs the controller reads.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub received: Option<u8>,
+    pub ok: bool,
 }
 
 /// Severity of a script log line.
@@ -124,6 +141,7 @@ mod tests {
             purpose: None,
             origin: Some(Origin { file: "a.lua".into(), line: 4 }),
             decoded: None,
+            pec: None,
         });
         let text = serde_json::to_string(&f).unwrap();
         assert!(text.starts_with(r#"{"kind":"frame","seq":3,"t_ns":1234567,"address":"10:0x2A5""#), "{text}");

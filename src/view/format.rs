@@ -87,6 +87,19 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                     out.push_str(" -");
                 }
             }
+            Operation::ReadCounted { max, trailer } => {
+                // A counted read (SMBus block): count byte first.
+                out.push_str("R#");
+                match done {
+                    Some(d) if !d.data.is_empty() => {
+                        out.push(' ');
+                        out.push_str(&hex_bytes(&d.data));
+                    }
+                    _ => {
+                        let _ = write!(out, " ?x(1+{max}+{trailer})");
+                    }
+                }
+            }
             Operation::Read(n) => {
                 out.push('R');
                 match done {
@@ -137,6 +150,17 @@ pub fn frame_line(f: &Frame, colour: bool) -> String {
     }
     if let Some(purpose) = &f.purpose {
         let _ = write!(s, " ({purpose})");
+    }
+    if let Some(m) = &f.pec {
+        match (m.ok, m.received) {
+            (true, _) => s.push_str(" PEC ok"),
+            (false, Some(r)) => {
+                let _ = write!(s, " {}PEC BAD (expected {:02X}, got {r:02X}){}", p.bad, m.expected, p.reset);
+            }
+            (false, None) => {
+                let _ = write!(s, " {}PEC rejected{}", p.bad, p.reset);
+            }
+        }
     }
     if let Some(d) = &f.decoded {
         let _ = write!(s, " [{d}]");
@@ -197,6 +221,7 @@ mod tests {
             purpose: None,
             origin: Some(Origin { file: "e.lua".into(), line: 9 }),
             decoded: None,
+            pec: None,
         }
     }
 
