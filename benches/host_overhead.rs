@@ -1,1 +1,82 @@
-fn main() {}
+//! Host overhead per transaction: a Lua loop of 100,000 one-byte register
+//! reads against the simulated adapter, frame log written to a file.
+//!
+//! Run: `cargo bench --bench host_overhead` (release build). Prints
+//! microseconds of host time per transaction for the plain frame log and
+//! for the JSON stream. Goal: at most 2 us, far below the ~40 us a
+//! one-byte register read takes on the wire at 1 MHz.
+
+use std::io::BufWriter;
+use std::sync::Arc;
+use std::sync::atomic::AtomicBool;
+use std::time::Instant;
+
+use buscue::script::{self, DEFAULT_MEMORY_LIMIT, RunConfig, Session};
+use buscue::sim::{Bench, SimAdapter};
+use buscue::trace::Sink;
+use buscue::view::json::JsonLines;
+use buscue::view::plain::PlainLog;
+
+const BENCH: &str = r#"
+format = "buscue-bench/1"
+name = "overhead"
+speed = "1M"
+[[device]]
+name = "r"
+model = "register"
+address = 0x20
+[[device.register]]
+at = 0x05
+reset = 0x5A
+"#;
+
+const READS: u64 = 100_000;
+
+fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let script = dir.path().join("loop.lua");
+    std::fs::write(
+        &script,
+        format!("local d = bus.device(0x20)\nfor i = 1, {READS} do\n  if d:get(0x05) ~= 0x5A then error('bad') end\nend\n"),
+    )
+    .expect("write script");
+    let log = std::fs::File::create(dir.path().join("frames.log")).expect("log file");
+    let adapter = SimAdapter::new(Bench::from_str(BENCH, "overhead").expect("bench"), false);
+    let interrupt = Arc::new(AtomicBool::new(false));
+    let mut session = Session::new(Box::new(adapter), interrupt.clone());
+    session.add_sink(make(log));
+    let cfg = RunConfig {
+        script,
+        params: Default::default(),
+        timeout: None,
+        memory_limit: DEFAULT_MEMORY_LIMIT,
+        allow_io: false,
+    };
+    let start = Instant::now();
+    let report = script::run(session, &cfg, interrupt);
+    let host = start.elapsed();
+    assert!(report.abort.is_none(), "{:?}", report.abort);
+    let mut session = report.session;
+    session.finish(0, None).expect("finish");
+    let size = std::fs::metadata(dir.path().join("frames.log")).map(|m| m.len()).unwrap_or(0);
+    let per = host.as_secs_f64() * 1e6 / READS as f64;
+    let bus = session.stats.bus_time.as_secs_f64() * 1e6 / READS as f64;
+    println!(
+        "{label:<22} {READS} reads  host {:>8.3} ms  {per:>6.3} us/transaction  (modelled bus time {bus:.1} us each, log {:.1} MB)",
+        host.as_secs_f64() * 1e3,
+        size as f64 / 1e6
+    );
+}
+
+fn main() {
+    // `cargo test --benches` runs this with `--bench` absent: keep that quick.
+    let quick = !std::env::args().any(|a| a == "--bench");
+    if quick {
+        println!("host_overhead: run with `cargo bench --bench host_overhead` for numbers");
+        return;
+    }
+    for _ in 0..2 {
+        measure("plain frame log", |f| Box::new(PlainLog::new(BufWriter::new(f), false, true)));
+        measure("JSON lines", |f| Box::new(JsonLines::new(BufWriter::new(f))));
+    }
+}

@@ -34,19 +34,22 @@ const COLOUR: Palette =
     Palette { dim: "\x1b[2m", ok: "\x1b[32m", warn: "\x1b[33m", bad: "\x1b[31;1m", reset: "\x1b[0m" };
 const PLAIN: Palette = Palette { dim: "", ok: "", warn: "", bad: "", reset: "" };
 
+/// Seconds with microseconds, right-aligned: `    0.012345`. Integer
+/// arithmetic: this runs once per frame.
 pub fn seconds(t: Duration) -> String {
-    format!("{:>12.6}", t.as_secs_f64())
+    let us = t.as_micros();
+    format!("{:>5}.{:06}", us / 1_000_000, us % 1_000_000)
 }
 
 /// Duration in the most readable unit.
 pub fn human(d: Duration) -> String {
     let ns = d.as_nanos();
     if ns < 10_000 {
-        format!("{:.1} us", ns as f64 / 1e3)
+        format!("{}.{} us", ns / 1_000, ns % 1_000 / 100)
     } else if ns < 10_000_000 {
-        format!("{:.3} ms", ns as f64 / 1e6)
+        format!("{}.{:03} ms", ns / 1_000_000, ns % 1_000_000 / 1_000)
     } else {
-        format!("{:.3} s", ns as f64 / 1e9)
+        format!("{}.{:03} s", ns / 1_000_000_000, ns % 1_000_000_000 / 1_000_000)
     }
 }
 
