@@ -2,6 +2,7 @@
 
 mod run;
 mod scan;
+mod traces;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -31,6 +32,12 @@ pub enum Command {
     Run(run::RunArgs),
     /// List the addresses that answer on the bus.
     Scan(scan::ScanArgs),
+    /// Play a trace against an adapter and compare every ACK and read byte.
+    Replay(traces::ReplayArgs),
+    /// Align two traces by content and show where they differ.
+    Diff(traces::DiffArgs),
+    /// Turn a trace into an editable Lua script.
+    ToScript(traces::ToScriptArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -121,6 +128,9 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Run(a) => run::run(a),
         Command::Scan(a) => scan::scan(a),
+        Command::Replay(a) => traces::replay(a),
+        Command::Diff(a) => traces::diff(a),
+        Command::ToScript(a) => traces::to_script(a),
     }
 }
 
