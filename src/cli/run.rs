@@ -62,13 +62,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let adapter = a.bus.open()?;
     let mut session = Session::new(adapter, interrupt.clone());
     session.allow_reserved = a.allow_reserved;
-    let colour = a.bus.colour.resolve();
-    if a.json {
-        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
-    } else {
-        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), colour, !a.quiet)));
-    }
     let params: std::collections::BTreeMap<String, String> = a.set.into_iter().collect();
+    // The trace sink goes first: a frame reaches the file before the
+    // screen, so nothing a person saw can be missing from the trace.
     let trace_path = if a.no_trace {
         None
     } else {
@@ -84,6 +80,12 @@ pub fn run(a: RunArgs) -> Result<u8> {
         session.add_sink(Box::new(w));
         Some(path)
     };
+    let colour = a.bus.colour.resolve();
+    if a.json {
+        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
+    } else {
+        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), colour, !a.quiet)));
+    }
     let cfg = RunConfig {
         script: a.script.clone(),
         params,

@@ -73,17 +73,17 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
     }
     let mut session = Session::new(adapter, interrupt);
-    if a.json {
-        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
-    } else if a.frames {
-        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
-    }
     if let Some(path) = &a.trace_out {
         let mut h = Header::new("replay", session.adapter_ref());
         h.replay_of = Some(a.trace.display().to_string());
         let w =
             TraceWriter::create(path, &h).with_context(|| format!("cannot create trace file {}", path.display()))?;
         session.add_sink(Box::new(w));
+    }
+    if a.json {
+        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
+    } else if a.frames {
+        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
     }
     let opts = ReplayOptions {
         time_scale: (!a.no_delays).then_some(a.time_scale),
@@ -129,7 +129,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         if report.divergences.len() == 1 { "" } else { "s" },
         report.diverged_frames,
         if report.diverged_frames == 1 { "" } else { "s" },
-        if report.masked_bytes > 0 { format!(", {} masked bytes", report.masked_bytes) } else { String::new() },
+        if report.masked_bytes > 0 { format!(", {} hidden by masks", report.masked_bytes) } else { String::new() },
         if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" },
     );
     if let Some(e) = error {
