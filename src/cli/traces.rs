@@ -10,7 +10,7 @@ use clap::Args;
 use buscue::exit;
 use buscue::script::Session;
 use buscue::script::session::RunError;
-use buscue::trace::diff::{Hunk, Keyed, align, key_file};
+use buscue::trace::diff::{Hunk, Keyed, align, key_files};
 use buscue::trace::mask::{Mask, Masks};
 use buscue::trace::record::Stats;
 use buscue::trace::replay::{ReplayOptions, Stop, check_scale, replay as play};
@@ -189,8 +189,7 @@ fn summary_row(s: &Stats) -> String {
 
 pub fn diff(a: DiffArgs) -> Result<u8> {
     let masks = Masks(a.mask.clone());
-    let ka = key_file(&a.a, &masks)?;
-    let kb = key_file(&a.b, &masks)?;
+    let (ka, kb) = key_files(&a.a, &a.b, &masks)?;
     let mut err = std::io::stderr().lock();
     for w in ka.warnings.iter().chain(&kb.warnings) {
         let _ = writeln!(err, "warning: {w}");

@@ -17,17 +17,21 @@
 //!   replaced block rather than aligned, which bounds the time on traces
 //!   that have little in common.
 
+use std::borrow::Cow;
 use std::collections::BTreeMap;
 use std::hash::{DefaultHasher, Hash, Hasher};
 use std::io::BufRead;
 use std::ops::Range;
 use std::path::Path;
+use std::time::Duration;
 
-use crate::bus::{Address, Fault, Operation};
+use serde::Deserialize;
+
+use crate::bus::{Address, Fault, Operation, Outcome};
 
 use super::mask::Masks;
 use super::record::Stats;
-use super::{Frame, Header, Record, TraceError, TraceReader};
+use super::{Frame, Header, TraceError, TraceReader};
 
 /// Edit-distance bound per aligned region; see the module contract.
 pub const MAX_EDITS: usize = 20_000;
@@ -75,6 +79,50 @@ pub fn frame_key(f: &Frame, masks: &Masks) -> u64 {
     h.finish()
 }
 
+/// The parts of a record line the diff needs. Parsing into this plain
+/// struct skips the buffering an internally tagged enum costs and the
+/// strings the diff never looks at (script lines, purposes).
+#[derive(Deserialize)]
+struct FrameLine<'a> {
+    #[serde(borrow)]
+    kind: Cow<'a, str>,
+    #[serde(default)]
+    seq: u64,
+    #[serde(default)]
+    address: Option<Address>,
+    #[serde(default)]
+    ops: Vec<Operation>,
+    #[serde(default)]
+    outcome: Option<Outcome>,
+    #[serde(default)]
+    attempt: u32,
+    #[serde(default)]
+    attempts: u32,
+    #[serde(default)]
+    decoded: Option<String>,
+}
+
+impl FrameLine<'_> {
+    /// The frame, for a frame record.
+    fn into_frame(self) -> Option<Frame> {
+        if self.kind != "frame" {
+            return None;
+        }
+        Some(Frame {
+            seq: self.seq,
+            t: Duration::ZERO,
+            address: self.address?,
+            ops: self.ops,
+            outcome: self.outcome?,
+            attempt: self.attempt,
+            attempts: self.attempts,
+            purpose: None,
+            origin: None,
+            decoded: self.decoded,
+        })
+    }
+}
+
 /// Reads a trace into keys and summaries, one frame at a time.
 pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Keyed, TraceError> {
     let mut keyed = Keyed {
@@ -84,12 +132,12 @@ pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Ke
         summary: BTreeMap::new(),
         warnings: Vec::new(),
     };
-    while let Some(l) = r.next_located()? {
-        if let Record::Frame(f) = &l.record {
-            keyed.keys.push(frame_key(f, masks));
-            keyed.places.push((l.offset, l.line));
-            keyed.summary.entry(f.address).or_default().add_frame(f);
-        }
+    let parse = |line: &[u8]| serde_json::from_slice::<FrameLine>(line).map(FrameLine::into_frame);
+    while let Some((line, offset, f)) = r.next_with(parse)? {
+        let Some(f) = f else { continue };
+        keyed.keys.push(frame_key(&f, masks));
+        keyed.places.push((offset, line));
+        keyed.summary.entry(f.address).or_default().add_frame(&f);
     }
     keyed.warnings = r.warnings().to_vec();
     Ok(keyed)
@@ -97,6 +145,19 @@ pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Ke
 
 pub fn key_file(path: &Path, masks: &Masks) -> Result<Keyed, TraceError> {
     key_trace(&mut TraceReader::open(path)?, masks)
+}
+
+/// Keys two files at once, one thread each.
+pub fn key_files(a: &Path, b: &Path, masks: &Masks) -> Result<(Keyed, Keyed), TraceError> {
+    std::thread::scope(|s| {
+        let other = s.spawn(|| key_file(b, masks));
+        let ka = key_file(a, masks);
+        let kb = match other.join() {
+            Ok(r) => r,
+            Err(panic) => std::panic::resume_unwind(panic),
+        };
+        Ok((ka?, kb?))
+    })
 }
 
 /// A region where the traces differ: frames `a` of the first trace stand

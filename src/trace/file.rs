@@ -194,6 +194,17 @@ impl<R: BufRead> TraceReader<R> {
 
     /// The next record, or `None` at the end.
     pub fn next_located(&mut self) -> Result<Option<Located>, TraceError> {
+        let next = self.next_with(|line| serde_json::from_slice::<Record>(line))?;
+        Ok(next.map(|(line, offset, record)| Located { line, offset, record }))
+    }
+
+    /// The next line parsed by `parse` as `(line number, offset, value)`,
+    /// under the same rules as [`Self::next_located`]: for readers that
+    /// need only part of each record and parse it faster.
+    pub fn next_with<T>(
+        &mut self,
+        mut parse: impl FnMut(&[u8]) -> Result<T, serde_json::Error>,
+    ) -> Result<Option<(u64, u64, T)>, TraceError> {
         loop {
             self.buf.clear();
             let n = self
@@ -210,8 +221,8 @@ impl<R: BufRead> TraceReader<R> {
             if self.buf.iter().all(u8::is_ascii_whitespace) {
                 continue;
             }
-            match serde_json::from_slice::<Record>(&self.buf) {
-                Ok(record) => return Ok(Some(Located { line: self.line, offset, record })),
+            match parse(&self.buf) {
+                Ok(value) => return Ok(Some((self.line, offset, value))),
                 Err(_) if !complete => {
                     self.warnings.push(format!(
                         "{}:{}: the last line is cut short (the recording stopped mid-write); ignored",
