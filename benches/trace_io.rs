@@ -88,10 +88,32 @@ fn peak_rss_mib() -> Option<f64> {
     Some(kb / 1024.0)
 }
 
+/// User + system CPU seconds of this process so far (/proc/self/stat
+/// fields 14 and 15, in clock ticks; 100 per second on Linux by default,
+/// common practice), to read the results on a shared, loaded machine.
+fn cpu_seconds() -> Option<f64> {
+    let s = std::fs::read_to_string("/proc/self/stat").ok()?;
+    let rest = &s[s.rfind(')')? + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks: f64 = f.get(11)?.parse::<f64>().ok()? + f.get(12)?.parse::<f64>().ok()?;
+    Some(ticks / 100.0)
+}
+
+fn load_average() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|s| s.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_default()
+}
+
 fn main() {
+    println!("load average at start: {}", load_average());
     let dir = tempfile::tempdir().expect("temp dir");
     let (a, b) = (dir.path().join("a.jsonl"), dir.path().join("b.jsonl"));
+    let wcpu = cpu_seconds();
     let wa = write_trace(&a, false);
+    if let (Some(x), Some(y)) = (wcpu, cpu_seconds()) {
+        println!("write used {:.2} CPU s (user + system) for {FRAMES} records", y - x);
+    }
     let wb = write_trace(&b, true);
     let rate = FRAMES as f64 / wa.as_secs_f64();
     let size = std::fs::metadata(&a).map(|m| m.len()).unwrap_or(0);
@@ -105,6 +127,7 @@ fn main() {
     println!("  goal >= 200000 records/s: {}", if rate >= 200_000.0 { "met" } else { "MISSED" });
 
     let before = peak_rss_mib();
+    let cpu0 = cpu_seconds();
     let start = Instant::now();
     let masks = Masks::default();
     let (ka, kb) = key_files(&a, &b, &masks).expect("read both traces");
@@ -112,6 +135,9 @@ fn main() {
     let hunks = align(&ka.keys, &kb.keys);
     let total = start.elapsed();
     let peak = peak_rss_mib();
+    if let (Some(a), Some(b)) = (cpu0, cpu_seconds()) {
+        println!("  read + diff used {:.2} CPU s (two reader threads); load average now {}", b - a, load_average());
+    }
     println!(
         "read + diff: {} and {} frames, {} differences; read {:.3} s, align {:.3} s, total {:.3} s",
         ka.keys.len(),
