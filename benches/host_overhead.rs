@@ -37,7 +37,9 @@ fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     let script = dir.path().join("loop.lua");
     std::fs::write(
         &script,
-        format!("local d = bus.device(0x20)\nfor i = 1, {READS} do\n  if d:get(0x05) ~= 0x5A then error('bad') end\nend\n"),
+        format!(
+            "local d = bus.device(0x20)\nfor i = 1, {READS} do\n  if d:get(0x05) ~= 0x5A then error('bad') end\nend\n"
+        ),
     )
     .expect("write script");
     let log = std::fs::File::create(dir.path().join("frames.log")).expect("log file");

@@ -13,5 +13,7 @@ pub const INPUT: u8 = 2;
 pub const BUS_FAILURE: u8 = 3;
 /// The adapter or the link to it failed.
 pub const ADAPTER: u8 = 4;
+/// A replay or diff found differences from the recording.
+pub const DIVERGED: u8 = 5;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;

@@ -95,10 +95,10 @@ fn scan_lists_the_demo_board_and_skips_reserved() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let out = stdout(&o);
     assert!(out.starts_with("probed 112 addresses at 100 kHz"), "{out}");
-    for a in ["0x29", "0x3C", "0x44", "0x45", "0x50"] {
+    for a in ["0x0B", "0x29", "0x3C", "0x44", "0x45", "0x50"] {
         assert!(out.contains(&format!("  {a} ")), "{a} missing:\n{out}");
     }
-    assert!(out.contains("5 answered"), "{out}");
+    assert!(out.contains("6 answered"), "{out}");
     let o = run(&["scan", "--json", "--ten-bit", "--include-reserved", "--attempts", "5"]);
     let v: serde_json::Value = serde_json::from_str(stdout(&o).trim()).unwrap();
     assert_eq!(v["probed"], 128 + 1024);

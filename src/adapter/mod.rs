@@ -21,12 +21,12 @@
 use std::time::Duration;
 
 use anyhow::{Context, Result, bail};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
 /// What a driver can do.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Capabilities {
     /// Largest byte count of one operation.
     pub max_bytes_per_op: usize,
@@ -42,7 +42,7 @@ pub struct Capabilities {
 }
 
 /// Who the adapter is.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Identity {
     /// Driver kind: `simulated`, `native`, `dialect:NAME`.
     pub driver: String,

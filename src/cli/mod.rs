@@ -2,6 +2,7 @@
 
 mod run;
 mod scan;
+mod traces;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -35,6 +36,12 @@ pub enum Command {
     Pullup(buscue::electrical::cli::PullupArgs),
     /// Model the time a transaction shape takes on the wire.
     Bustime(buscue::electrical::cli::BusTimeArgs),
+    /// Play a trace against an adapter and compare every ACK and read byte.
+    Replay(traces::ReplayArgs),
+    /// Align two traces by content and show where they differ.
+    Diff(traces::DiffArgs),
+    /// Turn a trace into an editable Lua script.
+    ToScript(traces::ToScriptArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -127,6 +134,9 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Scan(a) => scan::scan(a),
         Command::Pullup(a) => buscue::electrical::cli::run(&a),
         Command::Bustime(a) => buscue::electrical::cli::run_bus_time(&a),
+        Command::Replay(a) => traces::replay(a),
+        Command::Diff(a) => traces::diff(a),
+        Command::ToScript(a) => traces::to_script(a),
     }
 }
 

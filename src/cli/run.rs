@@ -4,11 +4,13 @@ use std::io::Write;
 use std::path::PathBuf;
 use std::time::{Duration, Instant};
 
-use anyhow::Result;
+use anyhow::{Context, Result};
 use clap::Args;
 
 use buscue::exit;
 use buscue::script::{self, RunConfig, Session};
+use buscue::trace::file::default_path;
+use buscue::trace::{Header, TraceWriter};
 use buscue::view::format::summary;
 use buscue::view::json::JsonLines;
 use buscue::view::plain::PlainLog;
@@ -44,6 +46,12 @@ pub struct RunArgs {
     /// Print one JSON object per record on standard output instead of the frame log.
     #[arg(long)]
     pub json: bool,
+    /// Write the trace here instead of traces/<script>-<UTC time>.jsonl.
+    #[arg(long, value_name = "PATH", conflicts_with = "no_trace")]
+    pub trace: Option<PathBuf>,
+    /// Write no trace file.
+    #[arg(long)]
+    pub no_trace: bool,
 }
 
 pub fn run(a: RunArgs) -> Result<u8> {
@@ -54,6 +62,24 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let adapter = a.bus.open()?;
     let mut session = Session::new(adapter, interrupt.clone());
     session.allow_reserved = a.allow_reserved;
+    let params: std::collections::BTreeMap<String, String> = a.set.into_iter().collect();
+    // The trace sink goes first: a frame reaches the file before the
+    // screen, so nothing a person saw can be missing from the trace.
+    let trace_path = if a.no_trace {
+        None
+    } else {
+        let path = a.trace.clone().unwrap_or_else(|| default_path(&a.script, std::time::SystemTime::now()));
+        let text = std::fs::read(&a.script).with_context(|| format!("cannot read script {}", a.script.display()))?;
+        let header = Header::new("run", session.adapter_ref()).with_script(
+            &a.script.display().to_string(),
+            &text,
+            params.clone(),
+        );
+        let w = TraceWriter::create(&path, &header)
+            .with_context(|| format!("cannot create trace file {}", path.display()))?;
+        session.add_sink(Box::new(w));
+        Some(path)
+    };
     let colour = a.bus.colour.resolve();
     if a.json {
         session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
@@ -62,7 +88,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     }
     let cfg = RunConfig {
         script: a.script.clone(),
-        params: a.set.into_iter().collect(),
+        params,
         timeout: (a.timeout > Duration::ZERO).then_some(a.timeout),
         memory_limit: a.memory_limit as usize * 1024 * 1024,
         allow_io: a.allow_io,
@@ -83,6 +109,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     }
     if !a.json {
         let _ = writeln!(err, "{}", summary(&session.stats, host));
+    }
+    if let Some(p) = &trace_path {
+        let _ = writeln!(err, "trace: {}", p.display());
     }
     if let Some(msg) = error {
         let _ = writeln!(err, "error: {msg}");

@@ -105,13 +105,33 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
             let op = op.map_err(|_| {
                 bad(format!("transfer operation {} must be a table like {{write = {{...}}}} or {{read = N}}", i + 1))
             })?;
-            convert::check_keys(&op, &format!("transfer operation {}", i + 1), &["write", "read"])?;
+            let what = format!("transfer operation {}", i + 1);
+            convert::check_keys(&op, &what, &["write", "read", "read_counted", "trailer"])?;
             let w: Value = op.get("write")?;
             let r: Value = op.get("read")?;
-            ops.push(match (w.is_nil(), r.is_nil()) {
-                (false, true) => Operation::Write(convert::bytes(&w, &format!("operation {} write", i + 1))?),
-                (true, false) => Operation::Read(convert::count(&r, &format!("operation {} read count", i + 1))?),
-                _ => return Err(bad(format!("transfer operation {} needs exactly one of `write` or `read`", i + 1))),
+            let c: Value = op.get("read_counted")?;
+            ops.push(match (w.is_nil(), r.is_nil(), c.is_nil()) {
+                (false, true, true) => Operation::Write(convert::bytes(&w, &format!("operation {} write", i + 1))?),
+                (true, false, true) => Operation::Read(convert::count(&r, &format!("operation {} read count", i + 1))?),
+                // A read whose first byte (sent by the target) counts the
+                // data bytes that follow, as SMBus blocks do.
+                (true, true, false) => {
+                    let max = convert::integer(&c, &format!("{what} read_counted"))?;
+                    if !(0..=255).contains(&max) {
+                        return Err(bad(format!("{what}: read_counted must be 0-255, got {max}")));
+                    }
+                    let trailer = match op.get::<Value>("trailer")? {
+                        Value::Nil => 0,
+                        t => convert::integer(&t, &format!("{what} trailer"))?,
+                    };
+                    if !(0..=4).contains(&trailer) {
+                        return Err(bad(format!("{what}: trailer must be 0-4, got {trailer}")));
+                    }
+                    Operation::ReadCounted { max: max as usize, trailer: trailer as usize }
+                }
+                _ => {
+                    return Err(bad(format!("{what} needs exactly one of `write`, `read` or `read_counted`")));
+                }
             });
         }
         let out = transact(lua, &c, &Transaction::new(convert::address(&addr)?, ops.clone()), &o, None, None)?;

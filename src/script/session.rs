@@ -183,7 +183,6 @@ impl Session {
             )));
         }
         let policy = req.retry.unwrap_or(self.default_retry);
-        self.stats.transactions += 1;
         let mut attempt = 1;
         loop {
             if self.interrupted() {
@@ -193,7 +192,6 @@ impl Session {
             let outcome = self.adapter.execute(tx);
             let pec = pec(&outcome);
             self.seq += 1;
-            self.account(tx, &outcome, attempt > 1);
             let frame = Frame {
                 seq: self.seq,
                 t,
@@ -207,6 +205,7 @@ impl Session {
                 decoded: req.decoded.clone(),
                 pec,
             };
+            self.stats.add_frame(&frame);
             let record = Record::Frame(frame);
             self.emit(&record);
             let Record::Frame(Frame { outcome, .. }) = record else { unreachable!("built as a frame above") };
@@ -225,22 +224,6 @@ impl Session {
                         ops: tx.ops.clone(),
                     });
                 }
-            }
-        }
-    }
-
-    fn account(&mut self, tx: &Transaction, o: &Outcome, retry: bool) {
-        let s = &mut self.stats;
-        s.attempts += 1;
-        s.retries += retry as u64;
-        s.bus_time += o.bus_time;
-        if o.fault.as_ref().is_some_and(Fault::is_nack) {
-            s.nacks += 1;
-        }
-        for (op, oo) in tx.ops.iter().zip(&o.ops) {
-            match op {
-                Operation::Write(_) => s.bytes_written += oo.acks.len() as u64,
-                Operation::Read(_) | Operation::ReadCounted { .. } => s.bytes_read += oo.data.len() as u64,
             }
         }
     }

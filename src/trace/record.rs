@@ -88,6 +88,34 @@ pub struct Stats {
     pub bus_time: Duration,
 }
 
+impl Stats {
+    /// Counts one recorded frame: a first attempt is a transaction, a
+    /// later one a retry; written bytes are those ACKed or NACKed.
+    pub fn add_frame(&mut self, f: &Frame) {
+        self.attempts += 1;
+        if f.attempt <= 1 {
+            self.transactions += 1;
+        } else {
+            self.retries += 1;
+        }
+        if f.outcome.fault.as_ref().is_some_and(crate::bus::Fault::is_nack) {
+            self.nacks += 1;
+        }
+        for (op, oo) in f.ops.iter().zip(&f.outcome.ops) {
+            match op {
+                Operation::Write(_) => self.bytes_written += oo.acks.len() as u64,
+                Operation::Read(_) | Operation::ReadCounted { .. } => self.bytes_read += oo.data.len() as u64,
+            }
+        }
+        self.bus_time += f.outcome.bus_time;
+    }
+
+    /// NACKed attempts over all attempts, 0-1.
+    pub fn nack_rate(&self) -> f64 {
+        if self.attempts == 0 { 0.0 } else { self.nacks as f64 / self.attempts as f64 }
+    }
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "lowercase")]
 pub enum Record {

@@ -1,0 +1,273 @@
+//! `buscue replay`, `buscue diff` and `buscue to-script`: the commands
+//! around trace files (formats and rules in docs/traces.md).
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result};
+use clap::Args;
+
+use buscue::exit;
+use buscue::script::Session;
+use buscue::script::session::RunError;
+use buscue::trace::diff::{Hunk, Keyed, align, key_files};
+use buscue::trace::mask::{Mask, Masks};
+use buscue::trace::record::Stats;
+use buscue::trace::replay::{ReplayOptions, Stop, check_scale, replay as play};
+use buscue::trace::to_script::{ScriptOptions, to_script as convert};
+use buscue::trace::{Header, Record, Trace, TraceReader, TraceWriter};
+use buscue::view::format::{frame_line, human};
+use buscue::view::json::JsonLines;
+use buscue::view::plain::PlainLog;
+
+use super::{BusArgs, interrupt_flag};
+
+fn parse_mask(s: &str) -> Result<Mask, String> {
+    s.parse().map_err(|e: buscue::trace::mask::MaskError| e.to_string())
+}
+
+fn parse_scale(s: &str) -> Result<f64, String> {
+    check_scale(s.parse().map_err(|_| format!("`{s}` is not a number"))?)
+}
+
+/// Play a trace against an adapter: the same transactions in the same
+/// order with the recorded gaps, comparing every ACK/NACK and read byte.
+/// Exit code 5 when the board behaves differently.
+#[derive(Args, Debug)]
+pub struct ReplayArgs {
+    /// The trace to play.
+    pub trace: PathBuf,
+    #[command(flatten)]
+    pub bus: BusArgs,
+    /// Multiply the recorded gaps between frames by this (0.5 = twice as fast).
+    #[arg(long, default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
+    pub time_scale: f64,
+    /// Send the frames back to back, without the recorded gaps.
+    #[arg(long)]
+    pub no_delays: bool,
+    /// Go on after the first frame that diverges and report every divergence.
+    #[arg(long)]
+    pub no_stop: bool,
+    /// Ignore volatile read data: ADDRESS[,reg=REG][,bytes=A-B]; repeatable.
+    #[arg(long, value_name = "MASK", value_parser = parse_mask)]
+    pub mask: Vec<Mask>,
+    /// Show the replayed frames.
+    #[arg(long, conflicts_with = "json")]
+    pub frames: bool,
+    /// Print the replayed records and the divergences as JSON lines.
+    #[arg(long)]
+    pub json: bool,
+    /// Record the replay as a trace too.
+    #[arg(long, value_name = "PATH")]
+    pub trace_out: Option<PathBuf>,
+}
+
+pub fn replay(a: ReplayArgs) -> Result<u8> {
+    let mut reader = TraceReader::open(&a.trace)?;
+    let interrupt = interrupt_flag()?;
+    let mut adapter = a.bus.open()?;
+    if a.bus.speed.is_none() {
+        let hz = reader.header().speed_hz;
+        let speed = buscue::bus::BusSpeed::from_hz(hz as u64)
+            .with_context(|| format!("{}: header speed_hz {hz}", a.trace.display()))?;
+        adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
+    }
+    let mut session = Session::new(adapter, interrupt);
+    if let Some(path) = &a.trace_out {
+        let mut h = Header::new("replay", session.adapter_ref());
+        h.replay_of = Some(a.trace.display().to_string());
+        let w =
+            TraceWriter::create(path, &h).with_context(|| format!("cannot create trace file {}", path.display()))?;
+        session.add_sink(Box::new(w));
+    }
+    if a.json {
+        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
+    } else if a.frames {
+        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
+    }
+    let opts = ReplayOptions {
+        time_scale: (!a.no_delays).then_some(a.time_scale),
+        keep_going: a.no_stop,
+        masks: Masks(a.mask.clone()),
+    };
+    let report = play(&mut session, &mut reader, &opts);
+    let (code, error) = match &report.stopped {
+        Some(Stop::Trace(e)) => (exit::INPUT, Some(e.to_string())),
+        Some(Stop::Run(RunError::Interrupted)) => (exit::INTERRUPTED, Some("interrupted".to_string())),
+        Some(Stop::Run(RunError::Shape(e))) => (exit::INPUT, Some(format!("the adapter cannot send a frame: {e}"))),
+        Some(Stop::Run(e)) => (exit::ADAPTER, Some(e.to_string())),
+        None if report.divergences.is_empty() => (exit::OK, None),
+        None => (exit::DIVERGED, None),
+    };
+    let closed = session.finish(code, error.clone());
+    let mut err = std::io::stderr().lock();
+    for w in reader.warnings().iter().cloned().chain(session.take_warnings()) {
+        let _ = writeln!(err, "warning: {w}");
+    }
+    let mut out = std::io::stdout().lock();
+    for d in &report.divergences {
+        if a.json {
+            let v = serde_json::json!({
+                "kind": "divergence", "seq": d.seq, "replay_seq": d.replay_seq,
+                "address": d.address.to_string(), "aspect": format!("{:?}", d.aspect).to_lowercase(),
+                "op": d.op, "byte": d.byte, "expected": d.expected, "actual": d.actual,
+                "origin": d.origin.as_ref().map(|o| o.to_string()), "decoded": d.decoded,
+            });
+            let _ = writeln!(out, "{v}");
+        } else {
+            let _ = writeln!(out, "diverged: {d}");
+        }
+    }
+    let verdict = if report.divergences.is_empty() { "matches the recording" } else { "DIVERGES from the recording" };
+    let _ = writeln!(
+        err,
+        "replayed {} frame{} of {}: {verdict} ({} divergence{} in {} frame{}{}{})",
+        report.frames,
+        if report.frames == 1 { "" } else { "s" },
+        a.trace.display(),
+        report.divergences.len(),
+        if report.divergences.len() == 1 { "" } else { "s" },
+        report.diverged_frames,
+        if report.diverged_frames == 1 { "" } else { "s" },
+        if report.masked_bytes > 0 { format!(", {} hidden by masks", report.masked_bytes) } else { String::new() },
+        if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" },
+    );
+    if let Some(e) = error {
+        let _ = writeln!(err, "error: replay stopped: {e}");
+    }
+    if let Err(e) = closed {
+        let _ = writeln!(err, "error: closing the adapter: {e:#}");
+        return Ok(if code == exit::OK { exit::ADAPTER } else { code });
+    }
+    Ok(code)
+}
+
+/// Compare two traces frame by frame, aligned by content (an extra retry
+/// or poll is one difference, not a cascade), with per-address summaries.
+/// Exit code 5 when they differ.
+#[derive(Args, Debug)]
+pub struct DiffArgs {
+    /// The reference trace.
+    pub a: PathBuf,
+    /// The trace to compare with it.
+    pub b: PathBuf,
+    /// Ignore volatile read data: ADDRESS[,reg=REG][,bytes=A-B]; repeatable.
+    #[arg(long, value_name = "MASK", value_parser = parse_mask)]
+    pub mask: Vec<Mask>,
+    /// Show at most this many differences in full (all are counted).
+    #[arg(long, default_value_t = 20)]
+    pub show: usize,
+    /// Print only the summaries.
+    #[arg(long, short = 'q')]
+    pub quiet: bool,
+}
+
+fn frames_at(path: &Path, keyed: &Keyed, range: std::ops::Range<usize>) -> Result<Vec<String>> {
+    let mut r = TraceReader::open(path)?;
+    let mut out = Vec::new();
+    for i in range {
+        let (offset, line) = keyed.places[i];
+        if let Record::Frame(f) = r.record_at(offset, line)? {
+            out.push(frame_line(&f, false));
+        }
+    }
+    Ok(out)
+}
+
+fn summary_row(s: &Stats) -> String {
+    format!(
+        "{:>6} {:>8} {:>7.1}% {:>7} {:>8} {:>8} {:>11}",
+        s.transactions,
+        s.attempts,
+        s.nack_rate() * 100.0,
+        s.retries,
+        s.bytes_written,
+        s.bytes_read,
+        human(s.bus_time)
+    )
+}
+
+pub fn diff(a: DiffArgs) -> Result<u8> {
+    let masks = Masks(a.mask.clone());
+    let (ka, kb) = key_files(&a.a, &a.b, &masks)?;
+    let mut err = std::io::stderr().lock();
+    for w in ka.warnings.iter().chain(&kb.warnings) {
+        let _ = writeln!(err, "warning: {w}");
+    }
+    let hunks = align(&ka.keys, &kb.keys);
+    let mut out = std::io::stdout().lock();
+    writeln!(out, "A = {} ({} frames)", a.a.display(), ka.keys.len())?;
+    writeln!(out, "B = {} ({} frames)", a.b.display(), kb.keys.len())?;
+    if !a.quiet {
+        for (n, Hunk { a: ra, b: rb }) in hunks.iter().take(a.show).enumerate() {
+            writeln!(
+                out,
+                "\ndifference {}: {} frame{} of A at #{} vs {} frame{} of B at #{}",
+                n + 1,
+                ra.len(),
+                if ra.len() == 1 { "" } else { "s" },
+                ra.start + 1,
+                rb.len(),
+                if rb.len() == 1 { "" } else { "s" },
+                rb.start + 1
+            )?;
+            for l in frames_at(&a.a, &ka, ra.clone())? {
+                writeln!(out, "  A {l}")?;
+            }
+            for l in frames_at(&a.b, &kb, rb.clone())? {
+                writeln!(out, "  B {l}")?;
+            }
+        }
+        if hunks.len() > a.show {
+            writeln!(out, "\n... {} more differences (--show N to see them)", hunks.len() - a.show)?;
+        }
+    }
+    writeln!(out, "\naddress   trace  trans.  attempts   NACKs retries  written     read    bus time")?;
+    let addrs: std::collections::BTreeSet<_> = ka.summary.keys().chain(kb.summary.keys()).collect();
+    let none = Stats::default();
+    for addr in addrs {
+        let (sa, sb) = (ka.summary.get(addr).unwrap_or(&none), kb.summary.get(addr).unwrap_or(&none));
+        let mark = if sa == sb { ' ' } else { '*' };
+        writeln!(out, "{:<9} A     {}", addr.to_string(), summary_row(sa))?;
+        writeln!(out, "{:<8}{mark} B     {}", "", summary_row(sb))?;
+    }
+    let frames = ka.keys.len().max(kb.keys.len());
+    writeln!(
+        out,
+        "\n{}",
+        if hunks.is_empty() {
+            format!("same: {frames} frames match")
+        } else {
+            format!("{} difference{}", hunks.len(), if hunks.len() == 1 { "" } else { "s" })
+        }
+    )?;
+    Ok(if hunks.is_empty() { exit::OK } else { exit::DIVERGED })
+}
+
+/// Write a Lua script that makes the same transactions as a trace: one
+/// call per transaction, recorded reads as comments (or checks), recorded
+/// waits as sleeps, steps kept.
+#[derive(Args, Debug)]
+pub struct ToScriptArgs {
+    /// The trace to convert.
+    pub trace: PathBuf,
+    /// Write the script here instead of standard output.
+    #[arg(long, short = 'o', value_name = "FILE")]
+    pub output: Option<PathBuf>,
+    /// Turn recorded reads into check_eq calls, so the script fails where the board differs.
+    #[arg(long)]
+    pub checks: bool,
+}
+
+pub fn to_script(a: ToScriptArgs) -> Result<u8> {
+    let trace = Trace::load(&a.trace)?;
+    for w in &trace.warnings {
+        eprintln!("warning: {w}");
+    }
+    let text = convert(&trace, &ScriptOptions { checks: a.checks });
+    match &a.output {
+        Some(p) => std::fs::write(p, text).with_context(|| format!("cannot write {}", p.display()))?,
+        None => std::io::stdout().lock().write_all(text.as_bytes())?,
+    }
+    Ok(exit::OK)
+}

@@ -1,0 +1,393 @@
+//! Trace files: writing them as a run goes and reading them back.
+//!
+//! Contract (docs/traces.md):
+//! - A trace is UTF-8 text, one JSON object per line: the [`Header`] first,
+//!   then one [`Record`] per line in the order things happened.
+//! - [`TraceWriter`] hands each record to the operating system as one
+//!   whole line (`write` of the full line on an unbuffered file) before
+//!   the run moves on, so a crash, Ctrl-C, SIGKILL or unplugged adapter
+//!   loses nothing that completed; at most the last line is cut. It does
+//!   not `fsync` per record (that would cost milliseconds per frame); the
+//!   file is synced when the run ends.
+//! - [`TraceReader`] refuses a file whose header is missing, names another
+//!   format or an unknown major version; accepts newer minor versions
+//!   (unknown fields are ignored, unknown record kinds skipped with a
+//!   warning); tolerates a cut last line with a warning; and reports any
+//!   other unreadable line as an error naming its line number.
+
+use std::fs::File;
+use std::io::{self, BufRead, BufReader, Read, Seek, SeekFrom, Write};
+use std::path::{Path, PathBuf};
+
+use thiserror::Error;
+
+use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
+use super::{Record, Sink};
+
+/// Why a trace cannot be read.
+#[derive(Debug, Error)]
+pub enum TraceError {
+    #[error("{file}: {source}")]
+    Io { file: String, source: io::Error },
+    #[error("{file}: empty file, no trace header")]
+    Empty { file: String },
+    #[error("{file}:1: not a {FORMAT} file: {detail}")]
+    NotATrace { file: String, detail: String },
+    #[error(
+        "{file}:1: trace format version {version} is not supported: this build reads {VERSION_MAJOR}.x (written by {tool})"
+    )]
+    UnknownMajor { file: String, version: String, tool: String },
+    #[error("{file}:{line}: unreadable record: {detail}")]
+    Corrupt { file: String, line: u64, detail: String },
+}
+
+/// A sink that writes a trace file, one flushed line per record.
+pub struct TraceWriter {
+    file: File,
+    path: PathBuf,
+    line: Vec<u8>,
+}
+
+impl TraceWriter {
+    /// Creates (or truncates) `path`, making its folder if needed, and
+    /// writes the header line.
+    pub fn create(path: &Path, header: &Header) -> io::Result<Self> {
+        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+            std::fs::create_dir_all(dir)?;
+        }
+        let file = File::create(path)?;
+        let mut w = TraceWriter { file, path: path.to_path_buf(), line: Vec::with_capacity(512) };
+        w.write_line(header)?;
+        Ok(w)
+    }
+
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    fn write_line<T: serde::Serialize>(&mut self, value: &T) -> io::Result<()> {
+        self.line.clear();
+        serde_json::to_writer(&mut self.line, value)?;
+        self.line.push(b'\n');
+        // One write of the whole line: the OS has it when this returns.
+        self.file.write_all(&self.line)
+    }
+}
+
+impl Sink for TraceWriter {
+    fn record(&mut self, r: &Record) -> io::Result<()> {
+        self.write_line(r)
+    }
+
+    fn flush(&mut self) -> io::Result<()> {
+        self.file.sync_data()
+    }
+}
+
+/// Where `buscue run` writes a trace when not told:
+/// `traces/<script stem>-<UTC stamp>.jsonl` under the working folder, with
+/// `-2`, `-3`, ... added if two runs start in the same second.
+pub fn default_path(script: &Path, now: std::time::SystemTime) -> PathBuf {
+    let stem = script.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "run".into());
+    let base = format!("{stem}-{}", super::header::file_stamp(now));
+    let dir = Path::new("traces");
+    let mut path = dir.join(format!("{base}.jsonl"));
+    let mut n = 2;
+    while path.exists() {
+        path = dir.join(format!("{base}-{n}.jsonl"));
+        n += 1;
+    }
+    path
+}
+
+/// One record and where it was in the file.
+#[derive(Debug, Clone)]
+pub struct Located {
+    /// Line number, from 1 (the header is line 1).
+    pub line: u64,
+    /// Byte offset of the line's start, for [`TraceReader::record_at`].
+    pub offset: u64,
+    pub record: Record,
+}
+
+/// Reads a trace record by record, without holding the file in memory.
+pub struct TraceReader<R> {
+    input: R,
+    file: String,
+    header: Header,
+    line: u64,
+    offset: u64,
+    buf: Vec<u8>,
+    warnings: Vec<String>,
+    newer_minor: bool,
+}
+
+impl TraceReader<BufReader<File>> {
+    pub fn open(path: &Path) -> Result<Self, TraceError> {
+        let name = path.display().to_string();
+        let f = File::open(path).map_err(|source| TraceError::Io { file: name.clone(), source })?;
+        TraceReader::new(BufReader::with_capacity(1 << 16, f), &name)
+    }
+
+    /// The record whose line starts at `offset` (from [`Located::offset`]).
+    pub fn record_at(&mut self, offset: u64, line: u64) -> Result<Record, TraceError> {
+        let io_err = |source| TraceError::Io { file: self.file.clone(), source };
+        self.input.seek(SeekFrom::Start(offset)).map_err(io_err)?;
+        self.buf.clear();
+        let io_err = |source| TraceError::Io { file: self.file.clone(), source };
+        self.input.read_until(b'\n', &mut self.buf).map_err(io_err)?;
+        serde_json::from_slice(&self.buf).map_err(|e| TraceError::Corrupt {
+            file: self.file.clone(),
+            line,
+            detail: e.to_string(),
+        })
+    }
+}
+
+impl<R: BufRead> TraceReader<R> {
+    /// Reads and checks the header line.
+    pub fn new(mut input: R, file: &str) -> Result<Self, TraceError> {
+        let file = file.to_string();
+        let mut buf = Vec::new();
+        let n = input.read_until(b'\n', &mut buf).map_err(|source| TraceError::Io { file: file.clone(), source })?;
+        if n == 0 {
+            return Err(TraceError::Empty { file });
+        }
+        let not = |detail: String| TraceError::NotATrace { file: file.clone(), detail };
+        let value: serde_json::Value =
+            serde_json::from_slice(&buf).map_err(|e| not(format!("the first line is not JSON ({e})")))?;
+        let format = value.get("format").and_then(|v| v.as_str()).unwrap_or("");
+        if format != FORMAT {
+            return Err(not(format!("the header's format is `{format}`")));
+        }
+        let version = value.get("version").and_then(|v| v.as_str()).unwrap_or("").to_string();
+        let tool = value.get("tool").and_then(|v| v.as_str()).unwrap_or("an unknown tool").to_string();
+        let major = version.split('.').next().and_then(|m| m.parse::<u32>().ok());
+        if major != Some(VERSION_MAJOR) {
+            return Err(TraceError::UnknownMajor { file, version, tool });
+        }
+        let header: Header =
+            serde_json::from_value(value).map_err(|e| not(format!("the header has a bad field: {e}")))?;
+        let newer_minor = header.version_numbers().is_some_and(|(_, minor)| minor > VERSION_MINOR);
+        let mut warnings = Vec::new();
+        if newer_minor {
+            warnings.push(format!(
+                "{file}: written as format {} by {}; this build knows {VERSION_MAJOR}.{VERSION_MINOR} and ignores what it does not know",
+                header.version, header.tool
+            ));
+        }
+        Ok(TraceReader { input, file, header, line: 1, offset: n as u64, buf, warnings, newer_minor })
+    }
+
+    pub fn header(&self) -> &Header {
+        &self.header
+    }
+
+    pub fn file(&self) -> &str {
+        &self.file
+    }
+
+    /// Warnings so far: a cut last line, a newer minor version, skipped records.
+    pub fn warnings(&self) -> &[String] {
+        &self.warnings
+    }
+
+    /// The next record, or `None` at the end.
+    pub fn next_located(&mut self) -> Result<Option<Located>, TraceError> {
+        let next = self.next_with(|line| serde_json::from_slice::<Record>(line))?;
+        Ok(next.map(|(line, offset, record)| Located { line, offset, record }))
+    }
+
+    /// The next line parsed by `parse` as `(line number, offset, value)`,
+    /// under the same rules as [`Self::next_located`]: for readers that
+    /// need only part of each record and parse it faster.
+    pub fn next_with<T>(
+        &mut self,
+        mut parse: impl FnMut(&[u8]) -> Result<T, serde_json::Error>,
+    ) -> Result<Option<(u64, u64, T)>, TraceError> {
+        loop {
+            self.buf.clear();
+            let n = self
+                .input
+                .read_until(b'\n', &mut self.buf)
+                .map_err(|source| TraceError::Io { file: self.file.clone(), source })?;
+            if n == 0 {
+                return Ok(None);
+            }
+            self.line += 1;
+            let offset = self.offset;
+            self.offset += n as u64;
+            let complete = self.buf.last() == Some(&b'\n');
+            if self.buf.iter().all(u8::is_ascii_whitespace) {
+                continue;
+            }
+            match parse(&self.buf) {
+                Ok(value) => return Ok(Some((self.line, offset, value))),
+                Err(_) if !complete => {
+                    self.warnings.push(format!(
+                        "{}:{}: the last line is cut short (the recording stopped mid-write); ignored",
+                        self.file, self.line
+                    ));
+                    return Ok(None);
+                }
+                Err(e) => {
+                    if self.newer_minor && self.unknown_kind() {
+                        self.warnings.push(format!(
+                            "{}:{}: skipped a record of a kind this build does not know",
+                            self.file, self.line
+                        ));
+                        continue;
+                    }
+                    return Err(TraceError::Corrupt {
+                        file: self.file.clone(),
+                        line: self.line,
+                        detail: e.to_string(),
+                    });
+                }
+            }
+        }
+    }
+
+    /// Whether the line in the buffer is a well-formed object whose `kind`
+    /// this build does not know (a newer minor version may add kinds).
+    fn unknown_kind(&self) -> bool {
+        let Ok(v) = serde_json::from_slice::<serde_json::Value>(&self.buf) else { return false };
+        let kind = v.get("kind").and_then(|k| k.as_str()).unwrap_or("");
+        !["frame", "log", "step", "end"].contains(&kind)
+    }
+
+    pub fn next_record(&mut self) -> Result<Option<Record>, TraceError> {
+        Ok(self.next_located()?.map(|l| l.record))
+    }
+
+    /// Reads every remaining record.
+    pub fn read_all(&mut self) -> Result<Vec<Record>, TraceError> {
+        let mut v = Vec::new();
+        while let Some(r) = self.next_record()? {
+            v.push(r);
+        }
+        Ok(v)
+    }
+}
+
+/// A whole trace in memory: for small traces (conversion, tests).
+pub struct Trace {
+    pub header: Header,
+    pub records: Vec<Record>,
+    pub warnings: Vec<String>,
+}
+
+impl Trace {
+    pub fn load(path: &Path) -> Result<Trace, TraceError> {
+        let mut r = TraceReader::open(path)?;
+        Self::collect(&mut r)
+    }
+
+    pub fn from_reader<R: Read>(input: R, file: &str) -> Result<Trace, TraceError> {
+        let mut r = TraceReader::new(BufReader::new(input), file)?;
+        Self::collect(&mut r)
+    }
+
+    fn collect<R: BufRead>(r: &mut TraceReader<R>) -> Result<Trace, TraceError> {
+        let records = r.read_all()?;
+        Ok(Trace { header: r.header.clone(), records, warnings: r.warnings.clone() })
+    }
+
+    pub fn frames(&self) -> impl Iterator<Item = &super::Frame> {
+        self.records.iter().filter_map(|r| match r {
+            Record::Frame(f) => Some(f),
+            _ => None,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::adapter::{AdapterSpec, open};
+    use crate::trace::record::Level;
+    use std::time::Duration;
+
+    fn header() -> Header {
+        let a = open(&AdapterSpec::DemoBench, &Default::default()).unwrap();
+        Header::new("run", a.as_ref())
+    }
+
+    fn text(lines: &[String]) -> String {
+        lines.iter().map(|l| format!("{l}\n")).collect()
+    }
+
+    fn log(i: u64) -> String {
+        serde_json::to_string(&Record::Log {
+            t: Duration::from_nanos(i),
+            level: Level::Info,
+            text: format!("line {i}"),
+            origin: None,
+        })
+        .unwrap()
+    }
+
+    fn header_line(version: &str) -> String {
+        let mut h = header();
+        h.version = version.into();
+        serde_json::to_string(&h).unwrap()
+    }
+
+    #[test]
+    fn writer_output_reads_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("sub/t.jsonl");
+        let mut w = TraceWriter::create(&path, &header()).unwrap();
+        let r = Record::Step { t: Duration::from_millis(3), name: "configure".into(), origin: None };
+        w.record(&r).unwrap();
+        w.flush().unwrap();
+        let t = Trace::load(&path).unwrap();
+        assert_eq!(t.header, header_with_time(&t.header));
+        assert_eq!(t.records, vec![r]);
+        assert!(t.warnings.is_empty());
+    }
+
+    fn header_with_time(h: &Header) -> Header {
+        Header { started: h.started.clone(), ..header() }
+    }
+
+    #[test]
+    fn cut_last_line_is_a_warning() {
+        let mut s = text(&[header_line("1.0"), log(1), log(2)]);
+        s.push_str(&log(3)[..20]);
+        let t = Trace::from_reader(s.as_bytes(), "cut.jsonl").unwrap();
+        assert_eq!(t.records.len(), 2);
+        assert_eq!(t.warnings.len(), 1);
+        assert!(t.warnings[0].starts_with("cut.jsonl:4: the last line is cut short"), "{:?}", t.warnings);
+    }
+
+    #[test]
+    fn corrupt_middle_line_names_its_number() {
+        let s = text(&[header_line("1.0"), log(1), "{\"kind\":\"frame\",\"seq\":".into(), log(3)]);
+        let e = Trace::from_reader(s.as_bytes(), "bad.jsonl").err().unwrap();
+        assert!(matches!(e, TraceError::Corrupt { line: 3, .. }), "{e}");
+        assert!(e.to_string().starts_with("bad.jsonl:3: unreadable record"), "{e}");
+    }
+
+    #[test]
+    fn versions() {
+        let e = Trace::from_reader(text(&[header_line("2.0"), log(1)]).as_bytes(), "v2").err().unwrap();
+        assert!(matches!(e, TraceError::UnknownMajor { .. }), "{e}");
+        assert!(e.to_string().contains("version 2.0 is not supported"), "{e}");
+        let newer = text(&[header_line("1.4"), r#"{"kind":"marker","t_ns":5}"#.into(), log(1)]);
+        let t = Trace::from_reader(newer.as_bytes(), "v14").unwrap();
+        assert_eq!(t.records.len(), 1, "the unknown kind is skipped");
+        assert_eq!(t.warnings.len(), 2, "{:?}", t.warnings);
+        let same_minor = text(&[header_line("1.0"), r#"{"kind":"marker","t_ns":5}"#.into()]);
+        assert!(Trace::from_reader(same_minor.as_bytes(), "v10").is_err(), "1.0 has no such kind");
+    }
+
+    #[test]
+    fn refuses_other_files() {
+        assert!(matches!(Trace::from_reader(&b""[..], "e").err().unwrap(), TraceError::Empty { .. }));
+        let e = Trace::from_reader(&b"hello\n"[..], "h").err().unwrap();
+        assert!(matches!(e, TraceError::NotATrace { .. }), "{e}");
+        let e = Trace::from_reader(&b"{\"format\":\"other\",\"version\":\"1.0\"}\n"[..], "o").err().unwrap();
+        assert!(e.to_string().contains("format is `other`"), "{e}");
+    }
+}

@@ -1,0 +1,404 @@
+//! Trace files end to end: the format round trip, the reader's rules,
+//! replay, diff, script conversion and crash safety, through the built
+//! binary and the library.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output, Stdio};
+use std::time::Duration;
+
+use buscue::bus::{Address, Direction, Fault, OpOutcome, Operation, Outcome};
+use buscue::trace::record::Level;
+use buscue::trace::{Frame, Header, Origin, Record, Sink, Trace, TraceWriter};
+use proptest::prelude::*;
+
+fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+fn buscue(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_buscue")).args(args).current_dir(root()).output().expect("the binary runs")
+}
+
+fn text(o: &Output) -> (String, String) {
+    (String::from_utf8_lossy(&o.stdout).into_owned(), String::from_utf8_lossy(&o.stderr).into_owned())
+}
+
+/// Runs a script with a trace into `dir`; returns the trace path.
+fn record(dir: &Path, script: &str, extra: &[&str]) -> PathBuf {
+    let stem = Path::new(script).file_stem().unwrap().to_string_lossy().into_owned();
+    let path = dir.join(format!("{stem}.jsonl"));
+    let mut args = vec!["run", script, "--quiet", "--trace", path.to_str().unwrap()];
+    args.extend_from_slice(extra);
+    let o = buscue(&args);
+    assert_eq!(o.status.code(), Some(0), "{script}: {:?}", text(&o));
+    path
+}
+
+fn demo_header() -> Header {
+    let a = buscue::adapter::open(&buscue::adapter::AdapterSpec::DemoBench, &Default::default()).unwrap();
+    Header::new("run", a.as_ref())
+}
+
+// ---- format round trip ----
+
+fn address() -> impl Strategy<Value = Address> {
+    prop_oneof![(0u8..0x80).prop_map(Address::Seven), (0u16..0x400).prop_map(Address::Ten)]
+}
+
+fn fault() -> impl Strategy<Value = Option<Fault>> {
+    prop_oneof![
+        Just(None),
+        (0usize..3).prop_map(|op| Some(Fault::AddressNack { op, direction: Direction::Read })),
+        (0usize..3, 0usize..8).prop_map(|(op, index)| Some(Fault::DataNack { op, index })),
+        Just(Some(Fault::ArbitrationLost)),
+        (0u64..100_000).prop_map(|waited_us| Some(Fault::StretchTimeout { waited_us })),
+        ".{0,12}".prop_map(|detail| Some(Fault::Adapter { detail })),
+    ]
+}
+
+fn frame() -> impl Strategy<Value = Frame> {
+    let op = prop_oneof![
+        proptest::collection::vec(any::<u8>(), 0..6).prop_map(Operation::Write),
+        (1usize..6).prop_map(Operation::Read)
+    ];
+    let done = (proptest::collection::vec(any::<bool>(), 0..6), proptest::collection::vec(any::<u8>(), 0..6))
+        .prop_map(|(acks, data)| OpOutcome { acks, data });
+    (
+        (any::<u64>(), 0u64..1u64 << 50, address(), proptest::collection::vec(op, 1..4)),
+        (proptest::collection::vec(done, 0..4), 0u64..1 << 40, proptest::option::of(0u64..1 << 40), fault()),
+        (1u32..5, 1u32..9, proptest::option::of("[a-z-]{1,8}"), proptest::option::of(("\\PC{1,10}", 1u32..5000))),
+        proptest::option::of("[A-Z_.]{1,12}"),
+    )
+        .prop_map(
+            |((seq, t, address, ops), (outs, bus, measured, fault), (attempt, attempts, purpose, origin), decoded)| {
+                Frame {
+                    seq,
+                    t: Duration::from_nanos(t),
+                    address,
+                    ops,
+                    outcome: Outcome {
+                        ops: outs,
+                        bus_time: Duration::from_nanos(bus),
+                        measured: measured.map(Duration::from_nanos),
+                        fault,
+                    },
+                    attempt,
+                    attempts,
+                    purpose,
+                    origin: origin.map(|(file, line)| Origin { file, line }),
+                    decoded,
+                    pec: None,
+                }
+            },
+        )
+}
+
+fn record_strategy() -> impl Strategy<Value = Record> {
+    prop_oneof![
+        4 => frame().prop_map(Record::Frame),
+        1 => (0u64..1 << 50, any::<bool>(), "\\PC{0,30}").prop_map(|(t, w, text)| Record::Log {
+            t: Duration::from_nanos(t),
+            level: if w { Level::Warn } else { Level::Info },
+            text,
+            origin: None,
+        }),
+        1 => (0u64..1 << 50, "\\PC{0,16}").prop_map(|(t, name)| Record::Step {
+            t: Duration::from_nanos(t),
+            name,
+            origin: Some(Origin { file: "s.lua".into(), line: 3 }),
+        }),
+    ]
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(64))]
+    #[test]
+    fn random_records_written_and_read_back_are_equal(records in proptest::collection::vec(record_strategy(), 0..40)) {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("p.jsonl");
+        let mut w = TraceWriter::create(&path, &demo_header()).unwrap();
+        for r in &records {
+            w.record(r).unwrap();
+        }
+        w.flush().unwrap();
+        let back = Trace::load(&path).unwrap();
+        prop_assert!(back.warnings.is_empty());
+        prop_assert_eq!(back.records, records);
+    }
+}
+
+// ---- reader rules, through the commands ----
+
+#[test]
+fn cut_corrupt_and_unknown_major_through_the_cli() {
+    let dir = tempfile::tempdir().unwrap();
+    let t = record(dir.path(), "scripts/valve_expander.lua", &[]);
+    let full = std::fs::read_to_string(&t).unwrap();
+    let lines: Vec<&str> = full.lines().collect();
+
+    let cut = dir.path().join("cut.jsonl");
+    std::fs::write(&cut, &full[..full.len() - 25]).unwrap();
+    let o = buscue(&["to-script", cut.to_str().unwrap()]);
+    let (_, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(err.contains(&format!("cut.jsonl:{}: the last line is cut short", lines.len())), "{err}");
+
+    let bad = dir.path().join("bad.jsonl");
+    let mut v: Vec<String> = lines.iter().map(|s| s.to_string()).collect();
+    v[3] = v[3][..v[3].len() / 2].to_string();
+    std::fs::write(&bad, v.join("\n") + "\n").unwrap();
+    let o = buscue(&["replay", bad.to_str().unwrap()]);
+    let (_, err) = text(&o);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("bad.jsonl:4: unreadable record"), "{err}");
+
+    let v2 = dir.path().join("v2.jsonl");
+    std::fs::write(&v2, full.replacen("\"version\":\"1.0\"", "\"version\":\"2.3\"", 1)).unwrap();
+    let o = buscue(&["diff", v2.to_str().unwrap(), t.to_str().unwrap()]);
+    let (_, err) = text(&o);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(err.contains("trace format version 2.3 is not supported: this build reads 1.x"), "{err}");
+}
+
+#[test]
+fn run_writes_a_header_that_names_the_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let t = record(dir.path(), "scripts/climate_bringup.lua", &["--set", "samples=2"]);
+    let trace = Trace::load(&t).unwrap();
+    let h = &trace.header;
+    assert_eq!((h.format.as_str(), h.version.as_str(), h.source.as_str()), ("buscue-trace", "1.0", "run"));
+    assert_eq!(h.bench.as_deref(), Some("adapters/greenhouse.toml"));
+    assert_eq!(h.speed_hz, 100_000);
+    let script = h.script.as_ref().unwrap();
+    assert_eq!(script.path, "scripts/climate_bringup.lua");
+    let body = std::fs::read(root().join("scripts/climate_bringup.lua")).unwrap();
+    assert_eq!(script.sha256, buscue::trace::header::sha256_hex(&body));
+    assert_eq!(h.params.get("samples").map(String::as_str), Some("2"));
+    assert!(h.started.ends_with('Z') && h.started.len() == 24, "{}", h.started);
+    assert!(matches!(trace.records.last(), Some(Record::End { exit: 0, .. })));
+    let steps = trace.records.iter().filter(|r| matches!(r, Record::Step { .. })).count();
+    assert_eq!(steps, 5, "the script has five steps");
+}
+
+// ---- replay ----
+
+#[test]
+fn replay_against_the_demo_bench_matches() {
+    let dir = tempfile::tempdir().unwrap();
+    for s in ["scripts/climate_bringup.lua", "scripts/eeprom_calibration.lua", "scripts/vent_retry.lua"] {
+        let t = record(dir.path(), s, &[]);
+        let o = buscue(&["replay", t.to_str().unwrap()]);
+        let (_, err) = text(&o);
+        assert_eq!(o.status.code(), Some(0), "{s}: {err}");
+        assert!(err.contains("matches the recording (0 divergences"), "{err}");
+    }
+}
+
+#[test]
+fn replay_finds_a_changed_register_and_masks_hide_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let t = record(dir.path(), "scripts/vent_retry.lua", &[]);
+    // The copied bench differs in one reset value: the vent controller's ID.
+    let bench = std::fs::read_to_string(root().join("adapters/greenhouse.toml")).unwrap();
+    let changed = bench.replacen("reset = 0xA7", "reset = 0xA8", 1);
+    assert_ne!(bench, changed);
+    let copy = dir.path().join("changed.toml");
+    std::fs::write(&copy, changed).unwrap();
+    let adapter = format!("sim:{}", copy.display());
+
+    let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--no-stop"]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(5), "{out}{err}");
+    let divs: Vec<&str> = out.lines().filter(|l| l.starts_with("diverged:")).collect();
+    assert_eq!(
+        divs,
+        vec!["diverged: frame #1 (0x3C) op 1 byte 0: data expected 0xA7, got 0xA8  at scripts/vent_retry.lua:9"],
+        "{err}"
+    );
+
+    for mask in ["0x3C,reg=0x00", "0x3C,bytes=0"] {
+        let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", mask]);
+        let (out, err) = text(&o);
+        assert_eq!(o.status.code(), Some(0), "{mask}: {out}{err}");
+        assert!(err.contains("0 divergences in 0 frames, 1 hidden by masks"), "{mask}: {err}");
+    }
+    let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", "0x3C,reg=0x01"]);
+    assert_eq!(o.status.code(), Some(5), "a mask on another register hides nothing");
+}
+
+// ---- diff ----
+
+#[test]
+fn one_inserted_retry_is_one_difference() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = record(dir.path(), "scripts/climate_bringup.lua", &[]);
+    let trace = Trace::load(&a).unwrap();
+    // B: the same run with one extra NACKed attempt before its tenth frame.
+    let mut records = trace.records.clone();
+    let at = records.iter().enumerate().filter(|(_, r)| matches!(r, Record::Frame(_))).nth(9).unwrap().0;
+    let Record::Frame(f) = &records[at] else { unreachable!() };
+    let mut nack = f.clone();
+    nack.outcome = Outcome {
+        ops: vec![OpOutcome::default()],
+        bus_time: Duration::from_micros(105),
+        measured: None,
+        fault: Some(Fault::AddressNack { op: 0, direction: Direction::Write }),
+    };
+    let Record::Frame(f) = &mut records[at] else { unreachable!() };
+    f.attempt = 2;
+    records.insert(at, Record::Frame(nack));
+    let b = dir.path().join("b.jsonl");
+    let mut w = TraceWriter::create(&b, &trace.header).unwrap();
+    for r in &records {
+        w.record(r).unwrap();
+    }
+    drop(w);
+
+    let o = buscue(&["diff", a.to_str().unwrap(), b.to_str().unwrap()]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(5), "{err}");
+    assert!(out.contains("difference 1: 0 frames of A at #10 vs 1 frame of B at #10"), "{out}");
+    assert!(!out.contains("difference 2"), "{out}");
+    assert!(out.trim_end().ends_with("1 difference"), "{out}");
+    assert!(out.lines().any(|l| l.starts_with("  B ") && l.contains("addr-NACK")), "{out}");
+
+    let same = buscue(&["diff", a.to_str().unwrap(), a.to_str().unwrap()]);
+    assert_eq!(same.status.code(), Some(0));
+    assert!(text(&same).0.contains("same: 38 frames match"), "{}", text(&same).0);
+}
+
+#[test]
+fn diff_masks_sensor_readings() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = record(dir.path(), "scripts/climate_bringup.lua", &[]);
+    let b = dir.path().join("later.jsonl");
+    // A second run with a longer interval reads other sensor values.
+    let o = buscue(&[
+        "run",
+        "scripts/climate_bringup.lua",
+        "-q",
+        "--set",
+        "interval_ms=60000",
+        "--trace",
+        b.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(0));
+    let plain = buscue(&["diff", a.to_str().unwrap(), b.to_str().unwrap(), "-q"]);
+    assert_eq!(plain.status.code(), Some(5), "the readings moved");
+    let masked = buscue(&[
+        "diff",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        "-q",
+        "--mask",
+        "0x44,reg=TEMPERATURE",
+        "--mask",
+        "0x44,reg=HUMIDITY",
+        "--mask",
+        "0x45,reg=TEMPERATURE",
+    ]);
+    assert_eq!(masked.status.code(), Some(0), "{}", text(&masked).0);
+}
+
+// ---- trace -> script -> run -> trace ----
+
+/// What a frame did, without times, numbering or script lines.
+type Content = (Address, Vec<Operation>, Vec<OpOutcome>, Option<String>);
+
+fn content(t: &Trace) -> Vec<Content> {
+    t.frames()
+        .map(|f| (f.address, f.ops.clone(), f.outcome.ops.clone(), f.outcome.fault.as_ref().map(Fault::label)))
+        .collect()
+}
+
+#[test]
+fn trace_to_script_to_trace_is_equivalent() {
+    let dir = tempfile::tempdir().unwrap();
+    for s in [
+        "scripts/climate_bringup.lua",
+        "scripts/eeprom_calibration.lua",
+        "scripts/valve_expander.lua",
+        "scripts/vent_retry.lua",
+    ] {
+        let first = record(dir.path(), s, &[]);
+        for checks in [false, true] {
+            let lua = dir.path().join(format!("regen-{checks}.lua"));
+            let mut args = vec!["to-script", first.to_str().unwrap(), "-o", lua.to_str().unwrap()];
+            if checks {
+                args.push("--checks");
+            }
+            assert_eq!(buscue(&args).status.code(), Some(0));
+            let second = dir.path().join("second.jsonl");
+            let o = buscue(&["run", lua.to_str().unwrap(), "-q", "--trace", second.to_str().unwrap()]);
+            assert_eq!(o.status.code(), Some(0), "{s} (checks {checks}): {:?}", text(&o));
+            let (a, b) = (Trace::load(&first).unwrap(), Trace::load(&second).unwrap());
+            assert_eq!(content(&a), content(&b), "{s} (checks {checks})");
+            let steps = |t: &Trace| -> Vec<String> {
+                t.records
+                    .iter()
+                    .filter_map(|r| match r {
+                        Record::Step { name, .. } => Some(name.clone()),
+                        _ => None,
+                    })
+                    .collect()
+            };
+            assert_eq!(steps(&a), steps(&b));
+            let times = |t: &Trace| -> Vec<Duration> { t.frames().map(|f| f.t).collect() };
+            assert_eq!(times(&a), times(&b), "{s}: sleeps and retry delays reproduce the timing");
+        }
+    }
+}
+
+#[test]
+fn a_failing_run_converts_to_a_script_that_fails_the_same_way() {
+    let dir = tempfile::tempdir().unwrap();
+    let t = dir.path().join("fail.jsonl");
+    let o = buscue(&["run", "scripts/failures/missing_device.lua", "-q", "--trace", t.to_str().unwrap()]);
+    let code = o.status.code();
+    assert_ne!(code, Some(0));
+    let lua = dir.path().join("fail.lua");
+    assert_eq!(buscue(&["to-script", t.to_str().unwrap(), "-o", lua.to_str().unwrap()]).status.code(), Some(0));
+    let again = dir.path().join("again.jsonl");
+    let o = buscue(&["run", lua.to_str().unwrap(), "-q", "--trace", again.to_str().unwrap()]);
+    assert_eq!(o.status.code(), code, "{:?}", text(&o));
+    assert_eq!(content(&Trace::load(&t).unwrap()), content(&Trace::load(&again).unwrap()));
+}
+
+// ---- crash safety ----
+
+#[test]
+fn sigkill_mid_run_loses_no_completed_frame() {
+    let dir = tempfile::tempdir().unwrap();
+    let script = dir.path().join("forever.lua");
+    std::fs::write(&script, "for i = 1, 1000000 do\n  bus.write_read(0x29, { 0x00 }, 2)\n  sleep_ms(2)\nend\n")
+        .unwrap();
+    let trace = dir.path().join("killed.jsonl");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_buscue"))
+        .args(["run", script.to_str().unwrap(), "--realtime", "--trace", trace.to_str().unwrap()])
+        .current_dir(root())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    // Read frame lines from the log until a few dozen went by, then kill.
+    use std::io::BufRead;
+    let mut seen = 0u64;
+    let mut lines = std::io::BufReader::new(child.stdout.take().unwrap()).lines();
+    while seen < 40 {
+        match lines.next() {
+            Some(Ok(l)) if l.contains(" #") => seen += 1,
+            Some(Ok(_)) => {}
+            _ => break,
+        }
+    }
+    child.kill().unwrap(); // SIGKILL on Unix
+    let _ = child.wait();
+    assert_eq!(seen, 40, "the run printed frames before the kill");
+    let t = Trace::load(&trace).unwrap();
+    let seqs: Vec<u64> = t.frames().map(|f| f.seq).collect();
+    assert!(seqs.len() as u64 >= seen, "every frame shown on the log is in the trace: {} < {seen}", seqs.len());
+    assert_eq!(seqs, (1..=seqs.len() as u64).collect::<Vec<_>>(), "no frame is missing in between");
+    assert!(t.frames().all(|f| f.outcome.read_bytes() == [0x5A, 0x1C]), "every recorded frame is whole");
+    assert!(!t.records.iter().any(|r| matches!(r, Record::End { .. })), "the run never ended");
+    assert!(t.warnings.len() <= 1, "at most a cut last line: {:?}", t.warnings);
+}
