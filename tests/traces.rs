@@ -185,7 +185,12 @@ fn run_writes_a_header_that_names_the_run() {
 #[test]
 fn replay_against_the_demo_bench_matches() {
     let dir = tempfile::tempdir().unwrap();
-    for s in ["scripts/climate_bringup.lua", "scripts/eeprom_calibration.lua", "scripts/vent_retry.lua"] {
+    for s in [
+        "scripts/battery_telemetry.lua",
+        "scripts/climate_bringup.lua",
+        "scripts/eeprom_calibration.lua",
+        "scripts/vent_retry.lua",
+    ] {
         let t = record(dir.path(), s, &[]);
         let o = buscue(&["replay", t.to_str().unwrap()]);
         let (_, err) = text(&o);
@@ -315,6 +320,7 @@ fn content(t: &Trace) -> Vec<Content> {
 fn trace_to_script_to_trace_is_equivalent() {
     let dir = tempfile::tempdir().unwrap();
     for s in [
+        "scripts/battery_telemetry.lua",
         "scripts/climate_bringup.lua",
         "scripts/eeprom_calibration.lua",
         "scripts/valve_expander.lua",
