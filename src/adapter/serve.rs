@@ -116,7 +116,8 @@ impl Link for ServedLink {
 
 /// A protocol served on the port.
 pub trait Server {
-    /// Handles what is waiting in the link's inbox; answers through it.
+    /// Handles some of what is waiting in the link's inbox (at least one
+    /// byte); answers through the link. Called until the inbox is empty.
     fn poll(&mut self, link: &mut ServedLink) -> io::Result<()>;
     /// Frames (or lines) received so far, for the fault triggers.
     fn frames(&self) -> u64;
@@ -186,22 +187,17 @@ impl NativeServer {
 
 impl Server for NativeServer {
     fn poll(&mut self, link: &mut ServedLink) -> io::Result<()> {
-        // Byte by byte, so the fault triggers can act between any two.
-        while let Some(b) = link.inbox.pop_front() {
-            if b == 0 {
-                if self.in_frame {
-                    self.frames += 1;
-                }
-                self.in_frame = false;
-            } else {
-                self.in_frame = true;
+        // One byte per call, so the fault triggers can act between any two.
+        let Some(b) = link.inbox.pop_front() else { return Ok(()) };
+        if b == 0 {
+            if self.in_frame {
+                self.frames += 1;
             }
-            self.bridge.feed(b, link, &mut self.board)?;
-            if link.inbox.is_empty() {
-                break;
-            }
+            self.in_frame = false;
+        } else {
+            self.in_frame = true;
         }
-        Ok(())
+        self.bridge.feed(b, link, &mut self.board)
     }
 
     fn frames(&self) -> u64 {
