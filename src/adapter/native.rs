@@ -465,7 +465,8 @@ fn outcome_of(tx: &Transaction, rep: &TxReport, r: &mut Reader<'_>, speed: BusSp
         if i < stop {
             match op {
                 Operation::Write(b) => oo.acks = vec![true; b.len()],
-                Operation::Read(n) => oo.data = r.bytes(*n)?.to_vec(),
+                Operation::Read(n) if rep.has_data_of(i) => oo.data = r.bytes(*n)?.to_vec(),
+                Operation::Read(_) => {}
             }
         } else if rep.status == Status::DataNack && rep.index != UNKNOWN_INDEX {
             oo.acks = vec![true; rep.index as usize];

@@ -338,10 +338,11 @@ impl TxReport {
         })
     }
 
-    /// Whether the read data of operation `op` is in the reply: every read
-    /// before the stopping operation, and all of them on success.
+    /// Whether the read data of operation `op` is in the reply: all reads
+    /// on success; on failure every read before the stopping operation,
+    /// and none when that operation is not known.
     pub fn has_data_of(&self, op: usize) -> bool {
-        self.status == Status::Ok || op < self.op as usize
+        self.status == Status::Ok || (self.op != UNKNOWN_OP && op < self.op as usize)
     }
 }
 
