@@ -79,7 +79,8 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         writeln!(out, "{path}")?;
         out.flush()?;
     }
-    eprintln!("serving {} on {path} ({:?} protocol); Ctrl-C to stop", sim.identity().target, a.speak);
+    let speak = format!("{:?}", a.speak).to_lowercase();
+    eprintln!("serving {} on {path} ({speak} protocol); Ctrl-C to stop", sim.identity().target);
     let end = match a.speak {
         Speak::Native => serve_native(sim, master, Some(slave), &faults, &stop)?.0,
     };

@@ -13,7 +13,7 @@
 //! - Frames with a bad CRC or broken COBS are dropped silently; the
 //!   decoder resynchronises on the next delimiter.
 //! - No allocation: buffers are `FRAME` bytes each; RAM is about
-//!   `(WINDOW + 2) * FRAME` bytes.
+//!   `(WINDOW + 1) * FRAME` bytes plus a few hundred bytes of stack.
 //!
 //! What embedded-hal can report per byte: `I2c::transaction` returns only
 //! an error kind for the whole transaction, so through embedded-hal alone

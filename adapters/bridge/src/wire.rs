@@ -385,6 +385,35 @@ mod tests {
         assert_eq!(parse_frame(&frame[..5]), Err(FrameError::TooShort));
     }
 
+    // The worked examples of adapters/PROTOCOL.md ("A frame on the wire").
+    #[test]
+    fn protocol_document_examples() {
+        let mut wire = [0u8; 32];
+        let mut n = 0;
+        let mut emit = |p: &[u8]| {
+            wire[n..n + p.len()].copy_from_slice(p);
+            n += p.len();
+            Ok::<(), ()>(())
+        };
+        emit_frame(Header { version: 1, kind: kind::HELLO, seq: 0x0100, session: 0 }, &[], &mut emit).unwrap();
+        assert_eq!(&wire[..n], &[0x03, 0x01, 0x01, 0x02, 0x01, 0x01, 0x05, 0x81, 0x31, 0x3C, 0x46, 0x00]);
+        let mut wire = [0u8; 32];
+        let mut n = 0;
+        let body = [0x01, 0x29, 0x00, 0x02, 0x01, 0x00, 0x02, 0x02, 0x80];
+        let h = Header { version: 1, kind: kind::RUN, seq: 0x0101, session: 0x3C5A };
+        emit_frame(h, &body, |p: &[u8]| {
+            wire[n..n + p.len()].copy_from_slice(p);
+            n += p.len();
+            Ok::<(), ()>(())
+        })
+        .unwrap();
+        let want = [
+            0x09, 0x01, 0x02, 0x01, 0x01, 0x5A, 0x3C, 0x01, 0x29, 0x03, 0x02, 0x01, 0x08, 0x02, 0x02, 0x80, 0x17, 0xBE,
+            0x4B, 0x7C, 0x00,
+        ];
+        assert_eq!(&wire[..n], &want);
+    }
+
     #[test]
     fn caps_and_reports_roundtrip() {
         let c = Caps {
