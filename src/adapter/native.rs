@@ -395,7 +395,7 @@ impl NativeAdapter {
     /// Groups transactions into requests that fit the frame and batch
     /// limits; returns the groups as index ranges.
     fn pack(&self, txs: &[Transaction]) -> Result<Vec<std::ops::Range<usize>>, String> {
-        let room = (self.wire.max_frame as usize).min(super::link::MAX_FRAME) - HEADER_LEN - CRC_LEN;
+        let room = (self.wire.max_frame as usize).min(super::link::MAX_FRAME).saturating_sub(HEADER_LEN + CRC_LEN);
         let batch = self.batch();
         let mut groups = Vec::new();
         let (mut start, mut req, mut rep) = (0usize, 1usize, 8usize);
@@ -613,4 +613,51 @@ impl Adapter for NativeAdapter {
 /// adapter's description if so.
 pub fn probe(path: &str, settings: NativeSettings) -> Result<String, NativeError> {
     NativeAdapter::open(path, settings).map(|a| a.identity.description)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bus::Address;
+
+    fn tx() -> Transaction {
+        Transaction::new(
+            Address::Seven(0x50),
+            vec![Operation::Read(1), Operation::Write(vec![0x00, 0x10, 0xAA]), Operation::Read(2)],
+        )
+    }
+
+    // A precise data NACK at byte 2 of operation 1: the read before it
+    // completed, bytes 0-1 were ACKed, byte 2 NACKed, nothing after.
+    #[test]
+    fn precise_reports_rebuild_the_per_byte_outcome() {
+        let rep = TxReport { status: Status::DataNack, op: 1, index: 2, info: 0, bus_ns: 900, measured_ns: 5 };
+        let data = [0x42];
+        let o = outcome_of(&tx(), &rep, &mut Reader::new(&data), BusSpeed::STANDARD).unwrap();
+        assert_eq!(o.ops.len(), 2);
+        assert_eq!(o.ops[0].data, [0x42]);
+        assert_eq!(o.ops[1].acks, [true, true, false]);
+        assert_eq!(o.fault, Some(Fault::DataNack { op: 1, index: 2 }));
+        assert_eq!((o.bus_time, o.measured), (Duration::from_nanos(900), Some(Duration::from_nanos(5))));
+    }
+
+    // Through embedded-hal alone (op unknown) no read data comes back and
+    // the NACK is placed at the first write, byte 0, with no ACK list.
+    #[test]
+    fn imprecise_reports_are_placed_conservatively() {
+        let rep = TxReport {
+            status: Status::DataNack,
+            op: UNKNOWN_OP,
+            index: UNKNOWN_INDEX,
+            info: 0,
+            bus_ns: UNKNOWN_NS,
+            measured_ns: 0,
+        };
+        let o = outcome_of(&tx(), &rep, &mut Reader::new(&[]), BusSpeed::STANDARD).unwrap();
+        assert_eq!(o.fault, Some(Fault::DataNack { op: 1, index: 0 }));
+        assert!(o.ops.iter().all(|op| op.data.is_empty()) && o.ops[1].acks.is_empty());
+        assert_eq!(o.bus_time, transaction_time(&tx(), BusSpeed::STANDARD), "bus time modelled on the host");
+        let short = TxReport { status: Status::Ok, ..rep };
+        assert!(outcome_of(&tx(), &short, &mut Reader::new(&[1, 2]), BusSpeed::STANDARD).is_none(), "short data");
+    }
 }

@@ -267,3 +267,26 @@ proptest! {
         prop_assert_eq!(got.unwrap().unwrap(), &data[..]);
     }
 }
+
+/// A HAL with 7-bit addressing only.
+struct SevenOnlyHal(u32);
+
+impl i2c::ErrorType for SevenOnlyHal {
+    type Error = FakeError;
+}
+
+impl I2c<SevenBitAddress> for SevenOnlyHal {
+    fn transaction(&mut self, _address: u8, _ops: &mut [Operation<'_>]) -> Result<(), FakeError> {
+        self.0 += 1;
+        Ok(())
+    }
+}
+
+#[test]
+fn seven_bit_only_hals_refuse_ten_bit_transactions() {
+    let mut bus = buscue_bridge::SevenBitOnly(SevenOnlyHal(0));
+    I2c::<SevenBitAddress>::write(&mut bus, 0x29, &[1]).unwrap();
+    let e = I2c::<TenBitAddress>::write(&mut bus, 0x2A5, &[1]).unwrap_err();
+    assert_eq!(i2c::Error::kind(&e), ErrorKind::Other);
+    assert_eq!(bus.0.0, 1, "the 10-bit call never reached the HAL");
+}
