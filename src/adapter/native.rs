@@ -119,8 +119,9 @@ pub struct NativeStats {
     /// Request frames sent, repeats included.
     pub sends: u64,
     pub repeats: u64,
-    /// Waits for a reply that ended with at least one reply: round trips.
-    pub round_trips: u64,
+    /// Frames received from the adapter during exchanges (replies,
+    /// repeats of replies, notices).
+    pub received: u64,
 }
 
 pub struct NativeAdapter {
@@ -315,7 +316,7 @@ impl NativeAdapter {
                 }
                 continue;
             };
-            self.stats.round_trips += 1;
+            self.stats.received += 1;
             if h.kind == kind::BOOT {
                 return Err(NativeError::Reset { path: self.path(), why: "it announced a new boot" });
             }

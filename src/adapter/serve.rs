@@ -47,12 +47,6 @@ pub struct LinkFaults {
     pub seed: u64,
 }
 
-impl LinkFaults {
-    pub fn is_clean(&self) -> bool {
-        self.drop <= 0.0 && self.flip <= 0.0
-    }
-}
-
 /// Bytes in one direction after the faults.
 struct Mangler {
     drop: f64,
