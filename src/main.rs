@@ -13,7 +13,13 @@ fn main() -> ExitCode {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
             eprintln!("error: {e:#}");
-            ExitCode::from(buscue::exit::INPUT)
+            // An adapter that cannot be reached is the adapter/link code,
+            // not a usage error.
+            if e.downcast_ref::<buscue::adapter::native::NativeError>().is_some() {
+                ExitCode::from(buscue::exit::ADAPTER)
+            } else {
+                ExitCode::from(buscue::exit::INPUT)
+            }
         }
     }
 }

@@ -25,6 +25,13 @@ use serde::{Deserialize, Serialize};
 
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
+pub mod link;
+pub mod native;
+#[cfg(unix)]
+pub mod serve;
+
+pub use native::{NativeAdapter, NativeSettings};
+
 /// What a driver can do.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Capabilities {
@@ -98,6 +105,9 @@ pub enum AdapterSpec {
     DemoBench,
     /// `sim:PATH`: a bench file.
     Bench(std::path::PathBuf),
+    /// `serial:PATH[,key=value...]` or a bare `/dev/...` path: a serial
+    /// port speaking the native protocol (adapters/PROTOCOL.md).
+    Native { path: String, settings: NativeSettings },
 }
 
 impl AdapterSpec {
@@ -113,8 +123,34 @@ impl AdapterSpec {
             }
             return Ok(AdapterSpec::Bench(path.into()));
         }
-        bail!("`{t}` is not an adapter: use `sim` for the built-in bench or `sim:PATH` for a bench file")
+        if let Some(rest) = t.strip_prefix("serial:") {
+            return parse_native(rest);
+        }
+        if t.starts_with("/dev/") {
+            return parse_native(t);
+        }
+        bail!(
+            "`{t}` is not an adapter: use `sim` for the built-in bench, `sim:PATH` for a bench file, or \
+             `serial:PORT[,baud=N,...]` for a native serial adapter"
+        )
     }
+}
+
+/// `PATH[,key=value...]` of a native serial adapter.
+fn parse_native(text: &str) -> Result<AdapterSpec> {
+    let mut parts = text.split(',');
+    let path = parts.next().unwrap_or_default().trim();
+    if path.is_empty() {
+        bail!("`serial:` needs a port, as in serial:/dev/ttyUSB0 or serial:/dev/ttyUSB0,baud=921600");
+    }
+    let mut settings = NativeSettings::default();
+    for kv in parts {
+        let Some((k, v)) = kv.split_once('=') else {
+            bail!("`{kv}` in the serial adapter: write key=value, as in baud=921600");
+        };
+        settings.set(k, v)?;
+    }
+    Ok(AdapterSpec::Native { path: path.to_string(), settings })
 }
 
 /// Options that apply when opening any adapter.
@@ -126,6 +162,15 @@ pub struct OpenOptions {
 
 /// Opens the driver an [`AdapterSpec`] names.
 pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> {
+    if let AdapterSpec::Native { path, settings } = spec {
+        return Ok(Box::new(NativeAdapter::open(path, settings.clone())?));
+    }
+    Ok(Box::new(open_sim(spec, opts)?))
+}
+
+/// Opens a simulated bench (`sim`, `sim:PATH`) as its concrete type, for
+/// callers that need the board side (serving it on a port, tests).
+pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<crate::sim::SimAdapter> {
     use crate::sim::{Bench, SimAdapter};
     let bench = match spec {
         AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
@@ -134,8 +179,9 @@ pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> 
                 std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
             Bench::from_str(&text, &path.display().to_string())?
         }
+        AdapterSpec::Native { path, .. } => bail!("{path} is a serial port, not a simulated bench"),
     };
-    Ok(Box::new(SimAdapter::new(bench, opts.realtime)))
+    Ok(SimAdapter::new(bench, opts.realtime))
 }
 
 #[cfg(test)]
@@ -148,5 +194,19 @@ mod tests {
         assert_eq!(AdapterSpec::parse("sim:x.toml").unwrap(), AdapterSpec::Bench("x.toml".into()));
         assert!(AdapterSpec::parse("sim:").is_err());
         assert!(AdapterSpec::parse("carrier-pigeon").is_err());
+        let AdapterSpec::Native { path, settings } =
+            AdapterSpec::parse("serial:/dev/ttyX9,baud=921600,window=4,timeout_ms=20").unwrap()
+        else {
+            panic!("a serial spec")
+        };
+        assert_eq!((path.as_str(), settings.baud, settings.window), ("/dev/ttyX9", 921_600, Some(4)));
+        assert_eq!(settings.timeout, Duration::from_millis(20));
+        assert!(matches!(AdapterSpec::parse("/dev/ttyACM0").unwrap(), AdapterSpec::Native { .. }));
+        let e = AdapterSpec::parse("serial:/dev/ttyX9,speed=9").unwrap_err().to_string();
+        assert!(e.contains("`speed` is not a serial setting"), "{e}");
+        let e = AdapterSpec::parse("serial:/dev/ttyX9,window=0").unwrap_err().to_string();
+        assert!(e.contains("window must be 1 to 255"), "{e}");
+        assert!(AdapterSpec::parse("serial:").is_err());
+        assert!(AdapterSpec::parse("serial:/dev/x,baud").is_err());
     }
 }

@@ -1,7 +1,10 @@
 //! Subcommands and their shared options.
 
+mod ports;
 mod run;
 mod scan;
+#[cfg(unix)]
+mod serve;
 mod traces;
 
 use std::sync::Arc;
@@ -42,13 +45,19 @@ pub enum Command {
     Diff(traces::DiffArgs),
     /// Turn a trace into an editable Lua script.
     ToScript(traces::ToScriptArgs),
+    /// Serve a simulated bench as a serial adapter on a pseudo-terminal.
+    #[cfg(unix)]
+    Serve(serve::ServeArgs),
+    /// List serial ports; --probe finds native adapters among them.
+    Ports(ports::PortsArgs),
 }
 
 /// Options every bus-facing command takes.
 #[derive(Args, Debug, Clone)]
 pub struct BusArgs {
-    /// Adapter: `sim` (the built-in greenhouse bench, the default) or
-    /// `sim:PATH` for another bench file.
+    /// Adapter: `sim` (the built-in greenhouse bench, the default),
+    /// `sim:PATH` for another bench file, or `serial:PORT[,baud=N,...]`
+    /// (or a bare /dev/ path) for a native serial adapter.
     #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
     pub adapter: AdapterSpec,
     /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
@@ -137,6 +146,9 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Replay(a) => traces::replay(a),
         Command::Diff(a) => traces::diff(a),
         Command::ToScript(a) => traces::to_script(a),
+        #[cfg(unix)]
+        Command::Serve(a) => serve::serve(a),
+        Command::Ports(a) => ports::ports(a),
     }
 }
 

@@ -229,6 +229,8 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         let d = DeviceHandle::new(c.clone(), convert::address(&addr)?, opts, default_retry(&c))?;
         lua.create_userdata(d)
     })?;
+    let c = ctx.clone();
+    add(lua, &bus, "batch", move |lua, block: mlua::Function| super::batch::batch(lua, &c, block))?;
     g.set("bus", bus)?;
 
     super::smbus_api::install(lua, &g, ctx.clone())?;

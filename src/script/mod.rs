@@ -14,6 +14,7 @@
 //!   of the script's own frames comes with it.
 
 pub mod api;
+pub mod batch;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;

@@ -6,6 +6,7 @@
 //! real time (see [`clock`]).
 
 pub mod bench;
+pub mod board;
 pub mod bus;
 pub mod climate;
 pub mod clock;

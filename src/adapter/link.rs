@@ -1,0 +1,149 @@
+//! The host end of a serial link that carries native-protocol frames:
+//! opening the port, sending frames, receiving them with a deadline.
+//!
+//! Contract:
+//! - Frames go out COBS-encoded with a trailing delimiter (the codec is
+//!   `buscue_bridge::wire`, the same code the adapter runs).
+//! - [`SerialLink::recv`] returns the next frame with a good CRC, or
+//!   `None` at the deadline; bytes that do not form a good frame are
+//!   counted and skipped, and decoding resynchronises on the next
+//!   delimiter.
+//! - A port that stops working (hang-up, EIO/ENXIO, unplug, end of file)
+//!   is [`LinkError::Gone`]; the link never retries that on its own.
+
+use std::io::{self, Read, Write};
+use std::time::{Duration, Instant};
+
+use buscue_bridge::cobs::Decoder;
+use buscue_bridge::wire::{self, Header};
+use thiserror::Error;
+
+/// Largest frame the host accepts (the adapter advertises its own limit,
+/// which is never above this in protocol version 1).
+pub const MAX_FRAME: usize = 4096;
+
+#[derive(Debug, Error)]
+pub enum LinkError {
+    #[error("cannot open serial port {path}: {source}")]
+    Open {
+        path: String,
+        #[source]
+        source: serialport::Error,
+    },
+    #[error("serial port {path} stopped working ({detail}): the adapter was unplugged or closed the port")]
+    Gone { path: String, detail: String },
+}
+
+/// Link-level counters.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct LinkStats {
+    pub frames_sent: u64,
+    pub frames_received: u64,
+    /// Received frames dropped for a bad CRC, broken COBS or size.
+    pub frames_dropped: u64,
+}
+
+pub struct SerialLink {
+    port: Box<dyn serialport::SerialPort>,
+    path: String,
+    decoder: Box<Decoder<MAX_FRAME>>,
+    inbox: Vec<u8>,
+    inbox_pos: usize,
+    out: Vec<u8>,
+    pub stats: LinkStats,
+}
+
+impl SerialLink {
+    /// Opens `path` at `baud`, 8 data bits, no parity, one stop bit, no
+    /// flow control, and discards whatever was waiting in its buffers.
+    pub fn open(path: &str, baud: u32) -> Result<Self, LinkError> {
+        let port = serialport::new(path, baud)
+            .data_bits(serialport::DataBits::Eight)
+            .parity(serialport::Parity::None)
+            .stop_bits(serialport::StopBits::One)
+            .flow_control(serialport::FlowControl::None)
+            .timeout(Duration::from_millis(10))
+            .open()
+            .map_err(|source| LinkError::Open { path: path.to_string(), source })?;
+        let _ = port.clear(serialport::ClearBuffer::All);
+        Ok(SerialLink {
+            port,
+            path: path.to_string(),
+            decoder: Box::new(Decoder::new()),
+            inbox: vec![0; 4096],
+            inbox_pos: 0,
+            out: Vec::with_capacity(MAX_FRAME + 32),
+            stats: LinkStats::default(),
+        })
+    }
+
+    pub fn path(&self) -> &str {
+        &self.path
+    }
+
+    fn gone(&self, detail: impl ToString) -> LinkError {
+        LinkError::Gone { path: self.path.clone(), detail: detail.to_string() }
+    }
+
+    /// Sends one frame.
+    pub fn send(&mut self, h: Header, body: &[u8]) -> Result<(), LinkError> {
+        // A delimiter before the frame makes the adapter drop any garbage
+        // that arrived since the last one (common practice on COBS links).
+        self.out.clear();
+        self.out.push(0);
+        let out = &mut self.out;
+        let Ok(()) = wire::emit_frame(h, body, |p: &[u8]| {
+            out.extend_from_slice(p);
+            Ok::<(), std::convert::Infallible>(())
+        });
+        let r = self.port.write_all(&self.out).and_then(|_| self.port.flush());
+        match r {
+            Ok(()) => {
+                self.stats.frames_sent += 1;
+                Ok(())
+            }
+            Err(e) if e.kind() == io::ErrorKind::TimedOut => Err(self.gone(format!("a write did not complete: {e}"))),
+            Err(e) => Err(self.gone(e)),
+        }
+    }
+
+    /// The next good frame, or `None` if none arrives before `deadline`.
+    pub fn recv(&mut self, deadline: Instant) -> Result<Option<(Header, Vec<u8>)>, LinkError> {
+        loop {
+            while self.inbox_pos < self.inbox.len() {
+                let b = self.inbox[self.inbox_pos];
+                self.inbox_pos += 1;
+                match self.decoder.push(b) {
+                    None => {}
+                    Some(Err(_)) => self.stats.frames_dropped += 1,
+                    Some(Ok(frame)) => match wire::parse_frame(frame) {
+                        Ok((h, body)) => {
+                            self.stats.frames_received += 1;
+                            return Ok(Some((h, body.to_vec())));
+                        }
+                        Err(_) => self.stats.frames_dropped += 1,
+                    },
+                }
+            }
+            let now = Instant::now();
+            if now >= deadline {
+                return Ok(None);
+            }
+            let wait = (deadline - now).max(Duration::from_millis(1));
+            self.port.set_timeout(wait).map_err(|e| self.gone(e))?;
+            self.inbox.resize(4096, 0);
+            match self.port.read(&mut self.inbox) {
+                Ok(0) => return Err(self.gone("end of file")),
+                Ok(n) => {
+                    self.inbox.truncate(n);
+                    self.inbox_pos = 0;
+                }
+                Err(e) if matches!(e.kind(), io::ErrorKind::TimedOut | io::ErrorKind::Interrupted) => {
+                    self.inbox.clear();
+                    self.inbox_pos = 0;
+                }
+                Err(e) => return Err(self.gone(e)),
+            }
+        }
+    }
+}

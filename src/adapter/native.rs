@@ -1,0 +1,673 @@
+//! The native-protocol driver: an [`Adapter`] that talks to any device
+//! speaking `adapters/PROTOCOL.md` over a serial port.
+//!
+//! Contract:
+//! - Opening does the handshake (`HELLO`) and adopts the adapter's
+//!   capabilities, clamped by the user's [`NativeSettings`].
+//! - Requests are numbered; up to the window are in flight at once, and
+//!   the adapter runs them in number order exactly once. A lost request
+//!   or reply is sent again with the same number: at once when a later
+//!   reply or a `GAP` notice shows it is missing, else after the reply
+//!   timeout. The adapter answers a repeat from its reply cache without
+//!   touching the bus.
+//! - [`Adapter::execute_batch`] packs independent transactions into
+//!   requests (up to `batch` per request and the frame size) and pipelines
+//!   the requests.
+//! - Time is the adapter's: [`Adapter::now`] is the adapter clock as of its
+//!   last reply, and [`Adapter::delay`] asks the adapter to wait, so a
+//!   served simulated bench keeps its virtual time.
+//! - Any link failure (no reply after the allowed tries, wrong protocol
+//!   version, adapter reset, port gone) is final: the outcome carries
+//!   [`Fault::Adapter`] and every later call fails the same way.
+
+use std::time::{Duration, Instant};
+
+use anyhow::{Result, bail};
+use buscue_bridge::wire::{
+    CRC_LEN, Caps, HEADER_LEN, Header, READ_FLAG, Reader, Status, TEN_BIT_FLAG, TX_REPORT_LEN, TxReport, UNKNOWN_INDEX,
+    UNKNOWN_NS, UNKNOWN_OP, VERSION, Writer, flag, kind, refusal,
+};
+use thiserror::Error;
+
+use super::link::{LinkError, LinkStats, SerialLink};
+use super::{Adapter, Capabilities, Identity, LineLevels, Recovery};
+use crate::bus::timing::transaction_time;
+use crate::bus::{BusSpeed, Direction, Fault, LineFault, OpOutcome, Operation, Outcome, Transaction};
+
+/// User settings of a native serial adapter (`serial:PATH,key=value`).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct NativeSettings {
+    pub baud: u32,
+    /// Most requests in flight; `None`: the adapter's window.
+    pub window: Option<u8>,
+    /// Most transactions per request; `None`: the adapter's limit.
+    pub batch: Option<u8>,
+    /// How long to wait for a reply before sending a request again.
+    pub timeout: Duration,
+    /// Sends of one request before the adapter counts as not answering.
+    pub tries: u32,
+}
+
+impl Default for NativeSettings {
+    fn default() -> Self {
+        NativeSettings { baud: 115_200, window: None, batch: None, timeout: Duration::from_millis(100), tries: 20 }
+    }
+}
+
+impl NativeSettings {
+    /// Applies one `key=value` of the adapter spec.
+    pub fn set(&mut self, key: &str, value: &str) -> Result<()> {
+        let num = |max: u64| -> Result<u64> {
+            let v: u64 =
+                value.trim().parse().map_err(|_| anyhow::anyhow!("`{key}={value}`: {key} must be a number"))?;
+            if v == 0 || v > max {
+                bail!("`{key}={value}`: {key} must be 1 to {max}");
+            }
+            Ok(v)
+        };
+        match key.trim() {
+            "baud" => self.baud = num(20_000_000)? as u32,
+            "window" => self.window = Some(num(255)? as u8),
+            "batch" => self.batch = Some(num(255)? as u8),
+            "timeout_ms" => self.timeout = Duration::from_millis(num(60_000)?),
+            "tries" => self.tries = num(1000)? as u32,
+            other => bail!("`{other}` is not a serial setting: use baud, window, batch, timeout_ms or tries"),
+        }
+        Ok(())
+    }
+}
+
+/// Why the link to the adapter is unusable.
+#[derive(Debug, Clone, Error)]
+pub enum NativeError {
+    #[error("{0}")]
+    Link(String),
+    #[error("no reply from the adapter on {path} after {tries} tries ({waited_ms} ms)")]
+    NoReply { path: String, tries: u32, waited_ms: u128 },
+    #[error("the adapter on {path} speaks native protocol version {theirs}; this buscue speaks version {VERSION}")]
+    Version { path: String, theirs: u8 },
+    #[error("the adapter on {path} was reset mid-run ({why}); the bus state is unknown")]
+    Reset { path: String, why: &'static str },
+    #[error("the adapter on {path} refused request kind 0x{kind:02X} (code {code}): {}", refusal_text(*code))]
+    Refused { path: String, kind: u8, code: u8 },
+    #[error("the adapter on {path} sent a malformed reply to request kind 0x{kind:02X}")]
+    Malformed { path: String, kind: u8 },
+}
+
+fn refusal_text(code: u8) -> &'static str {
+    match code {
+        refusal::VERSION => "wrong protocol version",
+        refusal::SESSION => "unknown session",
+        refusal::MALFORMED => "malformed request",
+        refusal::TOO_LARGE => "request too large",
+        refusal::UNKNOWN_KIND => "unknown request kind",
+        _ => "unknown reason",
+    }
+}
+
+impl From<LinkError> for NativeError {
+    fn from(e: LinkError) -> Self {
+        NativeError::Link(e.to_string())
+    }
+}
+
+/// Protocol-level counters, for the benchmark and diagnostics.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct NativeStats {
+    /// Distinct requests (each executed once by the adapter).
+    pub requests: u64,
+    /// Request frames sent, repeats included.
+    pub sends: u64,
+    pub repeats: u64,
+    /// Frames received from the adapter during exchanges (replies,
+    /// repeats of replies, notices).
+    pub received: u64,
+}
+
+pub struct NativeAdapter {
+    link: SerialLink,
+    settings: NativeSettings,
+    wire: Caps,
+    caps: Capabilities,
+    identity: Identity,
+    session: u16,
+    next_seq: u16,
+    clock: Duration,
+    speed: BusSpeed,
+    failed: Option<NativeError>,
+    pub stats: NativeStats,
+}
+
+/// One request of a pipelined exchange.
+struct Pending {
+    kind: u8,
+    body: Vec<u8>,
+    /// Extra time the adapter needs (a DELAY).
+    extra: Duration,
+    reply: Option<(u8, Vec<u8>)>,
+    sent_at: Instant,
+    /// Order of this request's last send among all sends of the exchange.
+    send_no: u64,
+    tries: u32,
+    first_sent: Option<Instant>,
+}
+
+impl NativeAdapter {
+    /// Opens the port and does the handshake.
+    pub fn open(path: &str, settings: NativeSettings) -> Result<Self, NativeError> {
+        let mut link = SerialLink::open(path, settings.baud)?;
+        // A start number that differs between runs, so replies from an
+        // earlier host session cannot be mistaken for ours.
+        let seq0 = (std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.subsec_nanos())
+            & 0x7FFF) as u16;
+        let hello = Header { version: VERSION, kind: kind::HELLO, seq: seq0, session: 0 };
+        let tries = 3;
+        let mut answer = None;
+        'outer: for _ in 0..tries {
+            link.send(hello, &[])?;
+            let deadline = Instant::now() + settings.timeout.max(Duration::from_millis(300));
+            while let Some((h, body)) = link.recv(deadline)? {
+                if h.kind == kind::REFUSED && body.first() == Some(&refusal::VERSION) {
+                    let theirs = body.get(1).copied().unwrap_or(h.version);
+                    return Err(NativeError::Version { path: path.into(), theirs });
+                }
+                if h.kind == (kind::HELLO | kind::REPLY) && h.seq == seq0 {
+                    if h.version != VERSION {
+                        return Err(NativeError::Version { path: path.into(), theirs: h.version });
+                    }
+                    answer = Some((h, body));
+                    break 'outer;
+                }
+            }
+        }
+        let Some((h, body)) = answer else {
+            return Err(NativeError::Link(format!(
+                "no answer to the native handshake on {path}: is a buscue native adapter there, at {} baud?",
+                settings.baud
+            )));
+        };
+        let mut r = Reader::new(&body);
+        let (Some(t), Some(wire)) = (r.u64(), Caps::read(&mut r)) else {
+            return Err(NativeError::Malformed { path: path.into(), kind: kind::HELLO });
+        };
+        let frame_room = (wire.max_frame as usize).min(super::link::MAX_FRAME).saturating_sub(HEADER_LEN + CRC_LEN);
+        // One single-operation transaction must fit a request and a reply.
+        let per_op = frame_room.saturating_sub(8 + TX_REPORT_LEN + 1 + 3 + 2);
+        let caps = Capabilities {
+            max_bytes_per_op: (wire.max_bytes_per_op as usize).min(per_op).min(READ_FLAG as usize - 1),
+            ten_bit: wire.has(flag::TEN_BIT),
+            min_speed_hz: wire.min_speed_hz,
+            max_speed_hz: wire.max_speed_hz,
+            stretch_timeout_us: wire.stretch_timeout_us as u64,
+            line_readback: wire.has(flag::LINE_READBACK),
+            recovery: wire.has(flag::RECOVERY),
+        };
+        let identity = Identity {
+            driver: "native".into(),
+            target: path.into(),
+            description: format!(
+                "native protocol v{VERSION}, session {:04X}, window {}, frames up to {} bytes{}",
+                h.session,
+                wire.window,
+                wire.max_frame,
+                if wire.has(flag::PRECISE) { ", per-byte results" } else { "" }
+            ),
+        };
+        let speed = BusSpeed::from_hz(wire.speed_hz as u64).unwrap_or(BusSpeed::STANDARD);
+        Ok(NativeAdapter {
+            link,
+            settings,
+            wire,
+            caps,
+            identity,
+            session: h.session,
+            next_seq: seq0.wrapping_add(1),
+            clock: Duration::from_nanos(t),
+            speed,
+            failed: None,
+            stats: NativeStats::default(),
+        })
+    }
+
+    pub fn link_stats(&self) -> LinkStats {
+        self.link.stats
+    }
+
+    fn window(&self) -> usize {
+        self.settings.window.map_or(self.wire.window, |w| w.min(self.wire.window)).max(1) as usize
+    }
+
+    fn batch(&self) -> usize {
+        self.settings.batch.map_or(self.wire.max_tx_per_request, |b| b.min(self.wire.max_tx_per_request)).max(1)
+            as usize
+    }
+
+    fn path(&self) -> String {
+        self.link.path().to_string()
+    }
+
+    fn send(&mut self, p: &mut Pending, seq: u16, send_no: &mut u64) -> Result<(), NativeError> {
+        let h = Header { version: VERSION, kind: p.kind, seq, session: self.session };
+        self.link.send(h, &p.body)?;
+        let now = Instant::now();
+        p.sent_at = now;
+        p.first_sent.get_or_insert(now);
+        p.tries += 1;
+        *send_no += 1;
+        p.send_no = *send_no;
+        self.stats.sends += 1;
+        if p.tries > 1 {
+            self.stats.repeats += 1;
+        }
+        Ok(())
+    }
+
+    /// Sends requests pipelined and collects their replies in order.
+    fn exchange(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+        if let Some(e) = &self.failed {
+            return Err(e.clone());
+        }
+        let r = self.exchange_inner(reqs);
+        if let Err(e) = &r {
+            self.failed = Some(e.clone());
+        }
+        r
+    }
+
+    fn exchange_inner(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+        let n = reqs.len();
+        let base = self.next_seq;
+        self.next_seq = self.next_seq.wrapping_add(n as u16);
+        self.stats.requests += n as u64;
+        let now = Instant::now();
+        let mut p: Vec<Pending> = reqs
+            .into_iter()
+            .map(|(kind, body, extra)| Pending {
+                kind,
+                body,
+                extra,
+                reply: None,
+                sent_at: now,
+                send_no: 0,
+                tries: 0,
+                first_sent: None,
+            })
+            .collect();
+        let window = self.window();
+        let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
+        let seq = |i: usize| base.wrapping_add(i as u16);
+        while done < n {
+            while sent < n && sent < done + window {
+                self.send(&mut p[sent], seq(sent), &mut send_no)?;
+                sent += 1;
+            }
+            let deadline = p[done].sent_at + self.settings.timeout + p[done].extra;
+            let Some((h, body)) = self.link.recv(deadline)? else {
+                // Nothing came back in time: go back to the oldest request
+                // without a reply and send everything from there again.
+                if p[done].tries >= self.settings.tries {
+                    let waited = p[done].first_sent.map_or(0, |t| t.elapsed().as_millis());
+                    return Err(NativeError::NoReply { path: self.path(), tries: p[done].tries, waited_ms: waited });
+                }
+                for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
+                    if q.reply.is_none() {
+                        self.send(q, seq(i), &mut send_no)?;
+                    }
+                }
+                continue;
+            };
+            self.stats.received += 1;
+            if h.kind == kind::BOOT {
+                return Err(NativeError::Reset { path: self.path(), why: "it announced a new boot" });
+            }
+            if h.session != self.session {
+                continue; // a stale frame from before the handshake
+            }
+            let idx = h.seq.wrapping_sub(base) as usize;
+            match h.kind {
+                kind::GAP => {
+                    // The adapter dropped a request because it still waits
+                    // for number `h.seq`; the request that triggered the
+                    // notice is named in the body.
+                    let trigger = Reader::new(&body).u16().map(|s| s.wrapping_sub(base) as usize);
+                    let Some(j) = trigger.filter(|&j| j < sent) else { continue };
+                    let limit = p[j].send_no;
+                    for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
+                        if q.reply.is_none() && q.send_no <= limit {
+                            self.send(q, seq(i), &mut send_no)?;
+                        }
+                    }
+                }
+                kind::REFUSED if body.first() == Some(&refusal::SESSION) => {
+                    return Err(NativeError::Reset { path: self.path(), why: "it no longer knows this session" });
+                }
+                kind::REFUSED if body.first() == Some(&refusal::VERSION) => {
+                    return Err(NativeError::Version {
+                        path: self.path(),
+                        theirs: body.get(1).copied().unwrap_or(h.version),
+                    });
+                }
+                k if idx < sent && p[idx].reply.is_none() && (k == kind::REFUSED || k == p[idx].kind | kind::REPLY) => {
+                    p[idx].reply = Some((k, body));
+                    // Replies come in request order, so a request before
+                    // this one still without a reply (and sent before it)
+                    // lost its reply on the way: ask again at once.
+                    let limit = p[idx].send_no;
+                    for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
+                        if q.reply.is_none() && q.send_no < limit {
+                            self.send(q, seq(i), &mut send_no)?;
+                        }
+                    }
+                    while done < n && p[done].reply.is_some() {
+                        done += 1;
+                    }
+                }
+                _ => {} // a repeat reply we already have
+            }
+        }
+        let path = self.path();
+        p.into_iter()
+            .map(|q| {
+                let (k, body) = q.reply.expect("every request has its reply when the loop ends");
+                if k == kind::REFUSED {
+                    let code = body.first().copied().unwrap_or(0);
+                    return Err(NativeError::Refused { path: path.clone(), kind: q.kind, code });
+                }
+                if let Some(t) = Reader::new(&body).u64() {
+                    self.clock = self.clock.max(Duration::from_nanos(t));
+                }
+                Ok((k, body))
+            })
+            .collect()
+    }
+
+    /// One control request with a small reply; returns the body after the
+    /// adapter time.
+    fn control(&mut self, k: u8, body: Vec<u8>, extra: Duration) -> Result<Vec<u8>, NativeError> {
+        let mut r = self.exchange(vec![(k, body, extra)])?;
+        let (_, body) = r.pop().ok_or_else(|| NativeError::Malformed { path: self.path(), kind: k })?;
+        Ok(body.get(8..).unwrap_or_default().to_vec())
+    }
+
+    fn fail_all(&self, e: &NativeError, n: usize) -> Vec<Outcome> {
+        (0..n).map(|_| Outcome::adapter_failure(e.to_string())).collect()
+    }
+
+    /// Groups transactions into requests that fit the frame and batch
+    /// limits; returns the groups as index ranges.
+    fn pack(&self, txs: &[Transaction]) -> Result<Vec<std::ops::Range<usize>>, String> {
+        let room = (self.wire.max_frame as usize).min(super::link::MAX_FRAME).saturating_sub(HEADER_LEN + CRC_LEN);
+        let batch = self.batch();
+        let mut groups = Vec::new();
+        let (mut start, mut req, mut rep) = (0usize, 1usize, 8usize);
+        for (i, tx) in txs.iter().enumerate() {
+            if tx.ops.iter().any(Operation::is_counted) {
+                // Protocol version 1 has no counted read: its adapter side
+                // runs on embedded-hal, whose operations have fixed lengths.
+                return Err(format!(
+                    "transaction {} has a counted read (an SMBus block read); the native protocol cannot carry one",
+                    i + 1
+                ));
+            }
+            let (w, r) = tx.byte_counts();
+            let (tq, tr) = (3 + 2 * tx.ops.len() + w, TX_REPORT_LEN + r);
+            if 1 + tq > room || 8 + tr > room || tx.ops.len() > self.wire.max_ops_per_tx as usize {
+                return Err(format!(
+                    "transaction {} ({} operations, {w} bytes out, {r} in) does not fit one frame of this adapter \
+                     ({} bytes, {} operations)",
+                    i + 1,
+                    tx.ops.len(),
+                    self.wire.max_frame,
+                    self.wire.max_ops_per_tx
+                ));
+            }
+            if i > start && (i - start == batch || req + tq > room || rep + tr > room) {
+                groups.push(start..i);
+                (start, req, rep) = (i, 1, 8);
+            }
+            req += tq;
+            rep += tr;
+        }
+        if start < txs.len() {
+            groups.push(start..txs.len());
+        }
+        Ok(groups)
+    }
+}
+
+fn encode_run(txs: &[Transaction]) -> Vec<u8> {
+    let size = 1 + txs.iter().map(|t| 3 + 2 * t.ops.len() + t.byte_counts().0).sum::<usize>();
+    let mut buf = vec![0u8; size];
+    let mut w = Writer::new(&mut buf);
+    w.u8(txs.len() as u8);
+    for tx in txs {
+        let a = tx.address.value() | if tx.address.is_ten_bit() { TEN_BIT_FLAG } else { 0 };
+        w.u16(a);
+        w.u8(tx.ops.len() as u8);
+        for op in &tx.ops {
+            match op {
+                Operation::Write(b) => {
+                    w.u16(b.len() as u16);
+                    w.bytes(b);
+                }
+                Operation::Read(n) => w.u16(*n as u16 | READ_FLAG),
+                Operation::ReadCounted { .. } => unreachable!("refused by pack()"),
+            }
+        }
+    }
+    debug_assert_eq!(w.ok(), Some(size));
+    buf
+}
+
+/// Rebuilds an [`Outcome`] from one transaction's report and read data.
+fn outcome_of(tx: &Transaction, rep: &TxReport, r: &mut Reader<'_>, speed: BusSpeed) -> Option<Outcome> {
+    let precise = rep.op != UNKNOWN_OP;
+    let first_write = tx.ops.iter().position(|o| matches!(o, Operation::Write(_))).unwrap_or(0);
+    let stop = match rep.status {
+        Status::Ok => tx.ops.len(),
+        Status::DataNack if !precise => first_write,
+        _ if !precise => 0,
+        _ => rep.op as usize,
+    };
+    let mut ops = Vec::with_capacity(tx.ops.len());
+    for (i, op) in tx.ops.iter().enumerate().take(stop + 1) {
+        let mut oo = OpOutcome::default();
+        if i < stop {
+            match op {
+                Operation::Write(b) => oo.acks = vec![true; b.len()],
+                Operation::Read(n) if rep.has_data_of(i) => oo.data = r.bytes(*n)?.to_vec(),
+                Operation::Read(_) | Operation::ReadCounted { .. } => {}
+            }
+        } else if rep.status == Status::DataNack && rep.index != UNKNOWN_INDEX {
+            oo.acks = vec![true; rep.index as usize];
+            oo.acks.push(false);
+        }
+        if i < tx.ops.len() {
+            ops.push(oo);
+        }
+    }
+    let fault = match rep.status {
+        Status::Ok => None,
+        Status::AddressNack => {
+            let direction = if !precise {
+                tx.ops.get(stop).map_or(Direction::Write, Operation::direction)
+            } else if rep.info & 1 == 1 {
+                Direction::Read
+            } else {
+                Direction::Write
+            };
+            Some(Fault::AddressNack { op: stop, direction })
+        }
+        Status::DataNack => Some(Fault::DataNack { op: stop, index: if precise { rep.index as usize } else { 0 } }),
+        Status::ArbitrationLost => Some(Fault::ArbitrationLost),
+        Status::BusError => Some(Fault::Bus {
+            line: match rep.info {
+                1 => LineFault::SdaStuckLow,
+                2 => LineFault::SclStuckLow,
+                _ => LineFault::MisplacedCondition,
+            },
+        }),
+        Status::StretchTimeout => Some(Fault::StretchTimeout { waited_us: rep.info as u64 }),
+        Status::Overrun => Some(Fault::Adapter { detail: "the adapter's I2C controller overran".into() }),
+        Status::Other => Some(Fault::Adapter { detail: "the adapter's I2C controller reported an error".into() }),
+        Status::Refused => Some(Fault::Adapter { detail: "the adapter refused the transaction's shape".into() }),
+    };
+    let bus_time =
+        if rep.bus_ns == UNKNOWN_NS { transaction_time(tx, speed) } else { Duration::from_nanos(rep.bus_ns as u64) };
+    Some(Outcome { ops, bus_time, measured: Some(Duration::from_nanos(rep.measured_ns as u64)), fault })
+}
+
+impl Adapter for NativeAdapter {
+    fn identity(&self) -> &Identity {
+        &self.identity
+    }
+
+    fn capabilities(&self) -> &Capabilities {
+        &self.caps
+    }
+
+    fn speed(&self) -> BusSpeed {
+        self.speed
+    }
+
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed> {
+        let body = self.control(kind::SPEED, speed.hz().to_le_bytes().to_vec(), Duration::ZERO)?;
+        let mut r = Reader::new(&body);
+        let (Some(status), Some(hz)) = (r.u8(), r.u32()) else {
+            bail!(NativeError::Malformed { path: self.path(), kind: kind::SPEED });
+        };
+        if status != 0 {
+            bail!(
+                "the adapter refused {speed}: it clocks {} Hz to {} Hz",
+                self.caps.min_speed_hz,
+                self.caps.max_speed_hz
+            );
+        }
+        self.speed = BusSpeed::from_hz(hz as u64)?;
+        Ok(self.speed)
+    }
+
+    fn execute(&mut self, tx: &Transaction) -> Outcome {
+        self.execute_batch(std::slice::from_ref(tx)).pop().unwrap_or_else(|| Outcome::adapter_failure("no outcome"))
+    }
+
+    fn execute_batch(&mut self, txs: &[Transaction]) -> Vec<Outcome> {
+        if txs.is_empty() {
+            return Vec::new();
+        }
+        let groups = match self.pack(txs) {
+            Ok(g) => g,
+            Err(msg) => return (0..txs.len()).map(|_| Outcome::adapter_failure(msg.clone())).collect(),
+        };
+        let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
+        let replies = match self.exchange(reqs) {
+            Ok(r) => r,
+            Err(e) => return self.fail_all(&e, txs.len()),
+        };
+        let mut out = Vec::with_capacity(txs.len());
+        for (g, (_, body)) in groups.iter().zip(&replies) {
+            let mut r = Reader::new(body);
+            r.u64();
+            for tx in &txs[g.clone()] {
+                let o = TxReport::read(&mut r).and_then(|rep| outcome_of(tx, &rep, &mut r, self.speed));
+                match o {
+                    Some(o) => out.push(o),
+                    None => {
+                        let e = NativeError::Malformed { path: self.path(), kind: kind::RUN };
+                        self.failed = Some(e.clone());
+                        out.resize_with(txs.len(), || Outcome::adapter_failure(e.to_string()));
+                        return out;
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    fn recover(&mut self) -> Result<Recovery> {
+        let b = self.control(kind::RECOVER, Vec::new(), Duration::ZERO)?;
+        match b.as_slice() {
+            [0, pulses, released, ..] => Ok(Recovery { pulses: *pulses, released: *released != 0 }),
+            [1, ..] => bail!("the adapter on {} cannot clock a stuck bus free", self.path()),
+            _ => bail!(NativeError::Malformed { path: self.path(), kind: kind::RECOVER }),
+        }
+    }
+
+    fn line_levels(&mut self) -> Result<Option<LineLevels>> {
+        let b = self.control(kind::LINES, Vec::new(), Duration::ZERO)?;
+        match b.as_slice() {
+            [0, bits, ..] => Ok(Some(LineLevels { sda: bits & 1 != 0, scl: bits & 2 != 0 })),
+            [1, ..] => Ok(None),
+            _ => bail!(NativeError::Malformed { path: self.path(), kind: kind::LINES }),
+        }
+    }
+
+    fn now(&self) -> Duration {
+        self.clock
+    }
+
+    fn delay(&mut self, d: Duration) {
+        let ns = d.as_nanos().min(u64::MAX as u128) as u64;
+        // A failure is kept in `failed` and reported by the next call.
+        let _ = self.control(kind::DELAY, ns.to_le_bytes().to_vec(), d);
+    }
+
+    fn close(&mut self) -> Result<()> {
+        // Every request leaves the bus idle (STOP sent), so there is
+        // nothing to undo; a link failure was already reported.
+        Ok(())
+    }
+}
+
+/// Whether something on `path` answers the native handshake; the
+/// adapter's description if so.
+pub fn probe(path: &str, settings: NativeSettings) -> Result<String, NativeError> {
+    NativeAdapter::open(path, settings).map(|a| a.identity.description)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bus::Address;
+
+    fn tx() -> Transaction {
+        Transaction::new(
+            Address::Seven(0x50),
+            vec![Operation::Read(1), Operation::Write(vec![0x00, 0x10, 0xAA]), Operation::Read(2)],
+        )
+    }
+
+    // A precise data NACK at byte 2 of operation 1: the read before it
+    // completed, bytes 0-1 were ACKed, byte 2 NACKed, nothing after.
+    #[test]
+    fn precise_reports_rebuild_the_per_byte_outcome() {
+        let rep = TxReport { status: Status::DataNack, op: 1, index: 2, info: 0, bus_ns: 900, measured_ns: 5 };
+        let data = [0x42];
+        let o = outcome_of(&tx(), &rep, &mut Reader::new(&data), BusSpeed::STANDARD).unwrap();
+        assert_eq!(o.ops.len(), 2);
+        assert_eq!(o.ops[0].data, [0x42]);
+        assert_eq!(o.ops[1].acks, [true, true, false]);
+        assert_eq!(o.fault, Some(Fault::DataNack { op: 1, index: 2 }));
+        assert_eq!((o.bus_time, o.measured), (Duration::from_nanos(900), Some(Duration::from_nanos(5))));
+    }
+
+    // Through embedded-hal alone (op unknown) no read data comes back and
+    // the NACK is placed at the first write, byte 0, with no ACK list.
+    #[test]
+    fn imprecise_reports_are_placed_conservatively() {
+        let rep = TxReport {
+            status: Status::DataNack,
+            op: UNKNOWN_OP,
+            index: UNKNOWN_INDEX,
+            info: 0,
+            bus_ns: UNKNOWN_NS,
+            measured_ns: 0,
+        };
+        let o = outcome_of(&tx(), &rep, &mut Reader::new(&[]), BusSpeed::STANDARD).unwrap();
+        assert_eq!(o.fault, Some(Fault::DataNack { op: 1, index: 0 }));
+        assert!(o.ops.iter().all(|op| op.data.is_empty()) && o.ops[1].acks.is_empty());
+        assert_eq!(o.bus_time, transaction_time(&tx(), BusSpeed::STANDARD), "bus time modelled on the host");
+        let short = TxReport { status: Status::Ok, ..rep };
+        assert!(outcome_of(&tx(), &short, &mut Reader::new(&[1, 2]), BusSpeed::STANDARD).is_none(), "short data");
+    }
+}

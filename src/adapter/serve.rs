@@ -1,0 +1,350 @@
+//! Serving a simulated bench on a pseudo-terminal, so a second buscue (or
+//! anyone's host code) can open it like real hardware.
+//!
+//! Contract:
+//! - [`serve`] reads the port on a helper thread (so the peer's writes
+//!   never block on us), hands arriving bytes to a [`Server`] (the
+//!   protocol), and writes its answers back. It returns when the peer
+//!   closes the port, when an injected hang-up fires, or when `stop` is
+//!   set.
+//! - [`LinkFaults`] injects seeded link trouble in both directions:
+//!   dropped bytes, flipped bits, added latency per answer, a reset of the
+//!   served adapter in the middle of a frame, a hang-up after N frames.
+//! - [`NativeServer`] speaks the native protocol through the same
+//!   `buscue_bridge` library firmware links, over [`SimBoard`]. Other
+//!   protocols (text dialects) implement [`Server`] and reuse the loop.
+
+use std::collections::VecDeque;
+use std::io::{self, Read, Write};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc;
+use std::time::Duration;
+
+use buscue_bridge::wire::{Caps, flag};
+use buscue_bridge::{Bridge, Link};
+use serialport::{SerialPort, TTYPort};
+
+use crate::adapter::Adapter;
+use crate::sim::SimAdapter;
+use crate::sim::board::SimBoard;
+use crate::sim::rng::SplitMix64;
+
+/// Seeded link fault injection. Probabilities are per byte.
+#[derive(Debug, Clone, Default)]
+pub struct LinkFaults {
+    /// Probability that a byte is lost.
+    pub drop: f64,
+    /// Probability that one bit of a byte is inverted.
+    pub flip: f64,
+    /// Added before each answer the adapter sends.
+    pub latency: Duration,
+    /// After this many frames received, the adapter resets in the middle
+    /// of the next one (it announces a new session).
+    pub reset_after: Option<u64>,
+    /// After this many frames received, the adapter hangs up (closes the
+    /// port).
+    pub hangup_after: Option<u64>,
+    pub seed: u64,
+}
+
+/// Bytes in one direction after the faults.
+struct Mangler {
+    drop: f64,
+    flip: f64,
+    rng: SplitMix64,
+}
+
+impl Mangler {
+    fn apply(&mut self, bytes: &[u8], out: &mut Vec<u8>) {
+        if self.drop <= 0.0 && self.flip <= 0.0 {
+            out.extend_from_slice(bytes);
+            return;
+        }
+        for &b in bytes {
+            if self.rng.chance(self.drop) {
+                continue;
+            }
+            let b = if self.rng.chance(self.flip) { b ^ (1 << (self.rng.next_u64() % 8)) } else { b };
+            out.push(b);
+        }
+    }
+}
+
+/// The adapter's side of the port: answers go out through it, with the
+/// outgoing faults applied per frame (at [`Link::flush`]).
+pub struct ServedLink {
+    port: TTYPort,
+    out: Vec<u8>,
+    mangled: Vec<u8>,
+    faults: Mangler,
+    latency: Duration,
+    inbox: VecDeque<u8>,
+}
+
+impl Link for ServedLink {
+    type Error = io::Error;
+
+    fn read(&mut self, buf: &mut [u8]) -> io::Result<usize> {
+        let n = buf.len().min(self.inbox.len());
+        for (d, s) in buf.iter_mut().zip(self.inbox.drain(..n)) {
+            *d = s;
+        }
+        Ok(n)
+    }
+
+    fn write(&mut self, bytes: &[u8]) -> io::Result<()> {
+        self.out.extend_from_slice(bytes);
+        Ok(())
+    }
+
+    fn flush(&mut self) -> io::Result<()> {
+        if !self.latency.is_zero() {
+            std::thread::sleep(self.latency);
+        }
+        self.mangled.clear();
+        self.faults.apply(&self.out, &mut self.mangled);
+        self.out.clear();
+        self.port.write_all(&self.mangled)
+    }
+}
+
+/// A protocol served on the port.
+pub trait Server {
+    /// Handles some of what is waiting in the link's inbox (at least one
+    /// byte); answers through the link. Called until the inbox is empty.
+    fn poll(&mut self, link: &mut ServedLink) -> io::Result<()>;
+    /// Frames (or lines) received so far, for the fault triggers.
+    fn frames(&self) -> u64;
+    /// Whether part of a frame has been received.
+    fn in_frame(&self) -> bool;
+    /// Simulates a reset of the adapter: forget all link state, announce.
+    fn reset(&mut self, link: &mut ServedLink) -> io::Result<()>;
+    /// Called once before the first byte, e.g. to announce a boot.
+    fn start(&mut self, _link: &mut ServedLink) -> io::Result<()> {
+        Ok(())
+    }
+}
+
+/// Frame size and pipelining window of the served native adapter.
+pub const SERVED_FRAME: usize = 1024;
+pub const SERVED_WINDOW: usize = 8;
+
+/// The native protocol over a simulated bench.
+pub struct NativeServer {
+    bridge: Box<Bridge<SERVED_FRAME, SERVED_WINDOW>>,
+    pub board: SimBoard,
+    caps: Caps,
+    sessions: SplitMix64,
+    frames: u64,
+    in_frame: bool,
+}
+
+impl NativeServer {
+    pub fn new(sim: SimAdapter, seed: u64) -> Self {
+        let c = sim.capabilities().clone();
+        let mut flags = flag::PRECISE;
+        for (on, f) in
+            [(c.ten_bit, flag::TEN_BIT), (c.line_readback, flag::LINE_READBACK), (c.recovery, flag::RECOVERY)]
+        {
+            if on {
+                flags |= f;
+            }
+        }
+        let caps = Caps {
+            max_frame: SERVED_FRAME as u16,
+            max_bytes_per_op: c.max_bytes_per_op.min(u16::MAX as usize) as u16,
+            max_ops_per_tx: buscue_bridge::bridge::MAX_OPS as u8,
+            max_tx_per_request: 32,
+            window: SERVED_WINDOW as u8,
+            flags,
+            min_speed_hz: c.min_speed_hz,
+            max_speed_hz: c.max_speed_hz,
+            speed_hz: sim.speed().hz(),
+            stretch_timeout_us: c.stretch_timeout_us.min(u32::MAX as u64) as u32,
+        };
+        let mut sessions = SplitMix64::new(seed ^ 0x5E55_1011);
+        let session = sessions.next_u64() as u16;
+        NativeServer {
+            bridge: Box::new(Bridge::new(caps, session)),
+            board: SimBoard::new(sim),
+            caps,
+            sessions,
+            frames: 0,
+            in_frame: false,
+        }
+    }
+
+    pub fn bridge_stats(&self) -> buscue_bridge::bridge::BridgeStats {
+        self.bridge.stats()
+    }
+}
+
+impl Server for NativeServer {
+    fn poll(&mut self, link: &mut ServedLink) -> io::Result<()> {
+        // One byte per call, so the fault triggers can act between any two.
+        let Some(b) = link.inbox.pop_front() else { return Ok(()) };
+        if b == 0 {
+            if self.in_frame {
+                self.frames += 1;
+            }
+            self.in_frame = false;
+        } else {
+            self.in_frame = true;
+        }
+        self.bridge.feed(b, link, &mut self.board)
+    }
+
+    fn frames(&self) -> u64 {
+        self.frames
+    }
+
+    fn in_frame(&self) -> bool {
+        self.in_frame
+    }
+
+    fn reset(&mut self, link: &mut ServedLink) -> io::Result<()> {
+        let old = self.bridge.caps().speed_hz;
+        let mut session = self.sessions.next_u64() as u16;
+        if session == self.bridge.session() {
+            session = session.wrapping_add(1);
+        }
+        *self.bridge = Bridge::new(Caps { speed_hz: old, ..self.caps }, session);
+        self.in_frame = false;
+        self.bridge.announce(link)
+    }
+
+    fn start(&mut self, link: &mut ServedLink) -> io::Result<()> {
+        self.bridge.announce(link)
+    }
+}
+
+/// Why serving stopped.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ServeEnd {
+    /// The peer closed the port.
+    PeerClosed,
+    /// The injected hang-up fired.
+    HungUp,
+    /// `stop` was set.
+    Stopped,
+}
+
+/// Serves `server` on the master side of a pseudo-terminal. `slave`, if
+/// given, is held open until the first byte arrives, so the port does not
+/// read as hung up before a peer has opened it.
+pub fn serve<S: Server>(
+    port: TTYPort,
+    slave: Option<TTYPort>,
+    server: &mut S,
+    faults: &LinkFaults,
+    stop: &AtomicBool,
+) -> io::Result<ServeEnd> {
+    let mut reader = port.try_clone_native().map_err(io::Error::from)?;
+    reader.set_timeout(Duration::from_millis(200)).map_err(io::Error::from)?;
+    let (tx, rx) = mpsc::channel::<Vec<u8>>();
+    let reader_stop = std::sync::Arc::new(AtomicBool::new(false));
+    let rs = reader_stop.clone();
+    let thread = std::thread::spawn(move || {
+        let mut buf = [0u8; 4096];
+        while !rs.load(Ordering::Relaxed) {
+            match reader.read(&mut buf) {
+                Ok(0) => break,
+                Ok(n) => {
+                    if tx.send(buf[..n].to_vec()).is_err() {
+                        break;
+                    }
+                }
+                Err(e) if e.kind() == io::ErrorKind::TimedOut || e.kind() == io::ErrorKind::Interrupted => {}
+                Err(_) => break, // EIO: the peer closed the slave side
+            }
+        }
+    });
+    let mut port = port;
+    port.set_timeout(Duration::from_secs(5)).map_err(io::Error::from)?;
+    let mut link = ServedLink {
+        port,
+        out: Vec::new(),
+        mangled: Vec::new(),
+        faults: Mangler { drop: faults.drop, flip: faults.flip, rng: SplitMix64::new(faults.seed ^ 0x0A) },
+        latency: faults.latency,
+        inbox: VecDeque::new(),
+    };
+    let mut incoming = Mangler { drop: faults.drop, flip: faults.flip, rng: SplitMix64::new(faults.seed ^ 0x0B) };
+    server.start(&mut link)?;
+    let mut slave = slave;
+    let mut reset_done = false;
+    let mut chunk = Vec::new();
+    let end = loop {
+        if stop.load(Ordering::Relaxed) {
+            break ServeEnd::Stopped;
+        }
+        match rx.recv_timeout(Duration::from_millis(50)) {
+            Ok(bytes) => {
+                slave = None;
+                chunk.clear();
+                incoming.apply(&bytes, &mut chunk);
+                link.inbox.extend(chunk.iter().copied());
+            }
+            Err(mpsc::RecvTimeoutError::Timeout) => continue,
+            Err(mpsc::RecvTimeoutError::Disconnected) => break ServeEnd::PeerClosed,
+        }
+        let mut hung = false;
+        while !link.inbox.is_empty() {
+            if let Err(e) = server.poll(&mut link) {
+                if is_peer_gone(&e) {
+                    hung = true;
+                    break;
+                }
+                return Err(e);
+            }
+            if let Some(n) = faults.reset_after
+                && !reset_done
+                && server.frames() >= n
+                && server.in_frame()
+            {
+                reset_done = true;
+                link.inbox.clear();
+                server.reset(&mut link)?;
+            }
+            if faults.hangup_after.is_some_and(|n| server.frames() >= n) {
+                hung = true;
+                break;
+            }
+        }
+        if hung {
+            break if faults.hangup_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
+        }
+    };
+    drop(slave);
+    reader_stop.store(true, Ordering::Relaxed);
+    drop(link);
+    let _ = thread.join();
+    Ok(end)
+}
+
+fn is_peer_gone(e: &io::Error) -> bool {
+    matches!(e.kind(), io::ErrorKind::BrokenPipe | io::ErrorKind::TimedOut) || e.raw_os_error() == Some(5)
+}
+
+/// Opens a pseudo-terminal pair: the master for [`serve`], the slave to
+/// keep open until a peer arrives, and the slave's path for the peer.
+pub fn pty() -> io::Result<(TTYPort, TTYPort, String)> {
+    let (master, slave) = TTYPort::pair().map_err(io::Error::from)?;
+    let name = slave.name().ok_or_else(|| io::Error::other("the pseudo-terminal has no device path"))?;
+    Ok((master, slave, name))
+}
+
+/// Serves a simulated bench with the native protocol until the peer
+/// closes, `stop` is set or a fault ends it; returns the server so callers
+/// can look at the board side (executions per device).
+pub fn serve_native(
+    sim: SimAdapter,
+    port: TTYPort,
+    slave: Option<TTYPort>,
+    faults: &LinkFaults,
+    stop: &AtomicBool,
+) -> io::Result<(ServeEnd, NativeServer)> {
+    let mut server = NativeServer::new(sim, faults.seed);
+    let end = serve(port, slave, &mut server, faults, stop)?;
+    Ok((end, server))
+}

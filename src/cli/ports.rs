@@ -1,0 +1,73 @@
+//! `buscue ports`: the serial ports this machine has, and (with
+//! `--probe`) which of them answer the native handshake.
+
+use std::io::Write;
+use std::time::Duration;
+
+use anyhow::{Context, Result};
+use clap::Args;
+use serialport::SerialPortType;
+
+use buscue::adapter::NativeSettings;
+use buscue::adapter::native::probe;
+
+#[derive(Args, Debug)]
+pub struct PortsArgs {
+    /// Try the native handshake on each port and say which answer.
+    #[arg(long)]
+    pub probe: bool,
+    /// Baud rate for --probe.
+    #[arg(long, default_value_t = 115_200)]
+    pub baud: u32,
+    /// Also probe these ports (pseudo-terminals are not listed by the system).
+    #[arg(long = "port", value_name = "PATH")]
+    pub extra: Vec<String>,
+}
+
+pub fn ports(a: PortsArgs) -> Result<u8> {
+    // The port lister of the serial library assumes /sys/class/tty on
+    // Linux and panics without it (some containers); treat that as none.
+    let listable = !cfg!(target_os = "linux") || std::path::Path::new("/sys/class/tty").is_dir();
+    let found = if listable { serialport::available_ports().context("cannot list serial ports")? } else { Vec::new() };
+    let mut list: Vec<(String, String)> = found
+        .into_iter()
+        .map(|p| {
+            let what = match p.port_type {
+                SerialPortType::UsbPort(u) => format!(
+                    "usb {:04x}:{:04x}{}{}",
+                    u.vid,
+                    u.pid,
+                    u.serial_number.map(|s| format!(" serial {s}")).unwrap_or_default(),
+                    u.product.map(|s| format!(" \"{s}\"")).unwrap_or_default()
+                ),
+                SerialPortType::PciPort => "pci".into(),
+                SerialPortType::BluetoothPort => "bluetooth".into(),
+                SerialPortType::Unknown => "other".into(),
+            };
+            (p.port_name, what)
+        })
+        .collect();
+    for p in &a.extra {
+        if !list.iter().any(|(n, _)| n == p) {
+            list.push((p.clone(), "given".into()));
+        }
+    }
+    let mut out = std::io::stdout().lock();
+    if list.is_empty() {
+        writeln!(out, "no serial ports found")?;
+    }
+    for (name, what) in &list {
+        if a.probe {
+            let settings =
+                NativeSettings { baud: a.baud, timeout: Duration::from_millis(300), ..NativeSettings::default() };
+            let answer = match probe(name, settings) {
+                Ok(desc) => format!("answers: {desc}"),
+                Err(e) => format!("no native adapter ({e})"),
+            };
+            writeln!(out, "{name}\t{what}\t{answer}")?;
+        } else {
+            writeln!(out, "{name}\t{what}")?;
+        }
+    }
+    Ok(buscue::exit::OK)
+}

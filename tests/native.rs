@@ -1,0 +1,296 @@
+//! End-to-end tests of the native serial protocol over real
+//! pseudo-terminals: `buscue serve` (or the same server in-process) on
+//! one side, the native driver on the other.
+
+#![cfg(unix)]
+
+use std::io::{BufRead, BufReader};
+use std::process::{Child, Command, Output, Stdio};
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
+
+use buscue::adapter::native::{NativeAdapter, NativeError, NativeSettings};
+use buscue::adapter::serve::{LinkFaults, ServeEnd, pty, serve_native};
+use buscue::adapter::{Adapter, AdapterSpec, OpenOptions, open_sim};
+use buscue::bus::{Address, Operation, Transaction};
+use serde_json::Value;
+
+const BIN: &str = env!("CARGO_BIN_EXE_buscue");
+
+/// A `buscue serve` child and the device path it printed.
+struct Served {
+    child: Child,
+    path: String,
+}
+
+impl Drop for Served {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+fn serve(extra: &[&str]) -> Served {
+    let mut child = Command::new(BIN)
+        .arg("serve")
+        .args(extra)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("buscue serve starts");
+    let mut line = String::new();
+    BufReader::new(child.stdout.take().unwrap()).read_line(&mut line).unwrap();
+    let path = line.trim().to_string();
+    assert!(path.starts_with("/dev/"), "first line is the device path, got {line:?}");
+    Served { child, path }
+}
+
+fn run(script: &str, adapter: &str, extra: &[&str]) -> Output {
+    Command::new(BIN)
+        .args(["run", script, "--json", "--adapter", adapter])
+        .args(extra)
+        .output()
+        .expect("buscue run starts")
+}
+
+/// JSON records with the measured timing removed ("timing aside"). The
+/// modelled bus time stays: the served board reports it through the
+/// side channel, so it must match too.
+fn records(out: &[u8]) -> Vec<Value> {
+    String::from_utf8_lossy(out)
+        .lines()
+        .map(|l| {
+            let mut v: Value = serde_json::from_str(l).unwrap_or_else(|e| panic!("not JSON ({e}): {l}"));
+            let o = v.as_object_mut().unwrap();
+            o.remove("t_ns");
+            if let Some(out) = o.get_mut("outcome").and_then(Value::as_object_mut) {
+                out.remove("measured_ns");
+            }
+            v
+        })
+        .collect()
+}
+
+#[test]
+fn demo_scripts_give_the_same_frames_in_process_and_over_a_pty() {
+    for script in [
+        "scripts/climate_bringup.lua",
+        "scripts/eeprom_calibration.lua",
+        "scripts/valve_expander.lua",
+        "scripts/vent_retry.lua",
+        "scripts/light_batch.lua",
+    ] {
+        let local = run(script, "sim", &[]);
+        assert_eq!(local.status.code(), Some(0), "{script} in-process: {}", String::from_utf8_lossy(&local.stderr));
+        let served = serve(&[]);
+        let remote = run(script, &format!("serial:{}", served.path), &[]);
+        assert_eq!(remote.status.code(), Some(0), "{script} over PTY: {}", String::from_utf8_lossy(&remote.stderr));
+        let (a, b) = (records(&local.stdout), records(&remote.stdout));
+        assert!(a.iter().filter(|r| r["kind"] == "frame").count() > 3, "{script} puts frames on the bus");
+        assert_eq!(a.len(), b.len(), "{script}: record counts");
+        for (i, (x, y)) in a.iter().zip(&b).enumerate() {
+            assert_eq!(x, y, "{script}: record {i} differs");
+        }
+    }
+}
+
+#[test]
+fn served_frames_carry_measured_time() {
+    let served = serve(&[]);
+    let out = run("scripts/valve_expander.lua", &format!("serial:{}", served.path), &[]);
+    assert_eq!(out.status.code(), Some(0));
+    let text = String::from_utf8_lossy(&out.stdout);
+    let frame: Value = serde_json::from_str(text.lines().find(|l| l.contains("\"frame\"")).unwrap()).unwrap();
+    assert!(frame["outcome"]["measured_ns"].is_u64(), "the native adapter reports its measured time: {frame}");
+    assert!(frame["outcome"]["bus_ns"].as_u64().unwrap() > 0);
+}
+
+/// A served bench in this process, so the test can look at the board.
+fn serve_in_process(faults: LinkFaults) -> (String, Arc<AtomicBool>, std::thread::JoinHandle<(ServeEnd, u64, u64)>) {
+    let (master, slave, path) = pty().unwrap();
+    let stop = Arc::new(AtomicBool::new(false));
+    let s = stop.clone();
+    let h = std::thread::spawn(move || {
+        // Device models are not Send: the bench is built on its thread.
+        let sim = open_sim(&AdapterSpec::DemoBench, &OpenOptions::default()).unwrap();
+        let (end, server) = serve_native(sim, master, Some(slave), &faults, &s).unwrap();
+        let light = server.board.adapter().bus().executions("canopy-light").unwrap();
+        (end, light, server.bridge_stats().dropped)
+    });
+    (path, stop, h)
+}
+
+// The lossy-link requirement: with 1% of link bytes corrupted or
+// dropped, 10,000 transactions complete, each executed exactly once on
+// the board, and every read returns what was written.
+#[test]
+fn lossy_link_executes_every_transaction_exactly_once() {
+    let faults = LinkFaults { drop: 0.005, flip: 0.005, seed: 42, ..LinkFaults::default() };
+    let (path, stop, h) = serve_in_process(faults);
+    let settings = NativeSettings { timeout: Duration::from_millis(20), batch: Some(1), ..NativeSettings::default() };
+    let mut a = NativeAdapter::open(&path, settings).expect("handshake through a lossy link");
+    let light = Address::Seven(0x29);
+    let mut done = 0u64;
+    for chunk in 0..10u32 {
+        let mut txs = Vec::new();
+        for k in 0..500u32 {
+            let v = (chunk * 500 + k) as u16;
+            let [lo, hi] = v.to_le_bytes();
+            // CONTROL (0x01) of the light sensor: 16-bit, little-endian.
+            txs.push(Transaction::new(light, vec![Operation::Write(vec![0x01, lo, hi])]));
+            txs.push(Transaction::new(light, vec![Operation::Write(vec![0x01]), Operation::Read(2)]));
+        }
+        let outs = a.execute_batch(&txs);
+        assert_eq!(outs.len(), txs.len());
+        for (k, pair) in outs.chunks(2).enumerate() {
+            assert!(pair[0].is_ok() && pair[1].is_ok(), "chunk {chunk} pair {k}: {pair:?}");
+            let v = (chunk * 500 + k as u32) as u16;
+            assert_eq!(pair[1].read_bytes(), v.to_le_bytes(), "read back what was written");
+        }
+        done += txs.len() as u64;
+    }
+    let repeats = a.stats.repeats;
+    drop(a);
+    stop.store(true, Ordering::Relaxed);
+    let (_, executions, dropped) = h.join().unwrap();
+    assert_eq!(done, 10_000);
+    assert_eq!(executions, 10_000, "every transaction ran exactly once on the board");
+    assert!(repeats > 0 && dropped > 0, "the faults did hit the link ({repeats} repeats, {dropped} drops)");
+}
+
+#[test]
+fn hang_up_mid_run_stops_with_the_adapter_code_and_keeps_the_log() {
+    let served = serve(&["--hangup-after", "12"]);
+    let out = run("scripts/climate_bringup.lua", &format!("serial:{}", served.path), &[]);
+    assert_eq!(out.status.code(), Some(4), "exit code 4: adapter/link failure");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("stopped working"), "a clear error: {stderr}");
+    assert!(!stderr.contains("panicked"), "{stderr}");
+    let recs = records(&out.stdout);
+    let good = recs.iter().filter(|r| r["kind"] == "frame" && r["outcome"].get("fault").is_none()).count();
+    assert!(good >= 8, "the frames done before the hang-up are logged ({good})");
+    let end = recs.last().unwrap();
+    assert_eq!((end["kind"].as_str(), end["exit"].as_u64()), (Some("end"), Some(4)));
+}
+
+#[test]
+fn killing_the_server_mid_run_is_a_clear_link_error() {
+    let mut served = serve(&["--realtime"]);
+    let child = Command::new(BIN)
+        .args(["run", "scripts/climate_bringup.lua", "--json", "--set", "samples=1000"])
+        .args(["--adapter", &format!("serial:{}", served.path)])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    std::thread::sleep(Duration::from_millis(600));
+    served.child.kill().unwrap();
+    let out = child.wait_with_output().unwrap();
+    assert_eq!(out.status.code(), Some(4), "{}", String::from_utf8_lossy(&out.stderr));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("stopped working") && !stderr.contains("panicked"), "{stderr}");
+    assert!(records(&out.stdout).iter().any(|r| r["kind"] == "frame"), "frames so far are logged");
+}
+
+#[test]
+fn adapter_reset_mid_run_is_reported() {
+    let served = serve(&["--reset-after", "6"]);
+    let out = run("scripts/climate_bringup.lua", &format!("serial:{}", served.path), &[]);
+    assert_eq!(out.status.code(), Some(4));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("was reset mid-run"), "{stderr}");
+}
+
+#[test]
+fn a_port_nobody_answers_on_fails_the_handshake() {
+    let (_master, _slave, path) = pty().unwrap();
+    let settings = NativeSettings { timeout: Duration::from_millis(50), ..NativeSettings::default() };
+    let e = NativeAdapter::open(&path, settings).err().expect("no adapter there");
+    assert!(e.to_string().contains("no answer to the native handshake"), "{e}");
+    let out = run("scripts/valve_expander.lua", &format!("serial:{path}"), &[]);
+    assert_eq!(out.status.code(), Some(4), "an unreachable adapter is the adapter/link exit code");
+}
+
+#[test]
+fn a_wrong_protocol_version_is_named() {
+    use buscue_bridge::cobs::Decoder;
+    use buscue_bridge::wire::{self, Header, kind, refusal};
+    use std::io::{Read, Write};
+    let (mut master, slave, path) = pty().unwrap();
+    // A fake adapter of a future protocol version: it refuses every frame.
+    let fake = std::thread::spawn(move || {
+        let _keep = slave;
+        let mut d = Decoder::<256>::new();
+        let mut buf = [0u8; 256];
+        serialport::SerialPort::set_timeout(&mut master, Duration::from_secs(3)).unwrap();
+        let n = master.read(&mut buf).unwrap_or(0);
+        for &b in &buf[..n] {
+            if let Some(Ok(f)) = d.push(b) {
+                let (h, _) = wire::parse_frame(f).unwrap();
+                let reply = Header { version: 2, kind: kind::REFUSED, seq: h.seq, session: 0 };
+                let mut out = Vec::new();
+                let Ok(()) = wire::emit_frame(reply, &[refusal::VERSION, 2], |p: &[u8]| {
+                    out.extend_from_slice(p);
+                    Ok::<(), std::convert::Infallible>(())
+                });
+                master.write_all(&out).unwrap();
+                break;
+            }
+        }
+        std::thread::sleep(Duration::from_millis(300));
+    });
+    let e = NativeAdapter::open(&path, NativeSettings::default()).err().expect("refused");
+    assert!(matches!(e, NativeError::Version { theirs: 2, .. }), "{e}");
+    assert!(e.to_string().contains("speaks native protocol version 2"), "{e}");
+    fake.join().unwrap();
+}
+
+#[test]
+fn control_requests_reach_the_served_board() {
+    let (path, stop, h) = serve_in_process(LinkFaults::default());
+    let mut a = NativeAdapter::open(&path, NativeSettings::default()).unwrap();
+    assert_eq!(a.identity().driver, "native");
+    assert!(a.capabilities().ten_bit && a.capabilities().recovery);
+    assert_eq!(a.set_speed("400k".parse().unwrap()).unwrap().hz(), 400_000);
+    assert!(a.set_speed("5M".parse().unwrap()).is_err(), "the bench clocks at most 1 MHz");
+    let t0 = a.now();
+    a.delay(Duration::from_millis(250));
+    assert!(a.now() - t0 >= Duration::from_millis(250), "a delay runs on the adapter's clock");
+    let levels = a.line_levels().unwrap().unwrap();
+    assert!(levels.sda && levels.scl, "an idle bus reads high");
+    assert_eq!(a.recover().unwrap().pulses, 0, "a free bus needs no pulses");
+    let txs: Vec<Transaction> = (0..40)
+        .map(|_| Transaction::new(Address::Seven(0x29), vec![Operation::Write(vec![0x00]), Operation::Read(2)]))
+        .collect();
+    let before = a.stats.requests;
+    assert!(a.execute_batch(&txs).iter().all(|o| o.read_bytes() == [0x5A, 0x1C]));
+    assert_eq!(a.stats.requests - before, 2, "40 transactions travel in two requests of at most 32");
+    let nack = a.execute(&Transaction::new(Address::Seven(0x13), vec![Operation::Write(vec![1])]));
+    assert!(nack.fault.is_some_and(|f| f.is_nack()), "nobody at 0x13");
+    drop(a);
+    stop.store(true, Ordering::Relaxed);
+    let (end, _, _) = h.join().unwrap();
+    assert!(matches!(end, ServeEnd::Stopped | ServeEnd::PeerClosed));
+}
+
+fn script(text: &str) -> tempfile::NamedTempFile {
+    let mut f = tempfile::Builder::new().suffix(".lua").tempfile().unwrap();
+    std::io::Write::write_all(&mut f, text.as_bytes()).unwrap();
+    f
+}
+
+#[test]
+fn a_failing_batch_block_sends_nothing_and_a_stale_queue_is_refused() {
+    let f = script("bus.batch(function(b) b:write(0x29, {1, 2, 3}); error('changed my mind') end)\n");
+    let out = run(f.path().to_str().unwrap(), "sim", &[]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(!records(&out.stdout).iter().any(|r| r["kind"] == "frame"), "nothing reached the bus");
+    assert!(String::from_utf8_lossy(&out.stderr).contains("changed my mind"));
+
+    let f = script("local q\nbus.batch(function(b) q = b end)\nq:write(0x29, {1})\n");
+    let out = run(f.path().to_str().unwrap(), "sim", &[]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr.contains("already been sent") && stderr.contains(":3:"), "names the script line: {stderr}");
+}
