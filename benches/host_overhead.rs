@@ -32,13 +32,20 @@ reset = 0x5A
 
 const READS: u64 = 100_000;
 
+/// `BUSCUE_BENCH_READS` overrides the count (for instruction counting
+/// under valgrind, say).
+fn reads() -> u64 {
+    std::env::var("BUSCUE_BENCH_READS").ok().and_then(|v| v.parse().ok()).unwrap_or(READS)
+}
+
 fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     let dir = tempfile::tempdir().expect("temp dir");
     let script = dir.path().join("loop.lua");
     std::fs::write(
         &script,
         format!(
-            "local d = bus.device(0x20)\nfor i = 1, {READS} do\n  if d:get(0x05) ~= 0x5A then error('bad') end\nend\n"
+            "local d = bus.device(0x20)\nfor i = 1, {} do\n  if d:get(0x05) ~= 0x5A then error('bad') end\nend\n",
+            reads()
         ),
     )
     .expect("write script");
@@ -61,10 +68,11 @@ fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     let mut session = report.session;
     session.finish(0, None).expect("finish");
     let size = std::fs::metadata(dir.path().join("frames.log")).map(|m| m.len()).unwrap_or(0);
-    let per = host.as_secs_f64() * 1e6 / READS as f64;
-    let bus = session.stats.bus_time.as_secs_f64() * 1e6 / READS as f64;
+    let n = reads();
+    let per = host.as_secs_f64() * 1e6 / n as f64;
+    let bus = session.stats.bus_time.as_secs_f64() * 1e6 / n as f64;
     println!(
-        "{label:<22} {READS} reads  host {:>8.3} ms  {per:>6.3} us/transaction  (modelled bus time {bus:.1} us each, log {:.1} MB)",
+        "{label:<22} {n} reads  host {:>8.3} ms  {per:>6.3} us/transaction  (modelled bus time {bus:.1} us each, log {:.1} MB)",
         host.as_secs_f64() * 1e3,
         size as f64 / 1e6
     );

@@ -138,7 +138,9 @@ pub fn origin(lua: &Lua) -> Option<Origin> {
 
 fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
     let mut out = Vec::new();
-    for level in 0..64 {
+    // Level 0 is the running function: the Rust callback or message
+    // handler that asked, never the script.
+    for level in 1..64 {
         let Some(frame) = lua.inspect_stack(level, |d| {
             let s = d.source();
             let internal = s.source.as_deref().is_some_and(|src| src.starts_with(INTERNAL_CHUNK));

@@ -37,32 +37,81 @@ const PLAIN: Palette = Palette { dim: "", ok: "", warn: "", bad: "", reset: "" }
 /// Seconds with microseconds, right-aligned: `    0.012345`. Integer
 /// arithmetic: this runs once per frame.
 pub fn seconds(t: Duration) -> String {
+    let mut s = String::with_capacity(12);
+    push_seconds(&mut s, t);
+    s
+}
+
+fn push_seconds(out: &mut String, t: Duration) {
     let us = t.as_micros();
-    format!("{:>5}.{:06}", us / 1_000_000, us % 1_000_000)
+    let _ = write!(out, "{:>5}.", us / 1_000_000);
+    push_padded_int(out, (us % 1_000_000) as u64, 6);
+}
+
+/// A number with leading zeros to `width` digits.
+fn push_padded_int(out: &mut String, v: u64, width: usize) {
+    let mut digits = [b'0'; 20];
+    let mut n = v;
+    let mut i = digits.len();
+    while n > 0 {
+        i -= 1;
+        digits[i] = b'0' + (n % 10) as u8;
+        n /= 10;
+    }
+    let start = (digits.len() - width).min(i);
+    out.push_str(std::str::from_utf8(&digits[start..]).unwrap_or("?"));
 }
 
 /// Duration in the most readable unit.
 pub fn human(d: Duration) -> String {
-    let ns = d.as_nanos();
-    if ns < 10_000 {
-        format!("{}.{} us", ns / 1_000, ns % 1_000 / 100)
+    let mut s = String::with_capacity(12);
+    push_human(&mut s, d);
+    s
+}
+
+fn push_human(out: &mut String, d: Duration) {
+    let ns = d.as_nanos() as u64;
+    let (whole, frac, digits, unit) = if ns < 10_000 {
+        (ns / 1_000, ns % 1_000 / 100, 1, " us")
     } else if ns < 10_000_000 {
-        format!("{}.{:03} ms", ns / 1_000_000, ns % 1_000_000 / 1_000)
+        (ns / 1_000_000, ns % 1_000_000 / 1_000, 3, " ms")
     } else {
-        format!("{}.{:03} s", ns / 1_000_000_000, ns % 1_000_000_000 / 1_000_000)
-    }
+        (ns / 1_000_000_000, ns % 1_000_000_000 / 1_000_000, 3, " s")
+    };
+    push_padded_int(out, whole, 1);
+    out.push('.');
+    push_padded_int(out, frac, digits);
+    out.push_str(unit);
+}
+
+const HEX: &[u8; 16] = b"0123456789ABCDEF";
+
+fn push_hex(out: &mut String, b: u8) {
+    out.push(HEX[(b >> 4) as usize] as char);
+    out.push(HEX[(b & 0xF) as usize] as char);
 }
 
 /// Space-separated hex bytes.
 pub fn hex_bytes(bytes: &[u8]) -> String {
     let mut s = String::with_capacity(bytes.len() * 3);
+    push_hex_bytes(&mut s, bytes);
+    s
+}
+
+fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
     for (i, b) in bytes.iter().enumerate() {
         if i > 0 {
-            s.push(' ');
+            out.push(' ');
         }
-        let _ = write!(s, "{b:02X}");
+        push_hex(out, *b);
     }
-    s
+}
+
+fn pad_from(out: &mut String, start: usize, width: usize) {
+    let len = out[start..].chars().count();
+    for _ in len..width {
+        out.push(' ');
+    }
 }
 
 fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
@@ -76,7 +125,8 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                 out.push('W');
                 let acks = done.map(|d| d.acks.as_slice()).unwrap_or(&[]);
                 for (j, b) in bytes.iter().enumerate().take(acks.len()) {
-                    let _ = write!(out, " {b:02X}");
+                    out.push(' ');
+                    push_hex(out, *b);
                     if !acks[j] {
                         out.push('!');
                     }
@@ -96,7 +146,7 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                 match done {
                     Some(d) if !d.data.is_empty() => {
                         out.push(' ');
-                        out.push_str(&hex_bytes(&d.data));
+                        push_hex_bytes(out, &d.data);
                     }
                     _ => {
                         let _ = write!(out, " ?x(1+{max}+{trailer})");
@@ -108,7 +158,7 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                 match done {
                     Some(d) if !d.data.is_empty() => {
                         out.push(' ');
-                        out.push_str(&hex_bytes(&d.data));
+                        push_hex_bytes(out, &d.data);
                         if d.data.len() < *n {
                             let _ = write!(out, " ?x{}", n - d.data.len());
                         }
@@ -124,35 +174,52 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
 
 /// One frame as one line, without a trailing newline.
 pub fn frame_line(f: &Frame, colour: bool) -> String {
+    let mut s = String::with_capacity(128);
+    write_frame_line(&mut s, f, colour);
+    s
+}
+
+/// Appends one frame line to `s` (no newline); the frame log reuses one
+/// buffer for every line, so this allocates nothing in the common case.
+pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
     let p = if colour { &COLOUR } else { &PLAIN };
-    let mut ops = String::with_capacity(48);
-    ops_text(&f.ops, &f.outcome, &mut ops);
-    let (style, result) = match &f.outcome.fault {
-        None => (p.ok, "ok".to_string()),
-        Some(fault) if fault.is_nack() => (p.warn, fault.label()),
-        Some(fault) => (p.bad, fault.label()),
+    s.push_str(p.dim);
+    push_seconds(s, f.t);
+    s.push_str(p.reset);
+    let _ = write!(s, "  #{:<5} ", f.seq);
+    let at = s.len();
+    let _ = write!(s, "{}", f.address);
+    pad_from(s, at, 9);
+    s.push_str("  ");
+    let at = s.len();
+    ops_text(&f.ops, &f.outcome, s);
+    pad_from(s, at, 30);
+    s.push(' ');
+    let (style, label) = match &f.outcome.fault {
+        None => (p.ok, None),
+        Some(fault) if fault.is_nack() => (p.warn, Some(fault.label())),
+        Some(fault) => (p.bad, Some(fault.label())),
     };
-    let mut s = String::with_capacity(120);
-    let _ = write!(
-        s,
-        "{}{}{}  #{:<5} {:<9}  {:<30} {}{:<15}{}",
-        p.dim,
-        seconds(f.t),
-        p.reset,
-        f.seq,
-        f.address.to_string(),
-        ops,
-        style,
-        result,
-        p.reset
-    );
-    let _ = write!(s, " {:>9}", human(f.outcome.bus_time));
+    s.push_str(style);
+    let at = s.len();
+    s.push_str(label.as_deref().unwrap_or("ok"));
+    pad_from(s, at, 15);
+    s.push_str(p.reset);
+    s.push(' ');
+    let at = s.len();
+    push_human(s, f.outcome.bus_time);
+    let len = s.len() - at;
+    if len < 9 {
+        s.insert_str(at, &"         "[..9 - len]);
+    }
     let retrying = f.outcome.fault.as_ref().is_some_and(|x| x.is_nack()) && f.attempts > 1;
     if f.attempt > 1 || retrying {
         let _ = write!(s, " try {}/{}", f.attempt, f.attempts);
     }
     if let Some(purpose) = &f.purpose {
-        let _ = write!(s, " ({purpose})");
+        s.push_str(" (");
+        s.push_str(purpose);
+        s.push(')');
     }
     if let Some(m) = &f.pec {
         match (m.ok, m.received) {
@@ -166,12 +233,18 @@ pub fn frame_line(f: &Frame, colour: bool) -> String {
         }
     }
     if let Some(d) = &f.decoded {
-        let _ = write!(s, " [{d}]");
+        s.push_str(" [");
+        s.push_str(d);
+        s.push(']');
     }
     if let Some(o) = &f.origin {
-        let _ = write!(s, "  {}{}{}", p.dim, o, p.reset);
+        s.push_str("  ");
+        s.push_str(p.dim);
+        s.push_str(&o.file);
+        s.push(':');
+        let _ = write!(s, "{}", o.line);
+        s.push_str(p.reset);
     }
-    s
 }
 
 /// A script log line.

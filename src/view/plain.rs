@@ -5,10 +5,12 @@ use std::io::{self, Write};
 use crate::trace::record::Level;
 use crate::trace::{Record, Sink};
 
-use super::format::{frame_line, log_line, step_line};
+use super::format::{log_line, step_line, write_frame_line};
 
 pub struct PlainLog<W: Write> {
     out: W,
+    /// One line's text, reused so a frame costs no allocation.
+    line: String,
     colour: bool,
     /// Print only log lines and steps, not frames (`--quiet`).
     frames: bool,
@@ -16,14 +18,19 @@ pub struct PlainLog<W: Write> {
 
 impl<W: Write> PlainLog<W> {
     pub fn new(out: W, colour: bool, frames: bool) -> Self {
-        PlainLog { out, colour, frames }
+        PlainLog { out, line: String::with_capacity(256), colour, frames }
     }
 }
 
 impl<W: Write> Sink for PlainLog<W> {
     fn record(&mut self, r: &Record) -> io::Result<()> {
         match r {
-            Record::Frame(f) if self.frames => writeln!(self.out, "{}", frame_line(f, self.colour)),
+            Record::Frame(f) if self.frames => {
+                self.line.clear();
+                write_frame_line(&mut self.line, f, self.colour);
+                self.line.push('\n');
+                self.out.write_all(self.line.as_bytes())
+            }
             Record::Frame(_) => Ok(()),
             Record::Log { t, level, text, .. } => {
                 writeln!(self.out, "{}", log_line(*t, *level == Level::Warn, text, self.colour))
