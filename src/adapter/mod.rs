@@ -18,6 +18,9 @@
 //!   virtual unless paced, so scripts that sleep run instantly in tests.
 //! - [`Adapter::close`] leaves the bus idle (STOP sent, lines released).
 
+pub mod dialect_profile;
+pub mod dialect_syntax;
+
 use std::time::Duration;
 
 use anyhow::{Context, Result, bail};
