@@ -18,7 +18,9 @@
 //!   virtual unless paced, so scripts that sleep run instantly in tests.
 //! - [`Adapter::close`] leaves the bus idle (STOP sent, lines released).
 
+pub mod dialect;
 pub mod dialect_profile;
+pub mod dialect_serve;
 pub mod dialect_syntax;
 
 use std::time::Duration;
@@ -101,6 +103,9 @@ pub enum AdapterSpec {
     DemoBench,
     /// `sim:PATH`: a bench file.
     Bench(std::path::PathBuf),
+    /// `dialect:PROFILE@PORT[,key=value...]`: a line-based adapter firmware
+    /// described by a profile (a shipped name or a file), on a serial port.
+    Dialect { profile: String, path: std::path::PathBuf, overrides: Vec<(String, String)> },
 }
 
 impl AdapterSpec {
@@ -116,7 +121,12 @@ impl AdapterSpec {
             }
             return Ok(AdapterSpec::Bench(path.into()));
         }
-        bail!("`{t}` is not an adapter: use `sim` for the built-in bench or `sim:PATH` for a bench file")
+        if let Some(rest) = t.strip_prefix("dialect:") {
+            return dialect::parse_spec(rest);
+        }
+        bail!(
+            "`{t}` is not an adapter: use `sim` for the built-in bench, `sim:PATH` for a bench file or `dialect:PROFILE@PORT` for a text-dialect adapter"
+        )
     }
 }
 
@@ -132,6 +142,9 @@ pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> 
     use crate::sim::{Bench, SimAdapter};
     let bench = match spec {
         AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
+        AdapterSpec::Dialect { profile, path, overrides } => {
+            return Ok(Box::new(dialect::open(profile, path, overrides)?));
+        }
         AdapterSpec::Bench(path) => {
             let text =
                 std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;

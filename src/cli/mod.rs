@@ -2,6 +2,7 @@
 
 mod run;
 mod scan;
+mod serve_dialect;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -31,13 +32,17 @@ pub enum Command {
     Run(run::RunArgs),
     /// List the addresses that answer on the bus.
     Scan(scan::ScanArgs),
+    /// Serve a simulated bench on a pseudo-terminal in a text dialect;
+    /// prints the device path on the first line.
+    ServeDialect(serve_dialect::ServeDialectArgs),
 }
 
 /// Options every bus-facing command takes.
 #[derive(Args, Debug, Clone)]
 pub struct BusArgs {
-    /// Adapter: `sim` (the built-in greenhouse bench, the default) or
-    /// `sim:PATH` for another bench file.
+    /// Adapter: `sim` (the built-in greenhouse bench, the default),
+    /// `sim:PATH` for another bench file, or `dialect:PROFILE@PORT` for a
+    /// text-dialect adapter on a serial port.
     #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
     pub adapter: AdapterSpec,
     /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
@@ -121,6 +126,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Run(a) => run::run(a),
         Command::Scan(a) => scan::scan(a),
+        Command::ServeDialect(a) => serve_dialect::serve(a),
     }
 }
 
