@@ -1,0 +1,168 @@
+//! Text dialects end to end over real pseudo-terminals: `buscue
+//! serve-dialect` emulates the adapter firmware, `buscue run --adapter
+//! dialect:...` drives it, and the frames must match an in-process run.
+
+use std::io::{BufRead, BufReader};
+use std::path::Path;
+use std::process::{Child, Command, Stdio};
+use std::time::Duration;
+
+use serde_json::Value;
+
+const BIN: &str = env!("CARGO_BIN_EXE_buscue");
+const PROFILES: &[&str] = &["stepwise", "oneline"];
+
+fn root() -> &'static Path {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Starts `serve-dialect` and returns it with the device path it printed.
+fn serve(profile: &str, extra: &[&str]) -> (Child, String) {
+    let mut child = Command::new(BIN)
+        .current_dir(root())
+        .args(["serve-dialect", profile])
+        .args(extra)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("serve-dialect starts");
+    let mut line = String::new();
+    BufReader::new(child.stdout.take().expect("stdout is piped")).read_line(&mut line).expect("first line");
+    let path = line.trim().to_string();
+    assert!(path.starts_with("/dev/"), "first stdout line is the device path, got `{path}`");
+    (child, path)
+}
+
+struct Run {
+    code: i32,
+    records: Vec<Value>,
+    stderr: String,
+}
+
+fn run(script: &str, adapter: &str) -> Run {
+    let out = Command::new(BIN)
+        .current_dir(root())
+        .args(["run", "--json", "--adapter", adapter, script])
+        .output()
+        .expect("buscue run starts");
+    let records = String::from_utf8_lossy(&out.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap_or_else(|e| panic!("`{l}` is not a JSON record: {e}")))
+        .collect();
+    Run { code: out.status.code().unwrap_or(-1), records, stderr: String::from_utf8_lossy(&out.stderr).into_owned() }
+}
+
+/// Frames with their times removed: transactions, data and ACK patterns.
+fn frames(records: &[Value]) -> Vec<Value> {
+    records
+        .iter()
+        .filter(|r| r["kind"] == "frame")
+        .map(|r| {
+            let mut f = r.clone();
+            let o = f.as_object_mut().expect("a frame is an object");
+            o.remove("t_ns");
+            let out = o.get_mut("outcome").and_then(Value::as_object_mut).expect("a frame has an outcome");
+            out.remove("bus_ns");
+            out.remove("measured_ns");
+            f
+        })
+        .collect()
+}
+
+fn wait(mut child: Child) -> String {
+    for _ in 0..100 {
+        if child.try_wait().expect("wait works").is_some() {
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    let _ = child.kill();
+    let out = child.wait_with_output().expect("serve-dialect output");
+    String::from_utf8_lossy(&out.stderr).into_owned()
+}
+
+fn demo_scripts() -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(root().join("scripts"))
+        .expect("scripts/ exists")
+        .filter_map(|e| e.ok())
+        .map(|e| e.path())
+        .filter(|p| p.extension().is_some_and(|x| x == "lua"))
+        .map(|p| format!("scripts/{}", p.file_name().unwrap_or_default().to_string_lossy()))
+        .collect();
+    v.sort();
+    assert!(v.len() >= 4, "the demo scripts are there: {v:?}");
+    v
+}
+
+#[test]
+fn every_demo_script_gives_the_same_frames_through_each_dialect_as_in_process() {
+    for script in demo_scripts() {
+        let local = run(&script, "sim");
+        assert_eq!(local.code, 0, "{script} in-process: {}", local.stderr);
+        let want = frames(&local.records);
+        assert!(!want.is_empty(), "{script} puts frames on the bus");
+        for profile in PROFILES {
+            let (child, path) = serve(profile, &[]);
+            let remote = run(&script, &format!("dialect:{profile}@{path}"));
+            let served = wait(child);
+            assert_eq!(remote.code, 0, "{script} via {profile}: {}", remote.stderr);
+            let got = frames(&remote.records);
+            assert_eq!(got.len(), want.len(), "{script} via {profile}: frame count");
+            for (i, (g, w)) in got.iter().zip(&want).enumerate() {
+                assert_eq!(g, w, "{script} via {profile}: frame {i} differs");
+            }
+            assert!(served.contains("the peer closed the port"), "{profile} server ended cleanly: {served}");
+        }
+    }
+}
+
+#[test]
+fn unplugging_mid_run_stops_with_the_adapter_exit_code_and_keeps_the_frames() {
+    for profile in PROFILES {
+        // Enough lines for a few transactions, far fewer than the script needs.
+        let (child, path) = serve(profile, &["--hang-up-after", "40"]);
+        let r = run("scripts/climate_bringup.lua", &format!("dialect:{profile}@{path}"));
+        let served = wait(child);
+        assert!(served.contains("hung up as asked"), "{served}");
+        assert_eq!(r.code, 4, "exit code for an adapter/link failure ({profile}): {}", r.stderr);
+        assert!(!r.stderr.contains("panicked"), "{}", r.stderr);
+        assert!(r.stderr.contains("closed or was unplugged") || r.stderr.contains("no reply"), "{}", r.stderr);
+        let f = frames(&r.records);
+        assert!(f.len() >= 2, "{profile}: frames before the unplug are logged ({} of them)", f.len());
+        let last = f.last().expect("at least one frame");
+        assert_eq!(last["outcome"]["fault"]["kind"], "adapter", "{profile}: the last frame is the failed one: {last}");
+        assert!(f[..f.len() - 1].iter().all(|x| x["outcome"]["fault"]["kind"] != "adapter"));
+        let end = r.records.last().expect("an end record");
+        assert_eq!(end["kind"], "end");
+        assert_eq!(end["exit"], 4);
+    }
+}
+
+#[test]
+fn a_silent_port_times_out_with_the_command_named() {
+    use buscue::adapter::dialect::DialectAdapter;
+    use buscue::adapter::dialect_profile::Profile;
+    use serialport::SerialPort as _;
+
+    let (_master, slave) = serialport::TTYPort::pair().expect("a pseudo-terminal");
+    let path = slave.name().expect("slave path");
+    let mut p = Profile::load("stepwise").expect("shipped profile");
+    p.serial.timeout = Duration::from_millis(50);
+    let e = DialectAdapter::open(p, Path::new(&path)).err().expect("nobody answers");
+    let msg = format!("{e:#}");
+    assert!(msg.contains("no reply to `QUIET` within 50 ms"), "{msg}");
+    assert!(msg.contains("init[0]"), "{msg}");
+}
+
+#[test]
+fn a_malformed_profile_is_refused_with_file_line_and_key() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let bad = dir.path().join("bad.toml");
+    let text = std::fs::read_to_string(root().join("adapters/dialect-stepwise.toml")).expect("shipped profile");
+    std::fs::write(&bad, text.replace("parity = \"none\"", "parity = \"mark-ish\"")).expect("write");
+    let line = text.lines().position(|l| l.contains("parity =")).expect("parity line") + 1;
+    let r = run("scripts/climate_bringup.lua", &format!("dialect:{}@/dev/null", bad.display()));
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains(&format!("bad.toml:{line}: key `serial.parity`")), "{}", r.stderr);
+    assert!(r.records.is_empty(), "nothing reaches a bus");
+}
