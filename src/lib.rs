@@ -6,6 +6,7 @@
 pub mod adapter;
 pub mod bus;
 pub mod exit;
+pub mod hal;
 pub mod script;
 pub mod sim;
 pub mod trace;
