@@ -21,7 +21,7 @@ use serde::Deserialize;
 
 use crate::bus::BusSpeed;
 use crate::sim::BenchError;
-use crate::sim::bench::Ctx;
+use crate::sim::bench::{Ctx, check_format};
 
 use super::Capabilities;
 use super::dialect_syntax::{Form, parse};
@@ -331,7 +331,7 @@ impl Profile {
         let cx = Ctx { file, text };
         let raw: Raw = cx.parse(None, "", cx.table()?)?;
         let err = |key: &str, m: String| cx.err(None, key, m);
-        check_format(&raw.format).map_err(|m| err("format", m))?;
+        check_format(&raw.format, FORMAT).map_err(|m| err("format", m))?;
         let form = |key: &str, text: &str, allowed: &[&str]| parse(text, allowed).map_err(|m| err(key, m));
         let opt = |key: &str, text: &Option<String>, allowed: &[&str]| {
             text.as_deref().map(|t| form(key, t, allowed)).transpose()
@@ -554,17 +554,6 @@ impl Profile {
             replies,
         })
     }
-}
-
-fn check_format(format: &str) -> Result<(), String> {
-    let Some(ver) = format.strip_prefix("buscue-dialect/") else {
-        return Err(format!("expected \"{FORMAT}\", found \"{format}\""));
-    };
-    let major = ver.split('.').next().unwrap_or_default();
-    if major != "1" {
-        return Err(format!("dialect format version {ver} is not supported; this buscue reads major version 1"));
-    }
-    Ok(())
 }
 
 #[cfg(test)]

@@ -317,7 +317,7 @@ impl Bench {
     pub fn from_str(text: &str, file: &str) -> Result<Bench, BenchError> {
         let cx = Ctx { file, text };
         let top: Top = cx.parse(None, "", cx.table()?)?;
-        check_format(&top.format).map_err(|m| cx.err(None, "format", m))?;
+        check_format(&top.format, FORMAT).map_err(|m| cx.err(None, "format", m))?;
         let speed: BusSpeed =
             top.speed.parse().map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
         if !(top.stretch_timeout_ms > 0.0 && top.stretch_timeout_ms <= 10_000.0) {
@@ -390,13 +390,16 @@ impl Bench {
     }
 }
 
-fn check_format(format: &str) -> Result<(), String> {
-    let Some(ver) = format.strip_prefix("buscue-bench/") else {
-        return Err(format!("expected \"{FORMAT}\", found \"{format}\""));
+/// Checks a `family/major[.minor]` format tag against `expected`
+/// (`family/N`): the family and the major version must match; a newer
+/// minor version only adds optional keys. Shared with dialect profiles.
+pub(crate) fn check_format(found: &str, expected: &str) -> Result<(), String> {
+    let (family, major) = expected.split_once('/').unwrap_or((expected, ""));
+    let Some(ver) = found.strip_prefix(family).and_then(|r| r.strip_prefix('/')) else {
+        return Err(format!("expected \"{expected}\", found \"{found}\""));
     };
-    let major = ver.split('.').next().unwrap_or_default();
-    if major != "1" {
-        return Err(format!("bench format version {ver} is not supported; this buscue reads major version 1"));
+    if ver.split('.').next().unwrap_or_default() != major {
+        return Err(format!("{family} format version {ver} is not supported; this buscue reads major version {major}"));
     }
     Ok(())
 }
