@@ -81,31 +81,41 @@ fn wait(mut child: Child) -> String {
     String::from_utf8_lossy(&out.stderr).into_owned()
 }
 
-fn demo_scripts() -> Vec<String> {
-    let mut v: Vec<String> = std::fs::read_dir(root().join("scripts"))
-        .expect("scripts/ exists")
+fn lua_in(dir: &str) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(root().join(dir))
+        .unwrap_or_else(|e| panic!("{dir}/ exists: {e}"))
         .filter_map(|e| e.ok())
         .map(|e| e.path())
         .filter(|p| p.extension().is_some_and(|x| x == "lua"))
-        .map(|p| format!("scripts/{}", p.file_name().unwrap_or_default().to_string_lossy()))
+        .map(|p| format!("{dir}/{}", p.file_name().unwrap_or_default().to_string_lossy()))
         .collect();
     v.sort();
-    assert!(v.len() >= 4, "the demo scripts are there: {v:?}");
     v
+}
+
+/// The demo scripts, and the failure demos that fail on the bus (the
+/// runaway loop only tests the script time limit).
+fn scripts() -> Vec<String> {
+    let demos = lua_in("scripts");
+    assert!(demos.len() >= 4, "the demo scripts are there: {demos:?}");
+    let failures: Vec<String> = lua_in("scripts/failures").into_iter().filter(|s| !s.contains("runaway")).collect();
+    assert!(failures.len() >= 3, "the failure demos are there: {failures:?}");
+    demos.into_iter().chain(failures).collect()
 }
 
 #[test]
 fn every_demo_script_gives_the_same_frames_through_each_dialect_as_in_process() {
-    for script in demo_scripts() {
+    for script in scripts() {
         let local = run(&script, "sim");
-        assert_eq!(local.code, 0, "{script} in-process: {}", local.stderr);
+        let expect_code = if script.contains("failures/") { [1, 3] } else { [0, 0] };
+        assert!(expect_code.contains(&local.code), "{script} in-process exit {}: {}", local.code, local.stderr);
         let want = frames(&local.records);
         assert!(!want.is_empty(), "{script} puts frames on the bus");
         for profile in PROFILES {
             let (child, path) = serve(profile, &[]);
             let remote = run(&script, &format!("dialect:{profile}@{path}"));
             let served = wait(child);
-            assert_eq!(remote.code, 0, "{script} via {profile}: {}", remote.stderr);
+            assert_eq!(remote.code, local.code, "{script} via {profile}: {}", remote.stderr);
             let got = frames(&remote.records);
             assert_eq!(got.len(), want.len(), "{script} via {profile}: frame count");
             for (i, (g, w)) in got.iter().zip(&want).enumerate() {
@@ -165,4 +175,43 @@ fn a_malformed_profile_is_refused_with_file_line_and_key() {
     assert_eq!(r.code, 2, "{}", r.stderr);
     assert!(r.stderr.contains(&format!("bad.toml:{line}: key `serial.parity`")), "{}", r.stderr);
     assert!(r.records.is_empty(), "nothing reaches a bus");
+}
+
+#[test]
+fn bus_errors_cross_the_dialects_as_the_same_fault() {
+    // A sensor that stretches past the adapter's patience: the read phase
+    // of the second transaction ends in a clock-stretch timeout.
+    let dir = tempfile::tempdir().expect("temp dir");
+    let bench = dir.path().join("slow.toml");
+    std::fs::write(
+        &bench,
+        r#"format = "buscue-bench/1"
+name = "slow sensor"
+stretch_timeout_ms = 1
+[[device]]
+name = "slow-climate"
+model = "climate-sensor"
+address = 0x44
+busy = "stretch"
+temperature_c = { base = 20.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 1 }
+humidity_pct = { base = 50.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 2 }
+"#,
+    )
+    .expect("write bench");
+    let script = dir.path().join("stretch.lua");
+    std::fs::write(&script, "local s = bus.device(0x44, { width = 16 })\ns:set(0x01, 0x0007)\ns:get(0x03)\n")
+        .expect("write script");
+    let script = script.to_string_lossy().into_owned();
+    let bench_arg = bench.to_string_lossy().into_owned();
+    let local = run(&script, &format!("sim:{bench_arg}"));
+    assert_eq!(local.code, 3, "{}", local.stderr);
+    let want = frames(&local.records);
+    assert_eq!(want.last().expect("frames")["outcome"]["fault"]["kind"], "stretch-timeout");
+    for profile in PROFILES {
+        let (child, path) = serve(profile, &["--bench", &bench_arg]);
+        let remote = run(&script, &format!("dialect:{profile}@{path}"));
+        wait(child);
+        assert_eq!(remote.code, 3, "{profile}: {}", remote.stderr);
+        assert_eq!(frames(&remote.records), want, "{profile}");
+    }
 }

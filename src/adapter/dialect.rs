@@ -317,7 +317,8 @@ impl DialectAdapter {
     fn error_reply(&self, sent: &str, reply: &str) -> Cut {
         if let Some(f) = self.profile.replies.error.as_ref().and_then(|e| e.matches(reply, "")) {
             let word = f.str("fault").unwrap_or_default();
-            return match fault_from_word(word, self.caps.stretch_timeout_us) {
+            let waited = f.num("us").unwrap_or(self.caps.stretch_timeout_us);
+            return match fault_from_word(word, waited) {
                 Some(fault) => Cut::Bus(fault),
                 None => Cut::Link(LinkError::Reply(format!("the adapter reported `{reply}` to `{sent}`"))),
             };

@@ -298,7 +298,7 @@ mod fields {
     pub const WRITE_OP: &[&str] = &["bytes", "count"];
     pub const READ_OP: &[&str] = &["count"];
     pub const TEXT: &[&str] = &["text"];
-    pub const ERROR: &[&str] = &["fault", "op", "text"];
+    pub const ERROR: &[&str] = &["fault", "op", "us", "data", "text"];
     pub const RECOVERED: &[&str] = &["pulses", "sda"];
     pub const DONE: &[&str] = &["data", "us"];
     pub const ADDRESS_NACK: &[&str] = &["op", "data", "us"];

@@ -123,8 +123,17 @@ impl Firmware<'_> {
         self.render(&self.profile.replies.ok, Fields::default())
     }
 
-    fn error(&self, fault: &str, text: String, op: u64, data: Vec<u8>) -> String {
+    fn error(&self, fault: &Fault, op: u64, data: Vec<u8>) -> String {
+        let us = match fault {
+            Fault::StretchTimeout { waited_us } => *waited_us,
+            _ => 0,
+        };
+        self.say_error(fault_word(fault), fault.to_string(), op, us, data)
+    }
+
+    fn say_error(&self, fault: &str, text: String, op: u64, us: u64, data: Vec<u8>) -> String {
         let v = Fields::default()
+            .with("us", num(us))
             .with("fault", Value::Str(fault.into()))
             .with("text", Value::Str(text))
             .with("op", num(op))
@@ -133,7 +142,7 @@ impl Firmware<'_> {
     }
 
     fn refuse(&self, text: impl Into<String>) -> String {
-        self.error("adapter", text.into(), 0, Vec::new())
+        self.say_error("adapter", text.into(), 0, 0, Vec::new())
     }
 
     fn answer(&mut self, line: &str) -> String {
@@ -231,13 +240,13 @@ impl Firmware<'_> {
             Said::Ack(false) => self.render(&r.nack, Fields::default()),
             Said::Byte(b) => self.render(&r.data, Fields::default().with("byte", num(b as u64))),
             Said::Fault(f) => self.bus_error(&f),
-            Said::Outside => self.error("misplaced", format!("`{line}` outside START..STOP"), 0, Vec::new()),
+            Said::Outside => self.say_error("misplaced", format!("`{line}` outside START..STOP"), 0, 0, Vec::new()),
             Said::Unknown => self.refuse(format!("unknown command `{line}`")),
         }
     }
 
     fn bus_error(&self, f: &Fault) -> String {
-        self.error(fault_word(f), f.to_string(), 0, Vec::new())
+        self.error(f, 0, Vec::new())
     }
 
     fn transaction(&mut self, o: &OneLine, line: &str) -> String {
@@ -269,7 +278,7 @@ impl Firmware<'_> {
                 &r.address_nack,
                 Fields::default().with("op", num(*op as u64)).with("data", Value::Bytes(data)),
             ),
-            Some(f) => self.error(fault_word(f), f.to_string(), last, data),
+            Some(f) => self.error(f, last, data),
         }
     }
 }
