@@ -215,3 +215,42 @@ humidity_pct = { base = 50.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 2 
         assert_eq!(frames(&remote.records), want, "{profile}");
     }
 }
+
+#[test]
+fn speed_recovery_and_identity_go_through_both_dialects() {
+    use buscue::adapter::Adapter;
+    use buscue::adapter::dialect::DialectAdapter;
+    use buscue::adapter::dialect_profile::Profile;
+    use buscue::adapter::dialect_serve::{Ended, ServeOptions, serve_dialect};
+    use buscue::bus::BusSpeed;
+    use buscue::sim::{Bench, SimAdapter};
+    use serialport::SerialPort as _;
+
+    for name in PROFILES {
+        let profile = Profile::load(name).expect("shipped profile");
+        let (master, slave) = serialport::TTYPort::pair().expect("a pseudo-terminal");
+        let path = slave.name().expect("slave path");
+        let served = profile.clone();
+        let server = std::thread::spawn(move || {
+            let bench = Bench::from_str(buscue::adapter::DEMO_BENCH, "greenhouse").expect("demo bench");
+            let mut sim = SimAdapter::new(bench, false);
+            let (ended, _) =
+                serve_dialect(&served, master, Some(slave), &mut sim, &ServeOptions::default()).expect("serving works");
+            (ended, sim.speed())
+        });
+        let mut a = DialectAdapter::open(profile, Path::new(&path)).expect("opens");
+        assert_eq!(a.identity().driver, format!("dialect:{name}"));
+        assert!(a.identity().description.contains("greenhouse climate node"), "{:?}", a.identity());
+        assert_eq!(a.set_speed(BusSpeed::FAST).expect("speed command"), BusSpeed::FAST);
+        assert!(a.set_speed(BusSpeed::from_hz(5_000).unwrap()).is_err(), "below the profile's min_speed");
+        let r = a.recover().expect("recover command");
+        assert!(r.released, "{r:?}");
+        let before = a.now();
+        a.delay(Duration::from_millis(3));
+        assert_eq!(a.now() - before, Duration::from_millis(3), "the adapter keeps time");
+        drop(a);
+        let (ended, speed) = server.join().expect("server thread");
+        assert_eq!(ended, Ended::PeerClosed);
+        assert_eq!(speed, BusSpeed::FAST, "{name}: the bench runs at the speed the host set");
+    }
+}
