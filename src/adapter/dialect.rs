@@ -22,6 +22,7 @@
 
 use std::io::{Read, Write};
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use anyhow::{Context, Result, bail};
@@ -78,6 +79,10 @@ pub enum LinkError {
     Reply(String),
 }
 
+/// Longest line either side accepts; a longer run without a line ending is
+/// noise (a wrong baud rate, a firmware in the wrong mode), not a reply.
+pub const MAX_LINE: usize = 4096;
+
 /// Lines over a byte stream: send with the profile's ending, receive up to
 /// it. Shared by the driver and the emulated adapter.
 pub struct LineLink<P> {
@@ -117,6 +122,12 @@ impl<P: Read + Write> LineLink<P> {
                     continue;
                 }
                 return Ok(Some(line));
+            }
+            if self.buf.len() > MAX_LINE {
+                self.buf.clear();
+                return Err(LinkError::Reply(format!(
+                    "a line longer than {MAX_LINE} bytes arrived; is the baud rate right?"
+                )));
             }
             if Instant::now() >= deadline {
                 return Ok(None);
@@ -185,7 +196,8 @@ impl From<LinkError> for Cut {
 
 /// A line-based adapter driven by a profile.
 pub struct DialectAdapter {
-    profile: Profile,
+    /// Shared so a walk can borrow templates while the driver is mutated.
+    profile: Arc<Profile>,
     link: LineLink<Box<dyn serialport::SerialPort>>,
     identity: Identity,
     caps: Capabilities,
@@ -245,8 +257,8 @@ impl DialectAdapter {
             description: profile.description.clone(),
         };
         let mut a = DialectAdapter {
-            speed: BusSpeed::from_hz(caps.max_speed_hz.min(BusSpeed::STANDARD.hz().max(caps.min_speed_hz)) as u64)?,
-            profile,
+            speed: BusSpeed::from_hz(BusSpeed::STANDARD.hz().clamp(caps.min_speed_hz, caps.max_speed_hz) as u64)?,
+            profile: Arc::new(profile),
             link,
             identity,
             caps,
@@ -256,11 +268,12 @@ impl DialectAdapter {
         };
         let _ = a.link.port_mut().clear(serialport::ClearBuffer::Input);
         let file = a.profile.file.clone();
-        for (i, x) in a.profile.init.clone().iter().enumerate() {
+        let p = a.profile.clone();
+        for (i, x) in p.init.iter().enumerate() {
             a.exchange(x.send.render(&Fields::default(), ""), &x.expect)
                 .with_context(|| format!("{name}: init[{i}] of {file}"))?;
         }
-        if let Some(x) = a.profile.identify.clone() {
+        if let Some(x) = &p.identify {
             let f = a
                 .exchange(x.send.render(&Fields::default(), ""), &x.expect)
                 .with_context(|| format!("{name}: identify exchange of {file}"))?;
@@ -277,7 +290,7 @@ impl DialectAdapter {
     }
 
     pub fn profile(&self) -> &Profile {
-        &self.profile
+        self.profile.as_ref()
     }
 
     fn timeout(&self) -> Duration {
@@ -326,10 +339,17 @@ impl DialectAdapter {
         Cut::Link(LinkError::Unexpected { sent: sent.to_string(), got: reply.to_string() })
     }
 
+    /// Marks the link dead; the outcome every later call returns.
     fn fail(&mut self, e: LinkError) -> Outcome {
         let detail = format!("{}: {e}", self.identity.target);
         self.dead = Some(detail.clone());
         Outcome::adapter_failure(detail)
+    }
+
+    /// [`Self::fail`] for calls that return an error instead of an outcome.
+    fn link_down(&mut self, e: LinkError) -> anyhow::Error {
+        self.fail(e);
+        anyhow::anyhow!("{}", self.dead.as_deref().unwrap_or_default())
     }
 
     fn execute_stepwise(&mut self, p: &Primitives, tx: &Transaction) -> Outcome {
@@ -338,7 +358,8 @@ impl DialectAdapter {
         let mut ops = vec![OpOutcome::default(); tx.ops.len()];
         let mut last_op = 0usize;
         let mut phase = PhaseTracker::default();
-        let r = self.profile.replies.clone();
+        let profile = self.profile.clone();
+        let r = &profile.replies;
         let (ok, ack, nack, data) = match (&r.ok, &r.ack, &r.nack, &r.data) {
             (Some(a), Some(b), Some(c), Some(d)) => (a, b, c, d),
             _ => return Outcome::adapter_failure("stepwise profile without its replies"),
@@ -566,23 +587,21 @@ impl Adapter for DialectAdapter {
                 BusSpeed::from_hz(self.caps.max_speed_hz as u64)?
             );
         }
-        let Some(cmd) = self.profile.speed.clone() else {
+        let profile = self.profile.clone();
+        let Some(cmd) = &profile.speed else {
             bail!("profile {} has no commands.speed; the adapter runs at its own clock", self.profile.file);
         };
-        let ok = self.profile.replies.ok.clone().context("profile has no replies.ok")?;
+        let ok = profile.replies.ok.as_ref().context("profile has no replies.ok")?;
         let v = Fields::default()
             .with("hz", Value::Num(speed.hz() as u64))
             .with("khz", Value::Num(speed.hz() as u64 / 1000));
-        match self.primitive(&cmd, &v, &ok, None) {
+        match self.primitive(cmd, &v, ok, None) {
             Ok(_) => {
                 self.speed = speed;
                 Ok(speed)
             }
             Err(Cut::Bus(f)) => bail!("setting the bus clock: {f}"),
-            Err(Cut::Link(e)) => {
-                let o = self.fail(e);
-                bail!("{}", o.fault.map(|f| f.to_string()).unwrap_or_default())
-            }
+            Err(Cut::Link(e)) => Err(self.link_down(e)),
         }
     }
 
@@ -590,9 +609,10 @@ impl Adapter for DialectAdapter {
         if let Some(d) = &self.dead {
             return Outcome::adapter_failure(d.clone());
         }
-        match self.profile.style.clone() {
-            Style::Stepwise(p) => self.execute_stepwise(&p, tx),
-            Style::OneLine(o) => self.execute_one_line(&o, tx),
+        let profile = self.profile.clone();
+        match &profile.style {
+            Style::Stepwise(p) => self.execute_stepwise(p, tx),
+            Style::OneLine(o) => self.execute_one_line(o, tx),
         }
     }
 
@@ -600,21 +620,19 @@ impl Adapter for DialectAdapter {
         if let Some(d) = &self.dead {
             bail!("{d}");
         }
-        let Some(cmd) = self.profile.recover.clone() else {
+        let profile = self.profile.clone();
+        let Some(cmd) = &profile.recover else {
             bail!("profile {} has no commands.recover", self.profile.file);
         };
-        let want = self.profile.replies.recovered.clone().context("profile has no replies.recovered")?;
-        match self.primitive(&cmd, &Fields::default(), &want, None) {
+        let want = profile.replies.recovered.as_ref().context("profile has no replies.recovered")?;
+        match self.primitive(cmd, &Fields::default(), want, None) {
             Ok(Some(f)) => Ok(Recovery {
                 pulses: f.num("pulses").unwrap_or(0).min(9) as u8,
                 released: f.str("sda").is_none_or(|s| s != "low"),
             }),
             Ok(None) => unreachable!("no alternative pattern was given"),
             Err(Cut::Bus(f)) => bail!("bus recovery: {f}"),
-            Err(Cut::Link(e)) => {
-                let o = self.fail(e);
-                bail!("{}", o.fault.map(|f| f.to_string()).unwrap_or_default())
-            }
+            Err(Cut::Link(e)) => Err(self.link_down(e)),
         }
     }
 
@@ -627,14 +645,15 @@ impl Adapter for DialectAdapter {
     }
 
     fn delay(&mut self, d: Duration) {
-        let Some(cmd) = self.profile.delay.clone() else {
+        let profile = self.profile.clone();
+        let Some(cmd) = &profile.delay else {
             std::thread::sleep(d);
             return;
         };
         if self.dead.is_some() {
             return;
         }
-        let Some(ok) = self.profile.replies.ok.clone() else { return };
+        let Some(ok) = &profile.replies.ok else { return };
         let v = Fields::default()
             .with("ns", Value::Num(d.as_nanos() as u64))
             .with("us", Value::Num(d.as_micros() as u64))

@@ -457,6 +457,37 @@ mod tests {
         assert_eq!(c.bytes("bytes"), Some(&[1, 0xFE][..]));
     }
 
+    // Replies come from a device we do not control: no input may panic the
+    // matcher, whatever the bytes. Seeded, so a failure repeats.
+    #[test]
+    fn arbitrary_replies_never_panic() {
+        use crate::adapter::dialect_profile::{Profile, SHIPPED};
+        let mut forms = Vec::new();
+        for (_, file, text) in SHIPPED {
+            let p = Profile::from_str(text, file).unwrap();
+            let r = p.replies;
+            forms.extend(
+                [r.ok, r.ack, r.nack, r.data, r.error, r.recovered, r.done, r.address_nack, r.data_nack]
+                    .into_iter()
+                    .flatten(),
+            );
+        }
+        forms.push(parse("{text}{data}{text} {us}{fault}", &["text", "data", "us", "fault"]).unwrap());
+        let alphabet = b"0123456789ABCDEFabcdef OKERNAXYW=[]{}\t\xff\xc3";
+        let mut rng = crate::sim::rng::SplitMix64::new(0x5EED);
+        let mut matched = 0;
+        for _ in 0..5_000 {
+            let len = (rng.next_u64() % 24) as usize;
+            let bytes: Vec<u8> = (0..len).map(|_| alphabet[(rng.next_u64() as usize) % alphabet.len()]).collect();
+            let line = String::from_utf8_lossy(&bytes);
+            for f in &forms {
+                matched += f.matches(&line, "").is_some() as usize;
+                let _ = f.match_prefix(&line, 0, " ");
+            }
+        }
+        assert!(matched > 0, "some random lines do match the catch-all pattern");
+    }
+
     #[test]
     fn refuses_unknown_or_misplaced_fields() {
         let e = parse("A{bite}", &["byte"]).unwrap_err();
