@@ -318,3 +318,73 @@ pub fn parse_transaction(o: &OneLine, line: &str) -> Result<Transaction, String>
     }
     Ok(Transaction::new(address, ops))
 }
+
+#[cfg(test)]
+mod tests {
+    use std::io::Cursor;
+
+    use super::*;
+    use crate::sim::Bench;
+
+    /// Commands in, replies out, end of input = the peer closing.
+    struct Duplex {
+        input: Cursor<Vec<u8>>,
+        output: Vec<u8>,
+    }
+
+    impl Read for Duplex {
+        fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+            self.input.read(buf)
+        }
+    }
+
+    impl Write for Duplex {
+        fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+            self.output.extend_from_slice(buf);
+            Ok(buf.len())
+        }
+        fn flush(&mut self) -> std::io::Result<()> {
+            Ok(())
+        }
+    }
+
+    fn transcript(profile: &str, commands: &[&str]) -> Vec<String> {
+        let p = Profile::load(profile).unwrap();
+        let input: String = commands.iter().map(|c| format!("{c}{}", p.serial.line_ending)).collect();
+        let mut d = Duplex { input: Cursor::new(input.into_bytes()), output: Vec::new() };
+        let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse").unwrap();
+        let mut sim = SimAdapter::new(bench, false);
+        let (ended, stats) = serve_dialect(&p, &mut d, None, &mut sim, &ServeOptions::default()).unwrap();
+        assert_eq!(ended, Ended::PeerClosed);
+        assert_eq!(stats.commands as usize, commands.len());
+        let out = String::from_utf8(d.output).unwrap();
+        out.split(p.serial.line_ending).filter(|l| !l.is_empty()).map(str::to_string).collect()
+    }
+
+    // The stepwise exchange shown in adapters/DIALECTS.md: the climate
+    // sensor's ID register (0x5E11) read a primitive at a time.
+    #[test]
+    fn stepwise_register_read_as_documented() {
+        let got = transcript("stepwise", &["OPEN", "ADDR 88", "PUT 00", "REOPEN", "ADDR 89", "TAKE+", "TAKE-", "HALT"]);
+        assert_eq!(got, ["K", "A", "A", "K", "A", "= 5E", "= 11", "K"]);
+    }
+
+    #[test]
+    fn stepwise_nacks_faults_and_nonsense() {
+        let got = transcript("stepwise", &["OPEN", "ADDR 26", "HALT", "PUT 01", "FLY", "WHOAMI"]);
+        assert_eq!(got[..3], ["K", "N", "K"], "nobody at 0x13");
+        assert!(got[3].starts_with("E misplaced"), "{got:?}");
+        assert!(got[4].starts_with("E adapter") && got[4].contains("unknown command `FLY`"), "{got:?}");
+        assert!(got[5].starts_with("I AM buscue emulated stepwise adapter"), "{got:?}");
+    }
+
+    #[test]
+    fn one_line_replies() {
+        let got = transcript("oneline", &["X 44 W00 R2", "X 13 W00", "X 44 W00 12", "X 44 W0012", "RATE 400"]);
+        assert_eq!(got[0], "OK 5E11 T475", "475 us at 100 kHz, as adapters/DIALECTS.md shows");
+        assert_eq!(got[1], "NA 0 ");
+        assert!(got[2].starts_with("ERR adapter"), "two bytes need no separator in this dialect: {got:?}");
+        assert_eq!(got[3], "ND 0 1 ", "ID is read-only: the value byte is NACKed");
+        assert_eq!(got[4], "OK");
+    }
+}
