@@ -108,7 +108,9 @@ impl<P: Read + Write> LineLink<P> {
 
     /// The next line within `timeout`, or `Ok(None)` when none came.
     pub fn recv(&mut self, timeout: Duration) -> Result<Option<String>, LinkError> {
-        let deadline = Instant::now() + timeout;
+        let now = Instant::now();
+        // A deadline past what the clock can hold is no deadline.
+        let deadline = now.checked_add(timeout).unwrap_or(now + Duration::from_secs(86_400 * 365));
         let term = *self.ending.as_bytes().last().unwrap_or(&b'\n');
         loop {
             if let Some(i) = self.buf.iter().position(|b| *b == term) {
@@ -660,7 +662,7 @@ impl Adapter for DialectAdapter {
             .with("ms", Value::Num(d.as_millis() as u64));
         // The adapter waits before it answers; allow for that on top of the
         // reply timeout.
-        let timeout = self.timeout() + d;
+        let timeout = self.timeout().saturating_add(d);
         let line = cmd.render(&v, "");
         let r = self.link.ask(&line, timeout).and_then(|reply| match ok.matches(&reply, "") {
             Some(_) => Ok(()),
