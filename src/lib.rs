@@ -7,6 +7,7 @@ pub mod adapter;
 pub mod bus;
 pub mod electrical;
 pub mod exit;
+pub mod hal;
 pub mod script;
 pub mod sim;
 pub mod smbus;

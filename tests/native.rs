@@ -106,6 +106,21 @@ fn served_frames_carry_measured_time() {
     assert!(frame["outcome"]["bus_ns"].as_u64().unwrap() > 0);
 }
 
+#[test]
+fn smbus_block_reads_are_refused_clearly_over_the_native_protocol() {
+    // Protocol version 1 carries fixed-length reads only (its adapter side
+    // runs on embedded-hal); a Block Read needs the count byte first.
+    let served = serve(&[]);
+    let out = run("scripts/battery_telemetry.lua", &format!("serial:{}", served.path), &[]);
+    assert_eq!(out.status.code(), Some(4));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("counted read"), "{err}");
+    let frames: Vec<Value> = records(&out.stdout).into_iter().filter(|r| r["kind"] == "frame").collect();
+    assert_eq!(frames.len(), 7, "six Read Word/Byte exchanges, then the refused Block Read");
+    assert!(frames[..6].iter().all(|f| f["outcome"]["fault"].is_null()));
+    assert_eq!(frames[6]["outcome"]["fault"]["kind"], "adapter");
+}
+
 /// A served bench in this process, so the test can look at the board.
 fn serve_in_process(faults: LinkFaults) -> (String, Arc<AtomicBool>, std::thread::JoinHandle<(ServeEnd, u64, u64)>) {
     let (master, slave, path) = pty().unwrap();

@@ -18,6 +18,11 @@
 //!   virtual unless paced, so scripts that sleep run instantly in tests.
 //! - [`Adapter::close`] leaves the bus idle (STOP sent, lines released).
 
+pub mod dialect;
+pub mod dialect_profile;
+pub mod dialect_serve;
+pub mod dialect_syntax;
+
 use std::time::Duration;
 
 use anyhow::{Context, Result, bail};
@@ -108,6 +113,9 @@ pub enum AdapterSpec {
     /// `serial:PATH[,key=value...]` or a bare `/dev/...` path: a serial
     /// port speaking the native protocol (adapters/PROTOCOL.md).
     Native { path: String, settings: NativeSettings },
+    /// `dialect:PROFILE@PORT[,key=value...]`: a line-based adapter firmware
+    /// described by a profile (a shipped name or a file), on a serial port.
+    Dialect { profile: String, path: std::path::PathBuf, overrides: Vec<(String, String)> },
 }
 
 impl AdapterSpec {
@@ -129,9 +137,12 @@ impl AdapterSpec {
         if t.starts_with("/dev/") {
             return parse_native(t);
         }
+        if let Some(rest) = t.strip_prefix("dialect:") {
+            return dialect::parse_spec(rest);
+        }
         bail!(
-            "`{t}` is not an adapter: use `sim` for the built-in bench, `sim:PATH` for a bench file, or \
-             `serial:PORT[,baud=N,...]` for a native serial adapter"
+            "`{t}` is not an adapter: use `sim` for the built-in bench, `sim:PATH` for a bench file, \
+             `serial:PORT[,baud=N,...]` for a native serial adapter or `dialect:PROFILE@PORT` for a text-dialect adapter"
         )
     }
 }
@@ -162,10 +173,11 @@ pub struct OpenOptions {
 
 /// Opens the driver an [`AdapterSpec`] names.
 pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> {
-    if let AdapterSpec::Native { path, settings } = spec {
-        return Ok(Box::new(NativeAdapter::open(path, settings.clone())?));
+    match spec {
+        AdapterSpec::Native { path, settings } => Ok(Box::new(NativeAdapter::open(path, settings.clone())?)),
+        AdapterSpec::Dialect { profile, path, overrides } => Ok(Box::new(dialect::open(profile, path, overrides)?)),
+        _ => Ok(Box::new(open_sim(spec, opts)?)),
     }
-    Ok(Box::new(open_sim(spec, opts)?))
 }
 
 /// Opens a simulated bench (`sim`, `sim:PATH`) as its concrete type, for
@@ -180,6 +192,7 @@ pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<crate::sim::Si
             Bench::from_str(&text, &path.display().to_string())?
         }
         AdapterSpec::Native { path, .. } => bail!("{path} is a serial port, not a simulated bench"),
+        AdapterSpec::Dialect { path, .. } => bail!("{} is a serial port, not a simulated bench", path.display()),
     };
     Ok(SimAdapter::new(bench, opts.realtime))
 }

@@ -11,4 +11,4 @@ pub mod transaction;
 pub use address::{Address, AddressError, Reserved};
 pub use outcome::{Fault, LineFault, OpOutcome, Outcome};
 pub use speed::{BusSpeed, Mode};
-pub use transaction::{Direction, Event, Operation, ShapeError, Transaction};
+pub use transaction::{Direction, Event, Operation, PhaseTracker, ShapeError, Transaction};

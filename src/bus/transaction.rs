@@ -253,6 +253,29 @@ impl Transaction {
     }
 }
 
+/// Which operation an address byte opens, for drivers and models that walk
+/// [`Transaction::events`] one event at a time and must report a NACK
+/// against the right operation.
+///
+/// Feed it every [`Event::AddressByte`] in order. The low byte of a 10-bit
+/// address carries A7..A0, not R/W, so it is taken as part of the write
+/// phase its first byte announced (UM10204 §3.1.11).
+#[derive(Debug, Clone, Default)]
+pub struct PhaseTracker {
+    op: usize,
+    ten_low_next: bool,
+}
+
+impl PhaseTracker {
+    /// The direction of the phase and the first operation it carries.
+    pub fn address_byte(&mut self, tx: &Transaction, byte: u8) -> (Direction, usize) {
+        let dir = if self.ten_low_next || byte & 1 == 0 { Direction::Write } else { Direction::Read };
+        self.op = (self.op..tx.ops.len()).find(|&i| tx.ops[i].direction() == dir).unwrap_or(self.op);
+        self.ten_low_next = tx.address.is_ten_bit() && dir == Direction::Write && !self.ten_low_next;
+        (dir, self.op)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::Event::*;
@@ -395,6 +418,23 @@ mod tests {
         };
         assert_eq!(t.events_observed(&outcome), vec![Start, AddressByte(0x17), rb(0, 0, true), rb(0, 1, false), Stop]);
         assert_eq!(t.byte_counts(), (0, 33));
+    }
+
+    #[test]
+    fn phase_tracker_names_the_operation_each_address_byte_opens() {
+        let t = Transaction::new(Address::Ten(0x2A5), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
+        let mut p = PhaseTracker::default();
+        let phases: Vec<_> = t
+            .events()
+            .into_iter()
+            .filter_map(|e| match e {
+                AddressByte(b) => Some(p.address_byte(&t, b)),
+                _ => None,
+            })
+            .collect();
+        // 0xF4 and 0xA5 (the low byte, whose bit 0 is A0 = 1) open the write
+        // phase; 0xF5 after Sr opens the read at operation 1.
+        assert_eq!(phases, vec![(Direction::Write, 0), (Direction::Write, 0), (Direction::Read, 1)]);
     }
 
     #[test]

@@ -5,6 +5,7 @@ mod run;
 mod scan;
 #[cfg(unix)]
 mod serve;
+mod serve_dialect;
 mod traces;
 
 use std::sync::Arc;
@@ -50,14 +51,18 @@ pub enum Command {
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
+    /// Serve a simulated bench on a pseudo-terminal in a text dialect;
+    /// prints the device path on the first line.
+    ServeDialect(serve_dialect::ServeDialectArgs),
 }
 
 /// Options every bus-facing command takes.
 #[derive(Args, Debug, Clone)]
 pub struct BusArgs {
     /// Adapter: `sim` (the built-in greenhouse bench, the default),
-    /// `sim:PATH` for another bench file, or `serial:PORT[,baud=N,...]`
-    /// (or a bare /dev/ path) for a native serial adapter.
+    /// `sim:PATH` for another bench file, `serial:PORT[,baud=N,...]` (or a
+    /// bare /dev/ path) for a native serial adapter, or
+    /// `dialect:PROFILE@PORT` for a text-dialect adapter on a serial port.
     #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
     pub adapter: AdapterSpec,
     /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
@@ -149,6 +154,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
+        Command::ServeDialect(a) => serve_dialect::serve(a),
     }
 }
 

@@ -247,7 +247,7 @@ pub struct Bench {
 
 /// Finds the line of `key` inside the n-th `[[device]]` block (or the top
 /// level when `device` is None); falls back to the block's header line.
-fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
+pub fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
     let leaf = key.rsplit(['.', '[']).next().unwrap_or(key).trim_end_matches(']');
     let leaf =
         if leaf.chars().all(|c| c.is_ascii_digit()) { key.split(['.', '[']).next().unwrap_or(key) } else { leaf };
@@ -281,13 +281,23 @@ fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
     header
 }
 
-struct Ctx<'a> {
-    file: &'a str,
-    text: &'a str,
+/// Error context for one TOML file; shared with the dialect profile loader.
+pub(crate) struct Ctx<'a> {
+    pub(crate) file: &'a str,
+    pub(crate) text: &'a str,
 }
 
 impl Ctx<'_> {
-    fn err(&self, device: Option<usize>, key: &str, message: impl Into<String>) -> BenchError {
+    /// The file as a TOML table; a syntax error names its line.
+    pub(crate) fn table(&self) -> Result<toml::Table, BenchError> {
+        let text = self.text;
+        text.parse().map_err(|e: toml::de::Error| {
+            let line = e.span().map(|s| text[..s.start.min(text.len())].lines().count().max(1));
+            BenchError { file: self.file.to_string(), line, key: String::new(), message: e.message().to_string() }
+        })
+    }
+
+    pub(crate) fn err(&self, device: Option<usize>, key: &str, message: impl Into<String>) -> BenchError {
         BenchError {
             file: self.file.to_string(),
             line: locate(self.text, device, key),
@@ -296,7 +306,7 @@ impl Ctx<'_> {
         }
     }
 
-    fn parse<T: DeserializeOwned>(
+    pub(crate) fn parse<T: DeserializeOwned>(
         &self,
         device: Option<usize>,
         prefix: &str,
@@ -304,6 +314,7 @@ impl Ctx<'_> {
     ) -> Result<T, BenchError> {
         serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| {
             let path = e.path().to_string();
+            let path_named_table = path != "." && !path.is_empty();
             let key = if path == "." {
                 prefix.to_string()
             } else if prefix.is_empty() {
@@ -312,13 +323,20 @@ impl Ctx<'_> {
                 format!("{prefix}.{path}")
             };
             let msg = e.into_inner().to_string();
-            let msg = msg.trim().lines().last().unwrap_or_default().to_string();
+            // Nested tables add "in `table`" lines after the message proper.
+            let msg = msg.trim().lines().rfind(|l| !l.starts_with("in `")).unwrap_or_default().to_string();
             // A missing or unknown field names itself in the message.
             let named = msg.split('`').nth(1).map(str::to_string);
             let key = match (&named, key.is_empty() || key == ".") {
                 (Some(n), true) => n.clone(),
                 (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
-                    if prefix.is_empty() { n.clone() } else { format!("{prefix}.{n}") }
+                    if key.ends_with(n.as_str()) {
+                        key
+                    } else if prefix.is_empty() && !path_named_table {
+                        n.clone()
+                    } else {
+                        format!("{key}.{n}")
+                    }
                 }
                 _ => key,
             };
@@ -331,12 +349,8 @@ impl Bench {
     /// Parses and validates a bench file's text; `file` names it in errors.
     pub fn from_str(text: &str, file: &str) -> Result<Bench, BenchError> {
         let cx = Ctx { file, text };
-        let table: toml::Table = text.parse().map_err(|e: toml::de::Error| {
-            let line = e.span().map(|s| text[..s.start.min(text.len())].lines().count().max(1));
-            BenchError { file: file.to_string(), line, key: String::new(), message: e.message().to_string() }
-        })?;
-        let top: Top = cx.parse(None, "", table)?;
-        check_format(&top.format).map_err(|m| cx.err(None, "format", m))?;
+        let top: Top = cx.parse(None, "", cx.table()?)?;
+        check_format(&top.format, FORMAT).map_err(|m| cx.err(None, "format", m))?;
         let speed: BusSpeed =
             top.speed.parse().map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
         if !(top.stretch_timeout_ms > 0.0 && top.stretch_timeout_ms <= 10_000.0) {
@@ -409,13 +423,16 @@ impl Bench {
     }
 }
 
-fn check_format(format: &str) -> Result<(), String> {
-    let Some(ver) = format.strip_prefix("buscue-bench/") else {
-        return Err(format!("expected \"{FORMAT}\", found \"{format}\""));
+/// Checks a `family/major[.minor]` format tag against `expected`
+/// (`family/N`): the family and the major version must match; a newer
+/// minor version only adds optional keys. Shared with dialect profiles.
+pub(crate) fn check_format(found: &str, expected: &str) -> Result<(), String> {
+    let (family, major) = expected.split_once('/').unwrap_or((expected, ""));
+    let Some(ver) = found.strip_prefix(family).and_then(|r| r.strip_prefix('/')) else {
+        return Err(format!("expected \"{expected}\", found \"{found}\""));
     };
-    let major = ver.split('.').next().unwrap_or_default();
-    if major != "1" {
-        return Err(format!("bench format version {ver} is not supported; this buscue reads major version 1"));
+    if ver.split('.').next().unwrap_or_default() != major {
+        return Err(format!("{family} format version {ver} is not supported; this buscue reads major version {major}"));
     }
     Ok(())
 }

@@ -1,10 +1,18 @@
 //! The simulated bus: walks a transaction's events against the device
 //! models, applies injected faults, and accounts bus time.
+//!
+//! Two ways in, one path: [`SimBus::execute`] takes a whole transaction;
+//! the `wire_*` steps take one wire event at a time (START, address byte,
+//! data byte, STOP) for a primitive-level dialect served on a serial port.
+//! `execute` is built on the steps, so both agree by construction.
 
 use std::time::Duration;
 
+use crate::bus::address::TEN_BIT_PREFIX;
 use crate::bus::timing::breakdown_events;
-use crate::bus::{Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, Transaction};
+use crate::bus::{
+    Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, PhaseTracker, Transaction,
+};
 
 use super::clock::Clock;
 use super::device::{Answer, Device};
@@ -90,102 +98,57 @@ impl SimBus {
         }
     }
 
+    /// Puts a whole transaction on the bus by walking its events through
+    /// the [`Wire`] steps, so whole-transaction and primitive-level callers
+    /// see the same devices, faults and bus time.
     pub fn execute(&mut self, tx: &Transaction) -> Outcome {
-        let start = self.clock.now();
+        let mut w = Wire::default();
+        let mut ops: Vec<OpOutcome> = vec![OpOutcome::default(); tx.ops.len()];
+        let mut last_op = 0usize;
+        let mut phase = PhaseTracker::default();
+        let mut fault = self.wire_start(&mut w).err();
         // Counted reads learn their length from the target's count byte,
         // so the plan is re-made from the transaction when one arrives;
         // the events so far stay the same (Transaction contract).
         let mut counts: Vec<Option<u8>> = vec![None; tx.ops.len()];
         let mut events = tx.events();
-        let mut done: Vec<Event> = Vec::with_capacity(events.len());
-        let mut ops: Vec<OpOutcome> = vec![OpOutcome::default(); tx.ops.len()];
-        let mut last_op = 0usize;
-        let mut stretch = Duration::ZERO;
-        let mut fault = None;
-        let target = self.find(tx.address);
-        let mut selected = false;
-        let mut phase_op = 0usize;
-        let mut ten_low_next = false;
-
-        if self.sda_held_by.is_some() {
-            fault = Some(Fault::Bus { line: LineFault::SdaStuckLow });
-            done.push(Event::Start);
-        } else if let Some((p, rng)) = self.arbitration.as_mut()
-            && rng.chance(*p)
-        {
-            fault = Some(Fault::ArbitrationLost);
-            done.extend(events.iter().take(2).copied());
-        }
-
-        let addr_only_nack = target
-            .is_some_and(|i| self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability)));
-
+        let mut next = 1; // events[0] is the START wire_start made
         if fault.is_none() {
-            let mut next = 0;
             while let Some(&e) = events.get(next) {
                 next += 1;
-                done.push(e);
-                let now = start + stretch;
                 match e {
-                    Event::Start | Event::RepeatedStart => {}
+                    Event::Start | Event::RepeatedStart => self.wire_restart(&mut w),
                     Event::AddressByte(byte) => {
-                        // The low byte of a 10-bit address carries A0, not R/W.
-                        let dir = if ten_low_next || byte & 1 == 0 { Direction::Write } else { Direction::Read };
-                        phase_op = (phase_op..tx.ops.len()).find(|&i| tx.ops[i].direction() == dir).unwrap_or(phase_op);
-                        last_op = last_op.max(phase_op);
-                        let Some(i) = target.filter(|_| !addr_only_nack) else {
-                            fault = Some(Fault::AddressNack { op: phase_op, direction: dir });
-                            break;
-                        };
-                        // A 10-bit write phase is two address bytes: the
-                        // first only announces the target, the low byte
-                        // selects it (UM10204 §3.1.11).
-                        if tx.address.is_ten_bit() && dir == Direction::Write && !ten_low_next {
-                            ten_low_next = true;
-                            continue;
-                        }
-                        ten_low_next = false;
-                        match self.slots[i].device.select(dir, now) {
-                            Answer::Nack => {
-                                fault = Some(Fault::AddressNack { op: phase_op, direction: dir });
+                        let (direction, op) = phase.address_byte(tx, byte);
+                        last_op = last_op.max(op);
+                        match self.wire_address(&mut w, byte) {
+                            Ok(true) => {}
+                            Ok(false) => {
+                                fault = Some(Fault::AddressNack { op, direction });
                                 break;
                             }
-                            Answer::Ack => {}
-                            Answer::AckAfter(d) => {
-                                if d > self.stretch_timeout {
-                                    stretch += self.stretch_timeout;
-                                    fault = Some(Fault::StretchTimeout {
-                                        waited_us: self.stretch_timeout.as_micros() as u64,
-                                    });
-                                    break;
-                                }
-                                stretch += d;
+                            Err(f) => {
+                                fault = Some(f);
+                                break;
                             }
                         }
-                        selected = true;
                     }
                     Event::WriteByte { op, index, byte } => {
                         last_op = op;
-                        let dev = &mut self.slots[target.expect("selected")].device;
-                        let ack = dev.write(byte, now);
+                        let ack = self.wire_write(&mut w, byte);
                         ops[op].acks.push(ack);
                         if !ack {
                             fault = Some(Fault::DataNack { op, index });
                             break;
                         }
                     }
-                    Event::ReadByte { op, index, .. } => {
+                    Event::ReadByte { op, index, ack } => {
                         last_op = op;
-                        let dev = &mut self.slots[target.expect("selected")].device;
-                        let byte = dev.read(now);
+                        let byte = self.wire_read(&mut w, ack);
                         ops[op].data.push(byte);
                         if index == 0 && tx.ops[op].is_counted() {
                             counts[op] = Some(byte);
                             events = tx.events_resolved(|o| counts[o]);
-                            // The count byte's own ACK/NACK depends on it.
-                            if let Some(last) = done.last_mut() {
-                                *last = events[next - 1];
-                            }
                         }
                     }
                     Event::Stop => {}
@@ -194,13 +157,116 @@ impl SimBus {
         }
         if fault.is_some() {
             ops.truncate(last_op + 1);
-            if done.last() != Some(&Event::Stop) {
-                done.push(Event::Stop);
+        }
+        let bus_time = self.wire_stop(w);
+        Outcome { ops, bus_time, measured: None, fault }
+    }
+
+    /// START. Fails when a device holds SDA low (the controller cannot
+    /// make a START).
+    pub fn wire_start(&mut self, w: &mut Wire) -> Result<(), Fault> {
+        *w = Wire { start: self.clock.now(), ..Wire::default() };
+        w.done.push(Event::Start);
+        if self.sda_held_by.is_some() {
+            return Err(Fault::Bus { line: LineFault::SdaStuckLow });
+        }
+        Ok(())
+    }
+
+    /// A repeated START.
+    pub fn wire_restart(&mut self, w: &mut Wire) {
+        w.done.push(Event::RepeatedStart);
+    }
+
+    /// An address byte (R/W included); `Ok(true)` when a device ACKs it.
+    /// Arbitration is contested on the first address byte; a 10-bit
+    /// address selects its device on the low byte (UM10204 §3.1.11).
+    pub fn wire_address(&mut self, w: &mut Wire, byte: u8) -> Result<bool, Fault> {
+        w.done.push(Event::AddressByte(byte));
+        if !w.addressed {
+            w.addressed = true;
+            if let Some((p, rng)) = self.arbitration.as_mut()
+                && rng.chance(*p)
+            {
+                return Err(Fault::ArbitrationLost);
             }
         }
-        if let Some(i) = target.filter(|_| selected) {
+        let (dir, target) = if let Some(high) = w.ten_high.take() {
+            let t = self.find(Address::Ten(((high as u16) << 8) | byte as u16));
+            w.ten_target = t;
+            (Direction::Write, t)
+        } else if byte & 0xF8 == TEN_BIT_PREFIX {
+            let high = (byte >> 1) & 0b11;
+            if byte & 1 == 0 {
+                // The first byte only announces a 10-bit target: someone
+                // with these high bits answers it.
+                w.ten_high = Some(high);
+                let any =
+                    self.slots.iter().any(|s| matches!(s.device.address(), Address::Ten(a) if (a >> 8) as u8 == high));
+                return Ok(any);
+            }
+            let t = w
+                .ten_target
+                .filter(|&i| matches!(self.slots[i].device.address(), Address::Ten(a) if (a >> 8) as u8 == high));
+            (Direction::Read, t)
+        } else {
+            let dir = if byte & 1 == 0 { Direction::Write } else { Direction::Read };
+            (dir, self.find(Address::Seven(byte >> 1)))
+        };
+        let Some(i) = target else { return Ok(false) };
+        if w.target != Some(i) {
+            w.target = Some(i);
+            w.forced_nack = self.slots[i].faults.as_mut().is_some_and(|f| f.rng.chance(f.address_nack_probability));
+        }
+        if w.forced_nack {
+            return Ok(false);
+        }
+        match self.slots[i].device.select(dir, w.now()) {
+            Answer::Nack => Ok(false),
+            Answer::Ack => {
+                w.selected = true;
+                Ok(true)
+            }
+            Answer::AckAfter(d) => {
+                if d > self.stretch_timeout {
+                    w.stretch += self.stretch_timeout;
+                    return Err(Fault::StretchTimeout { waited_us: self.stretch_timeout.as_micros() as u64 });
+                }
+                w.stretch += d;
+                w.selected = true;
+                Ok(true)
+            }
+        }
+    }
+
+    /// A data byte from the controller; true = ACK. Nobody selected: NACK.
+    pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> bool {
+        w.done.push(Event::WriteByte { op: 0, index: 0, byte });
+        match w.target.filter(|_| w.selected) {
+            Some(i) => self.slots[i].device.write(byte, w.now()),
+            None => false,
+        }
+    }
+
+    /// A data byte from the target, answered with ACK or NACK. With nobody
+    /// selected the pull-ups leave SDA high: 0xFF (common practice).
+    pub fn wire_read(&mut self, w: &mut Wire, ack: bool) -> u8 {
+        w.done.push(Event::ReadByte { op: 0, index: 0, ack });
+        match w.target.filter(|_| w.selected) {
+            Some(i) => self.slots[i].device.read(w.now()),
+            None => 0xFF,
+        }
+    }
+
+    /// STOP: ends the transaction, advances the clock by its bus time and
+    /// returns that time.
+    pub fn wire_stop(&mut self, mut w: Wire) -> Duration {
+        if w.done.last() != Some(&Event::Stop) {
+            w.done.push(Event::Stop);
+        }
+        if let Some(i) = w.target.filter(|_| w.selected) {
             let slot = &mut self.slots[i];
-            slot.device.stop(start + stretch);
+            slot.device.stop(w.now());
             slot.executions += 1;
             if let Some(f) = slot.faults.as_mut()
                 && f.hold_sda_after.is_some_and(|n| slot.executions >= n)
@@ -208,8 +274,31 @@ impl SimBus {
                 self.sda_held_by = Some(i);
             }
         }
-        let bus_time = breakdown_events(&done, self.speed).total() + stretch;
+        let bus_time = breakdown_events(&w.done, self.speed).total() + w.stretch;
         self.clock.advance(bus_time);
-        Outcome { ops, bus_time, measured: None, fault }
+        bus_time
+    }
+}
+
+/// One transaction in progress, driven a wire event at a time through the
+/// `wire_*` methods of [`SimBus`]: START first, STOP last.
+#[derive(Debug, Default)]
+pub struct Wire {
+    start: Duration,
+    stretch: Duration,
+    done: Vec<Event>,
+    addressed: bool,
+    target: Option<usize>,
+    selected: bool,
+    forced_nack: bool,
+    /// A9..A8 of a 10-bit address whose low byte comes next.
+    ten_high: Option<u8>,
+    /// The device a 10-bit write phase selected, for a later read phase.
+    ten_target: Option<usize>,
+}
+
+impl Wire {
+    fn now(&self) -> Duration {
+        self.start + self.stretch
     }
 }

@@ -62,6 +62,12 @@ impl SimAdapter {
     pub fn bus(&self) -> &SimBus {
         &self.bus
     }
+
+    /// The simulated bus, for callers that drive it one wire event at a
+    /// time (a primitive-level dialect served on a serial port).
+    pub fn bus_mut(&mut self) -> &mut SimBus {
+        &mut self.bus
+    }
 }
 
 impl Adapter for SimAdapter {

@@ -1,0 +1,390 @@
+//! The emulated dialect adapter: a simulated bench served on a serial
+//! device (the master side of a pseudo-terminal) speaking a profile's
+//! dialect, so the same profile that drives a real firmware also drives
+//! its stand-in and the host driver is tested end to end.
+//!
+//! Contract:
+//! - Each command line is matched against the profile's command templates
+//!   (read as patterns) and answered with exactly one line rendered from
+//!   the profile's reply patterns; a line that matches no command is
+//!   answered with the error pattern (fault word `adapter`).
+//! - A stepwise profile drives the simulated bus one wire event at a time
+//!   (the `wire_*` steps of [`SimBus`](crate::sim::bus::SimBus)); a
+//!   one-line profile parses the whole transaction and executes it.
+//! - Serving ends when the peer closes the port (after it has first
+//!   spoken), on an interrupt, or after `hang_up_after` command lines (a
+//!   simulated unplug for tests).
+//!
+//! Independent of the command line: `buscue serve-dialect` is one caller.
+
+use std::io::{Read, Write};
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
+
+use anyhow::Result;
+
+use crate::bus::{Address, BusSpeed, Fault, Operation, Transaction};
+use crate::sim::SimAdapter;
+use crate::sim::bus::Wire;
+
+use super::Adapter;
+use super::dialect::{LineLink, LinkError, fault_word};
+use super::dialect_profile::{OneLine, Primitives, Profile, Style};
+use super::dialect_syntax::{Fields, Form, Value};
+
+/// How a serving session behaves.
+#[derive(Debug, Clone, Default)]
+pub struct ServeOptions {
+    /// Set to stop serving (Ctrl-C).
+    pub interrupt: Arc<AtomicBool>,
+    /// Close the port after this many command lines, as if unplugged.
+    pub hang_up_after: Option<u64>,
+}
+
+/// What a serving session did.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct ServeStats {
+    pub commands: u64,
+    pub transactions: u64,
+}
+
+/// Why serving stopped.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Ended {
+    PeerClosed,
+    Interrupted,
+    HungUp,
+}
+
+/// Serves `adapter`'s bench on `port` in `profile`'s dialect. `hold` is
+/// the other end of a pseudo-terminal pair, kept open until the peer first
+/// speaks so that the port does not read as closed before anyone opened it.
+pub fn serve_dialect<P: Read + Write>(
+    profile: &Profile,
+    port: P,
+    hold: Option<serialport::TTYPort>,
+    adapter: &mut SimAdapter,
+    opts: &ServeOptions,
+) -> Result<(Ended, ServeStats)> {
+    let mut hold = hold;
+    let mut link = LineLink::new(port, profile.serial.line_ending, Vec::new());
+    let mut fw = Firmware { profile, adapter, wire: None, stats: ServeStats::default() };
+    loop {
+        if opts.interrupt.load(Ordering::Relaxed) {
+            return Ok((Ended::Interrupted, fw.stats));
+        }
+        let line = match link.recv(Duration::from_millis(100)) {
+            Ok(Some(l)) => l,
+            Ok(None) => continue,
+            Err(LinkError::Closed(_)) => return Ok((Ended::PeerClosed, fw.stats)),
+            // Noise without a line ending: dropped, as a firmware would.
+            Err(_) => continue,
+        };
+        // The peer has the port open now: let go of our end so that its
+        // closing reads as a hang-up.
+        drop(hold.take());
+        if opts.hang_up_after.is_some_and(|n| fw.stats.commands >= n) {
+            return Ok((Ended::HungUp, fw.stats));
+        }
+        fw.stats.commands += 1;
+        let reply = fw.answer(&line);
+        if let Err(LinkError::Closed(_)) = link.send(&reply) {
+            return Ok((Ended::PeerClosed, fw.stats));
+        }
+    }
+}
+
+struct Firmware<'a> {
+    profile: &'a Profile,
+    adapter: &'a mut SimAdapter,
+    wire: Option<Wire>,
+    stats: ServeStats,
+}
+
+/// What the emulated firmware answers to one primitive.
+enum Said {
+    Ok,
+    Ack(bool),
+    Byte(u8),
+    Fault(Fault),
+    Outside,
+    Unknown,
+}
+
+fn num(v: u64) -> Value {
+    Value::Num(v)
+}
+
+impl Firmware<'_> {
+    fn render(&self, f: &Option<Form>, v: Fields) -> String {
+        f.as_ref().map(|f| f.render(&v, "")).unwrap_or_default()
+    }
+
+    fn ok(&self) -> String {
+        self.render(&self.profile.replies.ok, Fields::default())
+    }
+
+    fn error(&self, fault: &Fault, op: u64, data: Vec<u8>) -> String {
+        let us = match fault {
+            Fault::StretchTimeout { waited_us } => *waited_us,
+            _ => 0,
+        };
+        self.say_error(fault_word(fault), fault.to_string(), op, us, data)
+    }
+
+    fn say_error(&self, fault: &str, text: String, op: u64, us: u64, data: Vec<u8>) -> String {
+        let v = Fields::default()
+            .with("us", num(us))
+            .with("fault", Value::Str(fault.into()))
+            .with("text", Value::Str(text))
+            .with("op", num(op))
+            .with("data", Value::Bytes(data));
+        self.render(&self.profile.replies.error, v)
+    }
+
+    fn refuse(&self, text: impl Into<String>) -> String {
+        self.say_error("adapter", text.into(), 0, 0, Vec::new())
+    }
+
+    fn answer(&mut self, line: &str) -> String {
+        let p = self.profile;
+        let m = |f: &Option<Form>| f.as_ref().and_then(|f| f.matches(line, ""));
+        if let Some(v) = m(&p.speed) {
+            let hz = v.num("hz").or_else(|| v.num("khz").map(|k| k * 1000)).unwrap_or(0);
+            return match BusSpeed::from_hz(hz).map_err(anyhow::Error::from).and_then(|s| self.adapter.set_speed(s)) {
+                Ok(_) => self.ok(),
+                Err(e) => self.refuse(e.to_string()),
+            };
+        }
+        if m(&p.recover).is_some() {
+            return match self.adapter.recover() {
+                Ok(r) => {
+                    let v = Fields::default()
+                        .with("pulses", num(r.pulses as u64))
+                        .with("sda", Value::Str(if r.released { "high" } else { "low" }.into()));
+                    self.render(&p.replies.recovered, v)
+                }
+                Err(e) => self.refuse(e.to_string()),
+            };
+        }
+        if let Some(v) = m(&p.delay) {
+            let d = match (v.num("ns"), v.num("us"), v.num("ms")) {
+                (Some(ns), ..) => Duration::from_nanos(ns),
+                (_, Some(us), _) => Duration::from_micros(us),
+                (.., Some(ms)) => Duration::from_millis(ms),
+                _ => Duration::ZERO,
+            };
+            self.adapter.delay(d);
+            return self.ok();
+        }
+        if let Some(x) = &p.identify
+            && x.send.matches(line, "").is_some()
+        {
+            let text = format!("buscue emulated {} adapter, {}", p.name, self.adapter.identity().description);
+            return x.expect.render(&Fields::default().with("text", Value::Str(text)), "");
+        }
+        if let Some(x) = p.init.iter().find(|x| x.send.matches(line, "").is_some()) {
+            return x.expect.render(&Fields::default(), "");
+        }
+        match &p.style {
+            Style::Stepwise(s) => self.primitive(s, line),
+            Style::OneLine(o) => self.transaction(o, line),
+        }
+    }
+
+    fn primitive(&mut self, s: &Primitives, line: &str) -> String {
+        let r = &self.profile.replies;
+        let m = |f: &Form| f.matches(line, "");
+        let bus = self.adapter.bus_mut();
+        let said = if m(&s.stop).is_some() {
+            if let Some(w) = self.wire.take() {
+                bus.wire_stop(w);
+                self.stats.transactions += 1;
+            }
+            Said::Ok
+        } else if m(&s.start).is_some() || m(&s.repeated_start).is_some() {
+            let result = match self.wire.as_mut() {
+                Some(w) => {
+                    bus.wire_restart(w);
+                    Ok(())
+                }
+                None => {
+                    let mut w = Wire::default();
+                    let r = bus.wire_start(&mut w);
+                    self.wire = Some(w);
+                    r
+                }
+            };
+            result.map_or_else(Said::Fault, |_| Said::Ok)
+        } else if let Some(w) = self.wire.as_mut() {
+            if let Some(v) = m(&s.address) {
+                match bus.wire_address(w, v.num("byte").unwrap_or(0) as u8) {
+                    Ok(ack) => Said::Ack(ack),
+                    Err(f) => Said::Fault(f),
+                }
+            } else if let Some(v) = m(&s.write) {
+                Said::Ack(bus.wire_write(w, v.num("byte").unwrap_or(0) as u8))
+            } else if m(&s.read_ack).is_some() {
+                Said::Byte(bus.wire_read(w, true))
+            } else if m(&s.read_nack).is_some() {
+                Said::Byte(bus.wire_read(w, false))
+            } else {
+                Said::Unknown
+            }
+        } else {
+            let known = [&s.address, &s.write, &s.read_ack, &s.read_nack].into_iter().any(|f| m(f).is_some());
+            if known { Said::Outside } else { Said::Unknown }
+        };
+        match said {
+            Said::Ok => self.ok(),
+            Said::Ack(true) => self.render(&r.ack, Fields::default()),
+            Said::Ack(false) => self.render(&r.nack, Fields::default()),
+            Said::Byte(b) => self.render(&r.data, Fields::default().with("byte", num(b as u64))),
+            Said::Fault(f) => self.bus_error(&f),
+            Said::Outside => self.say_error("misplaced", format!("`{line}` outside START..STOP"), 0, 0, Vec::new()),
+            Said::Unknown => self.refuse(format!("unknown command `{line}`")),
+        }
+    }
+
+    fn bus_error(&self, f: &Fault) -> String {
+        self.error(f, 0, Vec::new())
+    }
+
+    fn transaction(&mut self, o: &OneLine, line: &str) -> String {
+        let tx = match parse_transaction(o, line) {
+            Ok(tx) => tx,
+            Err(m) => return self.refuse(m),
+        };
+        if let Err(e) = tx.validate(self.adapter.capabilities().max_bytes_per_op, true) {
+            return self.refuse(e.to_string());
+        }
+        let out = self.adapter.execute(&tx);
+        self.stats.transactions += 1;
+        let r = &self.profile.replies;
+        let data = out.read_bytes();
+        let last = out.ops.len().saturating_sub(1) as u64;
+        match &out.fault {
+            None => {
+                let us = out.bus_time.as_micros() as u64;
+                self.render(&r.done, Fields::default().with("data", Value::Bytes(data)).with("us", num(us)))
+            }
+            Some(Fault::DataNack { op, index }) => self.render(
+                &r.data_nack,
+                Fields::default()
+                    .with("op", num(*op as u64))
+                    .with("index", num(*index as u64))
+                    .with("data", Value::Bytes(data)),
+            ),
+            Some(Fault::AddressNack { op, .. }) => self.render(
+                &r.address_nack,
+                Fields::default().with("op", num(*op as u64)).with("data", Value::Bytes(data)),
+            ),
+            Some(f) => self.error(f, last, data),
+        }
+    }
+}
+
+/// Reads a one-line transaction back from its rendering.
+pub fn parse_transaction(o: &OneLine, line: &str) -> Result<Transaction, String> {
+    let (fields, ten) = match o.line.matches(line, "") {
+        Some(f) => (f, false),
+        None => match o.line_ten.as_ref().and_then(|t| t.matches(line, "")) {
+            Some(f) => (f, true),
+            None => return Err(format!("unknown command `{line}`")),
+        },
+    };
+    let a = fields.num("addr").unwrap_or(0) as i64;
+    let address = if ten { Address::ten(a) } else { Address::seven(a) }.map_err(|e| e.to_string())?;
+    let text = fields.str("ops").unwrap_or_default();
+    let mut ops = Vec::new();
+    let mut pos = 0;
+    while pos < text.len() {
+        if !ops.is_empty() {
+            if !text[pos..].starts_with(&o.op_separator) {
+                return Err(format!("operation {} of `{text}` is not separated by `{}`", ops.len(), o.op_separator));
+            }
+            pos += o.op_separator.len();
+        }
+        if let Some((end, f)) = o.write_op.match_prefix(text, pos, &o.byte_separator) {
+            ops.push(Operation::Write(f.bytes("bytes").unwrap_or_default().to_vec()));
+            pos = end;
+        } else if let Some((end, f)) = o.read_op.match_prefix(text, pos, "") {
+            ops.push(Operation::Read(f.num("count").unwrap_or(0) as usize));
+            pos = end;
+        } else {
+            return Err(format!("operation {} of `{text}` is neither a write nor a read", ops.len()));
+        }
+    }
+    Ok(Transaction::new(address, ops))
+}
+
+#[cfg(test)]
+mod tests {
+    use std::io::Cursor;
+
+    use super::*;
+    use crate::sim::Bench;
+
+    /// Commands in, replies out, end of input = the peer closing.
+    struct Duplex {
+        input: Cursor<Vec<u8>>,
+        output: Vec<u8>,
+    }
+
+    impl Read for Duplex {
+        fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+            self.input.read(buf)
+        }
+    }
+
+    impl Write for Duplex {
+        fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+            self.output.extend_from_slice(buf);
+            Ok(buf.len())
+        }
+        fn flush(&mut self) -> std::io::Result<()> {
+            Ok(())
+        }
+    }
+
+    fn transcript(profile: &str, commands: &[&str]) -> Vec<String> {
+        let p = Profile::load(profile).unwrap();
+        let input: String = commands.iter().map(|c| format!("{c}{}", p.serial.line_ending)).collect();
+        let mut d = Duplex { input: Cursor::new(input.into_bytes()), output: Vec::new() };
+        let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse").unwrap();
+        let mut sim = SimAdapter::new(bench, false);
+        let (ended, stats) = serve_dialect(&p, &mut d, None, &mut sim, &ServeOptions::default()).unwrap();
+        assert_eq!(ended, Ended::PeerClosed);
+        assert_eq!(stats.commands as usize, commands.len());
+        let out = String::from_utf8(d.output).unwrap();
+        out.split(p.serial.line_ending).filter(|l| !l.is_empty()).map(str::to_string).collect()
+    }
+
+    // The stepwise exchange shown in adapters/DIALECTS.md: the climate
+    // sensor's ID register (0x5E11) read a primitive at a time.
+    #[test]
+    fn stepwise_register_read_as_documented() {
+        let got = transcript("stepwise", &["OPEN", "ADDR 88", "PUT 00", "REOPEN", "ADDR 89", "TAKE+", "TAKE-", "HALT"]);
+        assert_eq!(got, ["K", "A", "A", "K", "A", "= 5E", "= 11", "K"]);
+    }
+
+    #[test]
+    fn stepwise_nacks_faults_and_nonsense() {
+        let got = transcript("stepwise", &["OPEN", "ADDR 26", "HALT", "PUT 01", "FLY", "WHOAMI"]);
+        assert_eq!(got[..3], ["K", "N", "K"], "nobody at 0x13");
+        assert!(got[3].starts_with("E misplaced"), "{got:?}");
+        assert!(got[4].starts_with("E adapter") && got[4].contains("unknown command `FLY`"), "{got:?}");
+        assert!(got[5].starts_with("I AM buscue emulated stepwise adapter"), "{got:?}");
+    }
+
+    #[test]
+    fn one_line_replies() {
+        let got = transcript("oneline", &["X 44 W00 R2", "X 13 W00", "X 44 W00 12", "X 44 W0012", "RATE 400"]);
+        assert_eq!(got[0], "OK 5E11 T475", "475 us at 100 kHz, as adapters/DIALECTS.md shows");
+        assert_eq!(got[1], "NA 0 ");
+        assert!(got[2].starts_with("ERR adapter"), "two bytes need no separator in this dialect: {got:?}");
+        assert_eq!(got[3], "ND 0 1 ", "ID is read-only: the value byte is NACKed");
+        assert_eq!(got[4], "OK");
+    }
+}
