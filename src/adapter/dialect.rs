@@ -33,7 +33,7 @@ use crate::bus::{BusSpeed, Event, Fault, LineFault, OpOutcome, Operation, Outcom
 
 use super::dialect_profile::{Flow, OneLine, Parity, Primitives, Profile, Style};
 use super::dialect_syntax::{Fields, Form, Value};
-use super::{Adapter, AdapterSpec, Capabilities, Identity, LineLevels, Recovery};
+use super::{Adapter, AdapterSpec, Capabilities, Identity, LineLevels, OpenError, Recovery};
 
 /// `--adapter dialect:...` override keys.
 pub const OVERRIDES: &[&str] = &["baud", "timeout_ms"];
@@ -210,24 +210,34 @@ pub struct DialectAdapter {
     dead: Option<String>,
 }
 
-/// Opens a dialect adapter from an `--adapter dialect:` spec.
-pub fn open(profile: &str, path: &Path, overrides: &[(String, String)]) -> Result<DialectAdapter> {
-    let mut p = Profile::load(profile)?;
-    for (k, v) in overrides {
-        let n: u32 = v.parse().with_context(|| format!("`{k}={v}`: {k} takes a whole number"))?;
-        match k.as_str() {
-            "baud" => p.serial.baud = n,
-            "timeout_ms" => p.serial.timeout = Duration::from_millis(n.max(1) as u64),
-            _ => bail!("`{k}` is not a dialect override; known: {}", OVERRIDES.join(", ")),
+/// Opens a dialect adapter from an `--adapter dialect:` spec. A bad
+/// profile or override is [`OpenError::Input`], found before the port is
+/// touched; the port and the exchanges are [`OpenError::Link`].
+pub fn open(profile: &str, path: &Path, overrides: &[(String, String)]) -> Result<DialectAdapter, OpenError> {
+    let with_overrides = || -> Result<Profile> {
+        let mut p = Profile::load(profile)?;
+        for (k, v) in overrides {
+            let n: u32 = v.parse().with_context(|| format!("`{k}={v}`: {k} takes a whole number"))?;
+            match k.as_str() {
+                "baud" => p.serial.baud = n,
+                "timeout_ms" => p.serial.timeout = Duration::from_millis(n.max(1) as u64),
+                _ => bail!("`{k}` is not a dialect override; known: {}", OVERRIDES.join(", ")),
+            }
         }
-    }
-    DialectAdapter::open(p, path)
+        Ok(p)
+    };
+    DialectAdapter::open(with_overrides().map_err(OpenError::Input)?, path)
 }
 
 impl DialectAdapter {
     /// Opens the port with the profile's serial settings, then runs the
-    /// profile's init and identify exchanges.
-    pub fn open(profile: Profile, path: &Path) -> Result<Self> {
+    /// profile's init and identify exchanges. Every failure here is the
+    /// port's or the adapter's: [`OpenError::Link`].
+    pub fn open(profile: Profile, path: &Path) -> Result<Self, OpenError> {
+        Self::connect(profile, path).map_err(OpenError::Link)
+    }
+
+    fn connect(profile: Profile, path: &Path) -> Result<Self> {
         let s = &profile.serial;
         let name = path.to_string_lossy().into_owned();
         let port = serialport::new(name.clone(), s.baud)
