@@ -11,8 +11,10 @@
 //!   dropped bytes, flipped bits, added latency per answer, a reset of the
 //!   served adapter in the middle of a frame, a hang-up after N frames.
 //! - [`NativeServer`] speaks the native protocol through the same
-//!   `buscue_bridge` library firmware links, over [`SimBoard`]. Other
-//!   protocols (text dialects) implement [`Server`] and reuse the loop.
+//!   `buscue_bridge` library firmware links, over [`SimBoard`];
+//!   [`DialectServer`](super::dialect_serve::DialectServer) speaks a text
+//!   dialect. Both are [`Server`]s on this one loop, so every fault and
+//!   end condition works the same for both.
 
 use std::collections::VecDeque;
 use std::io::{self, Read, Write};
@@ -79,6 +81,13 @@ pub struct ServedLink {
     faults: Mangler,
     latency: Duration,
     inbox: VecDeque<u8>,
+}
+
+impl ServedLink {
+    /// The next byte the peer sent (after the incoming faults).
+    pub fn next_byte(&mut self) -> Option<u8> {
+        self.inbox.pop_front()
+    }
 }
 
 impl Link for ServedLink {
@@ -182,7 +191,7 @@ impl NativeServer {
 impl Server for NativeServer {
     fn poll(&mut self, link: &mut ServedLink) -> io::Result<()> {
         // One byte per call, so the fault triggers can act between any two.
-        let Some(b) = link.inbox.pop_front() else { return Ok(()) };
+        let Some(b) = link.next_byte() else { return Ok(()) };
         if b == 0 {
             if self.in_frame {
                 self.frames += 1;
