@@ -45,7 +45,7 @@ pub struct LinkFaults {
     pub reset_after: Option<u64>,
     /// After this many frames received, the adapter hangs up (closes the
     /// port).
-    pub hangup_after: Option<u64>,
+    pub hang_up_after: Option<u64>,
     pub seed: u64,
 }
 
@@ -315,13 +315,13 @@ pub fn serve<S: Server>(
                 link.inbox.clear();
                 server.reset(&mut link)?;
             }
-            if faults.hangup_after.is_some_and(|n| server.frames() >= n) {
+            if faults.hang_up_after.is_some_and(|n| server.frames() >= n) {
                 hung = true;
                 break;
             }
         }
         if hung {
-            break if faults.hangup_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
+            break if faults.hang_up_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
         }
     };
     drop(slave);

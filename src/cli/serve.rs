@@ -99,7 +99,7 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         flip: a.flip_bits,
         latency: Duration::from_millis(a.latency_ms),
         reset_after: a.reset_after,
-        hangup_after: a.hang_up_after,
+        hang_up_after: a.hang_up_after,
         seed: a.seed,
     };
     let stop = interrupt_flag()?;
