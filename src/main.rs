@@ -14,12 +14,9 @@ fn main() -> ExitCode {
         Err(e) => {
             eprintln!("error: {e:#}");
             // An adapter that cannot be reached is the adapter/link code,
-            // not a usage error.
-            if e.downcast_ref::<buscue::adapter::native::NativeError>().is_some() {
-                ExitCode::from(buscue::exit::ADAPTER)
-            } else {
-                ExitCode::from(buscue::exit::INPUT)
-            }
+            // not a usage error; every driver reports it the same way.
+            let code = e.downcast_ref::<buscue::adapter::OpenError>().map_or(buscue::exit::INPUT, |o| o.exit_code());
+            ExitCode::from(code)
         }
     }
 }

@@ -1,6 +1,7 @@
-//! Text dialects end to end over real pseudo-terminals: `buscue
-//! serve-dialect` emulates the adapter firmware, `buscue run --adapter
-//! dialect:...` drives it, and the frames must match an in-process run.
+//! Text dialects end to end over real pseudo-terminals: `buscue serve
+//! --speak dialect:...` emulates the adapter firmware, `buscue run
+//! --adapter dialect:...` drives it, and the frames must match an
+//! in-process run.
 
 use std::io::{BufRead, BufReader};
 use std::path::Path;
@@ -16,16 +17,17 @@ fn root() -> &'static Path {
     Path::new(env!("CARGO_MANIFEST_DIR"))
 }
 
-/// Starts `serve-dialect` and returns it with the device path it printed.
+/// Starts `serve` in `profile`'s dialect and returns it with the device
+/// path it printed.
 fn serve(profile: &str, extra: &[&str]) -> (Child, String) {
     let mut child = Command::new(BIN)
         .current_dir(root())
-        .args(["serve-dialect", profile])
+        .args(["serve", "--speak", &format!("dialect:{profile}")])
         .args(extra)
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn()
-        .expect("serve-dialect starts");
+        .expect("buscue serve starts");
     let mut line = String::new();
     BufReader::new(child.stdout.take().expect("stdout is piped")).read_line(&mut line).expect("first line");
     let path = line.trim().to_string();
@@ -77,7 +79,7 @@ fn wait(mut child: Child) -> String {
         std::thread::sleep(Duration::from_millis(50));
     }
     let _ = child.kill();
-    let out = child.wait_with_output().expect("serve-dialect output");
+    let out = child.wait_with_output().expect("buscue serve output");
     String::from_utf8_lossy(&out.stderr).into_owned()
 }
 
@@ -215,7 +217,7 @@ humidity_pct = { base = 50.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 2 
     let want = frames(&local.records);
     assert_eq!(want.last().expect("frames")["outcome"]["fault"]["kind"], "stretch-timeout");
     for profile in PROFILES {
-        let (child, path) = serve(profile, &["--bench", &bench_arg]);
+        let (child, path) = serve(profile, &["--bench", &format!("sim:{bench_arg}")]);
         let remote = run(&script, &format!("dialect:{profile}@{path}"));
         wait(child);
         assert_eq!(remote.code, 3, "{profile}: {}", remote.stderr);
@@ -228,7 +230,8 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
     use buscue::adapter::Adapter;
     use buscue::adapter::dialect::DialectAdapter;
     use buscue::adapter::dialect_profile::Profile;
-    use buscue::adapter::dialect_serve::{Ended, ServeOptions, serve_dialect};
+    use buscue::adapter::dialect_serve::DialectServer;
+    use buscue::adapter::serve::{LinkFaults, ServeEnd, serve as serve_loop};
     use buscue::bus::BusSpeed;
     use buscue::sim::{Bench, SimAdapter};
     use serialport::SerialPort as _;
@@ -240,10 +243,11 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
         let served = profile.clone();
         let server = std::thread::spawn(move || {
             let bench = Bench::from_str(buscue::adapter::DEMO_BENCH, "greenhouse").expect("demo bench");
-            let mut sim = SimAdapter::new(bench, false);
-            let (ended, _) =
-                serve_dialect(&served, master, Some(slave), &mut sim, &ServeOptions::default()).expect("serving works");
-            (ended, sim.speed())
+            let mut server = DialectServer::new(served, SimAdapter::new(bench, false));
+            let stop = std::sync::atomic::AtomicBool::new(false);
+            let ended =
+                serve_loop(master, Some(slave), &mut server, &LinkFaults::default(), &stop).expect("serving works");
+            (ended, server.adapter().speed())
         });
         let mut a = DialectAdapter::open(profile, Path::new(&path)).expect("opens");
         assert_eq!(a.identity().driver, format!("dialect:{name}"));
@@ -257,7 +261,29 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
         assert_eq!(a.now() - before, Duration::from_millis(3), "the adapter keeps time");
         drop(a);
         let (ended, speed) = server.join().expect("server thread");
-        assert_eq!(ended, Ended::PeerClosed);
+        assert_eq!(ended, ServeEnd::PeerClosed);
         assert_eq!(speed, BusSpeed::FAST, "{name}: the bench runs at the speed the host set");
+    }
+}
+
+#[test]
+fn link_faults_of_serve_reach_a_dialect_host_too() {
+    // A firmware reset mid-line loses that command: the host waits for a
+    // reply that never comes and stops with the adapter code.
+    let (child, path) = serve("stepwise", &["--reset-after", "10"]);
+    let r = run("scripts/climate_bringup.lua", &format!("dialect:stepwise@{path},timeout_ms=200"));
+    wait(child);
+    assert_eq!(r.code, 4, "{}", r.stderr);
+    assert!(r.stderr.contains("no reply to"), "{}", r.stderr);
+}
+
+#[test]
+fn serve_refuses_an_unknown_protocol_or_profile_before_printing_a_path() {
+    for speak in ["morse", "dialect:", "dialect:adapters/no-such-profile.toml"] {
+        let out = Command::new(BIN).current_dir(root()).args(["serve", "--speak", speak]).output().expect("runs");
+        assert_eq!(out.status.code(), Some(2), "--speak {speak}");
+        assert!(out.stdout.is_empty(), "no device path for --speak {speak}");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert!(stderr.contains("dialect:") || stderr.contains("no-such-profile"), "{stderr}");
     }
 }

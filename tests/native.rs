@@ -176,7 +176,7 @@ fn lossy_link_executes_every_transaction_exactly_once() {
 
 #[test]
 fn hang_up_mid_run_stops_with_the_adapter_code_and_keeps_the_log() {
-    let served = serve(&["--hangup-after", "12"]);
+    let served = serve(&["--hang-up-after", "12"]);
     let out = run("scripts/climate_bringup.lua", &format!("serial:{}", served.path), &[]);
     assert_eq!(out.status.code(), Some(4), "exit code 4: adapter/link failure");
     let stderr = String::from_utf8_lossy(&out.stderr);

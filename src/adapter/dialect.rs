@@ -33,7 +33,7 @@ use crate::bus::{BusSpeed, Event, Fault, LineFault, OpOutcome, Operation, Outcom
 
 use super::dialect_profile::{Flow, OneLine, Parity, Primitives, Profile, Style};
 use super::dialect_syntax::{Fields, Form, Value};
-use super::{Adapter, AdapterSpec, Capabilities, Identity, LineLevels, Recovery};
+use super::{Adapter, AdapterSpec, Capabilities, Identity, LineLevels, OpenError, Recovery};
 
 /// `--adapter dialect:...` override keys.
 pub const OVERRIDES: &[&str] = &["baud", "timeout_ms"];
@@ -83,11 +83,68 @@ pub enum LinkError {
 /// noise (a wrong baud rate, a firmware in the wrong mode), not a reply.
 pub const MAX_LINE: usize = 4096;
 
+/// Bytes in, lines out, up to a line ending (a CR before an LF ending is
+/// dropped too). Shared by the driver's [`LineLink`] and the emulated
+/// adapter, so both sides split lines the same way.
+pub struct LineBuffer {
+    buf: Vec<u8>,
+    /// Bytes already searched for the terminator, so feeding a byte at a
+    /// time stays linear.
+    scanned: usize,
+    term: u8,
+}
+
+impl LineBuffer {
+    pub fn new(ending: &str) -> Self {
+        LineBuffer { buf: Vec::new(), scanned: 0, term: *ending.as_bytes().last().unwrap_or(&b'\n') }
+    }
+
+    pub fn push(&mut self, bytes: &[u8]) {
+        self.buf.extend_from_slice(bytes);
+    }
+
+    /// The next whole line, if one has arrived. A run longer than
+    /// [`MAX_LINE`] without an ending is noise: it is dropped with an error.
+    pub fn next_line(&mut self) -> Result<Option<String>, LinkError> {
+        match self.buf[self.scanned..].iter().position(|b| *b == self.term) {
+            Some(i) => {
+                let end = self.scanned + i;
+                let mut line = &self.buf[..end];
+                if self.term == b'\n' && line.last() == Some(&b'\r') {
+                    line = &line[..line.len() - 1];
+                }
+                let text = String::from_utf8_lossy(line).into_owned();
+                self.buf.drain(..=end);
+                self.scanned = 0;
+                Ok(Some(text))
+            }
+            None if self.buf.len() > MAX_LINE => {
+                self.clear();
+                Err(LinkError::Reply(format!("a line longer than {MAX_LINE} bytes arrived; is the baud rate right?")))
+            }
+            None => {
+                self.scanned = self.buf.len();
+                Ok(None)
+            }
+        }
+    }
+
+    /// Whether part of a line is waiting for its ending.
+    pub fn is_empty(&self) -> bool {
+        self.buf.is_empty()
+    }
+
+    pub fn clear(&mut self) {
+        self.buf.clear();
+        self.scanned = 0;
+    }
+}
+
 /// Lines over a byte stream: send with the profile's ending, receive up to
-/// it. Shared by the driver and the emulated adapter.
+/// it.
 pub struct LineLink<P> {
     port: P,
-    buf: Vec<u8>,
+    lines: LineBuffer,
     ending: &'static str,
     ignore: Vec<Form>,
     /// Commands sent that expected a reply.
@@ -96,7 +153,7 @@ pub struct LineLink<P> {
 
 impl<P: Read + Write> LineLink<P> {
     pub fn new(port: P, ending: &'static str, ignore: Vec<Form>) -> Self {
-        LineLink { port, buf: Vec::new(), ending, ignore, round_trips: 0 }
+        LineLink { port, lines: LineBuffer::new(ending), ending, ignore, round_trips: 0 }
     }
 
     pub fn send(&mut self, line: &str) -> Result<(), LinkError> {
@@ -111,25 +168,12 @@ impl<P: Read + Write> LineLink<P> {
         let now = Instant::now();
         // A deadline past what the clock can hold is no deadline.
         let deadline = now.checked_add(timeout).unwrap_or(now + Duration::from_secs(86_400 * 365));
-        let term = *self.ending.as_bytes().last().unwrap_or(&b'\n');
         loop {
-            if let Some(i) = self.buf.iter().position(|b| *b == term) {
-                let mut line: Vec<u8> = self.buf.drain(..=i).collect();
-                line.pop();
-                if term == b'\n' && line.last() == Some(&b'\r') {
-                    line.pop();
-                }
-                let line = String::from_utf8_lossy(&line).into_owned();
+            if let Some(line) = self.lines.next_line()? {
                 if self.ignore.iter().any(|f| f.matches(&line, "").is_some()) {
                     continue;
                 }
                 return Ok(Some(line));
-            }
-            if self.buf.len() > MAX_LINE {
-                self.buf.clear();
-                return Err(LinkError::Reply(format!(
-                    "a line longer than {MAX_LINE} bytes arrived; is the baud rate right?"
-                )));
             }
             if Instant::now() >= deadline {
                 return Ok(None);
@@ -137,7 +181,7 @@ impl<P: Read + Write> LineLink<P> {
             let mut chunk = [0u8; 256];
             match self.port.read(&mut chunk) {
                 Ok(0) => return Err(LinkError::Closed("end of file".into())),
-                Ok(n) => self.buf.extend_from_slice(&chunk[..n]),
+                Ok(n) => self.lines.push(&chunk[..n]),
                 Err(e) if matches!(e.kind(), std::io::ErrorKind::TimedOut | std::io::ErrorKind::Interrupted) => {}
                 Err(e) => return Err(LinkError::Closed(e.to_string())),
             }
@@ -210,24 +254,34 @@ pub struct DialectAdapter {
     dead: Option<String>,
 }
 
-/// Opens a dialect adapter from an `--adapter dialect:` spec.
-pub fn open(profile: &str, path: &Path, overrides: &[(String, String)]) -> Result<DialectAdapter> {
-    let mut p = Profile::load(profile)?;
-    for (k, v) in overrides {
-        let n: u32 = v.parse().with_context(|| format!("`{k}={v}`: {k} takes a whole number"))?;
-        match k.as_str() {
-            "baud" => p.serial.baud = n,
-            "timeout_ms" => p.serial.timeout = Duration::from_millis(n.max(1) as u64),
-            _ => bail!("`{k}` is not a dialect override; known: {}", OVERRIDES.join(", ")),
+/// Opens a dialect adapter from an `--adapter dialect:` spec. A bad
+/// profile or override is [`OpenError::Input`], found before the port is
+/// touched; the port and the exchanges are [`OpenError::Link`].
+pub fn open(profile: &str, path: &Path, overrides: &[(String, String)]) -> Result<DialectAdapter, OpenError> {
+    let with_overrides = || -> Result<Profile> {
+        let mut p = Profile::load(profile)?;
+        for (k, v) in overrides {
+            let n: u32 = v.parse().with_context(|| format!("`{k}={v}`: {k} takes a whole number"))?;
+            match k.as_str() {
+                "baud" => p.serial.baud = n,
+                "timeout_ms" => p.serial.timeout = Duration::from_millis(n.max(1) as u64),
+                _ => bail!("`{k}` is not a dialect override; known: {}", OVERRIDES.join(", ")),
+            }
         }
-    }
-    DialectAdapter::open(p, path)
+        Ok(p)
+    };
+    DialectAdapter::open(with_overrides().map_err(OpenError::Input)?, path)
 }
 
 impl DialectAdapter {
     /// Opens the port with the profile's serial settings, then runs the
-    /// profile's init and identify exchanges.
-    pub fn open(profile: Profile, path: &Path) -> Result<Self> {
+    /// profile's init and identify exchanges. Every failure here is the
+    /// port's or the adapter's: [`OpenError::Link`].
+    pub fn open(profile: Profile, path: &Path) -> Result<Self, OpenError> {
+        Self::connect(profile, path).map_err(OpenError::Link)
+    }
+
+    fn connect(profile: Profile, path: &Path) -> Result<Self> {
         let s = &profile.serial;
         let name = path.to_string_lossy().into_owned();
         let port = serialport::new(name.clone(), s.baud)
@@ -696,6 +750,23 @@ impl Adapter for DialectAdapter {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn lines_split_at_the_ending_a_byte_at_a_time() {
+        let mut b = LineBuffer::new("\r\n");
+        for &x in b"OPEN\r\nADDR 88\r" {
+            b.push(&[x]);
+        }
+        assert_eq!(b.next_line().unwrap().as_deref(), Some("OPEN"));
+        assert_eq!(b.next_line().unwrap(), None, "ADDR 88 waits for its LF");
+        assert!(!b.is_empty());
+        b.push(b"\n");
+        assert_eq!(b.next_line().unwrap().as_deref(), Some("ADDR 88"));
+        assert!(b.is_empty());
+        b.push(&[b'x'; MAX_LINE + 1]);
+        assert!(b.next_line().is_err(), "noise without an ending is refused");
+        assert!(b.is_empty(), "and dropped");
+    }
     use crate::bus::{Address, Direction};
 
     #[test]

@@ -11,36 +11,27 @@
 //! - A stepwise profile drives the simulated bus one wire event at a time
 //!   (the `wire_*` steps of [`SimBus`](crate::sim::bus::SimBus)); a
 //!   one-line profile parses the whole transaction and executes it.
-//! - Serving ends when the peer closes the port (after it has first
-//!   spoken), on an interrupt, or after `hang_up_after` command lines (a
-//!   simulated unplug for tests).
+//! - [`DialectServer`] is a [`Server`](super::serve::Server): the serve
+//!   loop of [`super::serve`] carries it, with the same link faults and
+//!   end conditions as the native protocol. Its "frames" are command
+//!   lines; a reset drops the partial line and releases the bus, as a
+//!   firmware reboot would, and announces nothing (dialects have no boot
+//!   message), so the host sees a missing reply.
 //!
-//! Independent of the command line: `buscue serve-dialect` is one caller.
+//! Independent of the command line: `buscue serve --speak dialect:PROFILE`
+//! is one caller.
 
-use std::io::{Read, Write};
 use std::sync::Arc;
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Duration;
-
-use anyhow::Result;
 
 use crate::bus::{Address, BusSpeed, Fault, Operation, Transaction};
 use crate::sim::SimAdapter;
 use crate::sim::bus::Wire;
 
 use super::Adapter;
-use super::dialect::{LineLink, LinkError, fault_word};
+use super::dialect::{LineBuffer, fault_word};
 use super::dialect_profile::{OneLine, Primitives, Profile, Style};
 use super::dialect_syntax::{Fields, Form, Value};
-
-/// How a serving session behaves.
-#[derive(Debug, Clone, Default)]
-pub struct ServeOptions {
-    /// Set to stop serving (Ctrl-C).
-    pub interrupt: Arc<AtomicBool>,
-    /// Close the port after this many command lines, as if unplugged.
-    pub hang_up_after: Option<u64>,
-}
 
 /// What a serving session did.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
@@ -49,57 +40,73 @@ pub struct ServeStats {
     pub transactions: u64,
 }
 
-/// Why serving stopped.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Ended {
-    PeerClosed,
-    Interrupted,
-    HungUp,
+/// A simulated bench answering in a profile's dialect.
+pub struct DialectServer {
+    profile: Arc<Profile>,
+    adapter: SimAdapter,
+    /// The transaction a stepwise host has open (START seen, STOP not yet).
+    wire: Option<Wire>,
+    lines: LineBuffer,
+    pub stats: ServeStats,
 }
 
-/// Serves `adapter`'s bench on `port` in `profile`'s dialect. `hold` is
-/// the other end of a pseudo-terminal pair, kept open until the peer first
-/// speaks so that the port does not read as closed before anyone opened it.
-pub fn serve_dialect<P: Read + Write>(
-    profile: &Profile,
-    port: P,
-    hold: Option<serialport::TTYPort>,
-    adapter: &mut SimAdapter,
-    opts: &ServeOptions,
-) -> Result<(Ended, ServeStats)> {
-    let mut hold = hold;
-    let mut link = LineLink::new(port, profile.serial.line_ending, Vec::new());
-    let mut fw = Firmware { profile, adapter, wire: None, stats: ServeStats::default() };
-    loop {
-        if opts.interrupt.load(Ordering::Relaxed) {
-            return Ok((Ended::Interrupted, fw.stats));
-        }
-        let line = match link.recv(Duration::from_millis(100)) {
-            Ok(Some(l)) => l,
-            Ok(None) => continue,
-            Err(LinkError::Closed(_)) => return Ok((Ended::PeerClosed, fw.stats)),
-            // Noise without a line ending: dropped, as a firmware would.
-            Err(_) => continue,
-        };
-        // The peer has the port open now: let go of our end so that its
-        // closing reads as a hang-up.
-        drop(hold.take());
-        if opts.hang_up_after.is_some_and(|n| fw.stats.commands >= n) {
-            return Ok((Ended::HungUp, fw.stats));
-        }
-        fw.stats.commands += 1;
-        let reply = fw.answer(&line);
-        if let Err(LinkError::Closed(_)) = link.send(&reply) {
-            return Ok((Ended::PeerClosed, fw.stats));
+impl DialectServer {
+    pub fn new(profile: Profile, adapter: SimAdapter) -> Self {
+        let lines = LineBuffer::new(profile.serial.line_ending);
+        DialectServer { profile: Arc::new(profile), adapter, wire: None, lines, stats: ServeStats::default() }
+    }
+
+    pub fn profile(&self) -> &Profile {
+        &self.profile
+    }
+
+    /// The served bench, for a look at the board side (executions, speed).
+    pub fn adapter(&self) -> &SimAdapter {
+        &self.adapter
+    }
+
+    /// Finishes a transaction a stepwise host left open.
+    fn release_bus(&mut self) {
+        if let Some(w) = self.wire.take() {
+            self.adapter.bus_mut().wire_stop(w);
+            self.stats.transactions += 1;
         }
     }
 }
 
-struct Firmware<'a> {
-    profile: &'a Profile,
-    adapter: &'a mut SimAdapter,
-    wire: Option<Wire>,
-    stats: ServeStats,
+#[cfg(unix)]
+impl super::serve::Server for DialectServer {
+    fn poll(&mut self, link: &mut super::serve::ServedLink) -> std::io::Result<()> {
+        use buscue_bridge::Link as _;
+        // One byte per call, so the fault triggers can act between any two.
+        let Some(b) = link.next_byte() else { return Ok(()) };
+        self.lines.push(&[b]);
+        match self.lines.next_line() {
+            Ok(Some(line)) => {
+                self.stats.commands += 1;
+                let reply = self.answer(&line);
+                link.write(reply.as_bytes())?;
+                link.write(self.profile.serial.line_ending.as_bytes())?;
+                link.flush()
+            }
+            // Noise without a line ending is dropped, as a firmware would.
+            Ok(None) | Err(_) => Ok(()),
+        }
+    }
+
+    fn frames(&self) -> u64 {
+        self.stats.commands
+    }
+
+    fn in_frame(&self) -> bool {
+        !self.lines.is_empty()
+    }
+
+    fn reset(&mut self, _link: &mut super::serve::ServedLink) -> std::io::Result<()> {
+        self.lines.clear();
+        self.release_bus();
+        Ok(())
+    }
 }
 
 /// What the emulated firmware answers to one primitive.
@@ -116,7 +123,7 @@ fn num(v: u64) -> Value {
     Value::Num(v)
 }
 
-impl Firmware<'_> {
+impl DialectServer {
     fn render(&self, f: &Option<Form>, v: Fields) -> String {
         f.as_ref().map(|f| f.render(&v, "")).unwrap_or_default()
     }
@@ -147,8 +154,10 @@ impl Firmware<'_> {
         self.say_error("adapter", text.into(), 0, 0, Vec::new())
     }
 
-    fn answer(&mut self, line: &str) -> String {
-        let p = self.profile;
+    /// The one reply line to a command line.
+    pub fn answer(&mut self, line: &str) -> String {
+        // Shared so templates stay borrowed while the bench is driven.
+        let p = self.profile.clone();
         let m = |f: &Option<Form>| f.as_ref().and_then(|f| f.matches(line, ""));
         if let Some(v) = m(&p.speed) {
             let hz = v.num("hz").or_else(|| v.num("khz").map(|k| k * 1000)).unwrap_or(0);
@@ -194,14 +203,10 @@ impl Firmware<'_> {
     }
 
     fn primitive(&mut self, s: &Primitives, line: &str) -> String {
-        let r = &self.profile.replies;
         let m = |f: &Form| f.matches(line, "");
         let bus = self.adapter.bus_mut();
         let said = if m(&s.stop).is_some() {
-            if let Some(w) = self.wire.take() {
-                bus.wire_stop(w);
-                self.stats.transactions += 1;
-            }
+            self.release_bus();
             Said::Ok
         } else if m(&s.start).is_some() || m(&s.repeated_start).is_some() {
             let result = match self.wire.as_mut() {
@@ -236,6 +241,7 @@ impl Firmware<'_> {
             let known = [&s.address, &s.write, &s.read_ack, &s.read_nack].into_iter().any(|f| m(f).is_some());
             if known { Said::Outside } else { Said::Unknown }
         };
+        let r = &self.profile.replies;
         match said {
             Said::Ok => self.ok(),
             Said::Ack(true) => self.render(&r.ack, Fields::default()),
@@ -321,44 +327,15 @@ pub fn parse_transaction(o: &OneLine, line: &str) -> Result<Transaction, String>
 
 #[cfg(test)]
 mod tests {
-    use std::io::Cursor;
-
     use super::*;
     use crate::sim::Bench;
 
-    /// Commands in, replies out, end of input = the peer closing.
-    struct Duplex {
-        input: Cursor<Vec<u8>>,
-        output: Vec<u8>,
-    }
-
-    impl Read for Duplex {
-        fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
-            self.input.read(buf)
-        }
-    }
-
-    impl Write for Duplex {
-        fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-            self.output.extend_from_slice(buf);
-            Ok(buf.len())
-        }
-        fn flush(&mut self) -> std::io::Result<()> {
-            Ok(())
-        }
-    }
-
+    /// The replies to `commands`, one each (the serve loop and its line
+    /// splitting are tested over a pseudo-terminal in tests/dialect_pty.rs).
     fn transcript(profile: &str, commands: &[&str]) -> Vec<String> {
-        let p = Profile::load(profile).unwrap();
-        let input: String = commands.iter().map(|c| format!("{c}{}", p.serial.line_ending)).collect();
-        let mut d = Duplex { input: Cursor::new(input.into_bytes()), output: Vec::new() };
         let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse").unwrap();
-        let mut sim = SimAdapter::new(bench, false);
-        let (ended, stats) = serve_dialect(&p, &mut d, None, &mut sim, &ServeOptions::default()).unwrap();
-        assert_eq!(ended, Ended::PeerClosed);
-        assert_eq!(stats.commands as usize, commands.len());
-        let out = String::from_utf8(d.output).unwrap();
-        out.split(p.serial.line_ending).filter(|l| !l.is_empty()).map(str::to_string).collect()
+        let mut server = DialectServer::new(Profile::load(profile).unwrap(), SimAdapter::new(bench, false));
+        commands.iter().map(|c| server.answer(c)).collect()
     }
 
     // The stepwise exchange shown in adapters/DIALECTS.md: the climate

@@ -27,6 +27,7 @@ use std::time::Duration;
 
 use anyhow::{Context, Result, bail};
 use serde::{Deserialize, Serialize};
+use thiserror::Error;
 
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
@@ -171,12 +172,42 @@ pub struct OpenOptions {
     pub realtime: bool,
 }
 
+/// Why an adapter could not be opened. The two cases need different
+/// answers from the user (fix the request, or look at the hardware), so
+/// the command line gives them different exit codes.
+#[derive(Debug, Error)]
+pub enum OpenError {
+    /// The request is wrong: a bench or profile file, a setting.
+    #[error("{0:#}")]
+    Input(anyhow::Error),
+    /// The port cannot be opened (missing, no permission, busy), or the
+    /// adapter on it does not answer the handshake or identify exchange
+    /// as expected.
+    #[error("{0:#}")]
+    Link(anyhow::Error),
+}
+
+impl OpenError {
+    /// The exit code for this failure: usage/input or adapter/link.
+    pub fn exit_code(&self) -> u8 {
+        match self {
+            OpenError::Input(_) => crate::exit::INPUT,
+            OpenError::Link(_) => crate::exit::ADAPTER,
+        }
+    }
+}
+
 /// Opens the driver an [`AdapterSpec`] names.
-pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>> {
+pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>, OpenError> {
     match spec {
-        AdapterSpec::Native { path, settings } => Ok(Box::new(NativeAdapter::open(path, settings.clone())?)),
+        // Settings were checked when the spec was parsed: whatever fails
+        // now is the port or the adapter behind it.
+        AdapterSpec::Native { path, settings } => match NativeAdapter::open(path, settings.clone()) {
+            Ok(a) => Ok(Box::new(a)),
+            Err(e) => Err(OpenError::Link(e.into())),
+        },
         AdapterSpec::Dialect { profile, path, overrides } => Ok(Box::new(dialect::open(profile, path, overrides)?)),
-        _ => Ok(Box::new(open_sim(spec, opts)?)),
+        _ => Ok(Box::new(open_sim(spec, opts).map_err(OpenError::Input)?)),
     }
 }
 

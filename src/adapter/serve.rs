@@ -11,8 +11,10 @@
 //!   dropped bytes, flipped bits, added latency per answer, a reset of the
 //!   served adapter in the middle of a frame, a hang-up after N frames.
 //! - [`NativeServer`] speaks the native protocol through the same
-//!   `buscue_bridge` library firmware links, over [`SimBoard`]. Other
-//!   protocols (text dialects) implement [`Server`] and reuse the loop.
+//!   `buscue_bridge` library firmware links, over [`SimBoard`];
+//!   [`DialectServer`](super::dialect_serve::DialectServer) speaks a text
+//!   dialect. Both are [`Server`]s on this one loop, so every fault and
+//!   end condition works the same for both.
 
 use std::collections::VecDeque;
 use std::io::{self, Read, Write};
@@ -43,7 +45,7 @@ pub struct LinkFaults {
     pub reset_after: Option<u64>,
     /// After this many frames received, the adapter hangs up (closes the
     /// port).
-    pub hangup_after: Option<u64>,
+    pub hang_up_after: Option<u64>,
     pub seed: u64,
 }
 
@@ -79,6 +81,13 @@ pub struct ServedLink {
     faults: Mangler,
     latency: Duration,
     inbox: VecDeque<u8>,
+}
+
+impl ServedLink {
+    /// The next byte the peer sent (after the incoming faults).
+    pub fn next_byte(&mut self) -> Option<u8> {
+        self.inbox.pop_front()
+    }
 }
 
 impl Link for ServedLink {
@@ -182,7 +191,7 @@ impl NativeServer {
 impl Server for NativeServer {
     fn poll(&mut self, link: &mut ServedLink) -> io::Result<()> {
         // One byte per call, so the fault triggers can act between any two.
-        let Some(b) = link.inbox.pop_front() else { return Ok(()) };
+        let Some(b) = link.next_byte() else { return Ok(()) };
         if b == 0 {
             if self.in_frame {
                 self.frames += 1;
@@ -306,13 +315,13 @@ pub fn serve<S: Server>(
                 link.inbox.clear();
                 server.reset(&mut link)?;
             }
-            if faults.hangup_after.is_some_and(|n| server.frames() >= n) {
+            if faults.hang_up_after.is_some_and(|n| server.frames() >= n) {
                 hung = true;
                 break;
             }
         }
         if hung {
-            break if faults.hangup_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
+            break if faults.hang_up_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
         }
     };
     drop(slave);

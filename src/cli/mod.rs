@@ -5,7 +5,6 @@ mod run;
 mod scan;
 #[cfg(unix)]
 mod serve;
-mod serve_dialect;
 mod traces;
 
 use std::sync::Arc;
@@ -46,14 +45,12 @@ pub enum Command {
     Diff(traces::DiffArgs),
     /// Turn a trace into an editable Lua script.
     ToScript(traces::ToScriptArgs),
-    /// Serve a simulated bench as a serial adapter on a pseudo-terminal.
+    /// Serve a simulated bench as a serial adapter on a pseudo-terminal
+    /// (native protocol or a text dialect); prints the device path first.
     #[cfg(unix)]
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
-    /// Serve a simulated bench on a pseudo-terminal in a text dialect;
-    /// prints the device path on the first line.
-    ServeDialect(serve_dialect::ServeDialectArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -154,7 +151,6 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
-        Command::ServeDialect(a) => serve_dialect::serve(a),
     }
 }
 

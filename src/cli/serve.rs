@@ -1,23 +1,43 @@
 //! `buscue serve`: a simulated bench as a serial adapter on a
-//! pseudo-terminal. The first line of standard output is the device path.
+//! pseudo-terminal, speaking the native protocol or a text dialect. The
+//! first line of standard output is the device path.
 
 use std::io::Write;
 use std::sync::atomic::Ordering;
 use std::time::Duration;
 
 use anyhow::{Context, Result, bail};
-use clap::{Args, ValueEnum};
+use clap::Args;
 
-use buscue::adapter::serve::{LinkFaults, ServeEnd, pty, serve_native};
+use buscue::adapter::dialect_profile::Profile;
+use buscue::adapter::dialect_serve::DialectServer;
+use buscue::adapter::serve::{LinkFaults, ServeEnd, pty, serve as serve_loop, serve_native};
 use buscue::adapter::{Adapter as _, AdapterSpec, OpenOptions, open_sim};
 
 use super::{interrupt_flag, parse_adapter};
 
 /// The protocol the served adapter speaks.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub enum Speak {
     /// The native binary protocol (adapters/PROTOCOL.md).
     Native,
+    /// A text dialect: a shipped profile name or a profile file
+    /// (adapters/DIALECTS.md).
+    Dialect(String),
+}
+
+fn parse_speak(s: &str) -> Result<Speak, String> {
+    let t = s.trim();
+    if t == "native" {
+        return Ok(Speak::Native);
+    }
+    match t.strip_prefix("dialect:").map(str::trim) {
+        Some(p) if !p.is_empty() => Ok(Speak::Dialect(p.to_string())),
+        Some(_) => Err("`dialect:` needs a profile, as in dialect:stepwise or dialect:adapters/my-bridge.toml".into()),
+        None => {
+            Err(format!("`{t}` is not a protocol: use `native` or `dialect:PROFILE` (stepwise, oneline or a file)"))
+        }
+    }
 }
 
 #[derive(Args, Debug)]
@@ -25,10 +45,12 @@ pub struct ServeArgs {
     /// The bench to serve: `sim` (the built-in greenhouse bench) or `sim:PATH`.
     #[arg(long, default_value = "sim", value_parser = parse_adapter)]
     pub bench: AdapterSpec,
-    /// Protocol on the port.
-    #[arg(long, value_enum, default_value = "native")]
+    /// Protocol on the port: `native`, or `dialect:PROFILE` with a shipped
+    /// profile (`stepwise`, `oneline`) or a profile file.
+    #[arg(long, default_value = "native", value_name = "PROTOCOL", value_parser = parse_speak)]
     pub speak: Speak,
-    /// Pace the bench in real time instead of virtual time.
+    /// Pace the bench in real time instead of virtual time (for a dialect
+    /// without `commands.delay`, whose host sleeps on the wall clock).
     #[arg(long)]
     pub realtime: bool,
     /// Link fault: probability that a byte is lost (each direction).
@@ -40,12 +62,14 @@ pub struct ServeArgs {
     /// Link fault: milliseconds added before every answer.
     #[arg(long, default_value_t = 0)]
     pub latency_ms: u64,
-    /// Link fault: reset the adapter in the middle of the frame after N frames.
+    /// Link fault: reset the adapter in the middle of the frame (dialect:
+    /// command line) after N of them.
     #[arg(long, value_name = "N")]
     pub reset_after: Option<u64>,
-    /// Link fault: hang up (close the port) after N frames.
+    /// Link fault: hang up (close the port) after answering N frames
+    /// (dialect: command lines), as if unplugged.
     #[arg(long, value_name = "N")]
-    pub hangup_after: Option<u64>,
+    pub hang_up_after: Option<u64>,
     /// Seed of the link faults.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -60,16 +84,22 @@ fn probability(s: &str) -> Result<f64, String> {
 }
 
 pub fn serve(a: ServeArgs) -> Result<u8> {
-    if matches!(a.bench, AdapterSpec::Native { .. }) {
-        bail!("--bench takes a simulated bench (`sim` or `sim:PATH`), not a serial port");
+    if !matches!(a.bench, AdapterSpec::DemoBench | AdapterSpec::Bench(_)) {
+        bail!("--bench takes a simulated bench (`sim` or `sim:PATH`), not a serial adapter");
     }
+    // Everything the user named is checked before the port appears, so a
+    // caller waiting for the device path gets an error instead.
+    let profile = match &a.speak {
+        Speak::Native => None,
+        Speak::Dialect(p) => Some(Profile::load(p)?),
+    };
     let sim = open_sim(&a.bench, &OpenOptions { realtime: a.realtime })?;
     let faults = LinkFaults {
         drop: a.drop_bytes,
         flip: a.flip_bits,
         latency: Duration::from_millis(a.latency_ms),
         reset_after: a.reset_after,
-        hangup_after: a.hangup_after,
+        hang_up_after: a.hang_up_after,
         seed: a.seed,
     };
     let stop = interrupt_flag()?;
@@ -79,16 +109,28 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         writeln!(out, "{path}")?;
         out.flush()?;
     }
-    let speak = format!("{:?}", a.speak).to_lowercase();
-    eprintln!("serving {} on {path} ({speak} protocol); Ctrl-C to stop", sim.identity().target);
-    let end = match a.speak {
-        Speak::Native => serve_native(sim, master, Some(slave), &faults, &stop)?.0,
+    let speak = match &profile {
+        None => "native protocol".to_string(),
+        Some(p) => format!("{} text dialect", p.name),
+    };
+    eprintln!("serving {} on {path} ({speak}); Ctrl-C to stop", sim.identity().target);
+    let (end, counts) = match profile {
+        None => {
+            let (end, server) = serve_native(sim, master, Some(slave), &faults, &stop)?;
+            (end, format!("{} requests executed", server.bridge_stats().executed))
+        }
+        Some(p) => {
+            let mut server = DialectServer::new(p, sim);
+            let end = serve_loop(master, Some(slave), &mut server, &faults, &stop)?;
+            let s = &server.stats;
+            (end, format!("{} command lines, {} transactions", s.commands, s.transactions))
+        }
     };
     let why = match end {
         ServeEnd::PeerClosed => "the peer closed the port",
-        ServeEnd::HungUp => "hung up as asked (--hangup-after)",
+        ServeEnd::HungUp => "hung up as asked (--hang-up-after)",
         ServeEnd::Stopped => "stopped",
     };
-    eprintln!("serving ended: {why}");
+    eprintln!("serving ended: {why}; {counts}");
     Ok(if stop.load(Ordering::Relaxed) { buscue::exit::INTERRUPTED } else { buscue::exit::OK })
 }
