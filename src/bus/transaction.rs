@@ -195,7 +195,16 @@ impl Transaction {
     /// The events when counted read `op` announced `count(op)` (None:
     /// assume its `max`). `count` is asked only about counted reads.
     pub fn events_resolved(&self, count: impl Fn(usize) -> Option<u8>) -> Vec<Event> {
-        let mut ev = Vec::with_capacity(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
+        let mut ev = Vec::new();
+        self.events_resolved_into(count, &mut ev);
+        ev
+    }
+
+    /// [`Transaction::events_resolved`] into a caller's buffer (cleared
+    /// first), so a driver that runs many transactions reuses one list.
+    pub fn events_resolved_into(&self, count: impl Fn(usize) -> Option<u8>, ev: &mut Vec<Event>) {
+        ev.clear();
+        ev.reserve(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
         ev.push(Event::Start);
         let mut prev: Option<Direction> = None;
         let mut ten_bit_addressed = false;
@@ -205,7 +214,7 @@ impl Transaction {
                 if prev.is_some() {
                     ev.push(Event::RepeatedStart);
                 }
-                self.address_phase(dir, &mut ten_bit_addressed, &mut ev);
+                self.address_phase(dir, &mut ten_bit_addressed, ev);
             }
             match o {
                 Operation::Write(bytes) => {
@@ -225,7 +234,6 @@ impl Transaction {
             prev = Some(dir);
         }
         ev.push(Event::Stop);
-        ev
     }
 
     fn address_phase(&self, dir: Direction, ten_bit_addressed: &mut bool, ev: &mut Vec<Event>) {
