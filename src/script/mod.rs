@@ -133,11 +133,26 @@ pub const INTERNAL_CHUNK: &str = "=buscue";
 
 /// The innermost stack frame that belongs to a script.
 pub fn origin(lua: &Lua) -> Option<Origin> {
-    script_frames(lua, 1).into_iter().next()
+    let mut first = None;
+    walk_script_frames(lua, |o| {
+        first = Some(o);
+        false
+    });
+    first
 }
 
 fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
     let mut out = Vec::new();
+    walk_script_frames(lua, |o| {
+        out.push(o);
+        out.len() < max
+    });
+    out
+}
+
+/// Hands the script's own stack frames, innermost first, to `each` until
+/// it returns false.
+fn walk_script_frames(lua: &Lua, mut each: impl FnMut(Origin) -> bool) {
     // Level 0 is the running function: the Rust callback or message
     // handler that asked, never the script.
     for level in 1..64 {
@@ -148,18 +163,43 @@ fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
                 return Some(None);
             }
             let line = d.current_line()?;
-            Some(Some(Origin { file: s.short_src.as_deref().unwrap_or("?").to_string(), line: line as u32 }))
+            Some(Some(Origin { file: file_name(s.short_src.as_deref().unwrap_or("?")), line: line as u32 }))
         }) else {
             break;
         };
-        if let Some(Some(o)) = frame {
-            out.push(o);
-            if out.len() >= max {
-                break;
-            }
+        if let Some(Some(o)) = frame
+            && !each(o)
+        {
+            break;
         }
     }
-    out
+}
+
+/// Most scripts are one file or a few, and every transaction names one:
+/// the names seen last are kept (at most [`FILE_NAMES_KEPT`], newest
+/// first) so an origin costs a string compare and a reference count, not
+/// an allocation. Per thread because a Lua state never leaves the thread
+/// that made it; the entries are plain names, whichever state asked.
+const FILE_NAMES_KEPT: usize = 8;
+
+thread_local! {
+    static FILE_NAMES: RefCell<Vec<Arc<str>>> = const { RefCell::new(Vec::new()) };
+}
+
+fn file_name(name: &str) -> Arc<str> {
+    FILE_NAMES.with_borrow_mut(|kept| {
+        if let Some(i) = kept.iter().position(|k| **k == *name) {
+            if i > 0 {
+                let hit = kept.remove(i);
+                kept.insert(0, hit);
+            }
+            return kept[0].clone();
+        }
+        let fresh: Arc<str> = Arc::from(name);
+        kept.truncate(FILE_NAMES_KEPT - 1);
+        kept.insert(0, fresh.clone());
+        fresh
+    })
 }
 
 /// Finds the [`Abort`] inside whatever error Lua hands back.
