@@ -47,7 +47,7 @@ pub enum Direction {
 }
 
 /// One operation of a transaction.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Operation {
     /// Bytes the controller sends.
@@ -58,6 +58,26 @@ pub enum Operation {
     /// (at most `max`, which is at most 255), then `trailer` more bytes.
     #[serde(rename = "read-counted")]
     ReadCounted { max: usize, trailer: usize },
+}
+
+impl Clone for Operation {
+    fn clone(&self) -> Self {
+        match self {
+            Operation::Write(b) => Operation::Write(b.clone()),
+            Operation::Read(n) => Operation::Read(*n),
+            Operation::ReadCounted { max, trailer } => Operation::ReadCounted { max: *max, trailer: *trailer },
+        }
+    }
+
+    /// Reuses a write's byte buffer when both are writes: the session
+    /// copies every transaction's operations into its frame this way, so
+    /// a run of transactions allocates no new buffers for their frames.
+    fn clone_from(&mut self, source: &Self) {
+        match (self, source) {
+            (Operation::Write(mine), Operation::Write(theirs)) => mine.clone_from(theirs),
+            (me, other) => *me = other.clone(),
+        }
+    }
 }
 
 impl Operation {
