@@ -38,6 +38,16 @@ fn reads() -> u64 {
     std::env::var("BUSCUE_BENCH_READS").ok().and_then(|v| v.parse().ok()).unwrap_or(READS)
 }
 
+/// `BUSCUE_BENCH_CASE=plain` or `json` runs one frame log only, so an
+/// instruction count can be taken per case; unset (or anything else) runs
+/// both.
+fn wants(case: &str) -> bool {
+    match std::env::var("BUSCUE_BENCH_CASE").as_deref() {
+        Ok(c @ ("plain" | "json")) => c == case,
+        _ => true,
+    }
+}
+
 fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     let dir = tempfile::tempdir().expect("temp dir");
     let script = dir.path().join("loop.lua");
@@ -86,7 +96,11 @@ fn main() {
         return;
     }
     for _ in 0..2 {
-        measure("plain frame log", |f| Box::new(PlainLog::new(BufWriter::new(f), false, true)));
-        measure("JSON lines", |f| Box::new(JsonLines::new(BufWriter::new(f))));
+        if wants("plain") {
+            measure("plain frame log", |f| Box::new(PlainLog::new(BufWriter::new(f), false, true)));
+        }
+        if wants("json") {
+            measure("JSON lines", |f| Box::new(JsonLines::new(BufWriter::new(f))));
+        }
     }
 }

@@ -4,6 +4,7 @@
 //! trace + view. See DEVELOPERS.md for the module map.
 
 pub mod adapter;
+pub mod ascii;
 pub mod bus;
 pub mod electrical;
 pub mod exit;

@@ -85,7 +85,7 @@ fn frame() -> impl Strategy<Value = Frame> {
                     attempt,
                     attempts,
                     purpose,
-                    origin: origin.map(|(file, line)| Origin { file, line }),
+                    origin: origin.map(|(file, line)| Origin { file: file.into(), line }),
                     decoded,
                     pec: None,
                 }

@@ -15,6 +15,8 @@ use std::fmt;
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
+use crate::ascii::hex_digit;
+
 /// A target address of either kind. The kinds never mix: 0x050 as a 10-bit
 /// address is a different target from 0x50 as a 7-bit one.
 /// In files an address is its display string: `0x48`, `10:0x2A5`.
@@ -26,7 +28,7 @@ pub enum Address {
 
 impl Serialize for Address {
     fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
-        s.collect_str(self)
+        s.serialize_str(self.text().as_str())
     }
 }
 
@@ -156,10 +158,39 @@ impl Address {
 
 impl fmt::Display for Address {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            Address::Seven(a) => write!(f, "0x{a:02X}"),
-            Address::Ten(a) => write!(f, "10:0x{a:03X}"),
+        f.write_str(self.text().as_str())
+    }
+}
+
+/// An address's display text (`0x48`, `10:0x2A5`) on the stack: frame
+/// lines and records take it once per transaction, without allocating or
+/// going through a formatter.
+pub struct AddressText {
+    buf: [u8; 9],
+    len: usize,
+}
+
+impl AddressText {
+    pub fn as_str(&self) -> &str {
+        // Built from ASCII only (below), so the check never fails.
+        std::str::from_utf8(&self.buf[..self.len]).unwrap_or("?")
+    }
+}
+
+impl Address {
+    /// The display text: `0x` and two hex digits for 7-bit, `10:0x` and
+    /// three (four above 0xFFF, which no valid address reaches) for 10-bit.
+    pub fn text(&self) -> AddressText {
+        let mut buf = [0u8; 9];
+        let (prefix, value, digits): (&[u8], u32, usize) = match *self {
+            Address::Seven(a) => (b"0x", a as u32, 2),
+            Address::Ten(a) => (b"10:0x", a as u32, if a > 0xFFF { 4 } else { 3 }),
+        };
+        buf[..prefix.len()].copy_from_slice(prefix);
+        for i in 0..digits {
+            buf[prefix.len() + i] = hex_digit(value >> (4 * (digits - 1 - i)));
         }
+        AddressText { buf, len: prefix.len() + digits }
     }
 }
 
@@ -248,5 +279,18 @@ mod tests {
         assert_eq!(Address::parse("10:0x2A5"), Ok(Address::Ten(0x2A5)));
         assert_eq!(Address::Ten(0x2A5).to_string(), "10:0x2A5");
         assert_eq!(Address::Seven(0x0B).to_string(), "0x0B");
+    }
+
+    // The hand-built text against the `fmt` spelling it replaced, over
+    // every value either kind can hold.
+    #[test]
+    fn text_matches_formatter_spelling() {
+        for a in 0..=u8::MAX {
+            assert_eq!(Address::Seven(a).to_string(), format!("0x{a:02X}"));
+        }
+        for a in (0..=0x3FFu16).chain([0xFFF, 0x1000, u16::MAX]) {
+            assert_eq!(Address::Ten(a).to_string(), format!("10:0x{a:03X}"));
+        }
+        assert_eq!(serde_json::to_string(&Address::Ten(0x2A5)).unwrap(), r#""10:0x2A5""#);
     }
 }

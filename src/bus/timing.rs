@@ -83,22 +83,55 @@ pub fn breakdown(tx: &Transaction, speed: BusSpeed) -> Breakdown {
     breakdown_events(&tx.events(), speed)
 }
 
+/// The time each kind of wire event takes at one speed, worked out once
+/// per speed: the one place the model above turns into numbers.
+/// [`breakdown_events`] sums it over a sequence; the simulator adds it up
+/// event by event as a transaction runs.
+/// The default (all zero) only stands in until a transaction's START.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct EventTimes {
+    start_ns: u64,
+    repeated_start_ns: u64,
+    stop_ns: u64,
+    byte_ns: u64,
+}
+
+impl EventTimes {
+    pub fn new(speed: BusSpeed) -> Self {
+        let t = period_ns(speed);
+        let half = t / 2;
+        let c = condition_times(speed.mode());
+        let at_least = |min: u32| (min as u64).max(half);
+        EventTimes {
+            start_ns: at_least(c.hd_sta),
+            repeated_start_ns: at_least(c.su_sta) + at_least(c.hd_sta),
+            stop_ns: at_least(c.su_sto) + at_least(c.buf),
+            byte_ns: 9 * t,
+        }
+    }
+
+    /// Bus time of one event, in ns.
+    pub fn event_ns(&self, e: &Event) -> u64 {
+        match e {
+            Event::Start => self.start_ns,
+            Event::RepeatedStart => self.repeated_start_ns,
+            Event::Stop => self.stop_ns,
+            Event::AddressByte(_) | Event::WriteByte { .. } | Event::ReadByte { .. } => self.byte_ns,
+        }
+    }
+}
+
 /// The bus time of an event sequence (possibly cut short by a NACK).
 pub fn breakdown_events(events: &[Event], speed: BusSpeed) -> Breakdown {
-    let t = period_ns(speed);
-    let half = t / 2;
-    let c = condition_times(speed.mode());
-    let at_least = |min: u32| (min as u64).max(half);
-    let byte = 9 * t;
+    let times = EventTimes::new(speed);
     let mut b = Breakdown { conditions_ns: 0, address_ns: 0, data_ns: 0, payload_bytes: 0 };
     for e in events {
+        let ns = times.event_ns(e);
         match e {
-            Event::Start => b.conditions_ns += at_least(c.hd_sta),
-            Event::RepeatedStart => b.conditions_ns += at_least(c.su_sta) + at_least(c.hd_sta),
-            Event::Stop => b.conditions_ns += at_least(c.su_sto) + at_least(c.buf),
-            Event::AddressByte(_) => b.address_ns += byte,
+            Event::Start | Event::RepeatedStart | Event::Stop => b.conditions_ns += ns,
+            Event::AddressByte(_) => b.address_ns += ns,
             Event::WriteByte { .. } | Event::ReadByte { .. } => {
-                b.data_ns += byte;
+                b.data_ns += ns;
                 b.payload_bytes += 1;
             }
         }

@@ -47,7 +47,7 @@ pub enum Direction {
 }
 
 /// One operation of a transaction.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Operation {
     /// Bytes the controller sends.
@@ -58,6 +58,26 @@ pub enum Operation {
     /// (at most `max`, which is at most 255), then `trailer` more bytes.
     #[serde(rename = "read-counted")]
     ReadCounted { max: usize, trailer: usize },
+}
+
+impl Clone for Operation {
+    fn clone(&self) -> Self {
+        match self {
+            Operation::Write(b) => Operation::Write(b.clone()),
+            Operation::Read(n) => Operation::Read(*n),
+            Operation::ReadCounted { max, trailer } => Operation::ReadCounted { max: *max, trailer: *trailer },
+        }
+    }
+
+    /// Reuses a write's byte buffer when both are writes: the session
+    /// copies every transaction's operations into its frame this way, so
+    /// a run of transactions allocates no new buffers for their frames.
+    fn clone_from(&mut self, source: &Self) {
+        match (self, source) {
+            (Operation::Write(mine), Operation::Write(theirs)) => mine.clone_from(theirs),
+            (me, other) => *me = other.clone(),
+        }
+    }
 }
 
 impl Operation {
@@ -195,7 +215,16 @@ impl Transaction {
     /// The events when counted read `op` announced `count(op)` (None:
     /// assume its `max`). `count` is asked only about counted reads.
     pub fn events_resolved(&self, count: impl Fn(usize) -> Option<u8>) -> Vec<Event> {
-        let mut ev = Vec::with_capacity(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
+        let mut ev = Vec::new();
+        self.events_resolved_into(count, &mut ev);
+        ev
+    }
+
+    /// [`Transaction::events_resolved`] into a caller's buffer (cleared
+    /// first), so a driver that runs many transactions reuses one list.
+    pub fn events_resolved_into(&self, count: impl Fn(usize) -> Option<u8>, ev: &mut Vec<Event>) {
+        ev.clear();
+        ev.reserve(4 + self.ops.iter().map(|o| o.len() + 3).sum::<usize>());
         ev.push(Event::Start);
         let mut prev: Option<Direction> = None;
         let mut ten_bit_addressed = false;
@@ -205,7 +234,7 @@ impl Transaction {
                 if prev.is_some() {
                     ev.push(Event::RepeatedStart);
                 }
-                self.address_phase(dir, &mut ten_bit_addressed, &mut ev);
+                self.address_phase(dir, &mut ten_bit_addressed, ev);
             }
             match o {
                 Operation::Write(bytes) => {
@@ -225,7 +254,6 @@ impl Transaction {
             prev = Some(dir);
         }
         ev.push(Event::Stop);
-        ev
     }
 
     fn address_phase(&self, dir: Direction, ten_bit_addressed: &mut bool, ev: &mut Vec<Event>) {

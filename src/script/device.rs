@@ -150,18 +150,30 @@ impl DeviceHandle {
         }
     }
 
-    fn decode(&self, b: &[u8]) -> u32 {
-        match (self.width, self.big_endian) {
-            (1, _) => b[0] as u32,
-            (_, true) => ((b[0] as u32) << 8) | b[1] as u32,
-            (_, false) => ((b[1] as u32) << 8) | b[0] as u32,
-        }
+    /// A register value from the bytes read; an adapter that answered
+    /// with fewer bytes than asked for is an error, not a panic.
+    fn decode(&self, b: &[u8]) -> LuaResult<u32> {
+        Ok(match (self.width, self.big_endian, b) {
+            (1, _, [v, ..]) => *v as u32,
+            (2, true, [hi, lo, ..]) => ((*hi as u32) << 8) | *lo as u32,
+            (2, false, [lo, hi, ..]) => ((*hi as u32) << 8) | *lo as u32,
+            _ => {
+                return Err(bad(format!(
+                    "{}: a {}-bit register read returned {} byte(s)",
+                    self.address,
+                    self.width * 8,
+                    b.len()
+                )));
+            }
+        })
     }
 
     fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<&str>) -> LuaResult<u32> {
         let tx = Transaction::new(self.address, vec![Operation::Write(self.pointer(reg)), Operation::Read(self.width)]);
         let out = transact(lua, &self.ctx, &tx, &self.options(), purpose, name)?;
-        Ok(self.decode(&out.read_bytes()))
+        // The read is the last operation, so its bytes are all the reply
+        // holds: taken in place rather than gathered into a new vector.
+        self.decode(out.ops.last().map_or(&[], |o| o.data.as_slice()))
     }
 
     fn write_reg(&self, lua: &Lua, reg: u32, name: Option<String>, value: u32, unlock: bool) -> LuaResult<()> {

@@ -133,33 +133,85 @@ pub const INTERNAL_CHUNK: &str = "=buscue";
 
 /// The innermost stack frame that belongs to a script.
 pub fn origin(lua: &Lua) -> Option<Origin> {
-    script_frames(lua, 1).into_iter().next()
+    let mut first = None;
+    walk_script_frames(lua, |o| {
+        first = Some(o);
+        false
+    });
+    first
 }
 
 fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
     let mut out = Vec::new();
+    walk_script_frames(lua, |o| {
+        out.push(o);
+        out.len() < max
+    });
+    out
+}
+
+/// Hands the script's own stack frames, innermost first, to `each` until
+/// it returns false.
+fn walk_script_frames(lua: &Lua, mut each: impl FnMut(Origin) -> bool) {
     // Level 0 is the running function: the Rust callback or message
     // handler that asked, never the script.
     for level in 1..64 {
         let Some(frame) = lua.inspect_stack(level, |d| {
-            let s = d.source();
-            let internal = s.source.as_deref().is_some_and(|src| src.starts_with(INTERNAL_CHUNK));
-            if s.what == "C" || internal {
-                return Some(None);
-            }
+            let Some(file) = script_file(lua, d) else { return Some(None) };
             let line = d.current_line()?;
-            Some(Some(Origin { file: s.short_src.as_deref().unwrap_or("?").to_string(), line: line as u32 }))
+            Some(Some(Origin { file, line: line as u32 }))
         }) else {
             break;
         };
-        if let Some(Some(o)) = frame {
-            out.push(o);
-            if out.len() >= max {
-                break;
-            }
+        if let Some(Some(o)) = frame
+            && !each(o)
+        {
+            break;
         }
     }
-    out
+}
+
+/// The functions stack frames ran lately and what each is: a script's
+/// (with its file name) or not (`None`: a C function or the tool's own
+/// Lua). Every transaction asks this of its caller's frame, and the answer
+/// is a property of the function, so it is worked out once per function
+/// instead of decoding the frame's source strings each time. The entries
+/// hold the functions themselves, so none can be collected and its address
+/// reused while it is listed. Kept as the Lua state's app data.
+#[derive(Default)]
+struct KnownFunctions {
+    /// Newest first, at most [`KNOWN_FUNCTIONS`].
+    seen: Vec<(mlua::Function, Option<Arc<str>>)>,
+}
+
+/// Enough for a script calling the bus from a few functions and modules;
+/// a miss only costs the slow path.
+const KNOWN_FUNCTIONS: usize = 8;
+
+/// The file a frame's function belongs to, if it is a script's.
+fn script_file(lua: &Lua, d: &mlua::Debug) -> Option<Arc<str>> {
+    let f = d.function();
+    let p = f.to_pointer();
+    // try_: never a panic if the cache is in use (it is not re-entered).
+    let mut known = lua.try_app_data_mut::<KnownFunctions>().ok().flatten();
+    if let Some(k) = known.as_mut()
+        && let Some(i) = k.seen.iter().position(|(g, _)| g.to_pointer() == p)
+    {
+        if i > 0 {
+            let hit = k.seen.remove(i);
+            k.seen.insert(0, hit);
+        }
+        return k.seen[0].1.clone();
+    }
+    let s = d.source();
+    let internal = s.source.as_deref().is_some_and(|src| src.starts_with(INTERNAL_CHUNK));
+    let file: Option<Arc<str>> =
+        if s.what == "C" || internal { None } else { Some(Arc::from(s.short_src.as_deref().unwrap_or("?"))) };
+    if let Some(k) = known.as_mut() {
+        k.seen.truncate(KNOWN_FUNCTIONS - 1);
+        k.seen.insert(0, (f, file.clone()));
+    }
+    file
 }
 
 /// Finds the [`Abort`] inside whatever error Lua hands back.
@@ -221,6 +273,7 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
         Ok(())
     };
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
+    lua.set_app_data(KnownFunctions::default());
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
     let deadline = cfg.timeout.map(|t| (Instant::now() + t, t));
     lua.set_hook(HookTriggers::new().every_nth_instruction(1000), move |lua, _| {

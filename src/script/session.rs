@@ -69,6 +69,10 @@ pub struct Session {
     pub allow_reserved: bool,
     interrupt: Arc<AtomicBool>,
     warnings: Vec<String>,
+    /// The operations of the last frame, handed back by the sinks: the
+    /// next frame copies its transaction's operations into these buffers
+    /// instead of allocating new ones.
+    frame_ops: Vec<Operation>,
 }
 
 /// Works out the PEC mark of an attempt's outcome for its frame.
@@ -95,6 +99,7 @@ impl Session {
             allow_reserved: false,
             interrupt,
             warnings: Vec::new(),
+            frame_ops: Vec::new(),
         }
     }
 
@@ -230,11 +235,13 @@ impl Session {
         pec: Option<PecMark>,
     ) -> Outcome {
         self.seq += 1;
+        let mut ops = std::mem::take(&mut self.frame_ops);
+        ops.clone_from(&tx.ops);
         let frame = Frame {
             seq: self.seq,
             t,
             address: tx.address,
-            ops: tx.ops.clone(),
+            ops,
             outcome,
             attempt,
             attempts,
@@ -246,7 +253,8 @@ impl Session {
         self.stats.add_frame(&frame);
         let record = Record::Frame(frame);
         self.emit(&record);
-        let Record::Frame(Frame { outcome, .. }) = record else { unreachable!("built as a frame above") };
+        let Record::Frame(Frame { outcome, ops, .. }) = record else { unreachable!("built as a frame above") };
+        self.frame_ops = ops;
         outcome
     }
 

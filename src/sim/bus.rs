@@ -9,7 +9,7 @@
 use std::time::Duration;
 
 use crate::bus::address::TEN_BIT_PREFIX;
-use crate::bus::timing::breakdown_events;
+use crate::bus::timing::EventTimes;
 use crate::bus::{
     Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, PhaseTracker, Transaction,
 };
@@ -47,6 +47,9 @@ pub struct SimBus {
     /// (imaginary) controller.
     arbitration: Option<(f64, SplitMix64)>,
     sda_held_by: Option<usize>,
+    /// The event list of the transaction in progress, kept between
+    /// transactions so `execute` does not allocate one each time.
+    events: Vec<Event>,
 }
 
 impl SimBus {
@@ -57,7 +60,7 @@ impl SimBus {
         stretch_timeout: Duration,
         arbitration: Option<(f64, SplitMix64)>,
     ) -> Self {
-        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None }
+        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None, events: Vec::new() }
     }
 
     pub fn slots(&self) -> &[Slot] {
@@ -103,15 +106,26 @@ impl SimBus {
     /// see the same devices, faults and bus time.
     pub fn execute(&mut self, tx: &Transaction) -> Outcome {
         let mut w = Wire::default();
-        let mut ops: Vec<OpOutcome> = vec![OpOutcome::default(); tx.ops.len()];
+        // Sized for what each operation moves, so recording a byte never
+        // has to grow a vector.
+        let mut ops: Vec<OpOutcome> = tx
+            .ops
+            .iter()
+            .map(|o| match o.direction() {
+                Direction::Write => OpOutcome { acks: Vec::with_capacity(o.len()), data: Vec::new() },
+                Direction::Read => OpOutcome { acks: Vec::new(), data: Vec::with_capacity(o.len()) },
+            })
+            .collect();
         let mut last_op = 0usize;
         let mut phase = PhaseTracker::default();
         let mut fault = self.wire_start(&mut w).err();
         // Counted reads learn their length from the target's count byte,
         // so the plan is re-made from the transaction when one arrives;
-        // the events so far stay the same (Transaction contract).
-        let mut counts: Vec<Option<u8>> = vec![None; tx.ops.len()];
-        let mut events = tx.events();
+        // the events so far stay the same (Transaction contract). `counts`
+        // stays empty (no allocation) until a counted read reports.
+        let mut counts: Vec<Option<u8>> = Vec::new();
+        let mut events = std::mem::take(&mut self.events);
+        tx.events_resolved_into(|_| None, &mut events);
         let mut next = 1; // events[0] is the START wire_start made
         if fault.is_none() {
             while let Some(&e) = events.get(next) {
@@ -147,14 +161,16 @@ impl SimBus {
                         let byte = self.wire_read(&mut w, ack);
                         ops[op].data.push(byte);
                         if index == 0 && tx.ops[op].is_counted() {
+                            counts.resize(tx.ops.len(), None);
                             counts[op] = Some(byte);
-                            events = tx.events_resolved(|o| counts[o]);
+                            tx.events_resolved_into(|o| counts[o], &mut events);
                         }
                     }
                     Event::Stop => {}
                 }
             }
         }
+        self.events = events;
         if fault.is_some() {
             ops.truncate(last_op + 1);
         }
@@ -165,8 +181,8 @@ impl SimBus {
     /// START. Fails when a device holds SDA low (the controller cannot
     /// make a START).
     pub fn wire_start(&mut self, w: &mut Wire) -> Result<(), Fault> {
-        *w = Wire { start: self.clock.now(), ..Wire::default() };
-        w.done.push(Event::Start);
+        *w = Wire { start: self.clock.now(), times: EventTimes::new(self.speed), ..Wire::default() };
+        w.add(&Event::Start);
         if self.sda_held_by.is_some() {
             return Err(Fault::Bus { line: LineFault::SdaStuckLow });
         }
@@ -175,14 +191,14 @@ impl SimBus {
 
     /// A repeated START.
     pub fn wire_restart(&mut self, w: &mut Wire) {
-        w.done.push(Event::RepeatedStart);
+        w.add(&Event::RepeatedStart);
     }
 
     /// An address byte (R/W included); `Ok(true)` when a device ACKs it.
     /// Arbitration is contested on the first address byte; a 10-bit
     /// address selects its device on the low byte (UM10204 §3.1.11).
     pub fn wire_address(&mut self, w: &mut Wire, byte: u8) -> Result<bool, Fault> {
-        w.done.push(Event::AddressByte(byte));
+        w.add(&Event::AddressByte(byte));
         if !w.addressed {
             w.addressed = true;
             if let Some((p, rng)) = self.arbitration.as_mut()
@@ -241,7 +257,7 @@ impl SimBus {
 
     /// A data byte from the controller; true = ACK. Nobody selected: NACK.
     pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> bool {
-        w.done.push(Event::WriteByte { op: 0, index: 0, byte });
+        w.add(&Event::WriteByte { op: 0, index: 0, byte });
         match w.target.filter(|_| w.selected) {
             Some(i) => self.slots[i].device.write(byte, w.now()),
             None => false,
@@ -251,7 +267,7 @@ impl SimBus {
     /// A data byte from the target, answered with ACK or NACK. With nobody
     /// selected the pull-ups leave SDA high: 0xFF (common practice).
     pub fn wire_read(&mut self, w: &mut Wire, ack: bool) -> u8 {
-        w.done.push(Event::ReadByte { op: 0, index: 0, ack });
+        w.add(&Event::ReadByte { op: 0, index: 0, ack });
         match w.target.filter(|_| w.selected) {
             Some(i) => self.slots[i].device.read(w.now()),
             None => 0xFF,
@@ -261,9 +277,7 @@ impl SimBus {
     /// STOP: ends the transaction, advances the clock by its bus time and
     /// returns that time.
     pub fn wire_stop(&mut self, mut w: Wire) -> Duration {
-        if w.done.last() != Some(&Event::Stop) {
-            w.done.push(Event::Stop);
-        }
+        w.add(&Event::Stop);
         if let Some(i) = w.target.filter(|_| w.selected) {
             let slot = &mut self.slots[i];
             slot.device.stop(w.now());
@@ -274,7 +288,7 @@ impl SimBus {
                 self.sda_held_by = Some(i);
             }
         }
-        let bus_time = breakdown_events(&w.done, self.speed).total() + w.stretch;
+        let bus_time = Duration::from_nanos(w.bus_ns) + w.stretch;
         self.clock.advance(bus_time);
         bus_time
     }
@@ -286,7 +300,11 @@ impl SimBus {
 pub struct Wire {
     start: Duration,
     stretch: Duration,
-    done: Vec<Event>,
+    /// Event times at the speed the transaction started with.
+    times: EventTimes,
+    /// Bus time of the events so far (clock stretching apart), added up
+    /// as they happen.
+    bus_ns: u64,
     addressed: bool,
     target: Option<usize>,
     selected: bool,
@@ -300,5 +318,9 @@ pub struct Wire {
 impl Wire {
     fn now(&self) -> Duration {
         self.start + self.stretch
+    }
+
+    fn add(&mut self, e: &Event) {
+        self.bus_ns += self.times.event_ns(e);
     }
 }

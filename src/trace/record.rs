@@ -3,6 +3,7 @@
 //! version.
 
 use std::fmt;
+use std::sync::Arc;
 use std::time::Duration;
 
 use serde::{Deserialize, Serialize};
@@ -13,7 +14,9 @@ use crate::bus::{Address, Operation, Outcome};
 /// Where in a script something happened.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Origin {
-    pub file: String,
+    /// Shared, not owned: every frame of a script names the same file, so
+    /// the player hands out one string (serialized as a plain string).
+    pub file: Arc<str>,
     pub line: u32,
 }
 

@@ -17,6 +17,7 @@
 use std::fmt::Write as _;
 use std::time::Duration;
 
+use crate::ascii::{push_hex_byte as push_hex, push_spaces, push_uint, push_uint_left, push_uint_right};
 use crate::bus::{Operation, Outcome};
 use crate::trace::Frame;
 use crate::trace::record::Stats;
@@ -35,7 +36,7 @@ const COLOUR: Palette =
 const PLAIN: Palette = Palette { dim: "", ok: "", warn: "", bad: "", reset: "" };
 
 /// Seconds with microseconds, right-aligned: `    0.012345`. Integer
-/// arithmetic: this runs once per frame.
+/// arithmetic and no formatter: this runs once per frame.
 pub fn seconds(t: Duration) -> String {
     let mut s = String::with_capacity(12);
     push_seconds(&mut s, t);
@@ -44,22 +45,9 @@ pub fn seconds(t: Duration) -> String {
 
 fn push_seconds(out: &mut String, t: Duration) {
     let us = t.as_micros();
-    let _ = write!(out, "{:>5}.", us / 1_000_000);
-    push_padded_int(out, (us % 1_000_000) as u64, 6);
-}
-
-/// A number with leading zeros to `width` digits.
-fn push_padded_int(out: &mut String, v: u64, width: usize) {
-    let mut digits = [b'0'; 20];
-    let mut n = v;
-    let mut i = digits.len();
-    while n > 0 {
-        i -= 1;
-        digits[i] = b'0' + (n % 10) as u8;
-        n /= 10;
-    }
-    let start = (digits.len() - width).min(i);
-    out.push_str(std::str::from_utf8(&digits[start..]).unwrap_or("?"));
+    push_uint_right(out, (us / 1_000_000) as u64, 5);
+    out.push('.');
+    push_uint(out, (us % 1_000_000) as u64, 6);
 }
 
 /// Duration in the most readable unit.
@@ -78,17 +66,10 @@ fn push_human(out: &mut String, d: Duration) {
     } else {
         (ns / 1_000_000_000, ns % 1_000_000_000 / 1_000_000, 3, " s")
     };
-    push_padded_int(out, whole, 1);
+    push_uint(out, whole, 1);
     out.push('.');
-    push_padded_int(out, frac, digits);
+    push_uint(out, frac, digits);
     out.push_str(unit);
-}
-
-const HEX: &[u8; 16] = b"0123456789ABCDEF";
-
-fn push_hex(out: &mut String, b: u8) {
-    out.push(HEX[(b >> 4) as usize] as char);
-    out.push(HEX[(b & 0xF) as usize] as char);
 }
 
 /// Space-separated hex bytes.
@@ -107,11 +88,10 @@ fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
     }
 }
 
+/// Pads what was written since `start` to `width` columns. Counts bytes:
+/// every padded column (address, operations, result label) is ASCII.
 fn pad_from(out: &mut String, start: usize, width: usize) {
-    let len = out[start..].chars().count();
-    for _ in len..width {
-        out.push(' ');
-    }
+    push_spaces(out, width.saturating_sub(out.len() - start));
 }
 
 fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
@@ -134,7 +114,9 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                 let unsent = bytes.len() - acks.len().min(bytes.len());
                 if unsent > 0 {
                     if done.is_some() || outcome.fault.is_some() {
-                        let _ = write!(out, " +{unsent} unsent");
+                        out.push_str(" +");
+                        push_uint(out, unsent as u64, 1);
+                        out.push_str(" unsent");
                     }
                 } else if bytes.is_empty() {
                     out.push_str(" -");
@@ -160,11 +142,13 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String) {
                         out.push(' ');
                         push_hex_bytes(out, &d.data);
                         if d.data.len() < *n {
-                            let _ = write!(out, " ?x{}", n - d.data.len());
+                            out.push_str(" ?x");
+                            push_uint(out, (n - d.data.len()) as u64, 1);
                         }
                     }
                     _ => {
-                        let _ = write!(out, " ?x{n}");
+                        out.push_str(" ?x");
+                        push_uint(out, *n as u64, 1);
                     }
                 }
             }
@@ -186,9 +170,11 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
     s.push_str(p.dim);
     push_seconds(s, f.t);
     s.push_str(p.reset);
-    let _ = write!(s, "  #{:<5} ", f.seq);
+    s.push_str("  #");
+    push_uint_left(s, f.seq, 5);
+    s.push(' ');
     let at = s.len();
-    let _ = write!(s, "{}", f.address);
+    s.push_str(f.address.text().as_str());
     pad_from(s, at, 9);
     s.push_str("  ");
     let at = s.len();
@@ -210,11 +196,15 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
     push_human(s, f.outcome.bus_time);
     let len = s.len() - at;
     if len < 9 {
+        // Right-aligned: the text's length is known only once written.
         s.insert_str(at, &"         "[..9 - len]);
     }
     let retrying = f.outcome.fault.as_ref().is_some_and(|x| x.is_nack()) && f.attempts > 1;
     if f.attempt > 1 || retrying {
-        let _ = write!(s, " try {}/{}", f.attempt, f.attempts);
+        s.push_str(" try ");
+        push_uint(s, f.attempt as u64, 1);
+        s.push('/');
+        push_uint(s, f.attempts as u64, 1);
     }
     if let Some(purpose) = &f.purpose {
         s.push_str(" (");
@@ -242,7 +232,7 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
         s.push_str(p.dim);
         s.push_str(&o.file);
         s.push(':');
-        let _ = write!(s, "{}", o.line);
+        push_uint(s, o.line as u64, 1);
         s.push_str(p.reset);
     }
 }
@@ -315,6 +305,36 @@ mod tests {
         assert!(line.ends_with("e.lua:9"), "{line}");
         assert!(!line.contains('\x1b'));
         assert!(frame_line(&f, true).contains("\x1b[33m"));
+    }
+
+    // A whole line, byte for byte as the frame log has always written it:
+    // the column widths are part of the layout.
+    #[test]
+    fn whole_line_layout() {
+        let mut f = frame(
+            vec![Operation::Write(vec![0x02]), Operation::Read(1)],
+            vec![OpOutcome::default()],
+            Some(Fault::AddressNack { op: 0, direction: crate::bus::Direction::Write }),
+        );
+        f.seq = 2;
+        f.t = Duration::from_micros(385);
+        f.address = Address::Seven(0x3C);
+        (f.attempt, f.attempts) = (1, 2);
+        f.outcome.bus_time = Duration::from_micros(105);
+        f.origin = Some(Origin { file: "scripts/failures/retries_exhausted.lua".into(), line: 6 });
+        assert_eq!(
+            frame_line(&f, false),
+            "    0.000385  #2     0x3C       W +1 unsent | R ?x1            addr-NACK        0.105 ms try 1/2  \
+             scripts/failures/retries_exhausted.lua:6"
+        );
+        f.address = Address::Ten(0x2A5);
+        f.seq = 123_456;
+        f.t = Duration::from_secs(100_000);
+        assert!(
+            frame_line(&f, false).starts_with("100000.000000  #123456 10:0x2A5   W +1 unsent"),
+            "{}",
+            frame_line(&f, false)
+        );
     }
 
     #[test]
