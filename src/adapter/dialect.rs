@@ -636,14 +636,7 @@ impl Adapter for DialectAdapter {
         if let Some(d) = &self.dead {
             bail!("{d}");
         }
-        if speed.hz() < self.caps.min_speed_hz || speed.hz() > self.caps.max_speed_hz {
-            bail!(
-                "profile {} clocks {} to {}; {speed} is outside that",
-                self.profile.file,
-                BusSpeed::from_hz(self.caps.min_speed_hz as u64)?,
-                BusSpeed::from_hz(self.caps.max_speed_hz as u64)?
-            );
-        }
+        self.caps.check_speed(speed, &format!("profile {}", self.profile.file))?;
         let profile = self.profile.clone();
         let Some(cmd) = &profile.speed else {
             bail!("profile {} has no commands.speed; the adapter runs at its own clock", self.profile.file);

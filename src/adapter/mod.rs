@@ -54,6 +54,21 @@ pub struct Capabilities {
     pub recovery: bool,
 }
 
+impl Capabilities {
+    /// Refuses a speed outside the adapter's range, naming the range;
+    /// `who` says whose range it is ("the simulated adapter", a profile).
+    pub fn check_speed(&self, speed: BusSpeed, who: &str) -> Result<()> {
+        if speed.hz() < self.min_speed_hz || speed.hz() > self.max_speed_hz {
+            bail!(
+                "{who} clocks {} to {}; {speed} is outside that",
+                BusSpeed::from_hz(self.min_speed_hz as u64)?,
+                BusSpeed::from_hz(self.max_speed_hz as u64)?
+            );
+        }
+        Ok(())
+    }
+}
+
 /// Who the adapter is.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Identity {

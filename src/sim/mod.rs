@@ -19,7 +19,7 @@ pub mod signal;
 
 use std::time::Duration;
 
-use anyhow::{Result, bail};
+use anyhow::Result;
 
 use crate::adapter::{Adapter, Capabilities, Identity, LineLevels, Recovery};
 use crate::bus::{BusSpeed, Outcome, Transaction};
@@ -84,13 +84,7 @@ impl Adapter for SimAdapter {
     }
 
     fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed> {
-        if speed.hz() < self.caps.min_speed_hz || speed.hz() > self.caps.max_speed_hz {
-            bail!(
-                "the simulated adapter clocks {} to {}; {speed} is outside that",
-                BusSpeed::from_hz(self.caps.min_speed_hz as u64)?,
-                BusSpeed::from_hz(self.caps.max_speed_hz as u64)?
-            );
-        }
+        self.caps.check_speed(speed, "the simulated adapter")?;
         self.bus.speed = speed;
         Ok(speed)
     }
