@@ -11,9 +11,9 @@ use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
+use buscue::record::Sink;
 use buscue::script::{self, DEFAULT_MEMORY_LIMIT, RunConfig, Session};
 use buscue::sim::{Bench, SimAdapter};
-use buscue::trace::Sink;
 use buscue::view::json::JsonLines;
 use buscue::view::plain::PlainLog;
 

@@ -25,10 +25,10 @@ use std::time::Instant;
 use buscue::adapter::Adapter;
 use buscue::adapter::dialect::DialectAdapter;
 use buscue::adapter::dialect_profile::Profile;
-use buscue::adapter::dialect_serve::DialectServer;
 use buscue::adapter::native::{NativeAdapter, NativeSettings};
-use buscue::adapter::serve::{LinkFaults, pty, serve, serve_native};
 use buscue::bus::{Address, Operation, Outcome, Transaction};
+use buscue::serve::dialect::DialectServer;
+use buscue::serve::{LinkFaults, pty, serve, serve_native};
 use buscue::sim::{Bench, SimAdapter};
 
 /// A bare register target: 8-bit pointer, 16 read-write 8-bit registers.

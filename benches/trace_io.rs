@@ -11,9 +11,10 @@
 use std::time::{Duration, Instant};
 
 use buscue::bus::{Address, Fault, OpOutcome, Operation, Outcome};
+use buscue::record::{Frame, Origin, Record, Sink};
 use buscue::trace::diff::{align, key_files};
 use buscue::trace::mask::Masks;
-use buscue::trace::{Frame, Header, Origin, Record, Sink, TraceWriter};
+use buscue::trace::{Header, TraceWriter};
 
 const FRAMES: u64 = 1_000_000;
 
@@ -57,8 +58,8 @@ fn frame(seq: u64, i: u64, attempt: u32, nack: bool) -> Frame {
 }
 
 fn header() -> Header {
-    let a = buscue::adapter::open(&buscue::adapter::AdapterSpec::DemoBench, &Default::default()).expect("demo bench");
-    Header::new("run", a.as_ref())
+    use buscue::adapter::Adapter as _;
+    Header::new("run", buscue::sim::SimAdapter::demo().snapshot())
 }
 
 /// Writes `FRAMES` frames; `variant` inserts a NACKed attempt before every

@@ -117,7 +117,7 @@ fn main() -> std::process::ExitCode {
         Ok(()) => std::process::ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("error: {e:#}");
-            std::process::ExitCode::from(buscue::exit::ADAPTER)
+            std::process::ExitCode::from(buscue::cli::exit::ADAPTER)
         }
     }
 }
@@ -127,7 +127,8 @@ fn run() -> anyhow::Result<()> {
     use std::sync::atomic::AtomicBool;
 
     use anyhow::{Context, bail};
-    use buscue::adapter::{AdapterSpec, OpenOptions, open};
+    use buscue::adapter::{AdapterSpec, OpenOptions};
+    use buscue::cli::compose::open;
     use buscue::hal::HalBus;
     use buscue::script::Session;
     use buscue::view::plain::PlainLog;
@@ -171,7 +172,8 @@ fn run() -> anyhow::Result<()> {
 #[cfg(test)]
 mod tests {
     use super::climate::*;
-    use buscue::adapter::{AdapterSpec, OpenOptions, open};
+    use buscue::adapter::{AdapterSpec, OpenOptions};
+    use buscue::cli::compose::open;
     use buscue::hal::HalBus;
 
     fn bus() -> HalBus {

@@ -59,6 +59,22 @@ pub fn push_uint_left(out: &mut String, v: u64, width: usize) {
     push_spaces(out, width.saturating_sub(digits.len()));
 }
 
+/// Space-separated hex bytes.
+pub fn hex_bytes(bytes: &[u8]) -> String {
+    let mut s = String::with_capacity(bytes.len() * 3);
+    push_hex_bytes(&mut s, bytes);
+    s
+}
+
+pub fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
+    for (i, b) in bytes.iter().enumerate() {
+        if i > 0 {
+            out.push(' ');
+        }
+        push_hex_byte(out, *b);
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

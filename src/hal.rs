@@ -28,8 +28,8 @@ use thiserror::Error;
 
 use crate::adapter::Adapter;
 use crate::bus::{Address, Fault, Operation, Transaction};
-use crate::script::session::Request;
-use crate::script::{RunError, Session};
+use crate::player::Request;
+use crate::player::{RunError, Session};
 
 /// An embedded-hal bus error.
 #[derive(Debug, Clone, Error)]
@@ -139,11 +139,11 @@ mod tests {
     use embedded_hal::i2c::{Error as _, I2c, NoAcknowledgeSource};
 
     use super::*;
-    use crate::adapter::{AdapterSpec, OpenOptions, open};
-    use crate::trace::{Record, Sink};
+    use crate::record::{Record, Sink};
+    use crate::sim::SimAdapter;
 
     fn bus() -> HalBus {
-        HalBus::new(open(&AdapterSpec::DemoBench, &OpenOptions::default()).unwrap())
+        HalBus::new(Box::new(SimAdapter::demo()))
     }
 
     type Seen = Rc<RefCell<Vec<(Address, Vec<Operation>)>>>;

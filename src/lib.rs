@@ -1,16 +1,28 @@
 //! buscue: a scriptable I2C transaction-sequence player.
 //!
-//! Data flows one way: script -> bus model -> adapter -> outcome ->
-//! trace + view. See DEVELOPERS.md for the module map.
+//! Data flows one way: script -> player -> adapter -> outcome -> record ->
+//! trace + view. Each module is a room; a room may use only the rooms
+//! below it in DEVELOPERS.md's module map (`tests/rooms.rs` enforces it).
 
-pub mod adapter;
 pub mod ascii;
 pub mod bus;
+pub mod config;
+
+pub mod adapter;
 pub mod electrical;
-pub mod exit;
-pub mod hal;
-pub mod script;
-pub mod sim;
+pub mod record;
 pub mod smbus;
-pub mod trace;
+
+pub mod sim;
+
+pub mod player;
 pub mod view;
+
+pub mod hal;
+#[cfg(unix)]
+pub mod serve;
+pub mod trace;
+
+pub mod script;
+
+pub mod cli;

@@ -230,9 +230,9 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
     use buscue::adapter::Adapter;
     use buscue::adapter::dialect::DialectAdapter;
     use buscue::adapter::dialect_profile::Profile;
-    use buscue::adapter::dialect_serve::DialectServer;
-    use buscue::adapter::serve::{LinkFaults, ServeEnd, serve as serve_loop};
     use buscue::bus::BusSpeed;
+    use buscue::serve::dialect::DialectServer;
+    use buscue::serve::{LinkFaults, ServeEnd, serve as serve_loop};
     use buscue::sim::{Bench, SimAdapter};
     use serialport::SerialPort as _;
 
@@ -242,7 +242,7 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
         let path = slave.name().expect("slave path");
         let served = profile.clone();
         let server = std::thread::spawn(move || {
-            let bench = Bench::from_str(buscue::adapter::DEMO_BENCH, "greenhouse").expect("demo bench");
+            let bench = Bench::from_str(buscue::sim::DEMO_BENCH, "greenhouse").expect("demo bench");
             let mut server = DialectServer::new(served, SimAdapter::new(bench, false));
             let stop = std::sync::atomic::AtomicBool::new(false);
             let ended =

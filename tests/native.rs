@@ -11,9 +11,10 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Duration;
 
 use buscue::adapter::native::{NativeAdapter, NativeError, NativeSettings};
-use buscue::adapter::serve::{LinkFaults, ServeEnd, pty, serve_native};
-use buscue::adapter::{Adapter, AdapterSpec, OpenOptions, open_sim};
+use buscue::adapter::{Adapter, AdapterSpec, OpenOptions};
 use buscue::bus::{Address, Operation, Transaction};
+use buscue::cli::compose::open_sim;
+use buscue::serve::{LinkFaults, ServeEnd, pty, serve_native};
 use serde_json::Value;
 
 const BIN: &str = env!("CARGO_BIN_EXE_buscue");

@@ -7,8 +7,9 @@ use std::process::{Command, Output, Stdio};
 use std::time::Duration;
 
 use buscue::bus::{Address, Direction, Fault, OpOutcome, Operation, Outcome};
-use buscue::trace::record::Level;
-use buscue::trace::{Frame, Header, Origin, Record, Sink, Trace, TraceWriter};
+use buscue::record::Level;
+use buscue::record::{Frame, Origin, Record, Sink};
+use buscue::trace::{Header, Trace, TraceWriter};
 use proptest::prelude::*;
 
 fn root() -> PathBuf {
@@ -35,8 +36,8 @@ fn record(dir: &Path, script: &str, extra: &[&str]) -> PathBuf {
 }
 
 fn demo_header() -> Header {
-    let a = buscue::adapter::open(&buscue::adapter::AdapterSpec::DemoBench, &Default::default()).unwrap();
-    Header::new("run", a.as_ref())
+    use buscue::adapter::Adapter as _;
+    Header::new("run", buscue::sim::SimAdapter::demo().snapshot())
 }
 
 // ---- format round trip ----

@@ -20,14 +20,14 @@ use std::time::Duration;
 use serde::Deserialize;
 
 use crate::bus::BusSpeed;
-use crate::sim::BenchError;
-use crate::sim::bench::{Ctx, check_format};
+use crate::config::ConfigError;
+use crate::config::{Ctx, check_format};
 
 use super::Capabilities;
 use super::dialect_syntax::{Form, parse};
 
 /// Errors name file, line and key, like bench files.
-pub type ProfileError = BenchError;
+pub type ProfileError = ConfigError;
 
 /// The format tag a profile must carry; the major version is checked.
 pub const FORMAT: &str = "buscue-dialect/1";

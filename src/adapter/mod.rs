@@ -1,5 +1,6 @@
-//! The [`Adapter`] trait every driver implements, and choosing a driver
-//! from the command line.
+//! The [`Adapter`] trait every driver implements, its data types, the
+//! `--adapter` syntax ([`AdapterSpec`]) and the host drivers (native
+//! serial protocol, text dialects).
 //!
 //! Contract:
 //! - [`Adapter::execute`] puts one whole transaction on the bus (START to
@@ -20,12 +21,11 @@
 
 pub mod dialect;
 pub mod dialect_profile;
-pub mod dialect_serve;
 pub mod dialect_syntax;
 
 use std::time::Duration;
 
-use anyhow::{Context, Result, bail};
+use anyhow::{Result, bail};
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
@@ -33,8 +33,6 @@ use crate::bus::{BusSpeed, Outcome, Transaction};
 
 pub mod link;
 pub mod native;
-#[cfg(unix)]
-pub mod serve;
 
 pub use native::{NativeAdapter, NativeSettings};
 
@@ -96,6 +94,17 @@ pub struct Recovery {
     pub released: bool,
 }
 
+/// What an adapter is and how it is set at one moment: plain data, for
+/// records that describe the adapter without holding it.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Snapshot {
+    pub identity: Identity,
+    pub capabilities: Capabilities,
+    pub speed: BusSpeed,
+    /// The adapter clock at the moment.
+    pub clock: Duration,
+}
+
 /// A bus adapter driver.
 pub trait Adapter {
     fn identity(&self) -> &Identity;
@@ -113,11 +122,17 @@ pub trait Adapter {
     fn now(&self) -> Duration;
     fn delay(&mut self, d: Duration);
     fn close(&mut self) -> Result<()>;
-}
 
-/// The bench that runs when no adapter is named.
-pub const DEMO_BENCH_NAME: &str = "adapters/greenhouse.toml";
-pub const DEMO_BENCH: &str = include_str!("../../adapters/greenhouse.toml");
+    /// Identity, capabilities, speed and clock, as they are now.
+    fn snapshot(&self) -> Snapshot {
+        Snapshot {
+            identity: self.identity().clone(),
+            capabilities: self.capabilities().clone(),
+            speed: self.speed(),
+            clock: self.now(),
+        }
+    }
+}
 
 /// A parsed `--adapter` value.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -135,7 +150,9 @@ pub enum AdapterSpec {
 }
 
 impl AdapterSpec {
-    /// Parses `sim`, `sim:PATH`. Serial forms arrive with the serial drivers.
+    /// Parses an `--adapter` value: `sim`, `sim:PATH`, `serial:PORT[,k=v...]`
+    /// (or a bare `/dev/` path), `dialect:PROFILE@PORT[,k=v...]`. Parsing only:
+    /// opening is the command line's job (`cli::compose`).
     pub fn parse(text: &str) -> Result<Self> {
         let t = text.trim();
         if t == "sim" || t.is_empty() {
@@ -200,47 +217,6 @@ pub enum OpenError {
     /// as expected.
     #[error("{0:#}")]
     Link(anyhow::Error),
-}
-
-impl OpenError {
-    /// The exit code for this failure: usage/input or adapter/link.
-    pub fn exit_code(&self) -> u8 {
-        match self {
-            OpenError::Input(_) => crate::exit::INPUT,
-            OpenError::Link(_) => crate::exit::ADAPTER,
-        }
-    }
-}
-
-/// Opens the driver an [`AdapterSpec`] names.
-pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>, OpenError> {
-    match spec {
-        // Settings were checked when the spec was parsed: whatever fails
-        // now is the port or the adapter behind it.
-        AdapterSpec::Native { path, settings } => match NativeAdapter::open(path, settings.clone()) {
-            Ok(a) => Ok(Box::new(a)),
-            Err(e) => Err(OpenError::Link(e.into())),
-        },
-        AdapterSpec::Dialect { profile, path, overrides } => Ok(Box::new(dialect::open(profile, path, overrides)?)),
-        _ => Ok(Box::new(open_sim(spec, opts).map_err(OpenError::Input)?)),
-    }
-}
-
-/// Opens a simulated bench (`sim`, `sim:PATH`) as its concrete type, for
-/// callers that need the board side (serving it on a port, tests).
-pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<crate::sim::SimAdapter> {
-    use crate::sim::{Bench, SimAdapter};
-    let bench = match spec {
-        AdapterSpec::DemoBench => Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME)?,
-        AdapterSpec::Bench(path) => {
-            let text =
-                std::fs::read_to_string(path).with_context(|| format!("cannot read bench file {}", path.display()))?;
-            Bench::from_str(&text, &path.display().to_string())?
-        }
-        AdapterSpec::Native { path, .. } => bail!("{path} is a serial port, not a simulated bench"),
-        AdapterSpec::Dialect { path, .. } => bail!("{} is a serial port, not a simulated bench", path.display()),
-    };
-    Ok(SimAdapter::new(bench, opts.realtime))
 }
 
 #[cfg(test)]

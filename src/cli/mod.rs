@@ -1,4 +1,9 @@
-//! Subcommands and their shared options.
+//! The command line: the top room. The only place that parses arguments,
+//! composes adapters from `--adapter` ([`compose`]), chooses exit codes
+//! ([`exit`]) and owns standard output.
+
+pub mod compose;
+pub mod exit;
 
 mod ports;
 mod run;
@@ -14,9 +19,10 @@ use std::time::Duration;
 use anyhow::{Result, bail};
 use clap::{Args, Parser, Subcommand};
 
-use buscue::adapter::{self, AdapterSpec, OpenOptions};
-use buscue::bus::BusSpeed;
-use buscue::view::ColourChoice;
+use crate::adapter::{self, AdapterSpec, OpenOptions};
+use crate::bus::BusSpeed;
+use crate::view::ColourChoice;
+use std::process::ExitCode;
 
 #[derive(Parser, Debug)]
 #[command(
@@ -36,9 +42,9 @@ pub enum Command {
     /// List the addresses that answer on the bus.
     Scan(scan::ScanArgs),
     /// Size pull-up resistors: the window UM10204 allows, bus loading, E-series picks.
-    Pullup(buscue::electrical::cli::PullupArgs),
+    Pullup(crate::electrical::cli::PullupArgs),
     /// Model the time a transaction shape takes on the wire.
-    Bustime(buscue::electrical::cli::BusTimeArgs),
+    Bustime(crate::electrical::cli::BusTimeArgs),
     /// Play a trace against an adapter and compare every ACK and read byte.
     Replay(traces::ReplayArgs),
     /// Align two traces by content and show where they differ.
@@ -75,7 +81,7 @@ pub struct BusArgs {
 
 impl BusArgs {
     pub fn open(&self) -> Result<Box<dyn adapter::Adapter>> {
-        let mut a = adapter::open(&self.adapter, &OpenOptions { realtime: self.realtime })?;
+        let mut a = compose::open(&self.adapter, &OpenOptions { realtime: self.realtime })?;
         if let Some(s) = self.speed {
             a.set_speed(s)?;
         }
@@ -88,7 +94,7 @@ fn parse_adapter(s: &str) -> Result<AdapterSpec, String> {
 }
 
 fn parse_speed(s: &str) -> Result<BusSpeed, String> {
-    s.parse().map_err(|e: buscue::bus::speed::SpeedError| e.to_string())
+    s.parse().map_err(|e: crate::bus::speed::SpeedError| e.to_string())
 }
 
 /// Parses `30`, `30s`, `500ms`, `2m`, `1h`; `0` means no limit.
@@ -130,7 +136,7 @@ pub fn interrupt_flag() -> Result<Arc<AtomicBool>> {
     let f = flag.clone();
     let r = ctrlc::set_handler(move || {
         if f.swap(true, Ordering::SeqCst) {
-            std::process::exit(buscue::exit::INTERRUPTED as i32);
+            std::process::exit(crate::cli::exit::INTERRUPTED as i32);
         }
     });
     if let Err(e) = r {
@@ -139,12 +145,24 @@ pub fn interrupt_flag() -> Result<Arc<AtomicBool>> {
     Ok(flag)
 }
 
+/// The `buscue` command: parse, dispatch, exit.
+pub fn main() -> ExitCode {
+    let args = Cli::parse();
+    match dispatch(args) {
+        Ok(code) => ExitCode::from(code),
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::from(exit::of_error(&e))
+        }
+    }
+}
+
 pub fn dispatch(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Run(a) => run::run(a),
         Command::Scan(a) => scan::scan(a),
-        Command::Pullup(a) => buscue::electrical::cli::run(&a),
-        Command::Bustime(a) => buscue::electrical::cli::run_bus_time(&a),
+        Command::Pullup(a) => crate::electrical::cli::run(&a),
+        Command::Bustime(a) => crate::electrical::cli::run_bus_time(&a),
         Command::Replay(a) => traces::replay(a),
         Command::Diff(a) => traces::diff(a),
         Command::ToScript(a) => traces::to_script(a),

@@ -8,8 +8,8 @@ use anyhow::{Context, Result};
 use clap::Args;
 use serialport::SerialPortType;
 
-use buscue::adapter::NativeSettings;
-use buscue::adapter::native::probe;
+use crate::adapter::NativeSettings;
+use crate::adapter::native::probe;
 
 #[derive(Args, Debug)]
 pub struct PortsArgs {
@@ -69,5 +69,5 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
             writeln!(out, "{name}\t{what}")?;
         }
     }
-    Ok(buscue::exit::OK)
+    Ok(crate::cli::exit::OK)
 }

@@ -7,13 +7,13 @@ use std::time::{Duration, Instant};
 use anyhow::{Context, Result};
 use clap::Args;
 
-use buscue::exit;
-use buscue::script::{self, RunConfig, Session};
-use buscue::trace::file::default_path;
-use buscue::trace::{Header, TraceWriter};
-use buscue::view::format::summary;
-use buscue::view::json::JsonLines;
-use buscue::view::plain::PlainLog;
+use crate::cli::exit;
+use crate::script::{self, RunConfig, Session};
+use crate::trace::file::default_path;
+use crate::trace::{Header, TraceWriter};
+use crate::view::format::summary;
+use crate::view::json::JsonLines;
+use crate::view::plain::PlainLog;
 
 use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration};
 
@@ -70,7 +70,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     } else {
         let path = a.trace.clone().unwrap_or_else(|| default_path(&a.script, std::time::SystemTime::now()));
         let text = std::fs::read(&a.script).with_context(|| format!("cannot read script {}", a.script.display()))?;
-        let header = Header::new("run", session.adapter_ref()).with_script(
+        let header = Header::new("run", session.adapter_ref().snapshot()).with_script(
             &a.script.display().to_string(),
             &text,
             params.clone(),
@@ -97,7 +97,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let report = script::run(session, &cfg, interrupt);
     let host = started.elapsed();
     let mut session = report.session;
-    let code = report.abort.as_ref().map_or(exit::OK, |e| e.exit_code());
+    let code = report.abort.as_ref().map_or(exit::OK, exit::of_abort);
     let error = report.abort.as_ref().map(|e| e.to_string());
     let closed = session.finish(code, error.clone());
     let mut err = std::io::stderr().lock();

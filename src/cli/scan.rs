@@ -5,11 +5,11 @@ use std::io::Write;
 use anyhow::Result;
 use clap::{Args, ValueEnum};
 
-use buscue::exit;
-use buscue::script::Session;
-use buscue::script::retry::RetryPolicy;
-use buscue::script::session::{Probe, RunError, scan_range};
-use buscue::view::plain::PlainLog;
+use crate::cli::exit;
+use crate::player::RetryPolicy;
+use crate::player::{Probe, scan_range};
+use crate::script::Session;
+use crate::view::plain::PlainLog;
 
 use super::{BusArgs, interrupt_flag};
 
@@ -74,9 +74,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let result = session.scan(&range, probe, policy, None);
     let code = match &result {
         Ok(_) => exit::OK,
-        Err(RunError::Interrupted) => exit::INTERRUPTED,
-        Err(RunError::Adapter(_)) => exit::ADAPTER,
-        Err(_) => exit::BUS_FAILURE,
+        Err(e) => exit::of_run_error(e),
     };
     let _ = session.finish(code, result.as_ref().err().map(|e| e.to_string()));
     let mut out = std::io::stdout().lock();

@@ -9,10 +9,11 @@ use std::time::Duration;
 use anyhow::{Context, Result, bail};
 use clap::Args;
 
-use buscue::adapter::dialect_profile::Profile;
-use buscue::adapter::dialect_serve::DialectServer;
-use buscue::adapter::serve::{LinkFaults, ServeEnd, pty, serve as serve_loop, serve_native};
-use buscue::adapter::{Adapter as _, AdapterSpec, OpenOptions, open_sim};
+use super::compose::open_sim;
+use crate::adapter::dialect_profile::Profile;
+use crate::adapter::{Adapter as _, AdapterSpec, OpenOptions};
+use crate::serve::dialect::DialectServer;
+use crate::serve::{LinkFaults, ServeEnd, pty, serve as serve_loop, serve_native};
 
 use super::{interrupt_flag, parse_adapter};
 
@@ -132,5 +133,5 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         ServeEnd::Stopped => "stopped",
     };
     eprintln!("serving ended: {why}; {counts}");
-    Ok(if stop.load(Ordering::Relaxed) { buscue::exit::INTERRUPTED } else { buscue::exit::OK })
+    Ok(if stop.load(Ordering::Relaxed) { crate::cli::exit::INTERRUPTED } else { crate::cli::exit::OK })
 }

@@ -7,23 +7,23 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result};
 use clap::Args;
 
-use buscue::exit;
-use buscue::script::Session;
-use buscue::script::session::RunError;
-use buscue::trace::diff::{Hunk, Keyed, align, key_files};
-use buscue::trace::mask::{Mask, Masks};
-use buscue::trace::record::Stats;
-use buscue::trace::replay::{ReplayOptions, Stop, check_scale, replay as play};
-use buscue::trace::to_script::{ScriptOptions, to_script as convert};
-use buscue::trace::{Header, Record, Trace, TraceReader, TraceWriter};
-use buscue::view::format::{frame_line, human};
-use buscue::view::json::JsonLines;
-use buscue::view::plain::PlainLog;
+use crate::cli::exit;
+use crate::player::RunError;
+use crate::record::{Record, Stats};
+use crate::script::Session;
+use crate::trace::diff::{Hunk, Keyed, align, key_files};
+use crate::trace::mask::{Mask, Masks};
+use crate::trace::replay::{ReplayOptions, Stop, check_scale, replay as play};
+use crate::trace::to_script::{ScriptOptions, to_script as convert};
+use crate::trace::{Header, Trace, TraceReader, TraceWriter};
+use crate::view::format::{frame_line, human};
+use crate::view::json::JsonLines;
+use crate::view::plain::PlainLog;
 
 use super::{BusArgs, interrupt_flag};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
-    s.parse().map_err(|e: buscue::trace::mask::MaskError| e.to_string())
+    s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
 }
 
 fn parse_scale(s: &str) -> Result<f64, String> {
@@ -68,13 +68,13 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     let mut adapter = a.bus.open()?;
     if a.bus.speed.is_none() {
         let hz = reader.header().speed_hz;
-        let speed = buscue::bus::BusSpeed::from_hz(hz as u64)
+        let speed = crate::bus::BusSpeed::from_hz(hz as u64)
             .with_context(|| format!("{}: header speed_hz {hz}", a.trace.display()))?;
         adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
     }
     let mut session = Session::new(adapter, interrupt);
     if let Some(path) = &a.trace_out {
-        let mut h = Header::new("replay", session.adapter_ref());
+        let mut h = Header::new("replay", session.adapter_ref().snapshot());
         h.replay_of = Some(a.trace.display().to_string());
         let w =
             TraceWriter::create(path, &h).with_context(|| format!("cannot create trace file {}", path.display()))?;
@@ -93,9 +93,8 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     let report = play(&mut session, &mut reader, &opts);
     let (code, error) = match &report.stopped {
         Some(Stop::Trace(e)) => (exit::INPUT, Some(e.to_string())),
-        Some(Stop::Run(RunError::Interrupted)) => (exit::INTERRUPTED, Some("interrupted".to_string())),
         Some(Stop::Run(RunError::Shape(e))) => (exit::INPUT, Some(format!("the adapter cannot send a frame: {e}"))),
-        Some(Stop::Run(e)) => (exit::ADAPTER, Some(e.to_string())),
+        Some(Stop::Run(e)) => (exit::of_run_error(e), Some(e.to_string())),
         None if report.divergences.is_empty() => (exit::OK, None),
         None => (exit::DIVERGED, None),
     };

@@ -91,7 +91,7 @@ pub fn run(args: &PullupArgs) -> Result<u8> {
     } else {
         print!("{}", pullup_table(&report));
     }
-    Ok(if report.ok { crate::exit::OK } else { crate::exit::CHECK_FAILED })
+    Ok(if report.ok { crate::cli::exit::OK } else { crate::cli::exit::CHECK_FAILED })
 }
 
 fn ohms(r: f64) -> Si {
@@ -249,7 +249,7 @@ pub fn run_bus_time(args: &BusTimeArgs) -> Result<u8> {
     } else {
         print!("{}", bus_time_table(&report));
     }
-    Ok(crate::exit::OK)
+    Ok(crate::cli::exit::OK)
 }
 
 fn micros(ns: u64) -> String {

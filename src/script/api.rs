@@ -12,12 +12,12 @@ use std::time::Duration;
 use mlua::{Lua, LuaSerdeExt, Table, Value, Variadic};
 
 use crate::bus::{Address, Operation, Outcome, Transaction};
-use crate::trace::record::Level;
+use crate::record::Level;
 
 use super::convert::{self, LuaResult, bad, call_options, ms_option};
 use super::device::DeviceHandle;
-use super::session::{Probe, Request, RunError, scan_range};
 use super::{Abort, Ctx, origin};
+use crate::player::session::{Probe, Request, RunError, scan_range};
 
 /// Turns a plain error raised in a callback into an [`Abort`] that carries
 /// the script line; errors that already are one pass through.
@@ -64,7 +64,7 @@ where
     table.set(name, func)
 }
 
-pub fn default_retry(ctx: &Ctx) -> super::retry::RetryPolicy {
+pub fn default_retry(ctx: &Ctx) -> crate::player::RetryPolicy {
     ctx.session.borrow().default_retry
 }
 
@@ -256,7 +256,7 @@ fn join_args(args: &Variadic<Value>) -> LuaResult<String> {
 /// Hex text of a number (`0x1A`, `0x5E11`) or of a byte list (`1A 2B`).
 pub fn hex_value(v: &Value) -> LuaResult<String> {
     match v {
-        Value::Table(_) | Value::String(_) => Ok(crate::view::format::hex_bytes(&convert::bytes(v, "value")?)),
+        Value::Table(_) | Value::String(_) => Ok(crate::ascii::hex_bytes(&convert::bytes(v, "value")?)),
         other => {
             let n = convert::integer(other, "value")?;
             Ok(match n {

@@ -31,8 +31,8 @@ use crate::bus::{Operation, Transaction};
 
 use super::api::located;
 use super::convert::{self, LuaResult, bad, call_options};
-use super::session::Request;
 use super::{Ctx, origin};
+use crate::player::session::Request;
 
 /// The queue a batch block fills.
 pub struct BatchQueue {

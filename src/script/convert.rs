@@ -6,7 +6,7 @@ use mlua::{Lua, Table, Value};
 use crate::bus::transaction::MAX_OPERATION_BYTES;
 use crate::bus::{Address, BusSpeed};
 
-use super::retry::RetryPolicy;
+use crate::player::retry::RetryPolicy;
 
 pub type LuaResult<T> = mlua::Result<T>;
 

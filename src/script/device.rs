@@ -26,7 +26,7 @@ use crate::bus::{Address, Operation, Transaction};
 use super::Ctx;
 use super::api::{located, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
-use super::retry::RetryPolicy;
+use crate::player::retry::RetryPolicy;
 
 #[derive(Debug, Clone)]
 struct Field {

@@ -18,9 +18,7 @@ pub mod batch;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
-pub mod retry;
 pub mod sandbox;
-pub mod session;
 pub mod smbus_api;
 
 use std::cell::RefCell;
@@ -34,8 +32,8 @@ use std::time::{Duration, Instant};
 use mlua::{HookTriggers, Lua, LuaOptions, MultiValue, StdLib, Value, VmState};
 use thiserror::Error;
 
-use crate::trace::Origin;
-pub use session::{RunError, Session};
+pub use crate::player::{RunError, Session};
+use crate::record::Origin;
 
 /// Why a script run stopped early.
 #[derive(Debug, Clone, Error)]
@@ -52,22 +50,6 @@ pub enum Abort {
 
 fn at(o: &Option<Origin>) -> String {
     o.as_ref().map(|o| format!("{o}: ")).unwrap_or_default()
-}
-
-impl Abort {
-    pub fn exit_code(&self) -> u8 {
-        use crate::exit;
-        match self {
-            Abort::Check { .. } => exit::CHECK_FAILED,
-            Abort::Run { error, .. } => match error {
-                RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => exit::BUS_FAILURE,
-                RunError::Adapter(_) => exit::ADAPTER,
-                RunError::Interrupted => exit::INTERRUPTED,
-                RunError::Shape(_) => exit::INPUT,
-            },
-            Abort::Script { .. } | Abort::Limit(_) => exit::INPUT,
-        }
-    }
 }
 
 /// Parameters from `--set name=value`, and which of them the script read.

@@ -13,13 +13,13 @@ use std::rc::Rc;
 use mlua::{Lua, Table, Value};
 
 use crate::bus::Outcome;
+use crate::record::PecMark;
 use crate::smbus::{BlockLimit, Call, Reply, Request, SmbusError, Value as Reading, crc8, message};
-use crate::trace::record::PecMark;
 
 use super::api::{add, default_retry, run_error};
 use super::convert::{self, LuaResult, bad, call_options};
-use super::session::{Request as TxRequest, RunError};
 use super::{Ctx, origin};
+use crate::player::session::{Request as TxRequest, RunError};
 
 fn byte(v: &Value, what: &str) -> LuaResult<u8> {
     let n = convert::integer(v, what)?;

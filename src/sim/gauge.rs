@@ -409,8 +409,13 @@ mod tests {
         SimAdapter::new(Bench::from_str(&text, "g.toml").unwrap(), false)
     }
 
+    fn call_on(a: &mut SimAdapter, call: &Call) -> Result<crate::smbus::Reply, SmbusError> {
+        let max = a.capabilities().max_bytes_per_op;
+        execute(max, &mut |t| a.execute(t), call)
+    }
+
     fn run(a: &mut SimAdapter, request: Request, pec: bool) -> Result<Value, SmbusError> {
-        execute(a, &Call::new(ADDR, request, pec)).map(|r| r.value)
+        call_on(a, &Call::new(ADDR, request, pec)).map(|r| r.value)
     }
 
     fn word(a: &mut SimAdapter, command: u8) -> u16 {
@@ -533,9 +538,9 @@ mod tests {
 
     #[test]
     fn demo_bench_has_the_gauge_with_pec() {
-        let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse.toml").unwrap();
+        let bench = Bench::from_str(crate::sim::DEMO_BENCH, "greenhouse.toml").unwrap();
         let mut a = SimAdapter::new(bench, false);
-        let r = execute(&mut a, &Call::new(ADDR, Request::BlockRead { command: PACK_NAME }, true)).unwrap();
+        let r = call_on(&mut a, &Call::new(ADDR, Request::BlockRead { command: PACK_NAME }, true)).unwrap();
         assert_eq!(r.value, Value::Block(b"GH-PACK-01".to_vec()));
         assert!(r.pec.is_some_and(|p| p.ok));
     }

@@ -6,7 +6,6 @@
 //! real time (see [`clock`]).
 
 pub mod bench;
-pub mod board;
 pub mod bus;
 pub mod climate;
 pub mod clock;
@@ -24,7 +23,7 @@ use anyhow::Result;
 use crate::adapter::{Adapter, Capabilities, Identity, LineLevels, Recovery};
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
-pub use bench::{Bench, BenchError};
+pub use bench::{Bench, BenchError, DEMO_BENCH, DEMO_BENCH_NAME};
 use bus::SimBus;
 use clock::Clock;
 
@@ -56,6 +55,11 @@ impl SimAdapter {
         };
         let bus = SimBus::new(bench.slots, Clock::new(realtime), bench.speed, bench.stretch_timeout, bench.arbitration);
         SimAdapter { identity, caps, bus }
+    }
+
+    /// The built-in demo bench (the greenhouse climate node) on virtual time.
+    pub fn demo() -> Self {
+        SimAdapter::new(Bench::from_str(DEMO_BENCH, DEMO_BENCH_NAME).expect("the demo bench is valid"), false)
     }
 
     /// The simulated bus, for tests that look at the board side.

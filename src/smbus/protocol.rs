@@ -6,7 +6,8 @@
 //!   PEC is used, and the block-size limit. [`Call::transaction`] builds
 //!   the [`Transaction`] it puts on the bus; [`Call::decode`] turns the
 //!   [`Outcome`] of that transaction into a typed [`Reply`] or a typed
-//!   [`SmbusError`]. [`execute`] does both through an [`Adapter`].
+//!   [`SmbusError`]. [`execute`] does both through any function that puts a transaction
+//!   on the bus (an adapter's `execute`, a session).
 //! - Words go low byte first (SMBus 3.x §6.5.4/§6.5.5, from memory).
 //! - With PEC, the sender of the last data byte sends the PEC after it: the
 //!   controller in the write-only protocols, the target in every protocol
@@ -26,7 +27,6 @@
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
-use crate::adapter::Adapter;
 use crate::bus::{Address, Event, Fault, Operation, Outcome, ShapeError, Transaction};
 
 use super::pec::crc8;
@@ -369,10 +369,14 @@ pub fn message(tx: &Transaction, outcome: Option<&Outcome>) -> Vec<u8> {
 /// Builds the call's transaction, checks it against the adapter, runs it
 /// and decodes the reply. Players that record traces or retry use
 /// [`Call::transaction`] and [`Call::decode`] around their own execution.
-pub fn execute(adapter: &mut dyn Adapter, call: &Call) -> Result<Reply, SmbusError> {
+pub fn execute(
+    max_bytes_per_op: usize,
+    bus: &mut dyn FnMut(&Transaction) -> Outcome,
+    call: &Call,
+) -> Result<Reply, SmbusError> {
     let tx = call.transaction()?;
-    tx.validate(adapter.capabilities().max_bytes_per_op, false)?;
-    let outcome = adapter.execute(&tx);
+    tx.validate(max_bytes_per_op, false)?;
+    let outcome = bus(&tx);
     call.decode(&outcome)
 }
 

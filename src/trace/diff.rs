@@ -30,8 +30,8 @@ use serde::Deserialize;
 use crate::bus::{Address, Fault, Operation, Outcome};
 
 use super::mask::Masks;
-use super::record::Stats;
-use super::{Frame, Header, TraceError, TraceReader};
+use super::{Header, TraceError, TraceReader};
+use crate::record::{Frame, Stats};
 
 /// Edit-distance bound per aligned region; see the module contract.
 pub const MAX_EDITS: usize = 20_000;

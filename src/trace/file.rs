@@ -22,7 +22,7 @@ use std::path::{Path, PathBuf};
 use thiserror::Error;
 
 use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
-use super::{Record, Sink};
+use crate::record::{Record, Sink};
 
 /// Why a trace cannot be read.
 #[derive(Debug, Error)]
@@ -293,7 +293,7 @@ impl Trace {
         Ok(Trace { header: r.header.clone(), records, warnings: r.warnings.clone() })
     }
 
-    pub fn frames(&self) -> impl Iterator<Item = &super::Frame> {
+    pub fn frames(&self) -> impl Iterator<Item = &crate::record::Frame> {
         self.records.iter().filter_map(|r| match r {
             Record::Frame(f) => Some(f),
             _ => None,
@@ -304,13 +304,13 @@ impl Trace {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::adapter::{AdapterSpec, open};
-    use crate::trace::record::Level;
+    use crate::adapter::Adapter as _;
+    use crate::record::Level;
+    use crate::sim::SimAdapter;
     use std::time::Duration;
 
     fn header() -> Header {
-        let a = open(&AdapterSpec::DemoBench, &Default::default()).unwrap();
-        Header::new("run", a.as_ref())
+        Header::new("run", SimAdapter::demo().snapshot())
     }
 
     fn text(lines: &[String]) -> String {

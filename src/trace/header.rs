@@ -14,7 +14,7 @@ use std::time::{SystemTime, UNIX_EPOCH};
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
-use crate::adapter::{Adapter, Capabilities, Identity};
+use crate::adapter::{Capabilities, Identity, Snapshot};
 use crate::bus::outcome::nanos;
 
 /// The format name every trace's header carries.
@@ -68,9 +68,10 @@ pub struct Header {
 }
 
 impl Header {
-    /// A header for a recording that starts now on `adapter`.
-    pub fn new(source: &str, adapter: &dyn Adapter) -> Self {
-        let identity = adapter.identity().clone();
+    /// A header for a recording that starts now on the adapter `at`
+    /// describes (a snapshot: the recording never holds the adapter).
+    pub fn new(source: &str, at: Snapshot) -> Self {
+        let Snapshot { identity, capabilities, speed, clock } = at;
         let bench = (identity.driver == "simulated").then(|| identity.target.clone());
         Header {
             format: FORMAT.into(),
@@ -78,9 +79,9 @@ impl Header {
             tool: format!("buscue {}", env!("CARGO_PKG_VERSION")),
             source: source.into(),
             started: rfc3339_utc(SystemTime::now()),
-            clock: adapter.now(),
-            adapter: AdapterInfo { identity, capabilities: adapter.capabilities().clone() },
-            speed_hz: adapter.speed().hz(),
+            clock,
+            adapter: AdapterInfo { identity, capabilities },
+            speed_hz: speed.hz(),
             bench,
             script: None,
             params: BTreeMap::new(),
@@ -175,10 +176,10 @@ mod tests {
 
     #[test]
     fn version_numbers_parse() {
-        let a = crate::adapter::open(&crate::adapter::AdapterSpec::DemoBench, &Default::default()).unwrap();
-        let mut h = Header::new("run", a.as_ref());
+        let a: Box<dyn crate::adapter::Adapter> = Box::new(crate::sim::SimAdapter::demo());
+        let mut h = Header::new("run", a.snapshot());
         assert_eq!(h.version_numbers(), Some((VERSION_MAJOR, VERSION_MINOR)));
-        assert_eq!(h.bench.as_deref(), Some(crate::adapter::DEMO_BENCH_NAME));
+        assert_eq!(h.bench.as_deref(), Some(crate::sim::DEMO_BENCH_NAME));
         h.version = "one".into();
         assert_eq!(h.version_numbers(), None);
     }

@@ -20,7 +20,7 @@ use thiserror::Error;
 use crate::bus::address::parse_int;
 use crate::bus::{Address, Operation};
 
-use super::Frame;
+use crate::record::Frame;
 
 #[derive(Debug, Clone, PartialEq, Eq, Error)]
 #[error("mask `{text}`: {reason}; write ADDRESS[,reg=REG][,bytes=A-B], as in 0x44,reg=0x03 or 0x29,bytes=0-1")]

@@ -22,11 +22,11 @@ use std::io::BufRead;
 use std::rc::Rc;
 
 use crate::bus::{Fault, Operation, Outcome, Transaction};
-use crate::script::retry::RetryPolicy;
-use crate::script::session::{Request, RunError, Session};
+use crate::player::{Request, RetryPolicy, RunError, Session};
 
 use super::mask::Masks;
-use super::{Frame, Origin, Record, Sink, TraceError, TraceReader};
+use super::{TraceError, TraceReader};
+use crate::record::{Frame, Origin, Record, Sink};
 
 /// How to replay.
 #[derive(Debug, Clone)]

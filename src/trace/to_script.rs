@@ -21,10 +21,11 @@ use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::time::Duration;
 
+use crate::ascii::hex_bytes;
 use crate::bus::{Address, Operation};
-use crate::view::format::hex_bytes;
 
-use super::{Frame, Record, Trace};
+use super::Trace;
+use crate::record::{Frame, Record};
 
 /// Conversion options.
 #[derive(Debug, Clone, Default)]
@@ -322,7 +323,7 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
         match &recs[i] {
             Record::Step { name, .. } => w.line(&format!("step({})", lua_string(name))),
             Record::Log { text, level, .. } => {
-                let tag = if *level == super::record::Level::Warn { "warn" } else { "log" };
+                let tag = if *level == crate::record::Level::Warn { "warn" } else { "log" };
                 w.line(&format!("-- {tag}: {}", comment_text(text)));
             }
             Record::End { exit, error, .. } => {

@@ -17,10 +17,12 @@
 use std::fmt::Write as _;
 use std::time::Duration;
 
-use crate::ascii::{push_hex_byte as push_hex, push_spaces, push_uint, push_uint_left, push_uint_right};
+use crate::ascii::{
+    push_hex_byte as push_hex, push_hex_bytes, push_spaces, push_uint, push_uint_left, push_uint_right,
+};
 use crate::bus::{Operation, Outcome};
-use crate::trace::Frame;
-use crate::trace::record::Stats;
+use crate::record::Frame;
+use crate::record::Stats;
 
 /// ANSI styles by role; empty strings when colour is off.
 struct Palette {
@@ -70,22 +72,6 @@ fn push_human(out: &mut String, d: Duration) {
     out.push('.');
     push_uint(out, frac, digits);
     out.push_str(unit);
-}
-
-/// Space-separated hex bytes.
-pub fn hex_bytes(bytes: &[u8]) -> String {
-    let mut s = String::with_capacity(bytes.len() * 3);
-    push_hex_bytes(&mut s, bytes);
-    s
-}
-
-fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
-    for (i, b) in bytes.iter().enumerate() {
-        if i > 0 {
-            out.push(' ');
-        }
-        push_hex(out, *b);
-    }
 }
 
 /// Pads what was written since `start` to `width` columns. Counts bytes:
@@ -273,7 +259,7 @@ pub fn summary(s: &Stats, host: Duration) -> String {
 mod tests {
     use super::*;
     use crate::bus::{Address, Fault, OpOutcome};
-    use crate::trace::Origin;
+    use crate::record::Origin;
 
     fn frame(ops: Vec<Operation>, done: Vec<OpOutcome>, fault: Option<Fault>) -> Frame {
         Frame {

@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use crate::trace::{Record, Sink};
+use crate::record::{Record, Sink};
 
 pub struct JsonLines<W: Write> {
     out: W,

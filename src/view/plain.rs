@@ -2,8 +2,8 @@
 
 use std::io::{self, Write};
 
-use crate::trace::record::Level;
-use crate::trace::{Record, Sink};
+use crate::record::Level;
+use crate::record::{Record, Sink};
 
 use super::format::{log_line, step_line, write_frame_line};
 

@@ -1,4 +1,5 @@
-//! The record types. Serialized as one JSON object per line with a `kind`
+//! What every observer of a run consumes: the record types ([`Frame`],
+//! [`Record`], [`Stats`]) and the [`Sink`] trait. Serialized as one JSON object per line with a `kind`
 //! tag; field names are part of the trace format and change only with its
 //! version.
 
@@ -147,6 +148,13 @@ pub enum Record {
         #[serde(default, skip_serializing_if = "Option::is_none")]
         error: Option<String>,
     },
+}
+
+/// Something that watches a run's records as they happen: the frame log,
+/// the JSON stream, a trace file. Sinks never talk to the adapter.
+pub trait Sink {
+    fn record(&mut self, r: &Record) -> std::io::Result<()>;
+    fn flush(&mut self) -> std::io::Result<()>;
 }
 
 #[cfg(test)]

@@ -12,9 +12,12 @@
 //!   served adapter in the middle of a frame, a hang-up after N frames.
 //! - [`NativeServer`] speaks the native protocol through the same
 //!   `buscue_bridge` library firmware links, over [`SimBoard`];
-//!   [`DialectServer`](super::dialect_serve::DialectServer) speaks a text
+//!   [`DialectServer`](dialect::DialectServer) speaks a text
 //!   dialect. Both are [`Server`]s on this one loop, so every fault and
 //!   end condition works the same for both.
+
+pub mod board;
+pub mod dialect;
 
 use std::collections::VecDeque;
 use std::io::{self, Read, Write};
@@ -28,8 +31,9 @@ use serialport::{SerialPort, TTYPort};
 
 use crate::adapter::Adapter;
 use crate::sim::SimAdapter;
-use crate::sim::board::SimBoard;
 use crate::sim::rng::SplitMix64;
+
+use board::SimBoard;
 
 /// Seeded link fault injection. Probabilities are per byte.
 #[derive(Debug, Clone, Default)]

@@ -11,8 +11,8 @@
 //! - A stepwise profile drives the simulated bus one wire event at a time
 //!   (the `wire_*` steps of [`SimBus`](crate::sim::bus::SimBus)); a
 //!   one-line profile parses the whole transaction and executes it.
-//! - [`DialectServer`] is a [`Server`](super::serve::Server): the serve
-//!   loop of [`super::serve`] carries it, with the same link faults and
+//! - [`DialectServer`] is a [`Server`](super::Server): the serve
+//!   loop of [`super`] carries it, with the same link faults and
 //!   end conditions as the native protocol. Its "frames" are command
 //!   lines; a reset drops the partial line and releases the bus, as a
 //!   firmware reboot would, and announces nothing (dialects have no boot
@@ -28,10 +28,10 @@ use crate::bus::{Address, BusSpeed, Fault, Operation, Transaction};
 use crate::sim::SimAdapter;
 use crate::sim::bus::Wire;
 
-use super::Adapter;
-use super::dialect::{LineBuffer, fault_word};
-use super::dialect_profile::{OneLine, Primitives, Profile, Style};
-use super::dialect_syntax::{Fields, Form, Value};
+use crate::adapter::Adapter;
+use crate::adapter::dialect::{LineBuffer, fault_word};
+use crate::adapter::dialect_profile::{OneLine, Primitives, Profile, Style};
+use crate::adapter::dialect_syntax::{Fields, Form, Value};
 
 /// What a serving session did.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
@@ -75,8 +75,8 @@ impl DialectServer {
 }
 
 #[cfg(unix)]
-impl super::serve::Server for DialectServer {
-    fn poll(&mut self, link: &mut super::serve::ServedLink) -> std::io::Result<()> {
+impl super::Server for DialectServer {
+    fn poll(&mut self, link: &mut super::ServedLink) -> std::io::Result<()> {
         use buscue_bridge::Link as _;
         // One byte per call, so the fault triggers can act between any two.
         let Some(b) = link.next_byte() else { return Ok(()) };
@@ -102,7 +102,7 @@ impl super::serve::Server for DialectServer {
         !self.lines.is_empty()
     }
 
-    fn reset(&mut self, _link: &mut super::serve::ServedLink) -> std::io::Result<()> {
+    fn reset(&mut self, _link: &mut super::ServedLink) -> std::io::Result<()> {
         self.lines.clear();
         self.release_bus();
         Ok(())
@@ -333,7 +333,7 @@ mod tests {
     /// The replies to `commands`, one each (the serve loop and its line
     /// splitting are tested over a pseudo-terminal in tests/dialect_pty.rs).
     fn transcript(profile: &str, commands: &[&str]) -> Vec<String> {
-        let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "greenhouse").unwrap();
+        let bench = Bench::from_str(crate::sim::DEMO_BENCH, "greenhouse").unwrap();
         let mut server = DialectServer::new(Profile::load(profile).unwrap(), SimAdapter::new(bench, false));
         commands.iter().map(|c| server.answer(c)).collect()
     }
@@ -363,5 +363,28 @@ mod tests {
         assert!(got[2].starts_with("ERR adapter"), "two bytes need no separator in this dialect: {got:?}");
         assert_eq!(got[3], "ND 0 1 ", "ID is read-only: the value byte is NACKed");
         assert_eq!(got[4], "OK");
+    }
+
+    // The host renders and the emulated adapter parses with the same
+    // profile; the lines are the ones adapters/DIALECTS.md shows.
+    #[test]
+    fn one_line_rendering_parses_back() {
+        use crate::adapter::dialect::DialectAdapter;
+        use crate::adapter::dialect_profile::Style;
+        use crate::bus::Address;
+        let p = Profile::load("oneline").unwrap();
+        let Style::OneLine(o) = &p.style else { panic!("oneline is a one-line profile") };
+        let cases = [
+            (Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)], "X 44 W03 R2"),
+            (Address::Seven(0x50), vec![Operation::Write(vec![])], "X 50 W"),
+            (Address::Ten(0x2A5), vec![Operation::Write(vec![0x00, 0xFF]), Operation::Read(1)], "Y 2A5 W00FF R1"),
+        ];
+        for (address, ops, line) in cases {
+            let tx = Transaction::new(address, ops);
+            assert_eq!(DialectAdapter::render_one_line(o, &tx).as_deref(), Some(line));
+            assert_eq!(parse_transaction(o, line), Ok(tx), "{line}");
+        }
+        assert!(parse_transaction(o, "X 44 Q7").unwrap_err().contains("neither a write nor a read"));
+        assert!(parse_transaction(o, "X 80 R1").is_err(), "0x80 is not a 7-bit address");
     }
 }

@@ -23,7 +23,7 @@ use embedded_hal::i2c::{self, ErrorKind, I2c, SevenBitAddress, TenBitAddress};
 use crate::adapter::Adapter;
 use crate::bus::{Address, BusSpeed, Direction, Fault, LineFault, Operation, Outcome, Transaction};
 
-use super::SimAdapter;
+use crate::sim::SimAdapter;
 
 /// A bus fault seen through embedded-hal.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -165,7 +165,7 @@ mod tests {
     use embedded_hal::i2c::NoAcknowledgeSource;
 
     fn board() -> SimBoard {
-        let bench = Bench::from_str(crate::adapter::DEMO_BENCH, "demo").unwrap();
+        let bench = Bench::from_str(crate::sim::DEMO_BENCH, "demo").unwrap();
         SimBoard::new(SimAdapter::new(bench, false))
     }
 

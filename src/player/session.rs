@@ -20,8 +20,8 @@ use thiserror::Error;
 
 use crate::adapter::Adapter;
 use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
-use crate::trace::record::{Level, PecMark, Stats};
-use crate::trace::{Frame, Origin, Record, Sink};
+use crate::record::{Frame, Origin, Record, Sink};
+use crate::record::{Level, PecMark, Stats};
 
 use super::retry::RetryPolicy;
 
@@ -420,11 +420,10 @@ pub fn scan_range(include_reserved: bool, ten_bit: bool) -> Vec<Address> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::adapter::{AdapterSpec, OpenOptions, open};
+    use crate::sim::SimAdapter;
 
     fn session() -> Session {
-        let a = open(&AdapterSpec::DemoBench, &OpenOptions::default()).unwrap();
-        Session::new(a, Arc::new(AtomicBool::new(false)))
+        Session::new(Box::new(SimAdapter::demo()), Arc::new(AtomicBool::new(false)))
     }
 
     #[test]
