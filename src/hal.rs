@@ -55,7 +55,7 @@ impl From<RunError> for HalError {
     fn from(e: RunError) -> Self {
         match e {
             RunError::Bus { fault, .. } => HalError::Bus(fault),
-            RunError::Adapter(detail) => HalError::Bus(Fault::Adapter { detail }),
+            RunError::Adapter(e) => HalError::Bus(Fault::Adapter { detail: e.to_string() }),
             other => HalError::Refused(other.to_string()),
         }
     }

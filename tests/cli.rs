@@ -161,19 +161,64 @@ fn broken_pipe_is_quiet() {
 fn ctrl_c_stops_after_the_current_transaction() {
     use std::process::Stdio;
     let (_d, path) = script("long.lua", "local d = bus.device(0x44)\nwhile true do d:get(0) sleep_ms(20) end\n");
-    let child = buscue()
+    let mut child = buscue()
         .args(["run", path.to_str().unwrap(), "--realtime", "--json"])
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn()
         .unwrap();
-    std::thread::sleep(std::time::Duration::from_millis(600));
-    let killed = std::process::Command::new("kill").args(["-INT", &child.id().to_string()]).status().unwrap();
-    assert!(killed.success());
+    // Wait for the first frame on the wire, then interrupt.
+    let first = first_line(&mut child);
+    interrupt(&child);
     let o = child.wait_with_output().unwrap();
     assert_eq!(code(&o), 130, "{}", stderr(&o));
+    let mut o = o;
+    o.stdout = [first.as_bytes(), &o.stdout].concat();
     let f = frames(&o);
     assert!(!f.is_empty());
     assert!(f.iter().all(|x| x["outcome"]["fault"].is_null()), "no transaction was cut short");
     assert_eq!(end(&o)["exit"], 130);
+}
+
+/// Reads the child's first line of standard output (the signal that it is
+/// under way) and leaves the rest in the pipe for `wait_with_output`.
+fn first_line(child: &mut std::process::Child) -> String {
+    use std::io::Read;
+    let out = child.stdout.as_mut().unwrap();
+    let mut line = Vec::new();
+    let mut b = [0u8; 1];
+    while out.read(&mut b).unwrap() == 1 {
+        line.push(b[0]);
+        if b[0] == b'\n' {
+            break;
+        }
+    }
+    String::from_utf8(line).unwrap()
+}
+
+/// Ctrl-C, as a terminal sends it.
+fn interrupt(child: &std::process::Child) {
+    let killed = std::process::Command::new("kill").args(["-INT", &child.id().to_string()]).status().unwrap();
+    assert!(killed.success());
+}
+
+#[test]
+fn ctrl_c_during_a_long_real_time_sleep_exits_130_at_once() {
+    use std::process::Stdio;
+    let (_d, path) = script("nap.lua", "log(\"napping\")\nsleep_ms(600000)\nlog(\"woke\")\n");
+    let mut child = buscue()
+        .args(["run", path.to_str().unwrap(), "--realtime", "--json", "--no-trace"])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let first = first_line(&mut child);
+    assert!(first.contains("napping"), "{first}");
+    interrupt(&child);
+    let o = child.wait_with_output().unwrap();
+    // Interrupted (130), not a script error (2); and long before the ten
+    // minutes the sleep asked for, or this test would not finish at all.
+    assert_eq!(code(&o), 130, "{}", stderr(&o));
+    assert!(!stdout(&o).contains("woke"));
+    assert!(stderr(&o).contains("interrupted"), "{}", stderr(&o));
 }

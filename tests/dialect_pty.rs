@@ -145,7 +145,13 @@ fn unplugging_mid_run_stops_with_the_adapter_exit_code_and_keeps_the_frames() {
         assert!(served.contains("hung up as asked"), "{served}");
         assert_eq!(r.code, 4, "exit code for an adapter/link failure ({profile}): {}", r.stderr);
         assert!(!r.stderr.contains("panicked"), "{}", r.stderr);
-        assert!(r.stderr.contains("closed or was unplugged") || r.stderr.contains("no reply"), "{}", r.stderr);
+        assert!(
+            r.stderr.contains("stopped working")
+                || r.stderr.contains("closed or was unplugged")
+                || r.stderr.contains("no reply"),
+            "{}",
+            r.stderr
+        );
         let f = frames(&r.records);
         assert!(f.len() >= 2, "{profile}: frames before the unplug are logged ({} of them)", f.len());
         let last = f.last().expect("at least one frame");

@@ -310,3 +310,49 @@ fn a_failing_batch_block_sends_nothing_and_a_stale_queue_is_refused() {
     assert_eq!(out.status.code(), Some(2));
     assert!(stderr.contains("already been sent") && stderr.contains(":3:"), "names the script line: {stderr}");
 }
+
+/// A script that keeps asking the adapter for something outside any
+/// transaction, against a served board that hangs up after a few frames.
+fn link_lost_during(call: &str) -> Output {
+    let served = serve(&["--hang-up-after", "4"]);
+    let dir = tempfile::tempdir().unwrap();
+    let script = dir.path().join("control.lua");
+    std::fs::write(&script, format!("for i = 1, 100 do\n  {call}\nend\n")).unwrap();
+    run(script.to_str().unwrap(), &format!("serial:{}", served.path), &["--no-trace"])
+}
+
+#[test]
+fn a_link_lost_during_bus_speed_is_the_adapter_exit_code() {
+    let out = link_lost_during("bus.speed(100000)");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(4), "adapter/link failure, not a script error: {stderr}");
+    assert!(stderr.contains("stopped working") && stderr.contains("control.lua:2"), "{stderr}");
+}
+
+#[test]
+fn a_link_lost_during_bus_recover_is_the_adapter_exit_code() {
+    let out = link_lost_during("bus.recover()");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(4), "adapter/link failure, not a script error: {stderr}");
+    assert!(stderr.contains("stopped working") && stderr.contains("control.lua:2"), "{stderr}");
+}
+
+#[test]
+fn the_summary_counts_the_native_link() {
+    let served = serve(&[]);
+    let out = Command::new(BIN)
+        .args(["run", "scripts/valve_expander.lua", "--no-trace", "--colour", "never"])
+        .args(["--adapter", &format!("serial:{}", served.path)])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    let line = stderr.lines().find(|l| l.starts_with("link: ")).unwrap_or_else(|| panic!("a link line: {stderr}"));
+    // "link: S frames sent, R received, D dropped as damaged, N retransmissions"
+    let n: Vec<u64> = line.split(|c: char| !c.is_ascii_digit()).filter_map(|w| w.parse().ok()).collect();
+    assert_eq!(n.len(), 4, "{line}");
+    // The script's 6 transactions plus the handshake went out, each answered;
+    // a clean pseudo-terminal damages nothing.
+    assert!(n[0] >= 7 && n[1] >= 7, "{line}");
+    assert_eq!(n[2], 0, "{line}");
+}

@@ -26,14 +26,14 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use anyhow::{Context, Result, bail};
-use thiserror::Error;
 
 use crate::bus::timing::breakdown_events;
 use crate::bus::{BusSpeed, Event, Fault, LineFault, OpOutcome, Operation, Outcome, PhaseTracker, Transaction};
 
 use super::dialect_profile::{Flow, OneLine, Parity, Primitives, Profile, Style};
 use super::dialect_syntax::{Fields, Form, Value};
-use super::{Adapter, AdapterSpec, Capabilities, Identity, LineLevels, OpenError, Recovery};
+use super::link::{LinkError, PortSettings, open_port};
+use super::{Adapter, AdapterError, AdapterSpec, Capabilities, Identity, LineLevels, OpenError, Recovery};
 
 /// `--adapter dialect:...` override keys.
 pub const OVERRIDES: &[&str] = &["baud", "timeout_ms"];
@@ -64,19 +64,6 @@ pub fn parse_spec(rest: &str) -> Result<AdapterSpec> {
         overrides.push((k.to_string(), v.to_string()));
     }
     Ok(AdapterSpec::Dialect { profile: profile.trim().to_string(), path: PathBuf::from(path), overrides })
-}
-
-/// Why the link to a dialect adapter failed.
-#[derive(Debug, Clone, Error)]
-pub enum LinkError {
-    #[error("no reply to `{sent}` within {waited_ms} ms")]
-    Timeout { sent: String, waited_ms: u64 },
-    #[error("the port closed or was unplugged ({0})")]
-    Closed(String),
-    #[error("unexpected reply `{got}` to `{sent}`")]
-    Unexpected { sent: String, got: String },
-    #[error("{0}")]
-    Reply(String),
 }
 
 /// Longest line either side accepts; a longer run without a line ending is
@@ -144,6 +131,8 @@ impl LineBuffer {
 /// it.
 pub struct LineLink<P> {
     port: P,
+    /// The port's name, for errors.
+    path: String,
     lines: LineBuffer,
     ending: &'static str,
     ignore: Vec<Form>,
@@ -152,15 +141,19 @@ pub struct LineLink<P> {
 }
 
 impl<P: Read + Write> LineLink<P> {
-    pub fn new(port: P, ending: &'static str, ignore: Vec<Form>) -> Self {
-        LineLink { port, lines: LineBuffer::new(ending), ending, ignore, round_trips: 0 }
+    pub fn new(port: P, path: &str, ending: &'static str, ignore: Vec<Form>) -> Self {
+        LineLink { port, path: path.to_string(), lines: LineBuffer::new(ending), ending, ignore, round_trips: 0 }
+    }
+
+    fn gone(&self, detail: impl ToString) -> LinkError {
+        LinkError::Gone { path: self.path.clone(), detail: detail.to_string() }
     }
 
     pub fn send(&mut self, line: &str) -> Result<(), LinkError> {
         let mut out = Vec::with_capacity(line.len() + 2);
         out.extend_from_slice(line.as_bytes());
         out.extend_from_slice(self.ending.as_bytes());
-        self.port.write_all(&out).and_then(|_| self.port.flush()).map_err(|e| LinkError::Closed(e.to_string()))
+        self.port.write_all(&out).and_then(|_| self.port.flush()).map_err(|e| self.gone(e))
     }
 
     /// The next line within `timeout`, or `Ok(None)` when none came.
@@ -180,10 +173,10 @@ impl<P: Read + Write> LineLink<P> {
             }
             let mut chunk = [0u8; 256];
             match self.port.read(&mut chunk) {
-                Ok(0) => return Err(LinkError::Closed("end of file".into())),
+                Ok(0) => return Err(self.gone("end of file")),
                 Ok(n) => self.lines.push(&chunk[..n]),
                 Err(e) if matches!(e.kind(), std::io::ErrorKind::TimedOut | std::io::ErrorKind::Interrupted) => {}
-                Err(e) => return Err(LinkError::Closed(e.to_string())),
+                Err(e) => return Err(self.gone(e)),
             }
         }
     }
@@ -251,7 +244,7 @@ pub struct DialectAdapter {
     /// The adapter's clock, where the adapter keeps time (see the module doc).
     accounted: Duration,
     opened: Instant,
-    dead: Option<String>,
+    dead: Option<AdapterError>,
 }
 
 /// Opens a dialect adapter from an `--adapter dialect:` spec. A bad
@@ -284,28 +277,29 @@ impl DialectAdapter {
     fn connect(profile: Profile, path: &Path) -> Result<Self> {
         let s = &profile.serial;
         let name = path.to_string_lossy().into_owned();
-        let port = serialport::new(name.clone(), s.baud)
-            .data_bits(match s.data_bits {
+        let settings = PortSettings {
+            baud: s.baud,
+            data_bits: match s.data_bits {
                 5 => serialport::DataBits::Five,
                 6 => serialport::DataBits::Six,
                 7 => serialport::DataBits::Seven,
                 _ => serialport::DataBits::Eight,
-            })
-            .parity(match s.parity {
+            },
+            parity: match s.parity {
                 Parity::None => serialport::Parity::None,
                 Parity::Odd => serialport::Parity::Odd,
                 Parity::Even => serialport::Parity::Even,
-            })
-            .stop_bits(if s.stop_bits == 2 { serialport::StopBits::Two } else { serialport::StopBits::One })
-            .flow_control(match s.flow {
+            },
+            stop_bits: if s.stop_bits == 2 { serialport::StopBits::Two } else { serialport::StopBits::One },
+            flow: match s.flow {
                 Flow::None => serialport::FlowControl::None,
                 Flow::Software => serialport::FlowControl::Software,
                 Flow::Hardware => serialport::FlowControl::Hardware,
-            })
-            .timeout(Duration::from_millis(20))
-            .open()
-            .with_context(|| format!("cannot open serial port {name}"))?;
-        let link = LineLink::new(port, s.line_ending, profile.replies.ignore.clone());
+            },
+            read_timeout: Duration::from_millis(20),
+        };
+        let port = open_port(&name, &settings)?;
+        let link = LineLink::new(port, &name, s.line_ending, profile.replies.ignore.clone());
         let caps = profile.caps.clone();
         let identity = Identity {
             driver: format!("dialect:{}", profile.name),
@@ -397,15 +391,24 @@ impl DialectAdapter {
 
     /// Marks the link dead; the outcome every later call returns.
     fn fail(&mut self, e: LinkError) -> Outcome {
-        let detail = format!("{}: {e}", self.identity.target);
-        self.dead = Some(detail.clone());
-        Outcome::adapter_failure(detail)
+        Outcome::adapter_failure(self.link_down(e).to_string())
     }
 
     /// [`Self::fail`] for calls that return an error instead of an outcome.
-    fn link_down(&mut self, e: LinkError) -> anyhow::Error {
-        self.fail(e);
-        anyhow::anyhow!("{}", self.dead.as_deref().unwrap_or_default())
+    fn link_down(&mut self, e: LinkError) -> AdapterError {
+        let target = &self.identity.target;
+        let dead = match AdapterError::from(e.clone()) {
+            AdapterError::NoAnswer(_) => AdapterError::NoAnswer(format!("{target}: {e}")),
+            AdapterError::Protocol(_) => AdapterError::Protocol(format!("{target}: {e}")),
+            _ => AdapterError::LinkLost(format!("{target}: {e}")),
+        };
+        self.dead = Some(dead.clone());
+        dead
+    }
+
+    /// Whether the link already failed: the error every later call returns.
+    fn check_alive(&self) -> Result<(), AdapterError> {
+        self.dead.clone().map_or(Ok(()), Err)
     }
 
     fn execute_stepwise(&mut self, p: &Primitives, tx: &Transaction) -> Outcome {
@@ -632,16 +635,19 @@ impl Adapter for DialectAdapter {
         self.speed
     }
 
-    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed> {
-        if let Some(d) = &self.dead {
-            bail!("{d}");
-        }
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed, AdapterError> {
+        self.check_alive()?;
         self.caps.check_speed(speed, &format!("profile {}", self.profile.file))?;
         let profile = self.profile.clone();
         let Some(cmd) = &profile.speed else {
-            bail!("profile {} has no commands.speed; the adapter runs at its own clock", self.profile.file);
+            return Err(AdapterError::Unsupported(format!(
+                "profile {} has no commands.speed; the adapter runs at its own clock",
+                self.profile.file
+            )));
         };
-        let ok = profile.replies.ok.as_ref().context("profile has no replies.ok")?;
+        let Some(ok) = profile.replies.ok.as_ref() else {
+            return Err(AdapterError::Unsupported("profile has no replies.ok".into()));
+        };
         let v = Fields::default()
             .with("hz", Value::Num(speed.hz() as u64))
             .with("khz", Value::Num(speed.hz() as u64 / 1000));
@@ -650,14 +656,14 @@ impl Adapter for DialectAdapter {
                 self.speed = speed;
                 Ok(speed)
             }
-            Err(Cut::Bus(f)) => bail!("setting the bus clock: {f}"),
+            Err(Cut::Bus(f)) => Err(AdapterError::Failed(format!("setting the bus clock: {f}"))),
             Err(Cut::Link(e)) => Err(self.link_down(e)),
         }
     }
 
     fn execute(&mut self, tx: &Transaction) -> Outcome {
         if let Some(d) = &self.dead {
-            return Outcome::adapter_failure(d.clone());
+            return Outcome::adapter_failure(d.to_string());
         }
         if tx.ops.iter().any(Operation::is_counted) {
             // A counted read decides its length from the target's count
@@ -673,27 +679,27 @@ impl Adapter for DialectAdapter {
         }
     }
 
-    fn recover(&mut self) -> Result<Recovery> {
-        if let Some(d) = &self.dead {
-            bail!("{d}");
-        }
+    fn recover(&mut self) -> Result<Recovery, AdapterError> {
+        self.check_alive()?;
         let profile = self.profile.clone();
         let Some(cmd) = &profile.recover else {
-            bail!("profile {} has no commands.recover", self.profile.file);
+            return Err(AdapterError::Unsupported(format!("profile {} has no commands.recover", self.profile.file)));
         };
-        let want = profile.replies.recovered.as_ref().context("profile has no replies.recovered")?;
+        let Some(want) = profile.replies.recovered.as_ref() else {
+            return Err(AdapterError::Unsupported("profile has no replies.recovered".into()));
+        };
         match self.primitive(cmd, &Fields::default(), want, None) {
             Ok(Some(f)) => Ok(Recovery {
                 pulses: f.num("pulses").unwrap_or(0).min(9) as u8,
                 released: f.str("sda").is_none_or(|s| s != "low"),
             }),
             Ok(None) => unreachable!("no alternative pattern was given"),
-            Err(Cut::Bus(f)) => bail!("bus recovery: {f}"),
+            Err(Cut::Bus(f)) => Err(AdapterError::Failed(format!("bus recovery: {f}"))),
             Err(Cut::Link(e)) => Err(self.link_down(e)),
         }
     }
 
-    fn line_levels(&mut self) -> Result<Option<LineLevels>> {
+    fn line_levels(&mut self) -> Result<Option<LineLevels>, AdapterError> {
         Ok(None)
     }
 
@@ -732,11 +738,8 @@ impl Adapter for DialectAdapter {
         }
     }
 
-    fn close(&mut self) -> Result<()> {
-        if let Some(d) = &self.dead {
-            bail!("{d}");
-        }
-        Ok(())
+    fn close(&mut self) -> Result<(), AdapterError> {
+        self.check_alive()
     }
 }
 

@@ -1,5 +1,7 @@
-//! The host end of a serial link that carries native-protocol frames:
-//! opening the port, sending frames, receiving them with a deadline.
+//! The host end of a serial link: opening a port ([`open_port`], for every
+//! serial driver), the one [`LinkError`] every serial driver reports, and
+//! [`SerialLink`], which carries native-protocol frames: sending frames,
+//! receiving them with a deadline.
 //!
 //! Contract:
 //! - Frames go out COBS-encoded with a trailing delimiter (the codec is
@@ -22,16 +24,60 @@ use thiserror::Error;
 /// which is never above this in protocol version 1).
 pub const MAX_FRAME: usize = 4096;
 
-#[derive(Debug, Error)]
+/// Why a serial link failed, for every serial driver (native and dialect).
+#[derive(Debug, Clone, Error)]
 pub enum LinkError {
-    #[error("cannot open serial port {path}: {source}")]
-    Open {
-        path: String,
-        #[source]
-        source: serialport::Error,
-    },
+    #[error("cannot open serial port {path}: {detail}")]
+    Open { path: String, detail: String },
     #[error("serial port {path} stopped working ({detail}): the adapter was unplugged or closed the port")]
     Gone { path: String, detail: String },
+    /// A command that expects a reply got none in time.
+    #[error("no reply to `{sent}` within {waited_ms} ms")]
+    Timeout { sent: String, waited_ms: u64 },
+    /// A reply that answers something else.
+    #[error("unexpected reply `{got}` to `{sent}`")]
+    Unexpected { sent: String, got: String },
+    /// A reply the driver cannot use (an error report, noise).
+    #[error("{0}")]
+    Reply(String),
+}
+
+/// How to set up a serial port.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PortSettings {
+    pub baud: u32,
+    pub data_bits: serialport::DataBits,
+    pub parity: serialport::Parity,
+    pub stop_bits: serialport::StopBits,
+    pub flow: serialport::FlowControl,
+    /// How long one read waits before it returns with nothing.
+    pub read_timeout: Duration,
+}
+
+impl PortSettings {
+    /// 8 data bits, no parity, one stop bit, no flow control.
+    pub fn eight_n_one(baud: u32, read_timeout: Duration) -> Self {
+        PortSettings {
+            baud,
+            data_bits: serialport::DataBits::Eight,
+            parity: serialport::Parity::None,
+            stop_bits: serialport::StopBits::One,
+            flow: serialport::FlowControl::None,
+            read_timeout,
+        }
+    }
+}
+
+/// Opens a serial port; the one place every serial driver opens one.
+pub fn open_port(path: &str, s: &PortSettings) -> Result<Box<dyn serialport::SerialPort>, LinkError> {
+    serialport::new(path, s.baud)
+        .data_bits(s.data_bits)
+        .parity(s.parity)
+        .stop_bits(s.stop_bits)
+        .flow_control(s.flow)
+        .timeout(s.read_timeout)
+        .open()
+        .map_err(|e| LinkError::Open { path: path.to_string(), detail: e.to_string() })
 }
 
 /// Link-level counters.
@@ -57,14 +103,7 @@ impl SerialLink {
     /// Opens `path` at `baud`, 8 data bits, no parity, one stop bit, no
     /// flow control, and discards whatever was waiting in its buffers.
     pub fn open(path: &str, baud: u32) -> Result<Self, LinkError> {
-        let port = serialport::new(path, baud)
-            .data_bits(serialport::DataBits::Eight)
-            .parity(serialport::Parity::None)
-            .stop_bits(serialport::StopBits::One)
-            .flow_control(serialport::FlowControl::None)
-            .timeout(Duration::from_millis(10))
-            .open()
-            .map_err(|source| LinkError::Open { path: path.to_string(), source })?;
+        let port = open_port(path, &PortSettings::eight_n_one(baud, Duration::from_millis(10)))?;
         let _ = port.clear(serialport::ClearBuffer::All);
         Ok(SerialLink {
             port,

@@ -31,9 +31,11 @@ use thiserror::Error;
 
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
+pub mod error;
 pub mod link;
 pub mod native;
 
+pub use error::AdapterError;
 pub use native::{NativeAdapter, NativeSettings};
 
 /// What a driver can do.
@@ -55,13 +57,14 @@ pub struct Capabilities {
 impl Capabilities {
     /// Refuses a speed outside the adapter's range, naming the range;
     /// `who` says whose range it is ("the simulated adapter", a profile).
-    pub fn check_speed(&self, speed: BusSpeed, who: &str) -> Result<()> {
+    pub fn check_speed(&self, speed: BusSpeed, who: &str) -> Result<(), AdapterError> {
         if speed.hz() < self.min_speed_hz || speed.hz() > self.max_speed_hz {
-            bail!(
+            let name = |hz: u32| BusSpeed::from_hz(hz as u64).map_or_else(|_| format!("{hz} Hz"), |s| s.to_string());
+            return Err(AdapterError::Input(format!(
                 "{who} clocks {} to {}; {speed} is outside that",
-                BusSpeed::from_hz(self.min_speed_hz as u64)?,
-                BusSpeed::from_hz(self.max_speed_hz as u64)?
-            );
+                name(self.min_speed_hz),
+                name(self.max_speed_hz)
+            )));
         }
         Ok(())
     }
@@ -105,23 +108,40 @@ pub struct Snapshot {
     pub clock: Duration,
 }
 
+/// What a serial link carried and how often it had to try again, for the
+/// end-of-run summary: a bad cable shows here before it fails a run.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct LinkCounters {
+    pub frames_sent: u64,
+    pub frames_received: u64,
+    /// Frames that arrived broken (bad CRC, broken framing) and were dropped.
+    pub frames_dropped: u64,
+    /// Requests sent again because no reply came in time.
+    pub retransmissions: u64,
+}
+
 /// A bus adapter driver.
 pub trait Adapter {
     fn identity(&self) -> &Identity;
     fn capabilities(&self) -> &Capabilities;
     fn speed(&self) -> BusSpeed;
     /// Sets the SCL frequency; returns the frequency actually used.
-    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed>;
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed, AdapterError>;
     fn execute(&mut self, tx: &Transaction) -> Outcome;
     fn execute_batch(&mut self, txs: &[Transaction]) -> Vec<Outcome> {
         txs.iter().map(|t| self.execute(t)).collect()
     }
-    fn recover(&mut self) -> Result<Recovery>;
+    fn recover(&mut self) -> Result<Recovery, AdapterError>;
     /// Current line levels, if the adapter can read them back.
-    fn line_levels(&mut self) -> Result<Option<LineLevels>>;
+    fn line_levels(&mut self) -> Result<Option<LineLevels>, AdapterError>;
     fn now(&self) -> Duration;
     fn delay(&mut self, d: Duration);
-    fn close(&mut self) -> Result<()>;
+    fn close(&mut self) -> Result<(), AdapterError>;
+
+    /// Link counters, for drivers with a framed link (`None` otherwise).
+    fn link_counters(&self) -> Option<LinkCounters> {
+        None
+    }
 
     /// Identity, capabilities, speed and clock, as they are now.
     fn snapshot(&self) -> Snapshot {

@@ -29,8 +29,8 @@ use buscue_bridge::wire::{
 };
 use thiserror::Error;
 
-use super::link::{LinkError, LinkStats, SerialLink};
-use super::{Adapter, Capabilities, Identity, LineLevels, Recovery};
+use super::link::{LinkError, SerialLink};
+use super::{Adapter, AdapterError, Capabilities, Identity, LineLevels, LinkCounters, Recovery};
 use crate::bus::timing::transaction_time;
 use crate::bus::{BusSpeed, Direction, Fault, LineFault, OpOutcome, Operation, Outcome, Transaction};
 
@@ -102,6 +102,18 @@ fn refusal_text(code: u8) -> &'static str {
         refusal::TOO_LARGE => "request too large",
         refusal::UNKNOWN_KIND => "unknown request kind",
         _ => "unknown reason",
+    }
+}
+
+impl From<NativeError> for AdapterError {
+    fn from(e: NativeError) -> Self {
+        let text = e.to_string();
+        match e {
+            NativeError::Link(_) | NativeError::Reset { .. } => AdapterError::LinkLost(text),
+            NativeError::NoReply { .. } => AdapterError::NoAnswer(text),
+            NativeError::Version { .. } | NativeError::Refused { .. } => AdapterError::Refused(text),
+            NativeError::Malformed { .. } => AdapterError::Protocol(text),
+        }
     }
 }
 
@@ -227,10 +239,6 @@ impl NativeAdapter {
             failed: None,
             stats: NativeStats::default(),
         })
-    }
-
-    pub fn link_stats(&self) -> LinkStats {
-        self.link.stats
     }
 
     fn window(&self) -> usize {
@@ -530,20 +538,20 @@ impl Adapter for NativeAdapter {
         self.speed
     }
 
-    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed> {
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed, AdapterError> {
         let body = self.control(kind::SPEED, speed.hz().to_le_bytes().to_vec(), Duration::ZERO)?;
         let mut r = Reader::new(&body);
+        let malformed = || NativeError::Malformed { path: self.path(), kind: kind::SPEED };
         let (Some(status), Some(hz)) = (r.u8(), r.u32()) else {
-            bail!(NativeError::Malformed { path: self.path(), kind: kind::SPEED });
+            return Err(malformed().into());
         };
         if status != 0 {
-            bail!(
+            return Err(AdapterError::Input(format!(
                 "the adapter refused {speed}: it clocks {} Hz to {} Hz",
-                self.caps.min_speed_hz,
-                self.caps.max_speed_hz
-            );
+                self.caps.min_speed_hz, self.caps.max_speed_hz
+            )));
         }
-        self.speed = BusSpeed::from_hz(hz as u64)?;
+        self.speed = BusSpeed::from_hz(hz as u64).map_err(|_| malformed())?;
         Ok(self.speed)
     }
 
@@ -584,21 +592,23 @@ impl Adapter for NativeAdapter {
         out
     }
 
-    fn recover(&mut self) -> Result<Recovery> {
+    fn recover(&mut self) -> Result<Recovery, AdapterError> {
         let b = self.control(kind::RECOVER, Vec::new(), Duration::ZERO)?;
         match b.as_slice() {
             [0, pulses, released, ..] => Ok(Recovery { pulses: *pulses, released: *released != 0 }),
-            [1, ..] => bail!("the adapter on {} cannot clock a stuck bus free", self.path()),
-            _ => bail!(NativeError::Malformed { path: self.path(), kind: kind::RECOVER }),
+            [1, ..] => {
+                Err(AdapterError::Unsupported(format!("the adapter on {} cannot clock a stuck bus free", self.path())))
+            }
+            _ => Err(NativeError::Malformed { path: self.path(), kind: kind::RECOVER }.into()),
         }
     }
 
-    fn line_levels(&mut self) -> Result<Option<LineLevels>> {
+    fn line_levels(&mut self) -> Result<Option<LineLevels>, AdapterError> {
         let b = self.control(kind::LINES, Vec::new(), Duration::ZERO)?;
         match b.as_slice() {
             [0, bits, ..] => Ok(Some(LineLevels { sda: bits & 1 != 0, scl: bits & 2 != 0 })),
             [1, ..] => Ok(None),
-            _ => bail!(NativeError::Malformed { path: self.path(), kind: kind::LINES }),
+            _ => Err(NativeError::Malformed { path: self.path(), kind: kind::LINES }.into()),
         }
     }
 
@@ -612,7 +622,17 @@ impl Adapter for NativeAdapter {
         let _ = self.control(kind::DELAY, ns.to_le_bytes().to_vec(), d);
     }
 
-    fn close(&mut self) -> Result<()> {
+    fn link_counters(&self) -> Option<LinkCounters> {
+        let l = self.link.stats;
+        Some(LinkCounters {
+            frames_sent: l.frames_sent,
+            frames_received: l.frames_received,
+            frames_dropped: l.frames_dropped,
+            retransmissions: self.stats.repeats,
+        })
+    }
+
+    fn close(&mut self) -> Result<(), AdapterError> {
         // Every request leaves the bus idle (STOP sent), so there is
         // nothing to undo; a link failure was already reported.
         Ok(())

@@ -18,7 +18,7 @@ pub const DIVERGED: u8 = 5;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;
 
-use crate::adapter::OpenError;
+use crate::adapter::{AdapterError, OpenError};
 use crate::player::RunError;
 use crate::script::Abort;
 
@@ -27,9 +27,18 @@ use crate::script::Abort;
 pub fn of_run_error(e: &RunError) -> u8 {
     match e {
         RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => BUS_FAILURE,
-        RunError::Adapter(_) => ADAPTER,
+        RunError::Adapter(e) => of_adapter_error(e),
         RunError::Interrupted => INTERRUPTED,
         RunError::Shape(_) => INPUT,
+    }
+}
+
+/// Input is the request's fault (usage); every other adapter error is the
+/// adapter's or the link's.
+pub fn of_adapter_error(e: &AdapterError) -> u8 {
+    match e {
+        AdapterError::Input(_) => INPUT,
+        _ => ADAPTER,
     }
 }
 
@@ -51,6 +60,9 @@ pub fn of_error(e: &anyhow::Error) -> u8 {
             OpenError::Input(_) => INPUT,
             OpenError::Link(_) => ADAPTER,
         };
+    }
+    if let Some(a) = e.downcast_ref::<AdapterError>() {
+        return of_adapter_error(a);
     }
     if let Some(r) = e.downcast_ref::<RunError>() {
         return of_run_error(r);

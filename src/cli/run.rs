@@ -11,7 +11,7 @@ use crate::cli::exit;
 use crate::script::{self, RunConfig, Session};
 use crate::trace::file::default_path;
 use crate::trace::{Header, TraceWriter};
-use crate::view::format::summary;
+use crate::view::format::{link_summary, summary};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
@@ -109,6 +109,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     }
     if !a.json {
         let _ = writeln!(err, "{}", summary(&session.stats, host));
+        if let Some(c) = session.adapter_ref().link_counters() {
+            let _ = writeln!(err, "{}", link_summary(&c));
+        }
     }
     if let Some(p) = &trace_path {
         let _ = writeln!(err, "trace: {}", p.display());

@@ -18,7 +18,7 @@ use std::time::Duration;
 
 use thiserror::Error;
 
-use crate::adapter::Adapter;
+use crate::adapter::{Adapter, AdapterError, Recovery};
 use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
 use crate::record::{Frame, Origin, Record, Sink};
 use crate::record::{Level, PecMark, Stats};
@@ -39,7 +39,7 @@ pub enum RunError {
     #[error("{address}: {message}")]
     Protocol { address: Address, message: String },
     #[error("adapter: {0}")]
-    Adapter(String),
+    Adapter(AdapterError),
     #[error("interrupted")]
     Interrupted,
 }
@@ -187,10 +187,10 @@ impl Session {
         let caps = self.adapter.capabilities();
         tx.validate(caps.max_bytes_per_op, self.allow_reserved || req.allow_reserved)?;
         if tx.address.is_ten_bit() && !caps.ten_bit {
-            return Err(RunError::Adapter(format!(
+            return Err(RunError::Adapter(AdapterError::Unsupported(format!(
                 "{} is a 10-bit address and this adapter has no 10-bit support",
                 tx.address
-            )));
+            ))));
         }
         Ok(())
     }
@@ -261,7 +261,7 @@ impl Session {
     fn verdict(&self, tx: &Transaction, outcome: Outcome, attempt: u32, policy: RetryPolicy) -> Verdict {
         match &outcome.fault {
             None => Verdict::Done(outcome),
-            Some(Fault::Adapter { detail }) => Verdict::Fail(RunError::Adapter(detail.clone())),
+            Some(Fault::Adapter { detail }) => Verdict::Fail(RunError::Adapter(AdapterError::Failed(detail.clone()))),
             Some(f) if f.is_nack() && attempt < policy.attempts => Verdict::Retry,
             Some(f) => Verdict::Fail(RunError::Bus {
                 address: tx.address,
@@ -378,9 +378,19 @@ impl Session {
         Ok(found)
     }
 
+    /// Sets the bus clock; returns the clock the adapter actually uses.
+    pub fn set_speed(&mut self, speed: crate::bus::BusSpeed) -> Result<crate::bus::BusSpeed, RunError> {
+        self.adapter.set_speed(speed).map_err(RunError::Adapter)
+    }
+
+    /// Frees a stuck bus (see [`Adapter::recover`]).
+    pub fn recover(&mut self) -> Result<Recovery, RunError> {
+        self.adapter.recover().map_err(RunError::Adapter)
+    }
+
     /// Writes the end record, flushes the sinks and closes the adapter,
     /// leaving the bus idle.
-    pub fn finish(&mut self, exit: u8, error: Option<String>) -> anyhow::Result<()> {
+    pub fn finish(&mut self, exit: u8, error: Option<String>) -> Result<(), AdapterError> {
         let r = Record::End { t: self.now(), stats: self.stats.clone(), exit, error };
         self.emit(&r);
         for s in &mut self.sinks {

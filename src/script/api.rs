@@ -11,13 +11,14 @@ use std::time::Duration;
 
 use mlua::{Lua, LuaSerdeExt, Table, Value, Variadic};
 
+use crate::adapter::AdapterError;
 use crate::bus::{Address, Operation, Outcome, Transaction};
 use crate::record::Level;
 
 use super::convert::{self, LuaResult, bad, call_options, ms_option};
 use super::device::DeviceHandle;
 use super::{Abort, Ctx, origin};
-use crate::player::session::{Probe, Request, RunError, scan_range};
+use crate::player::{Probe, Request, RunError, scan_range};
 
 /// Turns a plain error raised in a callback into an [`Abort`] that carries
 /// the script line; errors that already are one pass through.
@@ -177,10 +178,17 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "speed", move |_, v: Value| {
+    add(lua, &bus, "speed", move |lua, v: Value| {
         if !v.is_nil() {
             let s = convert::speed(&v)?;
-            c.session.borrow_mut().adapter().set_speed(s).map_err(|e| bad(e.to_string()))?;
+            let set = c.session.borrow_mut().set_speed(s);
+            match set {
+                // A speed outside the adapter's range is the script's mistake;
+                // anything else is the adapter's or the link's.
+                Err(RunError::Adapter(AdapterError::Input(m))) => return Err(bad(m)),
+                Err(e) => return Err(run_error(lua, e)),
+                Ok(_) => {}
+            }
         }
         Ok(c.session.borrow().adapter_ref().speed().hz())
     })?;
@@ -212,8 +220,8 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "recover", move |_, ()| {
-        let r = c.session.borrow_mut().adapter().recover().map_err(|e| bad(e.to_string()))?;
+    add(lua, &bus, "recover", move |lua, ()| {
+        let r = c.session.borrow_mut().recover().map_err(|e| run_error(lua, e))?;
         Ok((r.pulses, r.released))
     })?;
 
@@ -301,13 +309,15 @@ fn check_failed(lua: &Lua, message: String) -> mlua::Error {
 
 fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let c = ctx.clone();
-    add(lua, g, "sleep_ms", move |_, ms: Value| {
+    add(lua, g, "sleep_ms", move |lua, ms: Value| {
         let ms = convert::number(&ms, "sleep_ms")?;
         if !(0.0..=86_400_000.0).contains(&ms) {
             return Err(bad(format!("sleep_ms must be 0-86400000, got {ms}")));
         }
         let r = c.session.borrow_mut().delay(Duration::from_secs_f64(ms / 1e3));
-        r.map_err(|e| bad(e.to_string()))
+        // Ctrl-C during a long sleep ends the run as interrupted, not as
+        // a script error.
+        r.map_err(|e| run_error(lua, e))
     })?;
 
     let c = ctx.clone();

@@ -161,7 +161,8 @@ impl DialectServer {
         let m = |f: &Option<Form>| f.as_ref().and_then(|f| f.matches(line, ""));
         if let Some(v) = m(&p.speed) {
             let hz = v.num("hz").or_else(|| v.num("khz").map(|k| k * 1000)).unwrap_or(0);
-            return match BusSpeed::from_hz(hz).map_err(anyhow::Error::from).and_then(|s| self.adapter.set_speed(s)) {
+            let set = BusSpeed::from_hz(hz).map_err(|e| e.to_string());
+            return match set.and_then(|s| self.adapter.set_speed(s).map_err(|e| e.to_string())) {
                 Ok(_) => self.ok(),
                 Err(e) => self.refuse(e.to_string()),
             };

@@ -18,9 +18,7 @@ pub mod signal;
 
 use std::time::Duration;
 
-use anyhow::Result;
-
-use crate::adapter::{Adapter, Capabilities, Identity, LineLevels, Recovery};
+use crate::adapter::{Adapter, AdapterError, Capabilities, Identity, LineLevels, Recovery};
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
 pub use bench::{Bench, BenchError, DEMO_BENCH, DEMO_BENCH_NAME};
@@ -87,7 +85,7 @@ impl Adapter for SimAdapter {
         self.bus.speed
     }
 
-    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed> {
+    fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed, AdapterError> {
         self.caps.check_speed(speed, "the simulated adapter")?;
         self.bus.speed = speed;
         Ok(speed)
@@ -100,12 +98,12 @@ impl Adapter for SimAdapter {
         self.bus.execute(tx)
     }
 
-    fn recover(&mut self) -> Result<Recovery> {
+    fn recover(&mut self) -> Result<Recovery, AdapterError> {
         let (pulses, released) = self.bus.recover();
         Ok(Recovery { pulses, released })
     }
 
-    fn line_levels(&mut self) -> Result<Option<LineLevels>> {
+    fn line_levels(&mut self) -> Result<Option<LineLevels>, AdapterError> {
         Ok(Some(LineLevels { sda: !self.bus.sda_held(), scl: true }))
     }
 
@@ -117,7 +115,7 @@ impl Adapter for SimAdapter {
         self.bus.clock.advance(d);
     }
 
-    fn close(&mut self) -> Result<()> {
+    fn close(&mut self) -> Result<(), AdapterError> {
         Ok(())
     }
 }

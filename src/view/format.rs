@@ -255,6 +255,18 @@ pub fn summary(s: &Stats, host: Duration) -> String {
     )
 }
 
+/// The link line of the summary, for adapters that count their link.
+pub fn link_summary(c: &crate::adapter::LinkCounters) -> String {
+    format!(
+        "link: {} frames sent, {} received, {} dropped as damaged, {} retransmission{}",
+        c.frames_sent,
+        c.frames_received,
+        c.frames_dropped,
+        c.retransmissions,
+        if c.retransmissions == 1 { "" } else { "s" }
+    )
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
