@@ -130,7 +130,7 @@ fn run() -> anyhow::Result<()> {
     use buscue::adapter::{AdapterSpec, OpenOptions};
     use buscue::cli::compose::open;
     use buscue::hal::HalBus;
-    use buscue::script::Session;
+    use buscue::player::Session;
     use buscue::view::plain::PlainLog;
 
     let (mut adapter, mut address, mut samples, mut frames) = ("sim".to_string(), 0x44u8, 2u32, false);
