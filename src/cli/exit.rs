@@ -29,7 +29,7 @@ pub fn of_run_error(e: &RunError) -> u8 {
         RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => BUS_FAILURE,
         RunError::Adapter(e) => of_adapter_error(e),
         RunError::Interrupted => INTERRUPTED,
-        RunError::Shape(_) => INPUT,
+        RunError::Shape(_) | RunError::TimeLimit { .. } => INPUT,
     }
 }
 

@@ -15,6 +15,7 @@ use crate::view::format::{link_summary, summary};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
+use super::watchdog::Watchdog;
 use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration};
 
 #[derive(Args, Debug)]
@@ -62,6 +63,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let adapter = a.bus.open()?;
     let mut session = Session::new(adapter, interrupt.clone());
     session.allow_reserved = a.allow_reserved;
+    let timeout = (a.timeout > Duration::ZERO).then_some(a.timeout);
+    session.set_time_limit(timeout);
+    let mut rescue = None;
     let params: std::collections::BTreeMap<String, String> = a.set.into_iter().collect();
     // The trace sink goes first: a frame reaches the file before the
     // screen, so nothing a person saw can be missing from the trace.
@@ -77,6 +81,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         );
         let w = TraceWriter::create(&path, &header)
             .with_context(|| format!("cannot create trace file {}", path.display()))?;
+        rescue = Some(w.rescue());
         session.add_sink(Box::new(w));
         Some(path)
     };
@@ -89,12 +94,19 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let cfg = RunConfig {
         script: a.script.clone(),
         params,
-        timeout: (a.timeout > Duration::ZERO).then_some(a.timeout),
+        timeout,
         memory_limit: a.memory_limit as usize * 1024 * 1024,
         allow_io: a.allow_io,
     };
     let started = Instant::now();
+    let dog = Watchdog::start(
+        session.deadline(),
+        interrupt.clone(),
+        rescue,
+        trace_path.as_ref().map(|p| p.display().to_string()),
+    );
     let report = script::run(session, &cfg, interrupt);
+    dog.disarm();
     let host = started.elapsed();
     let mut session = report.session;
     let code = report.abort.as_ref().map_or(exit::OK, exit::of_abort);

@@ -20,7 +20,7 @@ use crate::view::format::{frame_line, human};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag};
+use super::{BusArgs, interrupt_flag, parse_duration};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
@@ -60,6 +60,10 @@ pub struct ReplayArgs {
     /// Record the replay as a trace too.
     #[arg(long, value_name = "PATH")]
     pub trace_out: Option<PathBuf>,
+    /// Wall-clock limit for the replay, recorded gaps included (30s, 2m,
+    /// 1h; 0 = none, the default: a recording may be long).
+    #[arg(long, default_value = "0", value_parser = parse_duration)]
+    pub timeout: std::time::Duration,
 }
 
 pub fn replay(a: ReplayArgs) -> Result<u8> {
@@ -73,6 +77,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
     }
     let mut session = Session::new(adapter, interrupt);
+    session.set_time_limit((!a.timeout.is_zero()).then_some(a.timeout));
     if let Some(path) = &a.trace_out {
         let mut h = Header::new("replay", session.adapter_ref().snapshot());
         h.replay_of = Some(a.trace.display().to_string());

@@ -7,14 +7,16 @@
 //!   retrying only NACKs, waiting the policy's delay on the adapter clock;
 //!   each try becomes one [`Frame`] handed to every sink before the next
 //!   thing happens.
-//! - An interrupt request (Ctrl-C) is honoured between transactions: the
+//! - An interrupt request (Ctrl-C) and the run's time limit are honoured
+//!   between transactions and during every wait the session makes (retry
+//!   delays, ACK polling, sleeps, sliced so a long one ends promptly): the
 //!   transaction on the bus completes (with its STOP) and nothing new starts.
 //! - A sink that fails is dropped with one warning (a closed pipe silently),
 //!   so a viewer going away never stops a bus sequence half-way.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
-use std::time::Duration;
+use std::time::{Duration, Instant};
 
 use thiserror::Error;
 
@@ -42,6 +44,9 @@ pub enum RunError {
     Adapter(AdapterError),
     #[error("interrupted")]
     Interrupted,
+    /// The run's wall-clock limit passed.
+    #[error("ran past its time limit of {} s (--timeout)", limit.as_secs_f64())]
+    TimeLimit { limit: Duration },
 }
 
 fn describe(fault: &Fault, ops: &[Operation]) -> String {
@@ -68,6 +73,8 @@ pub struct Session {
     pub stats: Stats,
     pub allow_reserved: bool,
     interrupt: Arc<AtomicBool>,
+    /// When the run must stop, and the limit that set it, in wall time.
+    deadline: Option<(Instant, Duration)>,
     warnings: Vec<String>,
     /// The operations of the last frame, handed back by the sinks: the
     /// next frame copies its transaction's operations into these buffers
@@ -98,6 +105,7 @@ impl Session {
             stats: Stats::default(),
             allow_reserved: false,
             interrupt,
+            deadline: None,
             warnings: Vec::new(),
             frame_ops: Vec::new(),
         }
@@ -121,6 +129,29 @@ impl Session {
 
     pub fn interrupted(&self) -> bool {
         self.interrupt.load(Ordering::Relaxed)
+    }
+
+    /// Sets a wall-clock limit on the run from now (`None`: no limit).
+    /// Wall time, whatever the adapter: the limit protects whoever waits
+    /// for the run, and on the virtual-clock bench waiting costs nothing.
+    pub fn set_time_limit(&mut self, limit: Option<Duration>) {
+        self.deadline = limit.map(|l| (Instant::now() + l, l));
+    }
+
+    /// The wall-clock deadline and the limit behind it, if any.
+    pub fn deadline(&self) -> Option<(Instant, Duration)> {
+        self.deadline
+    }
+
+    /// Whether the run must stop now: an interrupt, or the time limit.
+    pub fn check_stop(&self) -> Result<(), RunError> {
+        if self.interrupted() {
+            return Err(RunError::Interrupted);
+        }
+        match self.deadline {
+            Some((when, limit)) if Instant::now() >= when => Err(RunError::TimeLimit { limit }),
+            _ => Ok(()),
+        }
     }
 
     /// Warnings collected from failed sinks, for the end of the run.
@@ -154,14 +185,13 @@ impl Session {
     }
 
     pub fn delay(&mut self, d: Duration) -> Result<(), RunError> {
-        // Sleep in slices so Ctrl-C is honoured during long waits on a
-        // paced or real clock.
+        // Sleep in slices so Ctrl-C and the time limit are honoured during
+        // long waits on a paced or real clock (and over a served adapter,
+        // where each slice is one delay request).
         let slice = Duration::from_millis(50);
         let mut left = d;
         while left > Duration::ZERO {
-            if self.interrupted() {
-                return Err(RunError::Interrupted);
-            }
+            self.check_stop()?;
             let step = left.min(slice);
             self.adapter.delay(step);
             left -= step;
@@ -206,9 +236,7 @@ impl Session {
         pec: &Marker<'_>,
     ) -> Result<Outcome, RunError> {
         loop {
-            if self.interrupted() {
-                return Err(RunError::Interrupted);
-            }
+            self.check_stop()?;
             let t = self.adapter.now();
             let outcome = self.adapter.execute(tx);
             let mark = pec(&outcome);
@@ -288,9 +316,7 @@ impl Session {
         for (tx, req) in items {
             self.check(tx, req)?;
         }
-        if self.interrupted() {
-            return Err(RunError::Interrupted);
-        }
+        self.check_stop()?;
         let mut t = self.adapter.now();
         let txs: Vec<Transaction> = items.iter().map(|(tx, _)| tx.clone()).collect();
         let outcomes = self.adapter.execute_batch(&txs);

@@ -30,7 +30,12 @@ pub fn located(lua: &Lua, e: mlua::Error) -> mlua::Error {
 }
 
 pub fn run_error(lua: &Lua, error: RunError) -> mlua::Error {
-    mlua::Error::external(Abort::Run { error, origin: origin(lua) })
+    match error {
+        // The time limit reached inside a wait is the same stop as the
+        // hook's: a limit, not a bus failure at this line.
+        RunError::TimeLimit { .. } => mlua::Error::external(Abort::Limit(format!("script {error}"))),
+        error => mlua::Error::external(Abort::Run { error, origin: origin(lua) }),
+    }
 }
 
 /// Executes one transaction for a script call.

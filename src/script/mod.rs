@@ -228,7 +228,10 @@ fn classify_value(v: &Value) -> Abort {
 }
 
 /// Runs a script to its end or to its first failure.
-pub fn run(session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Report {
+pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Report {
+    if session.deadline().is_none() {
+        session.set_time_limit(cfg.timeout);
+    }
     let ctx = Rc::new(Ctx {
         session: RefCell::new(session),
         params: RefCell::new(Params::new(cfg.params.clone())),
@@ -257,14 +260,16 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
     lua.set_app_data(KnownFunctions::default());
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
-    let deadline = cfg.timeout.map(|t| (Instant::now() + t, t));
+    // The session holds the run's deadline, so waits on the Rust side
+    // (retries, polling, sleeps) end at the same moment the hook would.
+    let deadline = ctx.session.borrow().deadline();
     lua.set_hook(HookTriggers::new().every_nth_instruction(1000), move |lua, _| {
         let abort = if interrupt.load(Ordering::Relaxed) {
             Abort::Run { error: RunError::Interrupted, origin: None }
         } else if let Some((when, limit)) = deadline
             && Instant::now() >= when
         {
-            Abort::Limit(format!("script ran past its time limit of {} s (--timeout)", limit.as_secs_f64()))
+            Abort::Limit(format!("script {}", RunError::TimeLimit { limit }))
         } else {
             return Ok(VmState::Continue);
         };

@@ -9,6 +9,11 @@
 //!   loses nothing that completed; at most the last line is cut. It does
 //!   not `fsync` per record (that would cost milliseconds per frame); the
 //!   file is synced when the run ends.
+//! - A [`TraceRescue`] taken from a writer lets another thread end the
+//!   trace (a watchdog that stops a run which no longer answers): it
+//!   waits for the record being written, appends an end record with the
+//!   counts of the frames written so far, syncs, and from then on the
+//!   writer writes nothing more, so the end record stays last.
 //! - [`TraceReader`] refuses a file whose header is missing, names another
 //!   format or an unknown major version; accepts newer minor versions
 //!   (unknown fields are ignored, unknown record kinds skipped with a
@@ -18,11 +23,13 @@
 use std::fs::File;
 use std::io::{self, BufRead, BufReader, Read, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex, MutexGuard};
+use std::time::Duration;
 
 use thiserror::Error;
 
 use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
-use crate::record::{Record, Sink};
+use crate::record::{Record, Sink, Stats};
 
 /// Why a trace cannot be read.
 #[derive(Debug, Error)]
@@ -43,9 +50,48 @@ pub enum TraceError {
 
 /// A sink that writes a trace file, one flushed line per record.
 pub struct TraceWriter {
-    file: File,
+    shared: Arc<Mutex<Written>>,
     path: PathBuf,
     line: Vec<u8>,
+}
+
+/// The file and what has gone into it, shared with [`TraceRescue`].
+struct Written {
+    file: File,
+    /// Counts of the frames written, for an end record written by rescue.
+    stats: Stats,
+    /// The time of the last record written.
+    last_t: Duration,
+    /// An end record is in the file: nothing may follow it.
+    ended: bool,
+}
+
+/// A handle that can end a trace from another thread; see the module doc.
+#[derive(Clone)]
+pub struct TraceRescue {
+    shared: Arc<Mutex<Written>>,
+}
+
+fn lock(m: &Mutex<Written>) -> MutexGuard<'_, Written> {
+    // A panic while writing leaves the file as it was; keep using it.
+    m.lock().unwrap_or_else(|p| p.into_inner())
+}
+
+impl TraceRescue {
+    /// Ends the trace now, unless it has ended: an end record with `exit`,
+    /// `error` and the counts of the frames written, then a sync.
+    pub fn end(&self, exit: u8, error: &str) -> io::Result<()> {
+        let mut w = lock(&self.shared);
+        if w.ended {
+            return Ok(());
+        }
+        let end = Record::End { t: w.last_t, stats: w.stats.clone(), exit, error: Some(error.to_string()) };
+        let mut line = serde_json::to_vec(&end)?;
+        line.push(b'\n');
+        w.ended = true;
+        w.file.write_all(&line)?;
+        w.file.sync_data()
+    }
 }
 
 impl TraceWriter {
@@ -56,8 +102,16 @@ impl TraceWriter {
             std::fs::create_dir_all(dir)?;
         }
         let file = File::create(path)?;
-        let mut w = TraceWriter { file, path: path.to_path_buf(), line: Vec::with_capacity(512) };
-        w.write_line(header)?;
+        let written = Written { file, stats: Stats::default(), last_t: Duration::ZERO, ended: false };
+        let mut w = TraceWriter {
+            shared: Arc::new(Mutex::new(written)),
+            path: path.to_path_buf(),
+            line: Vec::with_capacity(512),
+        };
+        w.line.clear();
+        serde_json::to_writer(&mut w.line, header)?;
+        w.line.push(b'\n');
+        lock(&w.shared).file.write_all(&w.line)?;
         Ok(w)
     }
 
@@ -65,22 +119,35 @@ impl TraceWriter {
         &self.path
     }
 
-    fn write_line<T: serde::Serialize>(&mut self, value: &T) -> io::Result<()> {
-        self.line.clear();
-        serde_json::to_writer(&mut self.line, value)?;
-        self.line.push(b'\n');
-        // One write of the whole line: the OS has it when this returns.
-        self.file.write_all(&self.line)
+    /// A handle that can end this trace from another thread.
+    pub fn rescue(&self) -> TraceRescue {
+        TraceRescue { shared: self.shared.clone() }
     }
 }
 
 impl Sink for TraceWriter {
     fn record(&mut self, r: &Record) -> io::Result<()> {
-        self.write_line(r)
+        self.line.clear();
+        serde_json::to_writer(&mut self.line, r)?;
+        self.line.push(b'\n');
+        let mut w = lock(&self.shared);
+        if w.ended {
+            return Ok(());
+        }
+        match r {
+            Record::Frame(f) => {
+                w.stats.add_frame(f);
+                w.last_t = f.t;
+            }
+            Record::Log { t, .. } | Record::Step { t, .. } => w.last_t = *t,
+            Record::End { .. } => w.ended = true,
+        }
+        // One write of the whole line: the OS has it when this returns.
+        w.file.write_all(&self.line)
     }
 
     fn flush(&mut self) -> io::Result<()> {
-        self.file.sync_data()
+        lock(&self.shared).file.sync_data()
     }
 }
 
@@ -185,6 +252,11 @@ impl<R: BufRead> TraceReader<R> {
 
     pub fn file(&self) -> &str {
         &self.file
+    }
+
+    /// The line number of the record read last (the header is line 1).
+    pub fn line(&self) -> u64 {
+        self.line
     }
 
     /// Warnings so far: a cut last line, a newer minor version, skipped records.

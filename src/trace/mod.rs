@@ -17,5 +17,5 @@ pub mod mask;
 pub mod replay;
 pub mod to_script;
 
-pub use file::{Trace, TraceError, TraceReader, TraceWriter};
+pub use file::{Trace, TraceError, TraceReader, TraceRescue, TraceWriter};
 pub use header::Header;

@@ -20,6 +20,7 @@ use std::cell::RefCell;
 use std::fmt;
 use std::io::BufRead;
 use std::rc::Rc;
+use std::time::Duration;
 
 use crate::bus::{Fault, Operation, Outcome, Transaction};
 use crate::player::{Request, RetryPolicy, RunError, Session};
@@ -200,6 +201,10 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
     (out, masked)
 }
 
+/// The latest a frame may be replayed after the start (recorded gaps,
+/// scaled): a month is longer than any bench recording.
+pub const MAX_OFFSET: Duration = Duration::from_secs(30 * 86_400);
+
 /// Replays the rest of `trace` through `session`; see the module contract.
 pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opts: &ReplayOptions) -> ReplayReport {
     let last = Rc::new(RefCell::new(None));
@@ -225,7 +230,23 @@ pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opt
             Record::Log { .. } | Record::End { .. } => continue,
         };
         if let Some(scale) = opts.time_scale {
-            let target = start + f.t.saturating_sub(clock0).mul_f64(scale);
+            // A frame time far beyond any real recording is damage (or an
+            // attack): refuse it rather than wait for centuries.
+            let offset = f.t.saturating_sub(clock0).as_secs_f64() * scale;
+            if offset > MAX_OFFSET.as_secs_f64() {
+                report.stopped = Some(Stop::Trace(TraceError::Corrupt {
+                    file: trace.file().to_string(),
+                    line: trace.line(),
+                    detail: format!(
+                        "frame {} would be replayed {offset:.0} s after the start; a recording longer than {} days \
+                         is taken as damaged",
+                        f.seq,
+                        MAX_OFFSET.as_secs() / 86_400
+                    ),
+                }));
+                break;
+            }
+            let target = start + Duration::from_secs_f64(offset);
             let now = session.now();
             if target > now
                 && let Err(e) = session.delay(target - now)
