@@ -75,6 +75,43 @@ pub fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
     }
 }
 
+/// Text from a recording, a script or a file, made safe to show or to
+/// put in a line of generated code: every control character (below 0x20,
+/// tab included, 0x7F, the C1 controls U+0080-U+009F) and the Unicode line
+/// and paragraph separators are written visibly as `\n`, `\r`, `\t` or
+/// `\xNN` / `\u{NNNN}`, and a backslash as `\\`, so the result is one line
+/// and cannot drive a terminal or end a comment. Plain text is returned as
+/// it is, without a copy.
+pub fn escape_controls(s: &str) -> std::borrow::Cow<'_, str> {
+    let special = |c: char| c == '\\' || c.is_control() || c == '\u{2028}' || c == '\u{2029}';
+    if !s.chars().any(special) {
+        return std::borrow::Cow::Borrowed(s);
+    }
+    let mut out = String::with_capacity(s.len() + 8);
+    for c in s.chars() {
+        match c {
+            '\\' => out.push_str("\\\\"),
+            '\n' => out.push_str("\\n"),
+            '\r' => out.push_str("\\r"),
+            '\t' => out.push_str("\\t"),
+            c if (c as u32) < 0x80 && special(c) => {
+                out.push_str("\\x");
+                push_hex_byte(&mut out, c as u8);
+            }
+            c if special(c) => {
+                out.push_str("\\u{");
+                let n = c as u32;
+                for shift in [12, 8, 4, 0] {
+                    out.push(hex_digit(n >> shift) as char);
+                }
+                out.push('}');
+            }
+            c => out.push(c),
+        }
+    }
+    std::borrow::Cow::Owned(out)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -100,6 +137,21 @@ mod tests {
             let mut s = String::new();
             push_hex_byte(&mut s, b);
             assert_eq!(s, format!("{b:02X}"));
+        }
+    }
+
+    #[test]
+    fn control_characters_are_shown_not_sent() {
+        assert_eq!(escape_controls("plain text, 25 °C"), "plain text, 25 °C");
+        assert!(matches!(escape_controls("plain"), std::borrow::Cow::Borrowed(_)));
+        // ESC ] 0 ; title BEL, ESC [ 2 J: a terminal title and a screen clear.
+        assert_eq!(escape_controls("\u{1b}]0;x\u{7}\u{1b}[2J"), "\\x1B]0;x\\x07\\x1B[2J");
+        assert_eq!(escape_controls("a\rb\nc\td\\e"), "a\\rb\\nc\\td\\\\e");
+        assert_eq!(escape_controls("\u{7f}\u{85}\u{9b}\u{2028}"), "\\x7F\\u{0085}\\u{009B}\\u{2028}");
+        for b in 0u32..=0x10FF {
+            let Some(c) = char::from_u32(b) else { continue };
+            let e = escape_controls(&c.to_string()).into_owned();
+            assert!(!e.chars().any(|x| x.is_control()), "U+{b:04X} escapes to {e:?}");
         }
     }
 }
