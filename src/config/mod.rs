@@ -177,34 +177,37 @@ fn steps(path: &str) -> Vec<Step<'_>> {
 
 /// The 1-based line of what `path` names in `text`: the line its key is
 /// written on (an array element's own line). When the path leads out of
-/// the document, the line of the last step that was found, which is the
-/// enclosing table's header (or the key that opened it); None when not
-/// even the first step was found, as the top level has no header.
+/// the document (a missing key), the line of the deepest table it did
+/// reach: that table's header, or the key that opened an inline or dotted
+/// table; None when that is the top level, which has no header.
 fn line_of(text: &str, path: &[Step]) -> Option<usize> {
     // Errors are made after `Ctx::table` parsed the same text, so this
     // parse succeeds; it is repeated here, not kept, because only the
     // error path needs spans and a loader stops at its first error.
     let doc = toml_edit::ImDocument::parse(text).ok()?;
     let mut item = doc.as_item();
-    let mut span: Option<Range<usize>> = None;
+    let mut exact: Option<Range<usize>> = None;
+    let mut table: Option<Range<usize>> = None;
     for step in path {
-        let (next, at) = match *step {
-            Step::Key(k) => match item.as_table_like().and_then(|t| t.get_key_value(k)) {
-                // A key's own span is where the user wrote it: on its
-                // `key =` line, or in the `[header]` that opened a table.
-                Some((key, next)) => (next, key.span().or_else(|| next.span())),
-                None => break,
-            },
+        let found = match *step {
+            // A key's own span is where the user wrote it: on its `key =`
+            // line, or in the `[header]` that opened a table.
+            Step::Key(k) => item.as_table_like().and_then(|t| t.get_key_value(k)).map(|(key, next)| (next, key.span())),
             // An element of an array of tables spans from its `[[header]]`.
-            Step::Index(i) => match item.get(i) {
-                Some(next) => (next, next.span()),
-                None => break,
-            },
+            Step::Index(i) => item.get(i).map(|next| (next, None)),
+        };
+        let Some((next, key_span)) = found else {
+            return table.map(|s| line_at(text, s.start));
         };
         item = next;
-        span = at.or(span);
+        exact = key_span.or_else(|| item.span()).or(exact);
+        // An array is no table to fall back to: a missing element falls
+        // back past it, to the table that holds the array.
+        if item.is_table_like() {
+            table = exact.clone();
+        }
     }
-    span.map(|s| line_at(text, s.start))
+    exact.map(|s| line_at(text, s.start))
 }
 
 /// The 1-based line holding byte `offset` of `text`.
@@ -404,6 +407,9 @@ mod tests {
         assert_eq!(line(text, Some(1), "address"), Some(6));
         assert_eq!(line(text, Some(1), "faults.address_nack_probability"), Some(8));
         assert_eq!(line(text, None, "name"), None);
+        // A device that is not there has no block: no line, not the first
+        // `[[device]]` header.
+        assert_eq!(line(text, Some(2), "address"), None);
     }
 
     #[test]
