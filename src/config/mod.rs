@@ -2,12 +2,23 @@
 //! bench files, dialect profiles (and fixture files as they come).
 //!
 //! Contract: an error is a [`ConfigError`] that names the file, the line
-//! where the line can be found, the key as a dotted path, and what is
+//! (where one can be found), the key as a dotted path, and what is
 //! wrong in the user's words. [`Ctx::parse`] turns serde's complaints
 //! (unknown or missing keys, wrong types) into such errors; format tags
 //! are checked by [`check_format`] (family and major version).
+//!
+//! Lines come from the parser, never from searching the text: the file is
+//! parsed with `toml_edit` (the parser under `toml`, which keeps spans),
+//! the key's path is walked through the document, and the byte offset
+//! where the key is written becomes a 1-based line. So inline tables,
+//! dotted and quoted keys, sub-tables and comments that mention a key all
+//! land on the line that really holds it. A key that is not in the file
+//! (a missing one) gets the line of the deepest table its path reaches:
+//! that table's header, or the key that opened an inline or dotted table;
+//! a missing top-level key has no line, since the top level has no header.
 
 use std::fmt;
+use std::ops::Range;
 
 use serde::de::DeserializeOwned;
 
@@ -37,42 +48,6 @@ impl fmt::Display for ConfigError {
 
 impl std::error::Error for ConfigError {}
 
-/// Finds the line of `key` inside the n-th `[[device]]` block (or the top
-/// level when `device` is None); falls back to the block's header line.
-pub fn locate(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
-    let leaf = key.rsplit(['.', '[']).next().unwrap_or(key).trim_end_matches(']');
-    let leaf =
-        if leaf.chars().all(|c| c.is_ascii_digit()) { key.split(['.', '[']).next().unwrap_or(key) } else { leaf };
-    let mut block: Option<usize> = None;
-    let mut seen = 0usize;
-    let mut header = None;
-    for (i, raw) in text.lines().enumerate() {
-        let line = raw.trim_start();
-        if line.starts_with("[[device]]") {
-            block = Some(seen);
-            seen += 1;
-            if Some(block.unwrap()) == device {
-                header = Some(i + 1);
-            }
-            continue;
-        }
-        if line.starts_with('[') && !line.starts_with("[[device.") && !line.starts_with("[device.") {
-            block = None;
-            continue;
-        }
-        if block == device {
-            let rest = line.strip_prefix(leaf).map(str::trim_start);
-            if rest.is_some_and(|r| r.starts_with('='))
-                || line.contains(&format!("{leaf} ="))
-                || line.contains(&format!("{leaf}="))
-            {
-                return Some(i + 1);
-            }
-        }
-    }
-    header
-}
-
 /// Error context for one TOML file: every error it makes names the file
 /// and finds the line of the key it is about.
 pub struct Ctx<'a> {
@@ -84,16 +59,31 @@ impl Ctx<'_> {
     /// The file as a TOML table; a syntax error names its line.
     pub fn table(&self) -> Result<toml::Table, ConfigError> {
         let text = self.text;
-        text.parse().map_err(|e: toml::de::Error| {
-            let line = e.span().map(|s| text[..s.start.min(text.len())].lines().count().max(1));
-            ConfigError { file: self.file.to_string(), line, key: String::new(), message: e.message().to_string() }
+        text.parse().map_err(|e: toml::de::Error| ConfigError {
+            file: self.file.to_string(),
+            line: e.span().map(|s| line_at(text, s.start)),
+            key: String::new(),
+            message: e.message().to_string(),
         })
     }
 
+    /// An error about `key` inside the n-th `[[device]]` block (or from the
+    /// top level when `device` is None); `key` is a dotted path relative to
+    /// that block, as the user is told it (`faults.seed`, `register[2].at`).
     pub fn err(&self, device: Option<usize>, key: &str, message: impl Into<String>) -> ConfigError {
+        match device {
+            Some(n) => self.err_at(&format!("device[{n}].{key}"), key, message),
+            None => self.err_at(key, key, message),
+        }
+    }
+
+    /// An error about `key` (as the user is told it) found at `path`, the
+    /// key's full dotted path from the top of the file; for a key that is
+    /// named relative to the table it sits in.
+    pub fn err_at(&self, path: &str, key: &str, message: impl Into<String>) -> ConfigError {
         ConfigError {
             file: self.file.to_string(),
-            line: locate(self.text, device, key),
+            line: line_of(self.text, &steps(path)),
             key: key.to_string(),
             message: message.into(),
         }
@@ -150,4 +140,300 @@ pub fn check_format(found: &str, expected: &str) -> Result<(), String> {
         return Err(format!("{family} format version {ver} is not supported; this buscue reads major version {major}"));
     }
     Ok(())
+}
+
+/// One step of a key path: a key of a table, or an index into an array
+/// (of values or of tables).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Step<'a> {
+    Key(&'a str),
+    Index(usize),
+}
+
+/// The steps of a dotted path as errors spell it: `serial.baud`,
+/// `register[0].at`, `replies.ignore[1]`. A part whose brackets do not
+/// hold an index is taken as one key, whole.
+fn steps(path: &str) -> Vec<Step<'_>> {
+    let mut out = Vec::new();
+    for part in path.split('.').filter(|p| !p.is_empty()) {
+        let (name, mut rest) = part.split_at(part.find('[').unwrap_or(part.len()));
+        let mut indices = Vec::new();
+        while let Some((i, r)) = rest.strip_prefix('[').and_then(|r| r.split_once(']')) {
+            let Ok(i) = i.parse() else { break };
+            indices.push(Step::Index(i));
+            rest = r;
+        }
+        if !rest.is_empty() {
+            out.push(Step::Key(part));
+            continue;
+        }
+        if !name.is_empty() {
+            out.push(Step::Key(name));
+        }
+        out.extend(indices);
+    }
+    out
+}
+
+/// The 1-based line of what `path` names in `text`: the line its key is
+/// written on (an array element's own line). When the path leads out of
+/// the document (a missing key), the line of the deepest table it did
+/// reach: that table's header, or the key that opened an inline or dotted
+/// table; None when that is the top level, which has no header.
+fn line_of(text: &str, path: &[Step]) -> Option<usize> {
+    // Errors are made after `Ctx::table` parsed the same text, so this
+    // parse succeeds; it is repeated here, not kept, because only the
+    // error path needs spans and a loader stops at its first error.
+    let doc = toml_edit::ImDocument::parse(text).ok()?;
+    let mut item = doc.as_item();
+    let mut exact: Option<Range<usize>> = None;
+    let mut table: Option<Range<usize>> = None;
+    for step in path {
+        let found = match *step {
+            // A key's own span is where the user wrote it: on its `key =`
+            // line, or in the `[header]` that opened a table.
+            Step::Key(k) => item.as_table_like().and_then(|t| t.get_key_value(k)).map(|(key, next)| (next, key.span())),
+            // An element of an array of tables spans from its `[[header]]`.
+            Step::Index(i) => item.get(i).map(|next| (next, None)),
+        };
+        let Some((next, key_span)) = found else {
+            return table.map(|s| line_at(text, s.start));
+        };
+        item = next;
+        exact = key_span.or_else(|| item.span()).or(exact);
+        // An array is no table to fall back to: a missing element falls
+        // back past it, to the table that holds the array.
+        if item.is_table_like() {
+            table = exact.clone();
+        }
+    }
+    exact.map(|s| line_at(text, s.start))
+}
+
+/// The 1-based line holding byte `offset` of `text`.
+fn line_at(text: &str, offset: usize) -> usize {
+    let end = offset.min(text.len());
+    text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() + 1
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Each test's TOML is one string, line by line; the expected line is
+    // counted by hand and written beside the text. The old text search's
+    // answer is noted where it differed.
+
+    fn line(text: &str, device: Option<usize>, key: &str) -> Option<usize> {
+        Ctx { file: "t.toml", text }.err(device, key, "wrong").line
+    }
+
+    #[test]
+    fn a_key_in_an_inline_table_of_an_array() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "name = \"t\"\n",                // 2
+            "\n",                            // 3
+            "[[device]]\n",                  // 4
+            "name = \"vent\"\n",             // 5
+            "register = [\n",                // 6
+            "  { at = 0, reset = 1 },\n",    // 7
+            "  { at = 300 },\n",             // 8
+            "]\n",                           // 9
+        );
+        // The text search took the first `at =` of the block: 7.
+        assert_eq!(line(text, Some(0), "register[1].at"), Some(8));
+        assert_eq!(line(text, Some(0), "register[0].reset"), Some(7));
+    }
+
+    #[test]
+    fn a_key_mentioned_earlier_in_a_comment() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n",                     // 1
+            "name = \"t\"\n",                                    // 2
+            "\n",                                                // 3
+            "[[device]]\n",                                      // 4
+            "name = \"log\"\n",                                  // 5
+            "page_size = 16\n",                                  // 6
+            "\n",                                                // 7
+            "[[device]]\n",                                      // 8
+            "name = \"cfg\"\n",                                  // 9
+            "# page_size = 24 is refused: not a power of two\n", // 10
+            "page_size = 24\n",                                  // 11
+        );
+        // The text search stopped at the comment: 10.
+        assert_eq!(line(text, Some(1), "page_size"), Some(11));
+        assert_eq!(line(text, Some(0), "page_size"), Some(6));
+    }
+
+    #[test]
+    fn a_key_in_another_block_spelt_differently() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "name = \"t\"\n",                // 2
+            "\n",                            // 3
+            "[[device]]\n",                  // 4
+            "name = \"log\"\n",              // 5
+            "page_size = 16\n",              // 6
+            "\n",                            // 7
+            "[[ device ]]\n",                // 8
+            "name = \"cfg\"\n",              // 9
+            "\"page_size\" = 24\n",          // 10
+        );
+        // The text search knew neither the spaced header nor the quoted
+        // key: it found no second device and gave no line.
+        assert_eq!(line(text, Some(1), "page_size"), Some(10));
+    }
+
+    #[test]
+    fn the_same_key_name_in_another_table() {
+        let text = concat!(
+            "format = \"buscue-dialect/1\"\n", // 1
+            "name = \"p\"\n",                  // 2
+            "\n",                              // 3
+            "[capabilities]\n",                // 4
+            "min_speed = \"10k\"\n",           // 5
+            "max_speed = \"1M\"\n",            // 6
+            "\n",                              // 7
+            "[commands]\n",                    // 8
+            "start = \"OPEN\"\n",              // 9
+            "speed = \"CLOCK\"\n",             // 10
+        );
+        // The text search matched `speed =` inside `min_speed =`: 5.
+        assert_eq!(line(text, None, "commands.speed"), Some(10));
+        assert_eq!(line(text, None, "capabilities.max_speed"), Some(6));
+    }
+
+    #[test]
+    fn a_dotted_key() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "name = \"t\"\n",                // 2
+            "\n",                            // 3
+            "[[device]]\n",                  // 4
+            "name = \"air\"\n",              // 5
+            "temperature_c.seed = 2\n",      // 6
+            "faults.seed = 3\n",             // 7
+        );
+        // The text search took the first `seed =`: 6.
+        assert_eq!(line(text, Some(0), "faults.seed"), Some(7));
+        assert_eq!(line(text, Some(0), "temperature_c.seed"), Some(6));
+    }
+
+    #[test]
+    fn a_key_in_a_sub_table_of_the_second_device() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "name = \"t\"\n",                // 2
+            "\n",                            // 3
+            "[[device]]\n",                  // 4
+            "name = \"log\"\n",              // 5
+            "[device.faults]\n",             // 6
+            "seed = 1\n",                    // 7
+            "\n",                            // 8
+            "[[device]]\n",                  // 9
+            "name = \"air\"\n",              // 10
+            "model = \"climate-sensor\"\n",  // 11
+            "[device.temperature_c]\n",      // 12
+            "seed = 2\n",                    // 13
+            "[device.faults]\n",             // 14
+            "seed = 3\n",                    // 15
+        );
+        // The text search took the block's first `seed =`: 13.
+        assert_eq!(line(text, Some(1), "faults.seed"), Some(15));
+        assert_eq!(line(text, Some(0), "faults.seed"), Some(7));
+    }
+
+    #[test]
+    fn a_syntax_error_names_its_line() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "name = \"t\"\n",                // 2
+            "= 3\n",                         // 3
+        );
+        let e = Ctx { file: "t.toml", text }.table().unwrap_err();
+        // The offset of the error is the line's first byte, which the old
+        // conversion (lines before the offset) counted as line 2.
+        assert_eq!(e.line, Some(3), "{e}");
+        assert_eq!(e.key, "");
+    }
+
+    #[derive(Debug, serde::Deserialize)]
+    #[serde(deny_unknown_fields)]
+    #[allow(dead_code)] // only the error matters
+    struct Serial {
+        baud: u32,
+        #[serde(default)]
+        parity: String,
+    }
+
+    #[derive(Debug, serde::Deserialize)]
+    #[allow(dead_code)]
+    struct Profile {
+        name: String,
+        serial: Serial,
+    }
+
+    #[test]
+    fn a_missing_key_falls_back_to_its_tables_header() {
+        let text = concat!(
+            "name = \"p\"\n",       // 1
+            "\n",                   // 2
+            "# baud = 9600 once\n", // 3
+            "[serial]\n",           // 4
+            "parity = \"none\"\n",  // 5
+        );
+        let cx = Ctx { file: "p.toml", text };
+        let e = cx.parse::<Profile>(None, "", cx.table().unwrap()).unwrap_err();
+        assert_eq!(e.key, "serial.baud", "{e}");
+        // The text search stopped at the comment: 3.
+        assert_eq!(e.line, Some(4), "{e}");
+        assert!(e.message.starts_with("missing field `baud`"), "{e}");
+    }
+
+    #[test]
+    fn a_missing_key_of_a_device_gets_its_header_and_of_the_top_level_none() {
+        let text = concat!(
+            "format = \"buscue-bench/1\"\n", // 1
+            "\n",                            // 2
+            "[[device]]\n",                  // 3
+            "name = \"log\"\n",              // 4
+            "\n",                            // 5
+            "[[device]]\n",                  // 6
+            "name = \"air\"\n",              // 7
+            "[device.faults]\n",             // 8
+            "seed = 3\n",                    // 9
+        );
+        assert_eq!(line(text, Some(1), "address"), Some(6));
+        assert_eq!(line(text, Some(1), "faults.address_nack_probability"), Some(8));
+        assert_eq!(line(text, None, "name"), None);
+        // A device that is not there has no block: no line, not the first
+        // `[[device]]` header.
+        assert_eq!(line(text, Some(2), "address"), None);
+    }
+
+    #[test]
+    fn keys_of_an_inline_table_unknown_and_missing() {
+        let text = concat!(
+            "name = \"p\"\n",                                  // 1
+            "# bauds = 1 is the slip this file makes below\n", // 2
+            "serial = { parity = \"odd\", bauds = 1 }\n",      // 3
+        );
+        let cx = Ctx { file: "p.toml", text };
+        let e = cx.parse::<Profile>(None, "", cx.table().unwrap()).unwrap_err();
+        assert_eq!(e.key, "serial.bauds", "{e}");
+        // The text search stopped at the comment: 2.
+        assert_eq!(e.line, Some(3), "{e}");
+        let text = concat!(
+            "name = \"p\"\n",                  // 1
+            "\n",                              // 2
+            "serial = { parity = \"odd\" }\n", // 3
+        );
+        let cx = Ctx { file: "p.toml", text };
+        let e = cx.parse::<Profile>(None, "", cx.table().unwrap()).unwrap_err();
+        assert_eq!(e.key, "serial.baud", "{e}");
+        // Missing from an inline table: the line of the key that opened it
+        // (the text search gave none).
+        assert_eq!(e.line, Some(3), "{e}");
+    }
 }

@@ -241,8 +241,10 @@ impl Bench {
         }
         let arbitration = match top.bus_faults {
             Some(b) => {
-                probability(b.arbitration_loss_probability)
-                    .map_err(|m| cx.err(None, "arbitration_loss_probability", m))?;
+                // Named relative to its `[bus_faults]` table, as device keys are to their block.
+                probability(b.arbitration_loss_probability).map_err(|m| {
+                    cx.err_at("bus_faults.arbitration_loss_probability", "arbitration_loss_probability", m)
+                })?;
                 Some((b.arbitration_loss_probability, SplitMix64::new(b.seed)))
             }
             None => None,
@@ -524,6 +526,14 @@ mod tests {
             err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x00\n")).key,
             "address"
         );
+    }
+
+    #[test]
+    fn bus_fault_keys_name_their_line() {
+        let e = err(&format!("{HEAD}\n[bus_faults]\nseed = 1\narbitration_loss_probability = 2.0\n"));
+        assert_eq!(e.key, "arbitration_loss_probability");
+        // HEAD is lines 1-2, then a blank line, the header and `seed`.
+        assert_eq!(e.line, Some(6), "{e}");
     }
 
     #[test]
