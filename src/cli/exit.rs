@@ -15,6 +15,11 @@ pub const BUS_FAILURE: u8 = 3;
 pub const ADAPTER: u8 = 4;
 /// A replay or diff found differences from the recording.
 pub const DIVERGED: u8 = 5;
+/// The trace could not be written (full disk, folder removed, no
+/// permission): the run has no complete record, so it failed, whatever
+/// the board did. Its own code, so a station can tell a full disk from a
+/// bad board.
+pub const RECORD_FAILED: u8 = 6;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;
 
@@ -29,6 +34,7 @@ pub fn of_run_error(e: &RunError) -> u8 {
         RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => BUS_FAILURE,
         RunError::Adapter(e) => of_adapter_error(e),
         RunError::Interrupted => INTERRUPTED,
+        RunError::Record(_) => RECORD_FAILED,
         RunError::Shape(_) | RunError::TimeLimit { .. } => INPUT,
     }
 }

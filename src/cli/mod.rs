@@ -4,6 +4,7 @@
 
 pub mod compose;
 pub mod exit;
+pub mod outputs;
 pub mod watchdog;
 
 mod ports;

@@ -8,13 +8,14 @@ use anyhow::{Context, Result};
 use clap::Args;
 
 use crate::cli::exit;
+use crate::player::RunError;
 use crate::script::{self, RunConfig, Session};
-use crate::trace::file::default_path;
 use crate::trace::{Header, TraceWriter};
 use crate::view::format::{link_summary, summary};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
+use super::outputs;
 use super::watchdog::Watchdog;
 use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration};
 
@@ -53,6 +54,9 @@ pub struct RunArgs {
     /// Write no trace file.
     #[arg(long)]
     pub no_trace: bool,
+    /// Replace the file --trace names if it exists.
+    #[arg(long, requires = "trace")]
+    pub force: bool,
 }
 
 pub fn run(a: RunArgs) -> Result<u8> {
@@ -72,15 +76,23 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let trace_path = if a.no_trace {
         None
     } else {
-        let path = a.trace.clone().unwrap_or_else(|| default_path(&a.script, std::time::SystemTime::now()));
         let text = std::fs::read(&a.script).with_context(|| format!("cannot read script {}", a.script.display()))?;
         let header = Header::new("run", session.adapter_ref().snapshot()).with_script(
             &a.script.display().to_string(),
             &text,
             params.clone(),
         );
-        let w = TraceWriter::create(&path, &header)
-            .with_context(|| format!("cannot create trace file {}", path.display()))?;
+        let w = match &a.trace {
+            Some(path) => {
+                outputs::check(path, "the trace", &[(&a.script, "the script")])?;
+                let w =
+                    if a.force { TraceWriter::create(path, &header) } else { TraceWriter::create_new(path, &header) };
+                w.map_err(|e| outputs::trace_error(path, e))?
+            }
+            None => TraceWriter::create_default(&a.script, std::time::SystemTime::now(), &header)
+                .context("cannot create a trace file in traces/")?,
+        };
+        let path = w.path().to_path_buf();
         rescue = Some(w.rescue());
         session.add_sink(Box::new(w));
         Some(path)
@@ -135,8 +147,13 @@ pub fn run(a: RunArgs) -> Result<u8> {
         }
     }
     if let Err(e) = closed {
-        let _ = writeln!(err, "error: closing the adapter: {e:#}");
-        return Ok(if code == exit::OK { exit::ADAPTER } else { code });
+        // A trace that could not be written fails the run even when the
+        // script did not; so does an adapter that cannot be closed.
+        let _ = match &e {
+            RunError::Adapter(e) => writeln!(err, "error: closing the adapter: {e}"),
+            e => writeln!(err, "error: {e}"),
+        };
+        return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }
     Ok(code)
 }

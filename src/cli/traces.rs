@@ -20,7 +20,7 @@ use crate::view::format::{frame_line, human};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag, parse_duration};
+use super::{BusArgs, interrupt_flag, outputs, parse_duration};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
@@ -60,6 +60,9 @@ pub struct ReplayArgs {
     /// Record the replay as a trace too.
     #[arg(long, value_name = "PATH")]
     pub trace_out: Option<PathBuf>,
+    /// Replace the file --trace-out names if it exists.
+    #[arg(long, requires = "trace_out")]
+    pub force: bool,
     /// Wall-clock limit for the replay, recorded gaps included (30s, 2m,
     /// 1h; 0 = none, the default: a recording may be long).
     #[arg(long, default_value = "0", value_parser = parse_duration)]
@@ -81,8 +84,9 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     if let Some(path) = &a.trace_out {
         let mut h = Header::new("replay", session.adapter_ref().snapshot());
         h.replay_of = Some(a.trace.display().to_string());
-        let w =
-            TraceWriter::create(path, &h).with_context(|| format!("cannot create trace file {}", path.display()))?;
+        outputs::check(path, "the replay's trace", &[(&a.trace, "the recording")])?;
+        let w = if a.force { TraceWriter::create(path, &h) } else { TraceWriter::create_new(path, &h) };
+        let w = w.map_err(|e| outputs::trace_error(path, e))?;
         session.add_sink(Box::new(w));
     }
     if a.json {
@@ -261,16 +265,27 @@ pub struct ToScriptArgs {
     /// Turn recorded reads into check_eq calls, so the script fails where the board differs.
     #[arg(long)]
     pub checks: bool,
+    /// Replace the file -o names if it exists.
+    #[arg(long, requires = "output")]
+    pub force: bool,
 }
 
 pub fn to_script(a: ToScriptArgs) -> Result<u8> {
+    if let Some(p) = &a.output {
+        outputs::check(p, "the script", &[(&a.trace, "the trace")])?;
+    }
     let trace = Trace::load(&a.trace)?;
     for w in &trace.warnings {
         eprintln!("warning: {w}");
     }
     let text = convert(&trace, &ScriptOptions { checks: a.checks });
     match &a.output {
-        Some(p) => std::fs::write(p, text).with_context(|| format!("cannot write {}", p.display()))?,
+        Some(p) => {
+            let mut f = outputs::create(p, a.force)?;
+            f.write_all(text.as_bytes())
+                .and_then(|()| f.sync_data())
+                .with_context(|| format!("cannot write {}", p.display()))?
+        }
         None => std::io::stdout().lock().write_all(text.as_bytes())?,
     }
     Ok(exit::OK)

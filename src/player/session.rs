@@ -44,6 +44,10 @@ pub enum RunError {
     Adapter(AdapterError),
     #[error("interrupted")]
     Interrupted,
+    /// The trace could not be written: a run without its record is a
+    /// failed run.
+    #[error("the trace cannot be written: {0}")]
+    Record(String),
     /// The run's wall-clock limit passed.
     #[error("ran past its time limit of {} s (--timeout)", limit.as_secs_f64())]
     TimeLimit { limit: Duration },
@@ -75,6 +79,8 @@ pub struct Session {
     interrupt: Arc<AtomicBool>,
     /// When the run must stop, and the limit that set it, in wall time.
     deadline: Option<(Instant, Duration)>,
+    /// Why the trace stopped being written, if it did: the run stops.
+    record_failure: Option<String>,
     warnings: Vec<String>,
     /// The operations of the last frame, handed back by the sinks: the
     /// next frame copies its transaction's operations into these buffers
@@ -106,6 +112,7 @@ impl Session {
             allow_reserved: false,
             interrupt,
             deadline: None,
+            record_failure: None,
             warnings: Vec::new(),
             frame_ops: Vec::new(),
         }
@@ -143,8 +150,12 @@ impl Session {
         self.deadline
     }
 
-    /// Whether the run must stop now: an interrupt, or the time limit.
+    /// Whether the run must stop now: an interrupt, the time limit, or a
+    /// trace that can no longer be written.
     pub fn check_stop(&self) -> Result<(), RunError> {
+        if let Some(e) = &self.record_failure {
+            return Err(RunError::Record(e.clone()));
+        }
         if self.interrupted() {
             return Err(RunError::Interrupted);
         }
@@ -167,8 +178,11 @@ impl Session {
             }
         }
         for (i, e) in failed.into_iter().rev() {
-            self.sinks.remove(i);
-            if e.kind() != std::io::ErrorKind::BrokenPipe {
+            let sink = self.sinks.remove(i);
+            if sink.is_record() {
+                // Keep the first: later failures follow from it.
+                self.record_failure.get_or_insert_with(|| e.to_string());
+            } else if e.kind() != std::io::ErrorKind::BrokenPipe {
                 self.warnings.push(format!("stopped writing one output: {e}"));
             }
         }
@@ -416,13 +430,23 @@ impl Session {
 
     /// Writes the end record, flushes the sinks and closes the adapter,
     /// leaving the bus idle.
-    pub fn finish(&mut self, exit: u8, error: Option<String>) -> Result<(), AdapterError> {
+    /// A trace that could not be written or synced is an error (the run
+    /// failed), reported before a failure to close the adapter.
+    pub fn finish(&mut self, exit: u8, error: Option<String>) -> Result<(), RunError> {
         let r = Record::End { t: self.now(), stats: self.stats.clone(), exit, error };
         self.emit(&r);
         for s in &mut self.sinks {
-            let _ = s.flush();
+            if let Err(e) = s.flush()
+                && s.is_record()
+            {
+                self.record_failure.get_or_insert_with(|| format!("syncing it to disk: {e}"));
+            }
         }
-        self.adapter.close()
+        let closed = self.adapter.close().map_err(RunError::Adapter);
+        match self.record_failure.take() {
+            Some(e) => Err(RunError::Record(e)),
+            None => closed,
+        }
     }
 }
 

@@ -155,6 +155,12 @@ pub enum Record {
 pub trait Sink {
     fn record(&mut self, r: &Record) -> std::io::Result<()>;
     fn flush(&mut self) -> std::io::Result<()>;
+    /// Whether this sink is the run's durable record (the trace file):
+    /// when it cannot write, the run fails. A viewer that goes away only
+    /// stops being written to.
+    fn is_record(&self) -> bool {
+        false
+    }
 }
 
 #[cfg(test)]

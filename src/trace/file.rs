@@ -95,13 +95,44 @@ impl TraceRescue {
 }
 
 impl TraceWriter {
-    /// Creates (or truncates) `path`, making its folder if needed, and
-    /// writes the header line.
+    /// Creates `path`, replacing a file that is there, and writes the
+    /// header line. The folder must exist: a path the user typed never
+    /// makes folders (a typo would scatter them).
     pub fn create(path: &Path, header: &Header) -> io::Result<Self> {
-        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
-            std::fs::create_dir_all(dir)?;
+        Self::open_with(path, header, std::fs::OpenOptions::new().write(true).create(true).truncate(true))
+    }
+
+    /// Creates `path` only if no file is there (`AlreadyExists` if one is),
+    /// and writes the header line.
+    pub fn create_new(path: &Path, header: &Header) -> io::Result<Self> {
+        Self::open_with(path, header, std::fs::OpenOptions::new().write(true).create_new(true))
+    }
+
+    /// Creates the default trace of a run of `script`: a new file in
+    /// `traces/` (the one folder made when missing) named as
+    /// [`default_path`] says. Two runs that start in the same second get
+    /// different files: each name is taken with create-new semantics, and a
+    /// taken name moves on to the next suffix.
+    pub fn create_default(script: &Path, now: std::time::SystemTime, header: &Header) -> io::Result<Self> {
+        std::fs::create_dir_all(DEFAULT_DIR)?;
+        let base = default_stem(script, now);
+        for n in 1..=10_000u32 {
+            let path = numbered(&base, n);
+            match Self::create_new(&path, header) {
+                Err(e) if e.kind() == io::ErrorKind::AlreadyExists => continue,
+                other => return other,
+            }
         }
-        let file = File::create(path)?;
+        Err(io::Error::new(io::ErrorKind::AlreadyExists, format!("{DEFAULT_DIR}/: 10000 traces of {base} already")))
+    }
+
+    fn open_with(path: &Path, header: &Header, opts: &std::fs::OpenOptions) -> io::Result<Self> {
+        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty())
+            && !dir.is_dir()
+        {
+            return Err(io::Error::new(io::ErrorKind::NotFound, format!("folder {} does not exist", dir.display())));
+        }
+        let file = opts.open(path)?;
         let written = Written { file, stats: Stats::default(), last_t: Duration::ZERO, ended: false };
         let mut w = TraceWriter {
             shared: Arc::new(Mutex::new(written)),
@@ -143,28 +174,43 @@ impl Sink for TraceWriter {
             Record::End { .. } => w.ended = true,
         }
         // One write of the whole line: the OS has it when this returns.
-        w.file.write_all(&self.line)
+        w.file.write_all(&self.line).map_err(|e| io::Error::new(e.kind(), format!("{}: {e}", self.path.display())))
     }
 
     fn flush(&mut self) -> io::Result<()> {
         lock(&self.shared).file.sync_data()
     }
+
+    fn is_record(&self) -> bool {
+        true
+    }
 }
+
+/// The folder of default traces, under the working folder.
+pub const DEFAULT_DIR: &str = "traces";
 
 /// Where `buscue run` writes a trace when not told:
 /// `traces/<script stem>-<UTC stamp>.jsonl` under the working folder, with
-/// `-2`, `-3`, ... added if two runs start in the same second.
+/// `-2`, `-3`, ... added if two runs start in the same second. Only a
+/// name: [`TraceWriter::create_default`] is what takes one safely.
 pub fn default_path(script: &Path, now: std::time::SystemTime) -> PathBuf {
-    let stem = script.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "run".into());
-    let base = format!("{stem}-{}", super::header::file_stamp(now));
-    let dir = Path::new("traces");
-    let mut path = dir.join(format!("{base}.jsonl"));
-    let mut n = 2;
-    while path.exists() {
-        path = dir.join(format!("{base}-{n}.jsonl"));
+    let base = default_stem(script, now);
+    let mut n = 1;
+    while numbered(&base, n).exists() {
         n += 1;
     }
-    path
+    numbered(&base, n)
+}
+
+fn default_stem(script: &Path, now: std::time::SystemTime) -> String {
+    let stem = script.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "run".into());
+    format!("{stem}-{}", super::header::file_stamp(now))
+}
+
+/// The n-th default name: the stem alone first, then `-2`, `-3`, ...
+fn numbered(base: &str, n: u32) -> PathBuf {
+    let dir = Path::new(DEFAULT_DIR);
+    if n <= 1 { dir.join(format!("{base}.jsonl")) } else { dir.join(format!("{base}-{n}.jsonl")) }
 }
 
 /// One record and where it was in the file.
