@@ -99,19 +99,20 @@ pub fn parse_frame(frame: &[u8]) -> Result<(Header, &[u8]), FrameError> {
 /// Writes a whole frame to a link: header, body, CRC, COBS, delimiter.
 /// `emit` receives the encoded bytes in pieces.
 pub fn emit_frame<E, F: FnMut(&[u8]) -> Result<(), E>>(h: Header, body: &[u8], mut emit: F) -> Result<(), E> {
-    let mut head = [0u8; HEADER_LEN + 64];
+    let mut head = [0u8; HEADER_LEN];
     head[0] = h.version;
     head[1] = h.kind;
     head[2..4].copy_from_slice(&h.seq.to_le_bytes());
     head[4..6].copy_from_slice(&h.session.to_le_bytes());
-    // COBS works on the frame as one run of bytes; the pieces are joined
-    // through a small staging window so no full-frame copy is needed.
+    // COBS works on the frame as one run of bytes; header, body and CRC are
+    // streamed through the encoder's one-block window, so no full-frame
+    // copy is needed.
     let mut crc = Crc32::new();
-    crc.update(&head[..HEADER_LEN]);
+    crc.update(&head);
     crc.update(body);
     let crc = crc.finish().to_le_bytes();
     let mut enc = cobs::StreamEncoder::new();
-    for &b in head[..HEADER_LEN].iter().chain(body).chain(crc.iter()) {
+    for &b in head.iter().chain(body).chain(crc.iter()) {
         enc.push(b, &mut emit)?;
     }
     enc.finish(&mut emit)?;
