@@ -65,10 +65,6 @@ impl Fault {
         matches!(self, Fault::AddressNack { .. } | Fault::DataNack { .. })
     }
 
-    pub fn is_adapter(&self) -> bool {
-        matches!(self, Fault::Adapter { .. })
-    }
-
     /// The nearest embedded-hal 1.0 error kind.
     pub fn kind(&self) -> embedded_hal::i2c::ErrorKind {
         use embedded_hal::i2c::{ErrorKind, NoAcknowledgeSource};
