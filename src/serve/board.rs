@@ -51,14 +51,7 @@ impl SimBoard {
     }
 
     fn run(&mut self, address: Address, operations: &mut [i2c::Operation<'_>]) -> Result<(), SimI2cError> {
-        let ops = operations
-            .iter()
-            .map(|o| match o {
-                i2c::Operation::Write(b) => Operation::Write(b.to_vec()),
-                i2c::Operation::Read(b) => Operation::Read(b.len()),
-            })
-            .collect();
-        let outcome = self.adapter.execute(&Transaction::new(address, ops));
+        let outcome = self.adapter.execute(&Transaction::new(address, Operation::from_hal(operations)));
         for (o, done) in operations.iter_mut().zip(&outcome.ops) {
             if let i2c::Operation::Read(buf) = o {
                 let n = done.data.len().min(buf.len());
