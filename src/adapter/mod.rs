@@ -33,6 +33,7 @@ use crate::bus::{BusSpeed, Outcome, Transaction};
 
 pub mod link;
 pub mod native;
+pub mod native_fault;
 
 pub use native::{NativeAdapter, NativeSettings};
 
