@@ -89,14 +89,7 @@ impl HalBus {
     }
 
     fn run(&mut self, address: Address, operations: &mut [i2c::Operation<'_>]) -> Result<(), HalError> {
-        let ops = operations
-            .iter()
-            .map(|o| match o {
-                i2c::Operation::Read(buf) => Operation::Read(buf.len()),
-                i2c::Operation::Write(bytes) => Operation::Write(bytes.to_vec()),
-            })
-            .collect();
-        let tx = Transaction::new(address, ops);
+        let tx = Transaction::new(address, Operation::from_hal(operations));
         let req = Request { allow_reserved: self.allow_reserved, ..Request::default() };
         let outcome = self.session.transact(&tx, &req)?;
         for (o, got) in operations.iter_mut().zip(&outcome.ops) {

@@ -8,7 +8,7 @@ use std::time::Duration;
 
 use buscue::bus::{Address, Direction, Fault, OpOutcome, Operation, Outcome};
 use buscue::record::Level;
-use buscue::record::{Frame, Origin, Record, Sink};
+use buscue::record::{Frame, Origin, Purpose, Record, Sink};
 use buscue::trace::{Header, Trace, TraceWriter};
 use proptest::prelude::*;
 
@@ -57,6 +57,14 @@ fn fault() -> impl Strategy<Value = Option<Fault>> {
     ]
 }
 
+/// Known purpose names and names this version does not know.
+fn purpose() -> impl Strategy<Value = String> {
+    prop_oneof![
+        prop_oneof![Just("scan"), Just("ack-poll"), Just("poll"), Just("batch")].prop_map(String::from),
+        "[a-z-]{1,8}"
+    ]
+}
+
 fn frame() -> impl Strategy<Value = Frame> {
     let op = prop_oneof![
         proptest::collection::vec(any::<u8>(), 0..6).prop_map(Operation::Write),
@@ -67,7 +75,7 @@ fn frame() -> impl Strategy<Value = Frame> {
     (
         (any::<u64>(), 0u64..1u64 << 50, address(), proptest::collection::vec(op, 1..4)),
         (proptest::collection::vec(done, 0..4), 0u64..1 << 40, proptest::option::of(0u64..1 << 40), fault()),
-        (1u32..5, 1u32..9, proptest::option::of("[a-z-]{1,8}"), proptest::option::of(("\\PC{1,10}", 1u32..5000))),
+        (1u32..5, 1u32..9, proptest::option::of(purpose()), proptest::option::of(("\\PC{1,10}", 1u32..5000))),
         proptest::option::of("[A-Z_.]{1,12}"),
     )
         .prop_map(
@@ -85,7 +93,7 @@ fn frame() -> impl Strategy<Value = Frame> {
                     },
                     attempt,
                     attempts,
-                    purpose,
+                    purpose: purpose.map(|p| Purpose::from_name(&p)),
                     origin: origin.map(|(file, line)| Origin { file: file.into(), line }),
                     decoded,
                     pec: None,
@@ -330,13 +338,14 @@ fn trace_to_script_to_trace_is_equivalent() {
         let first = record(dir.path(), s, &[]);
         for checks in [false, true] {
             let lua = dir.path().join(format!("regen-{checks}.lua"));
-            let mut args = vec!["to-script", first.to_str().unwrap(), "-o", lua.to_str().unwrap()];
+            // The same files are written again for each script: --force.
+            let mut args = vec!["to-script", first.to_str().unwrap(), "-o", lua.to_str().unwrap(), "--force"];
             if checks {
                 args.push("--checks");
             }
             assert_eq!(buscue(&args).status.code(), Some(0));
             let second = dir.path().join("second.jsonl");
-            let o = buscue(&["run", lua.to_str().unwrap(), "-q", "--trace", second.to_str().unwrap()]);
+            let o = buscue(&["run", lua.to_str().unwrap(), "-q", "--trace", second.to_str().unwrap(), "--force"]);
             assert_eq!(o.status.code(), Some(0), "{s} (checks {checks}): {:?}", text(&o));
             let (a, b) = (Trace::load(&first).unwrap(), Trace::load(&second).unwrap());
             assert_eq!(content(&a), content(&b), "{s} (checks {checks})");

@@ -34,6 +34,7 @@ use crate::bus::{BusSpeed, Outcome, Transaction};
 pub mod error;
 pub mod link;
 pub mod native;
+pub mod native_fault;
 
 pub use error::AdapterError;
 pub use native::{NativeAdapter, NativeSettings};

@@ -24,15 +24,16 @@ use std::time::{Duration, Instant};
 
 use anyhow::{Result, bail};
 use buscue_bridge::wire::{
-    CRC_LEN, Caps, HEADER_LEN, Header, READ_FLAG, Reader, Status, TEN_BIT_FLAG, TX_REPORT_LEN, TxReport, UNKNOWN_INDEX,
-    UNKNOWN_NS, UNKNOWN_OP, VERSION, Writer, flag, kind, refusal,
+    CRC_LEN, Caps, Failure, HEADER_LEN, Header, READ_FLAG, Reader, Status, TEN_BIT_FLAG, TX_REPORT_LEN, TxReport,
+    UNKNOWN_INDEX, UNKNOWN_NS, UNKNOWN_OP, VERSION, Writer, flag, kind, refusal,
 };
 use thiserror::Error;
 
 use super::link::{LinkError, SerialLink};
+use super::native_fault;
 use super::{Adapter, AdapterError, Capabilities, Identity, LineLevels, LinkCounters, Recovery};
 use crate::bus::timing::transaction_time;
-use crate::bus::{BusSpeed, Direction, Fault, LineFault, OpOutcome, Operation, Outcome, Transaction};
+use crate::bus::{BusSpeed, Direction, OpOutcome, Operation, Outcome, Transaction};
 
 /// User settings of a native serial adapter (`serial:PATH,key=value`).
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -494,32 +495,15 @@ fn outcome_of(tx: &Transaction, rep: &TxReport, r: &mut Reader<'_>, speed: BusSp
             ops.push(oo);
         }
     }
-    let fault = match rep.status {
-        Status::Ok => None,
-        Status::AddressNack => {
-            let direction = if !precise {
-                tx.ops.get(stop).map_or(Direction::Write, Operation::direction)
-            } else if rep.info & 1 == 1 {
-                Direction::Read
-            } else {
-                Direction::Write
-            };
-            Some(Fault::AddressNack { op: stop, direction })
+    let fault = rep.failure().map(|failure| match failure {
+        // An imprecise adapter cannot say which phase was NACKed: it is
+        // the one the transaction stopped at.
+        Failure::AddressNack { .. } if !precise => {
+            let read = tx.ops.get(stop).is_some_and(|o| o.direction() == Direction::Read);
+            native_fault::fault_of(Failure::AddressNack { read }, stop, 0)
         }
-        Status::DataNack => Some(Fault::DataNack { op: stop, index: if precise { rep.index as usize } else { 0 } }),
-        Status::ArbitrationLost => Some(Fault::ArbitrationLost),
-        Status::BusError => Some(Fault::Bus {
-            line: match rep.info {
-                1 => LineFault::SdaStuckLow,
-                2 => LineFault::SclStuckLow,
-                _ => LineFault::MisplacedCondition,
-            },
-        }),
-        Status::StretchTimeout => Some(Fault::StretchTimeout { waited_us: rep.info as u64 }),
-        Status::Overrun => Some(Fault::Adapter { detail: "the adapter's I2C controller overran".into() }),
-        Status::Other => Some(Fault::Adapter { detail: "the adapter's I2C controller reported an error".into() }),
-        Status::Refused => Some(Fault::Adapter { detail: "the adapter refused the transaction's shape".into() }),
-    };
+        f => native_fault::fault_of(f, stop, if precise { rep.index as usize } else { 0 }),
+    });
     let bus_time =
         if rep.bus_ns == UNKNOWN_NS { transaction_time(tx, speed) } else { Duration::from_nanos(rep.bus_ns as u64) };
     Some(Outcome { ops, bus_time, measured: Some(Duration::from_nanos(rep.measured_ns as u64)), fault })
@@ -648,7 +632,7 @@ pub fn probe(path: &str, settings: NativeSettings) -> Result<String, NativeError
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::bus::Address;
+    use crate::bus::{Address, Fault};
 
     fn tx() -> Transaction {
         Transaction::new(

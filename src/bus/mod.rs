@@ -9,6 +9,6 @@ pub mod timing;
 pub mod transaction;
 
 pub use address::{Address, AddressError, Reserved};
-pub use outcome::{Fault, LineFault, OpOutcome, Outcome};
+pub use outcome::{Fault, FaultClass, LineFault, OpOutcome, Outcome};
 pub use speed::{BusSpeed, Mode};
 pub use transaction::{Direction, Event, Operation, PhaseTracker, ShapeError, Transaction};

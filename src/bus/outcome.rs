@@ -26,7 +26,7 @@ pub struct OpOutcome {
 }
 
 /// Bus-level trouble on the lines themselves.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum LineFault {
     SdaStuckLow,
@@ -65,10 +65,6 @@ impl Fault {
         matches!(self, Fault::AddressNack { .. } | Fault::DataNack { .. })
     }
 
-    pub fn is_adapter(&self) -> bool {
-        matches!(self, Fault::Adapter { .. })
-    }
-
     /// The nearest embedded-hal 1.0 error kind.
     pub fn kind(&self) -> embedded_hal::i2c::ErrorKind {
         use embedded_hal::i2c::{ErrorKind, NoAcknowledgeSource};
@@ -81,19 +77,52 @@ impl Fault {
         }
     }
 
-    /// A short label for frame logs.
-    pub fn label(&self) -> String {
+    /// What replay and diff compare; see [`FaultClass`].
+    pub fn class(&self) -> FaultClass {
         match self {
-            Fault::AddressNack { .. } => "addr-NACK".into(),
-            Fault::DataNack { index, .. } => format!("data-NACK@{index}"),
-            Fault::ArbitrationLost => "arb-lost".into(),
-            Fault::Bus { line } => match line {
-                LineFault::SdaStuckLow => "SDA-stuck".into(),
-                LineFault::SclStuckLow => "SCL-stuck".into(),
-                LineFault::MisplacedCondition => "bus-error".into(),
-            },
-            Fault::StretchTimeout { .. } => "stretch-timeout".into(),
-            Fault::Adapter { .. } => "adapter-fail".into(),
+            Fault::AddressNack { .. } => FaultClass::AddressNack,
+            Fault::DataNack { index, .. } => FaultClass::DataNack { index: *index },
+            Fault::ArbitrationLost => FaultClass::ArbitrationLost,
+            Fault::Bus { line } => FaultClass::Bus(*line),
+            Fault::StretchTimeout { .. } => FaultClass::StretchTimeout,
+            Fault::Adapter { .. } => FaultClass::Adapter,
+        }
+    }
+
+    /// A short label for frame logs: that of its [`FaultClass`].
+    pub fn label(&self) -> String {
+        self.class().label()
+    }
+}
+
+/// A fault as replay and diff compare it, and as a frame log labels it:
+/// its kind, the byte a data NACK hit and the line a bus error names.
+/// Left out: where a NACKed address phase started, how long a stretch
+/// lasted and an adapter's message, which differ between runs of the
+/// same sequence. Two faults count as the same result exactly when their
+/// classes are equal, which is exactly when their labels are.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum FaultClass {
+    AddressNack,
+    DataNack { index: usize },
+    ArbitrationLost,
+    Bus(LineFault),
+    StretchTimeout,
+    Adapter,
+}
+
+impl FaultClass {
+    /// The short label frame logs, replay and diff reports show.
+    pub fn label(self) -> String {
+        match self {
+            FaultClass::AddressNack => "addr-NACK".into(),
+            FaultClass::DataNack { index } => format!("data-NACK@{index}"),
+            FaultClass::ArbitrationLost => "arb-lost".into(),
+            FaultClass::Bus(LineFault::SdaStuckLow) => "SDA-stuck".into(),
+            FaultClass::Bus(LineFault::SclStuckLow) => "SCL-stuck".into(),
+            FaultClass::Bus(LineFault::MisplacedCondition) => "bus-error".into(),
+            FaultClass::StretchTimeout => "stretch-timeout".into(),
+            FaultClass::Adapter => "adapter-fail".into(),
         }
     }
 }
@@ -176,5 +205,33 @@ mod tests {
         assert_eq!(ErrorKind::Bus.kind(), ErrorKind::Bus);
         assert!(f.is_nack());
         assert!(!Fault::ArbitrationLost.is_nack());
+    }
+
+    // Replay and diff compare classes where they used to compare labels:
+    // the two must split faults the same way.
+    #[test]
+    fn classes_equal_exactly_when_labels_do() {
+        let faults = [
+            Fault::AddressNack { op: 0, direction: Direction::Write },
+            Fault::AddressNack { op: 2, direction: Direction::Read },
+            Fault::DataNack { op: 0, index: 1 },
+            Fault::DataNack { op: 3, index: 1 },
+            Fault::DataNack { op: 0, index: 2 },
+            Fault::ArbitrationLost,
+            Fault::Bus { line: LineFault::SdaStuckLow },
+            Fault::Bus { line: LineFault::SclStuckLow },
+            Fault::Bus { line: LineFault::MisplacedCondition },
+            Fault::StretchTimeout { waited_us: 10 },
+            Fault::StretchTimeout { waited_us: 99 },
+            Fault::Adapter { detail: "a".into() },
+            Fault::Adapter { detail: "b".into() },
+        ];
+        for a in &faults {
+            for b in &faults {
+                assert_eq!(a.class() == b.class(), a.label() == b.label(), "{a:?} vs {b:?}");
+            }
+        }
+        assert_eq!(Fault::DataNack { op: 1, index: 4 }.label(), "data-NACK@4");
+        assert_ne!(faults[0].class(), faults[2].class());
     }
 }

@@ -81,6 +81,21 @@ impl Clone for Operation {
 }
 
 impl Operation {
+    /// The operations of an embedded-hal 1.0 `I2c::transaction` call, one
+    /// to one and in order; a read asks for as many bytes as its buffer
+    /// holds. Both embedded-hal faces (the host bus handle and the
+    /// simulated board) convert through here, so they cannot disagree.
+    pub fn from_hal(operations: &[embedded_hal::i2c::Operation<'_>]) -> Vec<Operation> {
+        use embedded_hal::i2c::Operation as Hal;
+        operations
+            .iter()
+            .map(|o| match o {
+                Hal::Write(bytes) => Operation::Write(bytes.to_vec()),
+                Hal::Read(buf) => Operation::Read(buf.len()),
+            })
+            .collect()
+    }
+
     pub fn direction(&self) -> Direction {
         match self {
             Operation::Write(_) => Direction::Write,
@@ -334,6 +349,18 @@ mod tests {
                 Stop
             ]
         );
+    }
+
+    #[test]
+    fn embedded_hal_operations_convert_one_to_one() {
+        use embedded_hal::i2c::Operation as Hal;
+        let (mut a, mut b) = ([0u8; 3], [0u8; 1]);
+        let hal = [Hal::Write(&[0x10, 0x20]), Hal::Read(&mut a), Hal::Write(&[]), Hal::Read(&mut b)];
+        assert_eq!(
+            Operation::from_hal(&hal),
+            vec![Operation::Write(vec![0x10, 0x20]), Operation::Read(3), Operation::Write(vec![]), Operation::Read(1)]
+        );
+        assert!(Operation::from_hal(&[]).is_empty());
     }
 
     // embedded-hal 1.0 `I2c::transaction`: adjacent operations of the same

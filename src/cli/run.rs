@@ -32,7 +32,7 @@ pub struct RunArgs {
     #[arg(long, default_value = "10m", value_parser = parse_duration)]
     pub timeout: Duration,
     /// Memory limit for the script, in MiB.
-    #[arg(long, default_value_t = 256, value_parser = clap::value_parser!(u32).range(1..=16384))]
+    #[arg(long, default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
     pub memory_limit: u32,
     /// Let the script use io, os and the stock require (file and process
     /// access). Only for scripts you trust.
@@ -107,7 +107,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         script: a.script.clone(),
         params,
         timeout,
-        memory_limit: a.memory_limit as usize * 1024 * 1024,
+        memory_limit: script::memory_limit_bytes(a.memory_limit),
         allow_io: a.allow_io,
     };
     let started = Instant::now();

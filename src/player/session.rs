@@ -23,7 +23,7 @@ use thiserror::Error;
 use crate::adapter::{Adapter, AdapterError, Recovery};
 use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
 use crate::record::{Frame, Origin, Record, Sink};
-use crate::record::{Level, PecMark, Stats};
+use crate::record::{Level, PecMark, Purpose, Stats};
 
 use super::retry::RetryPolicy;
 
@@ -96,7 +96,7 @@ pub type Marker<'a> = dyn Fn(&Outcome) -> Option<PecMark> + 'a;
 pub struct Request {
     pub retry: Option<RetryPolicy>,
     pub origin: Option<Origin>,
-    pub purpose: Option<String>,
+    pub purpose: Option<Purpose>,
     pub decoded: Option<String>,
     pub allow_reserved: bool,
 }
@@ -370,7 +370,7 @@ impl Session {
         let req = Request {
             retry: Some(RetryPolicy::default()),
             origin,
-            purpose: Some("ack-poll".into()),
+            purpose: Some(Purpose::AckPoll),
             ..Request::default()
         };
         loop {
@@ -400,7 +400,7 @@ impl Session {
         let req = Request {
             retry: Some(retry),
             origin,
-            purpose: Some("scan".into()),
+            purpose: Some(Purpose::Scan),
             allow_reserved: true,
             ..Request::default()
         };

@@ -41,10 +41,9 @@ pub struct Frame {
     /// Attempt number, from 1, and the most the retry policy allows.
     pub attempt: u32,
     pub attempts: u32,
-    /// Why the tool sent it when the script did not ask directly:
-    /// `scan`, `ack-poll`, `poll`.
+    /// Why the tool sent it when the script did not ask directly.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub purpose: Option<String>,
+    pub purpose: Option<Purpose>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub origin: Option<Origin>,
     /// Register or field names, where a register map is known.
@@ -53,6 +52,87 @@ pub struct Frame {
     /// The SMBus PEC byte of the frame, where it carried one.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub pec: Option<PecMark>,
+}
+
+/// Why the tool sent a frame the script did not ask for directly.
+/// Serialized as its name (`scan`, `ack-poll`, `poll`, `batch`).
+///
+/// A name this version does not know (a trace of a newer minor version,
+/// or a foreign one) still loads: it is kept as written
+/// ([`Purpose::Other`]), shown and written back unchanged, and treated as
+/// no purpose of ours (a plain transaction) by replay and to-script.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Purpose {
+    /// A probe of `bus.scan` or the `scan` command.
+    Scan,
+    /// A probe of ACK polling (`bus.wait_ack`), repeated until the target answers.
+    AckPoll,
+    /// A register read of a register helper's `wait`, repeated until a
+    /// field has the value asked for.
+    Poll,
+    /// A transaction of a `bus.batch` block.
+    Batch,
+    /// A name this version does not know.
+    Other(OtherPurpose),
+}
+
+/// The name of a purpose this version does not know. Its field is private
+/// so it never holds a known name: a known name always reads as its own
+/// variant, which keeps loading and writing a trace an exact round trip.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct OtherPurpose(Box<str>);
+
+impl Purpose {
+    /// The purposes this version knows, in no particular order; a new
+    /// variant goes here too, or its name would load as [`Purpose::Other`].
+    const KNOWN: [Purpose; 4] = [Purpose::Scan, Purpose::AckPoll, Purpose::Poll, Purpose::Batch];
+
+    /// Its name in frame logs and traces.
+    pub fn as_str(&self) -> &str {
+        match self {
+            Purpose::Scan => "scan",
+            Purpose::AckPoll => "ack-poll",
+            Purpose::Poll => "poll",
+            Purpose::Batch => "batch",
+            Purpose::Other(OtherPurpose(name)) => name,
+        }
+    }
+
+    /// The purpose a name stands for; see the type's note on unknown names.
+    pub fn from_name(name: &str) -> Purpose {
+        Purpose::KNOWN
+            .into_iter()
+            .find(|p| p.as_str() == name)
+            .unwrap_or_else(|| Purpose::Other(OtherPurpose(name.into())))
+    }
+}
+
+impl fmt::Display for Purpose {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+impl Serialize for Purpose {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(self.as_str())
+    }
+}
+
+impl<'de> Deserialize<'de> for Purpose {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Purpose, D::Error> {
+        struct Name;
+        impl serde::de::Visitor<'_> for Name {
+            type Value = Purpose;
+            fn expecting(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+                f.write_str("a purpose name")
+            }
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<Purpose, E> {
+                Ok(Purpose::from_name(v))
+            }
+        }
+        d.deserialize_str(Name)
+    }
 }
 
 /// Where a frame's PEC byte sits and whether it checked out.
@@ -191,5 +271,35 @@ mod tests {
         let text = serde_json::to_string(&f).unwrap();
         assert!(text.starts_with(r#"{"kind":"frame","seq":3,"t_ns":1234567,"address":"10:0x2A5""#), "{text}");
         assert_eq!(serde_json::from_str::<Record>(&text).unwrap(), f);
+    }
+
+    // Trace format 1.0 writes purposes as these names; they must not change.
+    #[test]
+    fn purposes_keep_their_trace_names() {
+        let names = [
+            (Purpose::Scan, "scan"),
+            (Purpose::AckPoll, "ack-poll"),
+            (Purpose::Poll, "poll"),
+            (Purpose::Batch, "batch"),
+        ];
+        for (p, name) in names.clone() {
+            assert_eq!(serde_json::to_string(&p).unwrap(), format!("\"{name}\""));
+            assert_eq!(serde_json::from_str::<Purpose>(&format!("\"{name}\"")).unwrap(), p);
+            assert_eq!(p.to_string(), name);
+        }
+        for p in Purpose::KNOWN {
+            assert!(names.iter().any(|(q, _)| *q == p), "{p:?} has its name checked above");
+        }
+    }
+
+    // A purpose from a newer or foreign trace loads, shows and writes back as it was.
+    #[test]
+    fn unknown_purposes_round_trip_unchanged() {
+        let p: Purpose = serde_json::from_str(r#""warm-up""#).unwrap();
+        assert!(matches!(p, Purpose::Other(_)));
+        assert_eq!(p.as_str(), "warm-up");
+        assert_eq!(serde_json::to_string(&p).unwrap(), r#""warm-up""#);
+        assert_ne!(p, Purpose::from_name("scan"));
+        assert!(serde_json::from_str::<Purpose>("3").is_err(), "a purpose is a name");
     }
 }

@@ -13,7 +13,7 @@ use mlua::{Lua, LuaSerdeExt, Table, Value, Variadic};
 
 use crate::adapter::AdapterError;
 use crate::bus::{Address, Operation, Outcome, Transaction};
-use crate::record::Level;
+use crate::record::{Level, Purpose};
 
 use super::convert::{self, LuaResult, bad, call_options, ms_option};
 use super::device::DeviceHandle;
@@ -44,16 +44,10 @@ pub fn transact(
     ctx: &Ctx,
     tx: &Transaction,
     opts: &convert::CallOptions,
-    purpose: Option<&str>,
+    purpose: Option<Purpose>,
     decoded: Option<String>,
 ) -> LuaResult<Outcome> {
-    let req = Request {
-        retry: opts.retry,
-        origin: origin(lua),
-        purpose: purpose.map(str::to_string),
-        decoded,
-        allow_reserved: opts.reserved,
-    };
+    let req = Request { retry: opts.retry, origin: origin(lua), purpose, decoded, allow_reserved: opts.reserved };
     let result = ctx.session.borrow_mut().transact(tx, &req);
     result.map_err(|e| run_error(lua, e))
 }

@@ -33,6 +33,7 @@ use super::api::located;
 use super::convert::{self, LuaResult, bad, call_options};
 use super::{Ctx, origin};
 use crate::player::session::Request;
+use crate::record::Purpose;
 
 /// The queue a batch block fills.
 pub struct BatchQueue {
@@ -52,7 +53,7 @@ impl BatchQueue {
         let req = Request {
             retry: o.retry,
             origin: origin(lua),
-            purpose: Some("batch".into()),
+            purpose: Some(Purpose::Batch),
             decoded: None,
             allow_reserved: o.reserved,
         };

@@ -27,6 +27,7 @@ use super::Ctx;
 use super::api::{located, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
 use crate::player::retry::RetryPolicy;
+use crate::record::Purpose;
 
 #[derive(Debug, Clone)]
 struct Field {
@@ -168,7 +169,7 @@ impl DeviceHandle {
         })
     }
 
-    fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<&str>) -> LuaResult<u32> {
+    fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<Purpose>) -> LuaResult<u32> {
         let tx = Transaction::new(self.address, vec![Operation::Write(self.pointer(reg)), Operation::Read(self.width)]);
         let out = transact(lua, &self.ctx, &tx, &self.options(), purpose, name)?;
         // The read is the last operation, so its bytes are all the reply
@@ -317,7 +318,7 @@ impl UserData for DeviceHandle {
                 let interval = ms_option(opts.as_ref(), "interval_ms", 1.0)?;
                 let start = this.ctx.session.borrow().now();
                 loop {
-                    let v = this.read_reg(lua, reg, name.clone(), Some("poll"))?;
+                    let v = this.read_reg(lua, reg, name.clone(), Some(Purpose::Poll))?;
                     if v & mask == expected & mask {
                         return Ok(v);
                     }

@@ -89,9 +89,18 @@ pub struct RunConfig {
     pub allow_io: bool,
 }
 
-/// Default memory limit for a script: generous for any bus sequence, small
-/// enough that a runaway table cannot take the machine down.
-pub const DEFAULT_MEMORY_LIMIT: usize = 256 * 1024 * 1024;
+/// Default memory limit for a script, in MiB (the unit of `--memory-limit`):
+/// generous for any bus sequence, small enough that a runaway table cannot
+/// take the machine down. The one place the number is written.
+pub const DEFAULT_MEMORY_LIMIT_MIB: u32 = 256;
+
+/// [`DEFAULT_MEMORY_LIMIT_MIB`] in bytes, as [`Config::memory_limit`] takes it.
+pub const DEFAULT_MEMORY_LIMIT: usize = memory_limit_bytes(DEFAULT_MEMORY_LIMIT_MIB);
+
+/// A memory limit given in MiB, in bytes.
+pub const fn memory_limit_bytes(mib: u32) -> usize {
+    mib as usize * 1024 * 1024
+}
 
 /// State the API callbacks share.
 pub struct Ctx {

@@ -17,11 +17,11 @@
 use std::time::Duration;
 
 use buscue_bridge::wire::{UNKNOWN_INDEX, UNKNOWN_NS};
-use buscue_bridge::{Status, Target, TxReport};
+use buscue_bridge::{Target, TxReport};
 use embedded_hal::i2c::{self, ErrorKind, I2c, SevenBitAddress, TenBitAddress};
 
-use crate::adapter::Adapter;
-use crate::bus::{Address, BusSpeed, Direction, Fault, LineFault, Operation, Outcome, Transaction};
+use crate::adapter::{Adapter, native_fault};
+use crate::bus::{Address, BusSpeed, Fault, Operation, Outcome, Transaction};
 
 use crate::sim::SimAdapter;
 
@@ -51,14 +51,7 @@ impl SimBoard {
     }
 
     fn run(&mut self, address: Address, operations: &mut [i2c::Operation<'_>]) -> Result<(), SimI2cError> {
-        let ops = operations
-            .iter()
-            .map(|o| match o {
-                i2c::Operation::Write(b) => Operation::Write(b.to_vec()),
-                i2c::Operation::Read(b) => Operation::Read(b.len()),
-            })
-            .collect();
-        let outcome = self.adapter.execute(&Transaction::new(address, ops));
+        let outcome = self.adapter.execute(&Transaction::new(address, Operation::from_hal(operations)));
         for (o, done) in operations.iter_mut().zip(&outcome.ops) {
             if let i2c::Operation::Read(buf) = o {
                 let n = done.data.len().min(buf.len());
@@ -96,32 +89,13 @@ impl I2c<TenBitAddress> for SimBoard {
 pub fn report_of(o: &Outcome) -> TxReport {
     let bus_ns = u32::try_from(o.bus_time.as_nanos()).unwrap_or(UNKNOWN_NS - 1);
     let stopped_at = o.ops.len().saturating_sub(1).min(u8::MAX as usize) as u8;
-    let r = |status, index: usize, info| TxReport {
-        status,
-        op: stopped_at,
-        index: index.min(UNKNOWN_INDEX as usize - 1) as u16,
-        info,
-        bus_ns,
-        measured_ns: 0,
-    };
     match &o.fault {
         None => TxReport { bus_ns, ..TxReport::OK },
-        Some(Fault::AddressNack { direction, .. }) => r(Status::AddressNack, 0, (*direction == Direction::Read) as u32),
-        Some(Fault::DataNack { index, .. }) => r(Status::DataNack, *index, 0),
-        Some(Fault::ArbitrationLost) => r(Status::ArbitrationLost, 0, 0),
-        Some(Fault::Bus { line }) => r(
-            Status::BusError,
-            0,
-            match line {
-                LineFault::SdaStuckLow => 1,
-                LineFault::SclStuckLow => 2,
-                LineFault::MisplacedCondition => 3,
-            },
-        ),
-        Some(Fault::StretchTimeout { waited_us }) => {
-            r(Status::StretchTimeout, 0, (*waited_us).min(u32::MAX as u64) as u32)
+        Some(f) => {
+            let index = if let Fault::DataNack { index, .. } = f { *index } else { 0 };
+            let index = index.min(UNKNOWN_INDEX as usize - 1) as u16;
+            TxReport::failed(native_fault::failure_of(f), stopped_at, index, bus_ns)
         }
-        Some(Fault::Adapter { .. }) => r(Status::Other, 0, 0),
     }
 }
 
@@ -162,6 +136,7 @@ impl Target for SimBoard {
 mod tests {
     use super::*;
     use crate::sim::Bench;
+    use buscue_bridge::Status;
     use embedded_hal::i2c::NoAcknowledgeSource;
 
     fn board() -> SimBoard {

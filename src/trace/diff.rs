@@ -77,7 +77,7 @@ pub fn frame_key(f: &Frame, masks: &Masks) -> u64 {
             }
         }
     }
-    f.outcome.fault.as_ref().map(Fault::label).hash(&mut h);
+    f.outcome.fault.as_ref().map(Fault::class).hash(&mut h);
     h.finish()
 }
 

@@ -454,7 +454,12 @@ mod tests {
     #[test]
     fn writer_output_reads_back() {
         let dir = tempfile::tempdir().unwrap();
-        let path = dir.path().join("sub/t.jsonl");
+        // A folder that does not exist is not made for a path given.
+        let missing = dir.path().join("sub/t.jsonl");
+        let e = TraceWriter::create(&missing, &header()).err().expect("refused");
+        assert!(e.to_string().contains("does not exist"), "{e}");
+        assert!(!dir.path().join("sub").exists());
+        let path = dir.path().join("t.jsonl");
         let mut w = TraceWriter::create(&path, &header()).unwrap();
         let r = Record::Step { t: Duration::from_millis(3), name: "configure".into(), origin: None };
         w.record(&r).unwrap();

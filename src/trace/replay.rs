@@ -22,7 +22,7 @@ use std::io::BufRead;
 use std::rc::Rc;
 use std::time::Duration;
 
-use crate::bus::{Fault, Operation, Outcome, Transaction};
+use crate::bus::{Fault, FaultClass, Operation, Outcome, Transaction};
 use crate::player::{Request, RetryPolicy, RunError, Session};
 
 use super::mask::Masks;
@@ -143,8 +143,8 @@ fn byte_text(b: Option<&u8>) -> String {
     b.map_or_else(|| "none".into(), |v| format!("0x{v:02X}"))
 }
 
-fn result_text(f: &Option<Fault>) -> String {
-    f.as_ref().map_or_else(|| "ok".into(), Fault::label)
+fn result_text(f: Option<FaultClass>) -> String {
+    f.map_or_else(|| "ok".into(), FaultClass::label)
 }
 
 /// Compares a replayed outcome with a recorded frame; returns the
@@ -194,9 +194,9 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
             }
         }
     }
-    let (er, ar) = (result_text(&expected.outcome.fault), result_text(&actual.fault));
+    let (er, ar) = (expected.outcome.fault.as_ref().map(Fault::class), actual.fault.as_ref().map(Fault::class));
     if er != ar {
-        out.push(div(Aspect::Result, None, None, er, ar));
+        out.push(div(Aspect::Result, None, None, result_text(er), result_text(ar)));
     }
     (out, masked)
 }

@@ -25,7 +25,7 @@ use crate::ascii::hex_bytes;
 use crate::bus::{Address, Operation};
 
 use super::Trace;
-use crate::record::{Frame, Record};
+use crate::record::{Frame, Purpose, Record};
 
 /// Conversion options.
 #[derive(Debug, Clone, Default)]
@@ -347,11 +347,11 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
                 let mut j = i + 1;
                 while let Some(Record::Frame(n)) = recs.get(j) {
                     let prev = group[group.len() - 1];
-                    let same_run = match f.purpose.as_deref() {
-                        Some("ack-poll") => {
+                    let same_run = match f.purpose {
+                        Some(Purpose::AckPoll) => {
                             n.purpose == f.purpose && n.address == f.address && prev.outcome.fault.is_some()
                         }
-                        Some("scan") => n.purpose == f.purpose && n.origin == f.origin,
+                        Some(Purpose::Scan) => n.purpose == f.purpose && n.origin == f.origin,
                         _ => retry_of(prev, n),
                     };
                     if !same_run {
@@ -366,9 +366,9 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
                 }
                 let last = group[group.len() - 1];
                 cursor = last.t + last.outcome.bus_time;
-                match f.purpose.as_deref() {
-                    Some("ack-poll") => w.ack_poll(&group),
-                    Some("scan") => w.scan(&group),
+                match f.purpose {
+                    Some(Purpose::AckPoll) => w.ack_poll(&group),
+                    Some(Purpose::Scan) => w.scan(&group),
                     _ => w.transaction(&group, Some(last.seq) == last_frame_seq, run_failed),
                 }
                 i = j;

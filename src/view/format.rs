@@ -194,7 +194,7 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
     }
     if let Some(purpose) = &f.purpose {
         s.push_str(" (");
-        s.push_str(purpose);
+        s.push_str(purpose.as_str());
         s.push(')');
     }
     if let Some(m) = &f.pec {

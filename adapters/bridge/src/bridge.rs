@@ -27,8 +27,8 @@ use embedded_hal::i2c::{self, ErrorKind, I2c, NoAcknowledgeSource, Operation, Se
 
 use crate::cobs::Decoder;
 use crate::wire::{
-    self, Caps, HEADER_LEN, Header, READ_FLAG, Reader, Status, TEN_BIT_FLAG, TX_REPORT_LEN, TxReport, UNKNOWN_INDEX,
-    UNKNOWN_NS, UNKNOWN_OP, VERSION, Writer, flag, kind, refusal,
+    self, BusLine, Caps, Failure, HEADER_LEN, Header, READ_FLAG, Reader, Status, TEN_BIT_FLAG, TX_REPORT_LEN, TxReport,
+    UNKNOWN_INDEX, UNKNOWN_NS, UNKNOWN_OP, VERSION, Writer, flag, kind, refusal,
 };
 
 /// Most operations one transaction may have in this implementation.
@@ -400,7 +400,7 @@ fn run<T: Target>(caps: &Caps, r: &mut Reader<'_>, out: &mut [u8], target: &mut 
         let addr = raw_addr & !TEN_BIT_FLAG;
         refused |= if ten { addr > 0x3FF || !caps.has(flag::TEN_BIT) } else { addr > 0x7F };
         let report = if refused {
-            TxReport { status: Status::Refused, op: UNKNOWN_OP, index: UNKNOWN_INDEX, ..TxReport::OK }
+            TxReport::failed(Failure::Refused, UNKNOWN_OP, UNKNOWN_INDEX, UNKNOWN_NS)
         } else {
             transact(target, ten, addr, &ops[..nops], body, &mut out[pos + TX_REPORT_LEN..data_at])
         };
@@ -460,14 +460,16 @@ fn transact<T: Target>(
 
 /// What embedded-hal's error kind alone says: no operation or byte index.
 fn from_kind(result: Result<(), ErrorKind>) -> TxReport {
-    let status = match result {
+    // Which address phase or line is not known, so the failures carry
+    // "write" and "unknown" (info 0), as adapters/PROTOCOL.md section 6 says.
+    let failure = match result {
         Ok(()) => return TxReport::OK,
-        Err(ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data)) => Status::DataNack,
-        Err(ErrorKind::NoAcknowledge(_)) => Status::AddressNack,
-        Err(ErrorKind::ArbitrationLoss) => Status::ArbitrationLost,
-        Err(ErrorKind::Bus) => Status::BusError,
-        Err(ErrorKind::Overrun) => Status::Overrun,
-        Err(_) => Status::Other,
+        Err(ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data)) => Failure::DataNack,
+        Err(ErrorKind::NoAcknowledge(_)) => Failure::AddressNack { read: false },
+        Err(ErrorKind::ArbitrationLoss) => Failure::ArbitrationLost,
+        Err(ErrorKind::Bus) => Failure::BusError(BusLine::Unknown),
+        Err(ErrorKind::Overrun) => Failure::Overrun,
+        Err(_) => Failure::Other,
     };
-    TxReport { status, op: UNKNOWN_OP, index: UNKNOWN_INDEX, info: 0, bus_ns: UNKNOWN_NS, measured_ns: 0 }
+    TxReport::failed(failure, UNKNOWN_OP, UNKNOWN_INDEX, UNKNOWN_NS)
 }

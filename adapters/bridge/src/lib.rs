@@ -18,4 +18,4 @@ pub mod crc;
 pub mod wire;
 
 pub use bridge::{Bridge, Link, SevenBitOnly, Target};
-pub use wire::{Caps, Status, TxReport};
+pub use wire::{BusLine, Caps, Failure, Status, TxReport};

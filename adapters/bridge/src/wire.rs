@@ -99,19 +99,20 @@ pub fn parse_frame(frame: &[u8]) -> Result<(Header, &[u8]), FrameError> {
 /// Writes a whole frame to a link: header, body, CRC, COBS, delimiter.
 /// `emit` receives the encoded bytes in pieces.
 pub fn emit_frame<E, F: FnMut(&[u8]) -> Result<(), E>>(h: Header, body: &[u8], mut emit: F) -> Result<(), E> {
-    let mut head = [0u8; HEADER_LEN + 64];
+    let mut head = [0u8; HEADER_LEN];
     head[0] = h.version;
     head[1] = h.kind;
     head[2..4].copy_from_slice(&h.seq.to_le_bytes());
     head[4..6].copy_from_slice(&h.session.to_le_bytes());
-    // COBS works on the frame as one run of bytes; the pieces are joined
-    // through a small staging window so no full-frame copy is needed.
+    // COBS works on the frame as one run of bytes; header, body and CRC are
+    // streamed through the encoder's one-block window, so no full-frame
+    // copy is needed.
     let mut crc = Crc32::new();
-    crc.update(&head[..HEADER_LEN]);
+    crc.update(&head);
     crc.update(body);
     let crc = crc.finish().to_le_bytes();
     let mut enc = cobs::StreamEncoder::new();
-    for &b in head[..HEADER_LEN].iter().chain(body).chain(crc.iter()) {
+    for &b in head.iter().chain(body).chain(crc.iter()) {
         enc.push(b, &mut emit)?;
     }
     enc.finish(&mut emit)?;
@@ -282,18 +283,99 @@ pub enum Status {
 }
 
 impl Status {
+    /// Every status, so decoding reads the codes off the enum instead of
+    /// writing them a second time.
+    pub const ALL: [Status; 9] = [
+        Status::Ok,
+        Status::AddressNack,
+        Status::DataNack,
+        Status::ArbitrationLost,
+        Status::BusError,
+        Status::StretchTimeout,
+        Status::Overrun,
+        Status::Other,
+        Status::Refused,
+    ];
+
     pub fn from_u8(v: u8) -> Option<Status> {
-        Some(match v {
-            0 => Status::Ok,
-            1 => Status::AddressNack,
-            2 => Status::DataNack,
-            3 => Status::ArbitrationLost,
-            4 => Status::BusError,
-            5 => Status::StretchTimeout,
-            6 => Status::Overrun,
-            7 => Status::Other,
-            8 => Status::Refused,
-            _ => return None,
+        Status::ALL.into_iter().find(|s| *s as u8 == v)
+    }
+}
+
+/// The line condition a `BUS_ERROR` names in its `info`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[repr(u32)]
+pub enum BusLine {
+    /// The adapter cannot tell (also what any code this version does not
+    /// define reads as).
+    Unknown = 0,
+    SdaStuckLow = 1,
+    SclStuckLow = 2,
+    /// A START or STOP condition where none belongs.
+    MisplacedCondition = 3,
+}
+
+impl BusLine {
+    const ALL: [BusLine; 4] =
+        [BusLine::Unknown, BusLine::SdaStuckLow, BusLine::SclStuckLow, BusLine::MisplacedCondition];
+
+    pub fn from_info(info: u32) -> BusLine {
+        BusLine::ALL.into_iter().find(|l| *l as u32 == info).unwrap_or(BusLine::Unknown)
+    }
+}
+
+/// `info` bit of an `ADDRESS_NACK`: the NACKed address phase was a read.
+pub const ADDRESS_NACK_READ: u32 = 1 << 0;
+
+/// How a transaction failed: a result's `status` and `info` read together.
+/// The one definition of the fault codes; the adapter encodes with
+/// [`Failure::encode`] and the host decodes with [`Failure::decode`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Failure {
+    /// `read`: the NACKed address phase was a read.
+    AddressNack {
+        read: bool,
+    },
+    /// `op` and `index` of the report locate the byte.
+    DataNack,
+    ArbitrationLost,
+    BusError(BusLine),
+    StretchTimeout {
+        waited_us: u32,
+    },
+    Overrun,
+    Other,
+    Refused,
+}
+
+impl Failure {
+    /// The `status` and `info` fields of a result.
+    pub fn encode(self) -> (Status, u32) {
+        match self {
+            Failure::AddressNack { read } => (Status::AddressNack, if read { ADDRESS_NACK_READ } else { 0 }),
+            Failure::DataNack => (Status::DataNack, 0),
+            Failure::ArbitrationLost => (Status::ArbitrationLost, 0),
+            Failure::BusError(line) => (Status::BusError, line as u32),
+            Failure::StretchTimeout { waited_us } => (Status::StretchTimeout, waited_us),
+            Failure::Overrun => (Status::Overrun, 0),
+            Failure::Other => (Status::Other, 0),
+            Failure::Refused => (Status::Refused, 0),
+        }
+    }
+
+    /// The failure a result's `status` and `info` say; `None` for `OK`.
+    /// Info bits a status does not define are ignored.
+    pub fn decode(status: Status, info: u32) -> Option<Failure> {
+        Some(match status {
+            Status::Ok => return None,
+            Status::AddressNack => Failure::AddressNack { read: info & ADDRESS_NACK_READ != 0 },
+            Status::DataNack => Failure::DataNack,
+            Status::ArbitrationLost => Failure::ArbitrationLost,
+            Status::BusError => Failure::BusError(BusLine::from_info(info)),
+            Status::StretchTimeout => Failure::StretchTimeout { waited_us: info },
+            Status::Overrun => Failure::Overrun,
+            Status::Other => Failure::Other,
+            Status::Refused => Failure::Refused,
         })
     }
 }
@@ -325,6 +407,18 @@ impl TxReport {
         w.u32(self.info);
         w.u32(self.bus_ns);
         w.u32(self.measured_ns);
+    }
+
+    /// A failed transaction's report: `op` and `index` locate the failure
+    /// ([`UNKNOWN_OP`] / [`UNKNOWN_INDEX`] when the adapter cannot tell).
+    pub fn failed(failure: Failure, op: u8, index: u16, bus_ns: u32) -> TxReport {
+        let (status, info) = failure.encode();
+        TxReport { status, op, index, info, bus_ns, measured_ns: 0 }
+    }
+
+    /// How the transaction failed; `None` if it did not.
+    pub fn failure(&self) -> Option<Failure> {
+        Failure::decode(self.status, self.info)
     }
 
     pub fn read(r: &mut Reader<'_>) -> Option<TxReport> {
@@ -412,6 +506,45 @@ mod tests {
             0x4B, 0x7C, 0x00,
         ];
         assert_eq!(&wire[..n], &want);
+    }
+
+    // Every fault kind, with each info value the status table of
+    // adapters/PROTOCOL.md defines, encodes and decodes back.
+    #[test]
+    fn failures_roundtrip_through_status_and_info() {
+        let all = [
+            Failure::AddressNack { read: false },
+            Failure::AddressNack { read: true },
+            Failure::DataNack,
+            Failure::ArbitrationLost,
+            Failure::BusError(BusLine::Unknown),
+            Failure::BusError(BusLine::SdaStuckLow),
+            Failure::BusError(BusLine::SclStuckLow),
+            Failure::BusError(BusLine::MisplacedCondition),
+            Failure::StretchTimeout { waited_us: 0 },
+            Failure::StretchTimeout { waited_us: u32::MAX },
+            Failure::Overrun,
+            Failure::Other,
+            Failure::Refused,
+        ];
+        for f in all {
+            let (status, info) = f.encode();
+            assert_ne!(status, Status::Ok);
+            assert_eq!(Failure::decode(status, info), Some(f), "{f:?}");
+            let mut b = [0u8; TX_REPORT_LEN];
+            TxReport::failed(f, 1, 2, 3).write(&mut b);
+            assert_eq!(TxReport::read(&mut Reader::new(&b)).and_then(|r| r.failure()), Some(f), "{f:?} on the wire");
+        }
+        assert_eq!(Failure::decode(Status::Ok, 0), None);
+        // The codes as the protocol document's status table gives them.
+        assert_eq!(Failure::AddressNack { read: true }.encode(), (Status::AddressNack, 1));
+        assert_eq!(Failure::BusError(BusLine::SdaStuckLow).encode(), (Status::BusError, 1));
+        assert_eq!(Failure::BusError(BusLine::SclStuckLow).encode(), (Status::BusError, 2));
+        assert_eq!(Failure::BusError(BusLine::MisplacedCondition).encode(), (Status::BusError, 3));
+        assert_eq!(Failure::decode(Status::BusError, 9), Some(Failure::BusError(BusLine::Unknown)));
+        let codes: [u8; 9] = Status::ALL.map(|s| s as u8);
+        assert_eq!(codes, [0, 1, 2, 3, 4, 5, 6, 7, 8]);
+        assert!((0..=255u8).all(|v| Status::from_u8(v).is_none_or(|s| s as u8 == v)));
     }
 
     #[test]
