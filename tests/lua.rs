@@ -368,3 +368,22 @@ mod sandbox {
         assert_eq!(std::fs::read_to_string(target).unwrap(), "hi");
     }
 }
+
+#[test]
+fn load_without_an_environment_sees_the_sandboxed_globals() {
+    ok(r#"
+        check_eq(load("return math.pi")(), math.pi, "text chunk without env sees the globals")
+        check(load("return io")() == nil, "and they are the sandboxed ones")
+        local parts = { "return math.", "floor(3.5)" }
+        check_eq(load(function() return table.remove(parts, 1) end)(), 3, "a reader function without env")
+        check_eq(load("return x", "chunk", "t", { x = 7 })(), 7, "an explicit env is honoured")
+        check(load("return math", "chunk", "t", {})() == nil, "an explicit env replaces the globals")
+        local ok, err = pcall(load("return math", "chunk", "t", nil))
+        check(not ok and tostring(err):find("_ENV"), "an explicit nil env leaves the chunk without globals")
+    "#);
+    for text in ["assert(load('\\27Lua\\84\\0', 'x', 'b'))", "assert(load('\\27Lua\\84\\0', 'x', 'bt', {}))"] {
+        let (c, err) = fails(text, &[]);
+        assert_eq!(c, 2, "{text}: {err}");
+        assert!(err.contains("attempt to load a binary chunk"), "{text}: {err}");
+    }
+}

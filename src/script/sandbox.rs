@@ -2,7 +2,9 @@
 //!
 //! Untrusted (the default): `io` is gone; `os` keeps only `clock`, `date`,
 //! `difftime` and `time`; `dofile`, `loadfile`, `string.dump` and
-//! `package.loadlib` are gone; `load` accepts text chunks only; `require`
+//! `package.loadlib` are gone; `load` accepts text chunks only (a chunk
+//! loaded without an environment sees the sandboxed globals, as in stock
+//! Lua; an environment passed, `nil` included, is honoured); `require`
 //! loads `NAME.lua` (dots become folders) from the script's folder or
 //! `scripts/`, nowhere else; the `debug` library is never loaded.
 //! With `allow_io` the stock `io`, `os`, `dofile`, `loadfile` and
@@ -15,10 +17,15 @@ use mlua::{ChunkMode, Lua, Table, Value};
 
 use super::INTERNAL_CHUNK;
 
+/// `load` keeps the stock contract except the mode, which is always text.
+/// The environment is passed on only when the caller gave one: stock `load`
+/// tells "no env" (the chunk sees the globals, which are the sandboxed ones)
+/// from an explicit `nil` (the chunk has no globals at all) by the number
+/// of arguments, so the wrapper must not turn the first into the second.
 const PRELUDE: &str = r#"
 local raw_load = load
-load = function(chunk, name, mode, env)
-  return raw_load(chunk, name, "t", env)
+load = function(chunk, name, _mode, ...)
+  return raw_load(chunk, name, "t", ...)
 end
 string.dump = nil
 "#;
