@@ -387,3 +387,30 @@ fn load_without_an_environment_sees_the_sandboxed_globals() {
         assert!(err.contains("attempt to load a binary chunk"), "{text}: {err}");
     }
 }
+
+#[test]
+fn errors_lua_raises_without_a_position_still_name_the_script() {
+    // Too deep for the parser: Lua fails while loading the chunk, before
+    // any line runs, so the file is all there is to name.
+    let depth = 200;
+    let nested = format!("local x = {}1{}\n", "(".repeat(depth), ")".repeat(depth));
+    let (c, err) = fails(&nested, &[]);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains("t.lua: C stack overflow"), "{err}");
+    assert!(!err.contains("[C]: in ?"), "no traceback of C frames: {err}");
+    // The same text in a module names the module, required at line 2.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("deep.lua"), &nested).unwrap();
+    let main = dir.path().join("main.lua");
+    std::fs::write(&main, "local a = 1\nrequire('deep')\n").unwrap();
+    let err = stderr(&run_path(&main, &[]));
+    assert!(err.contains("main.lua:2: ") && err.contains("deep.lua: C stack overflow"), "{err}");
+    assert!(!err.contains("stack traceback"), "{err}");
+    // Errors raised with no position of their own get the raising line.
+    for text in ["local a = 1\nerror('plain', 0)\n", "local a = 1\nerror({})\n", "local a = 1\nbus.wait_ack(0x44, 5)\n"]
+    {
+        let (c, err) = fails(text, &[]);
+        assert_eq!(c, 2, "{text}: {err}");
+        assert!(err.contains("error: ") && err.contains("t.lua:2: "), "{text}: {err}");
+    }
+}

@@ -15,7 +15,7 @@ use std::path::{Path, PathBuf};
 
 use mlua::{ChunkMode, Lua, Table, Value};
 
-use super::INTERNAL_CHUNK;
+use super::{INTERNAL_CHUNK, in_file};
 
 /// `load` keeps the stock contract except the mode, which is always text.
 /// The environment is passed on only when the caller gave one: stock `load`
@@ -88,7 +88,13 @@ fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
     };
     let text = std::fs::read_to_string(&path)
         .map_err(|e| mlua::Error::RuntimeError(format!("require \"{name}\": {}: {e}", path.display())))?;
-    let value: Value = lua.load(&text).set_name(format!("@{}", display(&path))).set_mode(ChunkMode::Text).call(name)?;
+    let file = display(&path);
+    let value: Value =
+        lua.load(&text).set_name(format!("@{file}")).set_mode(ChunkMode::Text).call(name).map_err(|e| match e {
+            // A module's errors name the module's file, as the script's do.
+            mlua::Error::RuntimeError(m) => mlua::Error::RuntimeError(in_file(&file, &m)),
+            other => other,
+        })?;
     let value = if value.is_nil() { Value::Boolean(true) } else { value };
     loaded.set(name, value.clone())?;
     Ok(value)
