@@ -215,7 +215,7 @@ fn guarded_registers_need_an_unlock() {
 #[test]
 fn wait_polls_until_value_or_timeout() {
     let (c, err) = fails("bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 5 })", &[]);
-    assert_eq!(c, 2);
+    assert_eq!(c, 3, "a device that never becomes ready is a bus failure: {err}");
     assert!(err.contains("register 0x02: value & 0x1 never became 0x1 within 5.000 ms"), "{err}");
 }
 
@@ -413,4 +413,23 @@ fn errors_lua_raises_without_a_position_still_name_the_script() {
         assert_eq!(c, 2, "{text}: {err}");
         assert!(err.contains("error: ") && err.contains("t.lua:2: "), "{text}: {err}");
     }
+}
+
+#[test]
+fn register_wait_that_times_out_is_a_bus_failure_at_the_script_line() {
+    let text = r#"
+        local s = bus.device(0x44, { width = 16, map = require("maps.climate") })
+        s:wait("STATUS", 0x0001, 0x0001, { timeout_ms = 3, interval_ms = 1 })
+    "#;
+    let (c, err) = fails(text, &[]);
+    assert_eq!(c, 3, "exit 3 like bus.wait_ack: {err}");
+    assert!(
+        err.contains("t.lua:3: 0x44 register 0x02 (STATUS): value & 0x1 never became 0x1 within 3.000 ms"),
+        "{err}"
+    );
+    // Still an error a script can catch.
+    ok(r#"
+        local ok, err = pcall(function() bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 2 }) end)
+        check(not ok and tostring(err):find("never became 0x1"), "pcall catches the timeout")
+    "#);
 }
