@@ -25,20 +25,8 @@ const ROOMS: &[(&str, &[&str])] = &[
     (
         "cli",
         &[
-            "ascii",
-            "bus",
-            "config",
-            "adapter",
-            "electrical",
-            "record",
-            "smbus",
-            "sim",
-            "player",
-            "view",
-            "hal",
-            "serve",
-            "trace",
-            "script",
+            "ascii", "bus", "config", "adapter", "electrical", "record", "smbus", "sim", "player", "view", "hal", "serve",
+            "trace", "script",
         ],
     ),
 ];
