@@ -215,7 +215,7 @@ fn guarded_registers_need_an_unlock() {
 #[test]
 fn wait_polls_until_value_or_timeout() {
     let (c, err) = fails("bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 5 })", &[]);
-    assert_eq!(c, 2);
+    assert_eq!(c, 3, "a device that never becomes ready is a bus failure: {err}");
     assert!(err.contains("register 0x02: value & 0x1 never became 0x1 within 5.000 ms"), "{err}");
 }
 
@@ -367,4 +367,69 @@ mod sandbox {
         assert_eq!(code(&o), 0, "{}", stderr(&o));
         assert_eq!(std::fs::read_to_string(target).unwrap(), "hi");
     }
+}
+
+#[test]
+fn load_without_an_environment_sees_the_sandboxed_globals() {
+    ok(r#"
+        check_eq(load("return math.pi")(), math.pi, "text chunk without env sees the globals")
+        check(load("return io")() == nil, "and they are the sandboxed ones")
+        local parts = { "return math.", "floor(3.5)" }
+        check_eq(load(function() return table.remove(parts, 1) end)(), 3, "a reader function without env")
+        check_eq(load("return x", "chunk", "t", { x = 7 })(), 7, "an explicit env is honoured")
+        check(load("return math", "chunk", "t", {})() == nil, "an explicit env replaces the globals")
+        local ok, err = pcall(load("return math", "chunk", "t", nil))
+        check(not ok and tostring(err):find("_ENV"), "an explicit nil env leaves the chunk without globals")
+    "#);
+    for text in ["assert(load('\\27Lua\\84\\0', 'x', 'b'))", "assert(load('\\27Lua\\84\\0', 'x', 'bt', {}))"] {
+        let (c, err) = fails(text, &[]);
+        assert_eq!(c, 2, "{text}: {err}");
+        assert!(err.contains("attempt to load a binary chunk"), "{text}: {err}");
+    }
+}
+
+#[test]
+fn errors_lua_raises_without_a_position_still_name_the_script() {
+    // Too deep for the parser: Lua fails while loading the chunk, before
+    // any line runs, so the file is all there is to name.
+    let depth = 200;
+    let nested = format!("local x = {}1{}\n", "(".repeat(depth), ")".repeat(depth));
+    let (c, err) = fails(&nested, &[]);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains("t.lua: C stack overflow"), "{err}");
+    assert!(!err.contains("[C]: in ?"), "no traceback of C frames: {err}");
+    // The same text in a module names the module, required at line 2.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("deep.lua"), &nested).unwrap();
+    let main = dir.path().join("main.lua");
+    std::fs::write(&main, "local a = 1\nrequire('deep')\n").unwrap();
+    let err = stderr(&run_path(&main, &[]));
+    assert!(err.contains("main.lua:2: ") && err.contains("deep.lua: C stack overflow"), "{err}");
+    assert!(!err.contains("stack traceback"), "{err}");
+    // Errors raised with no position of their own get the raising line.
+    for text in ["local a = 1\nerror('plain', 0)\n", "local a = 1\nerror({})\n", "local a = 1\nbus.wait_ack(0x44, 5)\n"]
+    {
+        let (c, err) = fails(text, &[]);
+        assert_eq!(c, 2, "{text}: {err}");
+        assert!(err.contains("error: ") && err.contains("t.lua:2: "), "{text}: {err}");
+    }
+}
+
+#[test]
+fn register_wait_that_times_out_is_a_bus_failure_at_the_script_line() {
+    let text = r#"
+        local s = bus.device(0x44, { width = 16, map = require("maps.climate") })
+        s:wait("STATUS", 0x0001, 0x0001, { timeout_ms = 3, interval_ms = 1 })
+    "#;
+    let (c, err) = fails(text, &[]);
+    assert_eq!(c, 3, "exit 3 like bus.wait_ack: {err}");
+    assert!(
+        err.contains("t.lua:3: 0x44 register 0x02 (STATUS): value & 0x1 never became 0x1 within 3.000 ms"),
+        "{err}"
+    );
+    // Still an error a script can catch.
+    ok(r#"
+        local ok, err = pcall(function() bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 2 }) end)
+        check(not ok and tostring(err):find("never became 0x1"), "pcall catches the timeout")
+    "#);
 }

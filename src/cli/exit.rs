@@ -31,7 +31,10 @@ use crate::script::Abort;
 /// command ran it (`run`, `scan`, `replay`): the one mapping.
 pub fn of_run_error(e: &RunError) -> u8 {
     match e {
-        RunError::Bus { .. } | RunError::PollTimeout { .. } | RunError::Protocol { .. } => BUS_FAILURE,
+        RunError::Bus { .. }
+        | RunError::PollTimeout { .. }
+        | RunError::WaitTimeout { .. }
+        | RunError::Protocol { .. } => BUS_FAILURE,
         RunError::Adapter(e) => of_adapter_error(e),
         RunError::Interrupted => INTERRUPTED,
         RunError::Record(_) => RECORD_FAILED,

@@ -36,6 +36,9 @@ pub enum RunError {
     Bus { address: Address, fault: Fault, attempts: u32, ops: Vec<Operation> },
     #[error("{address}: still NACKing after {waited_ms:.3} ms of ACK polling")]
     PollTimeout { address: Address, waited_ms: f64 },
+    /// A polled register never showed the awaited value: the device never became ready.
+    #[error("{address} {what}")]
+    WaitTimeout { address: Address, what: String },
     /// The bus exchange worked but its content broke the protocol (a PEC
     /// or block count that does not check out).
     #[error("{address}: {message}")]

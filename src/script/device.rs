@@ -24,8 +24,9 @@ use mlua::{Lua, Table, UserData, UserDataMethods, Value};
 use crate::bus::{Address, Operation, Transaction};
 
 use super::Ctx;
-use super::api::{located, transact};
+use super::api::{located, run_error, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
+use crate::player::RunError;
 use crate::player::retry::RetryPolicy;
 use crate::record::Purpose;
 
@@ -324,15 +325,17 @@ impl UserData for DeviceHandle {
                     }
                     let waited = this.ctx.session.borrow().now() - start;
                     if waited >= timeout {
-                        return Err(bad(format!(
-                            "{} register 0x{reg:02X}{}: value & 0x{mask:X} never became 0x{expected:X} within {:.3} ms (last 0x{v:X})",
-                            this.address,
+                        // The device never became ready: a bus-side failure
+                        // (exit 3), like an ACK poll that times out.
+                        let what = format!(
+                            "register 0x{reg:02X}{}: value & 0x{mask:X} never became 0x{expected:X} within {:.3} ms (last 0x{v:X})",
                             name.as_ref().map(|n| format!(" ({n})")).unwrap_or_default(),
                             timeout.as_secs_f64() * 1e3
-                        )));
+                        );
+                        return Err(run_error(lua, RunError::WaitTimeout { address: this.address, what }));
                     }
                     let d = this.ctx.session.borrow_mut().delay(interval);
-                    d.map_err(|e| super::api::run_error(lua, e))?;
+                    d.map_err(|e| run_error(lua, e))?;
                 }
             };
             r().map_err(|e| located(lua, e))

@@ -10,8 +10,10 @@
 //!   writes, no C modules, no `debug`, `require` only from the script's
 //!   folder and `scripts/`; a memory limit and a wall-clock limit apply.
 //!   `allow_io` opens `io`, `os` and the stock `require`.
-//! - Every failure names the script line it happened at; a short traceback
-//!   of the script's own frames comes with it.
+//! - Every failure names the script file, and the line it happened at
+//!   wherever Lua knows one (a chunk that fails while it is being loaded,
+//!   such as one nested too deep for the parser, has none); a short
+//!   traceback of the script's own frames comes with it.
 
 pub mod api;
 pub mod batch;
@@ -218,8 +220,49 @@ fn classify(e: &mlua::Error) -> Abort {
             Abort::Limit(format!("script memory limit reached ({m}); raise it with --memory-limit"))
         }
         mlua::Error::SyntaxError { message, .. } => Abort::Script { message: message.clone(), origin: None },
-        mlua::Error::RuntimeError(m) => Abort::Script { message: m.clone(), origin: None },
+        mlua::Error::RuntimeError(m) => Abort::Script { message: without_traceback(m), origin: None },
         other => Abort::Script { message: other.to_string(), origin: None },
+    }
+}
+
+/// The message without the `stack traceback:` that mlua appends to the
+/// errors it catches itself (loading a chunk, a call made from Rust): it
+/// lists `[C]` frames only, and the script's own frames come separately.
+fn without_traceback(m: &str) -> String {
+    m.split_once("\nstack traceback:").map_or(m, |(head, _)| head).to_string()
+}
+
+/// Whether a message starts with Lua's own position, `chunk:line: ` (as
+/// `luaL_where` writes it): the text before the first `": "` ends in a
+/// colon and digits.
+fn is_located(message: &str) -> bool {
+    message
+        .split_once(": ")
+        .and_then(|(head, _)| head.rsplit_once(':'))
+        .is_some_and(|(chunk, line)| !chunk.is_empty() && !line.is_empty() && line.bytes().all(|b| b.is_ascii_digit()))
+}
+
+/// A chunk's error message that names the chunk's file: as it is when Lua
+/// located it, else `file: message`, for the errors Lua raises with no
+/// line to give (a chunk nested too deep for the parser fails while it is
+/// being loaded, before any of it runs). mlua's traceback is dropped.
+pub fn in_file(file: &str, message: &str) -> String {
+    let message = without_traceback(message);
+    if is_located(&message) { message } else { format!("{file}: {message}") }
+}
+
+/// Makes a script error that Lua raised without a position name the
+/// script: at `innermost`, the innermost script frame on the stack when
+/// it was raised (`error(msg, 0)`, an error value that is not a string, a
+/// callback's conversion error), or the script `file` alone when no
+/// script frame was running.
+fn locate(abort: Abort, innermost: Option<Origin>, file: &str) -> Abort {
+    match abort {
+        Abort::Script { message, origin: None } if !is_located(&message) => match innermost {
+            Some(o) => Abort::Script { message, origin: Some(o) },
+            None => Abort::Script { message: in_file(file, &message), origin: None },
+        },
+        other => other,
     }
 }
 
@@ -293,13 +336,22 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
     })
     .map_err(|e| script_err(e.to_string()))?;
 
-    let name = format!("@{}", cfg.script.display());
-    let main =
-        lua.load(&text).set_name(name).set_mode(mlua::ChunkMode::Text).into_function().map_err(|e| classify(&e))?;
+    let file = cfg.script.display().to_string();
+    let main = lua
+        .load(&text)
+        .set_name(format!("@{file}"))
+        .set_mode(mlua::ChunkMode::Text)
+        .into_function()
+        .map_err(|e| locate(classify(&e), None, &file))?;
     let tb_ctx = ctx.clone();
+    // Where the error that ends the run was raised, for errors that do not
+    // say so themselves.
+    let innermost: Rc<RefCell<Option<Origin>>> = Rc::default();
+    let raised_at = innermost.clone();
     let handler = lua
         .create_function(move |lua, err: Value| {
             let frames = script_frames(lua, 8);
+            *raised_at.borrow_mut() = frames.first().cloned();
             if !frames.is_empty() {
                 let tb = frames.iter().map(|o| format!("  at {o}")).collect::<Vec<_>>().join("\n");
                 *tb_ctx.traceback.borrow_mut() = Some(tb);
@@ -308,14 +360,13 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
         })
         .map_err(|e| script_err(e.to_string()))?;
     let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
-    let result: MultiValue = xpcall.call((main, handler)).map_err(|e| classify(&e))?;
+    let result: MultiValue = xpcall.call((main, handler)).map_err(|e| locate(classify(&e), innermost.take(), &file))?;
     let mut values = result.into_iter();
     match values.next() {
         Some(Value::Boolean(true)) => Ok(()),
         _ => {
             let err = values.next().unwrap_or(Value::Nil);
-            let abort = classify_value(&err);
-            Err(abort)
+            Err(locate(classify_value(&err), innermost.take(), &file))
         }
     }
 }

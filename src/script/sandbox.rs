@@ -2,7 +2,9 @@
 //!
 //! Untrusted (the default): `io` is gone; `os` keeps only `clock`, `date`,
 //! `difftime` and `time`; `dofile`, `loadfile`, `string.dump` and
-//! `package.loadlib` are gone; `load` accepts text chunks only; `require`
+//! `package.loadlib` are gone; `load` accepts text chunks only (a chunk
+//! loaded without an environment sees the sandboxed globals, as in stock
+//! Lua; an environment passed, `nil` included, is honoured); `require`
 //! loads `NAME.lua` (dots become folders) from the script's folder or
 //! `scripts/`, nowhere else; the `debug` library is never loaded.
 //! With `allow_io` the stock `io`, `os`, `dofile`, `loadfile` and
@@ -13,12 +15,17 @@ use std::path::{Path, PathBuf};
 
 use mlua::{ChunkMode, Lua, Table, Value};
 
-use super::INTERNAL_CHUNK;
+use super::{INTERNAL_CHUNK, in_file};
 
+/// `load` keeps the stock contract except the mode, which is always text.
+/// The environment is passed on only when the caller gave one: stock `load`
+/// tells "no env" (the chunk sees the globals, which are the sandboxed ones)
+/// from an explicit `nil` (the chunk has no globals at all) by the number
+/// of arguments, so the wrapper must not turn the first into the second.
 const PRELUDE: &str = r#"
 local raw_load = load
-load = function(chunk, name, mode, env)
-  return raw_load(chunk, name, "t", env)
+load = function(chunk, name, _mode, ...)
+  return raw_load(chunk, name, "t", ...)
 end
 string.dump = nil
 "#;
@@ -81,7 +88,13 @@ fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
     };
     let text = std::fs::read_to_string(&path)
         .map_err(|e| mlua::Error::RuntimeError(format!("require \"{name}\": {}: {e}", path.display())))?;
-    let value: Value = lua.load(&text).set_name(format!("@{}", display(&path))).set_mode(ChunkMode::Text).call(name)?;
+    let file = display(&path);
+    let value: Value =
+        lua.load(&text).set_name(format!("@{file}")).set_mode(ChunkMode::Text).call(name).map_err(|e| match e {
+            // A module's errors name the module's file, as the script's do.
+            mlua::Error::RuntimeError(m) => mlua::Error::RuntimeError(in_file(&file, &m)),
+            other => other,
+        })?;
     let value = if value.is_nil() { Value::Boolean(true) } else { value };
     loaded.set(name, value.clone())?;
     Ok(value)

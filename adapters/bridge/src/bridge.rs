@@ -14,6 +14,14 @@
 //!   decoder resynchronises on the next delimiter.
 //! - No allocation: buffers are `FRAME` bytes each; RAM is about
 //!   `(WINDOW + 1) * FRAME` bytes plus a few hundred bytes of stack.
+//! - No number from the host wraps or panics: a wrap in firmware is a
+//!   field failure. Sequence numbers are compared modulo 2^16 on purpose;
+//!   every other count, length and time from a request is checked before
+//!   it meets a buffer or the board's clock. A `DELAY` longer than
+//!   [`MAX_DELAY_NS`], or one that would carry the board's clock past
+//!   `u64::MAX`, is refused with `TOO_LARGE` and never reaches the board;
+//!   a `SPEED` outside the advertised range is answered "refused" without
+//!   asking the board.
 //!
 //! What embedded-hal can report per byte: `I2c::transaction` returns only
 //! an error kind for the whole transaction, so through embedded-hal alone
@@ -33,6 +41,12 @@ use crate::wire::{
 
 /// Most operations one transaction may have in this implementation.
 pub const MAX_OPS: usize = 16;
+
+/// Longest wait one `DELAY` may ask for: a day, the host's own bound on a
+/// script's `sleep_ms` and on every timeout, so no host request comes
+/// near it. Bounding each wait keeps a board's nanosecond clock (584
+/// years of range) from being pushed to its end by a few requests.
+pub const MAX_DELAY_NS: u64 = 86_400 * 1_000_000_000;
 
 /// The serial side: a byte stream to the host.
 pub trait Link {
@@ -54,8 +68,14 @@ pub trait Target {
     fn bus(&mut self) -> &mut Self::Bus;
     /// A monotonic clock in nanoseconds (the board's timer).
     fn now_ns(&mut self) -> u64;
+    /// Waits `ns` on that clock. The bridge passes at most
+    /// [`MAX_DELAY_NS`], and never a wait that would carry `now_ns` past
+    /// `u64::MAX`.
     fn delay_ns(&mut self, ns: u64);
-    /// Sets SCL; returns the frequency used, or `None` if refused.
+    /// Sets SCL; returns the frequency used, or `None` if refused. The
+    /// bridge asks only for a frequency within the advertised
+    /// `min_speed_hz ..= max_speed_hz`, and never for 0 Hz (a divider
+    /// computed from it would divide by zero).
     fn set_speed(&mut self, _hz: u32) -> Option<u32> {
         None
     }
@@ -212,7 +232,7 @@ impl<const FRAME: usize, const WINDOW: usize> Bridge<FRAME, WINDOW> {
         match rx.push(byte) {
             None => Ok(()),
             Some(Err(_)) => {
-                core.dropped += 1;
+                core.dropped = core.dropped.saturating_add(1);
                 Ok(())
             }
             Some(Ok(frame)) => core.handle(frame, link, target),
@@ -236,7 +256,7 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
 
     fn handle<L: Link, T: Target>(&mut self, frame: &[u8], link: &mut L, target: &mut T) -> Result<(), L::Error> {
         let Ok((h, body)) = wire::parse_frame(frame) else {
-            self.dropped += 1;
+            self.dropped = self.dropped.saturating_add(1);
             return Ok(());
         };
         if h.version != VERSION {
@@ -258,6 +278,7 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
         if !self.greeted || h.session != self.session {
             return self.refuse(link, h.seq, refusal::SESSION);
         }
+        // Sequence numbers live modulo 2^16: the wrap is the protocol's.
         let ahead = h.seq.wrapping_sub(self.expected) as i16;
         if ahead > 0 {
             return send(link, self.header(kind::GAP, self.expected), &h.seq.to_le_bytes());
@@ -273,7 +294,7 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
         let i = self.next_slot;
         self.next_slot = (self.next_slot + 1) % WINDOW;
         self.expected = self.expected.wrapping_add(1);
-        self.executed += 1;
+        self.executed = self.executed.saturating_add(1);
         let (reply_kind, len) = {
             let caps = self.caps;
             let slot = &mut self.slots[i];
@@ -312,7 +333,8 @@ fn execute<T: Target>(caps: &Caps, k: u8, body: &[u8], out: &mut [u8], target: &
         kind::RUN => run(caps, &mut r, out, target),
         kind::SPEED => {
             let hz = r.u32().ok_or(refusal::MALFORMED)?;
-            let (status, used) = match target.set_speed(hz) {
+            let allowed = (caps.min_speed_hz.max(1)..=caps.max_speed_hz).contains(&hz);
+            let (status, used) = match allowed.then(|| target.set_speed(hz)).flatten() {
                 Some(used) => (0u8, used),
                 None => (1, caps.speed_hz),
             };
@@ -334,6 +356,11 @@ fn execute<T: Target>(caps: &Caps, k: u8, body: &[u8], out: &mut [u8], target: &
         }
         kind::DELAY => {
             let ns = r.u64().ok_or(refusal::MALFORMED)?;
+            // Refused rather than saturated: a shorter wait than asked
+            // for would be a silent lie about the board's timing.
+            if ns > MAX_DELAY_NS || target.now_ns().checked_add(ns).is_none() {
+                return Err(refusal::TOO_LARGE);
+            }
             target.delay_ns(ns);
             small_reply(out, target, &[], None)
         }
@@ -385,7 +412,9 @@ fn run<T: Target>(caps: &Caps, r: &mut Reader<'_>, out: &mut [u8], target: &mut 
             if !read {
                 r.bytes(len).ok_or(refusal::MALFORMED)?;
             } else {
-                data_at += len;
+                // Saturating: 255 reads of 32767 bytes overflow a 16-bit
+                // usize; any sum past the reply is refused below anyway.
+                data_at = data_at.saturating_add(len);
                 refused |= len == 0;
             }
             refused |= len > caps.max_bytes_per_op as usize;

@@ -1,6 +1,7 @@
 //! The adapter library against a scripted fake board: sequencing, the
 //! reply cache, refusals, and arbitrary input.
 
+use buscue_bridge::bridge::MAX_DELAY_NS;
 use buscue_bridge::cobs::Decoder;
 use buscue_bridge::wire::{
     self, Caps, Header, READ_FLAG, Reader, Status, TxReport, UNKNOWN_OP, VERSION, flag, kind, refusal,
@@ -54,6 +55,8 @@ impl I2c<TenBitAddress> for FakeBus {
 struct FakeBoard {
     bus: FakeBus,
     now: u64,
+    /// Every frequency the bridge asked the board for.
+    speeds: Vec<u32>,
 }
 
 impl Target for FakeBoard {
@@ -65,8 +68,14 @@ impl Target for FakeBoard {
         self.now += 1000;
         self.now
     }
+    // Plain `+`: a wait that would wrap the clock panics here, as it
+    // would wrap a board's timer.
     fn delay_ns(&mut self, ns: u64) {
         self.now += ns;
+    }
+    fn set_speed(&mut self, hz: u32) -> Option<u32> {
+        self.speeds.push(hz);
+        Some(hz)
     }
 }
 
@@ -289,4 +298,87 @@ fn seven_bit_only_hals_refuse_ten_bit_transactions() {
     let e = I2c::<TenBitAddress>::write(&mut bus, 0x2A5, &[1]).unwrap_err();
     assert_eq!(i2c::Error::kind(&e), ErrorKind::Other);
     assert_eq!(bus.0.0, 1, "the 10-bit call never reached the HAL");
+}
+
+/// The adapter time a reply starts with.
+fn time_of(reply: &[(Header, Vec<u8>)]) -> u64 {
+    Reader::new(&reply[0].1).u64().unwrap()
+}
+
+fn refused_with(reply: &[(Header, Vec<u8>)]) -> u8 {
+    assert_eq!(reply.len(), 1);
+    assert_eq!(reply[0].0.kind, kind::REFUSED, "refused, not answered");
+    reply[0].1[0]
+}
+
+/// The status of the first transaction in a RUN reply.
+fn first_status(reply: &[(Header, Vec<u8>)]) -> Status {
+    assert_eq!(reply[0].0.kind, kind::RUN | kind::REPLY);
+    let mut rd = Reader::new(&reply[0].1);
+    rd.u64().unwrap();
+    TxReport::read(&mut rd).unwrap().status
+}
+
+#[test]
+fn a_delay_the_clock_cannot_hold_is_refused_and_the_clock_never_wraps() {
+    let mut rig = Rig::new();
+    rig.hello(0);
+    let before = time_of(&rig.ask(req(kind::DELAY, 1), &1_000u64.to_le_bytes()));
+    for (seq, ns) in [(2, u64::MAX), (3, MAX_DELAY_NS + 1)] {
+        assert_eq!(refused_with(&rig.ask(req(kind::DELAY, seq), &ns.to_le_bytes())), refusal::TOO_LARGE, "{ns} ns");
+    }
+    let after = time_of(&rig.ask(req(kind::DELAY, 4), &MAX_DELAY_NS.to_le_bytes()));
+    assert!(after >= before + MAX_DELAY_NS, "the longest wait allowed is waited in full: {before} -> {after}");
+    // A board clock near its end: a wait within the bound that would still
+    // carry it past u64::MAX is refused, and the clock stays where it was.
+    let late = u64::MAX - 1_000_000_000;
+    rig.board.now = late;
+    assert_eq!(refused_with(&rig.ask(req(kind::DELAY, 5), &2_000_000_000u64.to_le_bytes())), refusal::TOO_LARGE);
+    let t = time_of(&rig.ask(req(kind::DELAY, 6), &0u64.to_le_bytes()));
+    assert!((late..late + 1_000_000).contains(&t), "monotonic, not wrapped: {t}");
+}
+
+#[test]
+fn counts_and_lengths_at_their_extremes_are_refused_not_wrapped() {
+    let mut rig = Rig::new();
+    rig.hello(0);
+    // Transaction counts: none, and 255 against max_tx_per_request = 4.
+    assert_eq!(refused_with(&rig.ask(req(kind::RUN, 1), &[0])), refusal::TOO_LARGE);
+    assert_eq!(refused_with(&rig.ask(req(kind::RUN, 2), &[255])), refusal::TOO_LARGE);
+    // 240 reads of 0x7FFF bytes each: far more reply than a frame holds.
+    let mut b = vec![1, 0x29, 0x00, 240];
+    for _ in 0..240 {
+        b.extend_from_slice(&(0x7FFF | READ_FLAG).to_le_bytes());
+    }
+    assert_eq!(refused_with(&rig.ask(req(kind::RUN, 3), &b)), refusal::TOO_LARGE);
+    // A write that claims 0x7FFF bytes and carries three.
+    let mut b = vec![1, 0x29, 0x00, 1];
+    b.extend_from_slice(&0x7FFFu16.to_le_bytes());
+    b.extend_from_slice(&[1, 2, 3]);
+    assert_eq!(refused_with(&rig.ask(req(kind::RUN, 4), &b)), refusal::MALFORMED);
+    // 240 operations (max_ops_per_tx = 8) and the largest address field:
+    // the transaction is refused by status, nothing reaches the bus.
+    let mut b = vec![1, 0x29, 0x00, 240];
+    b.extend(std::iter::repeat_n(0u8, 480));
+    assert_eq!(first_status(&rig.ask(req(kind::RUN, 5), &b)), Status::Refused);
+    let mut b = vec![1, 0xFF, 0xFF, 1];
+    b.extend_from_slice(&0u16.to_le_bytes());
+    assert_eq!(first_status(&rig.ask(req(kind::RUN, 6), &b)), Status::Refused);
+    assert_eq!(rig.board.bus.transactions, 0);
+}
+
+#[test]
+fn a_speed_outside_the_advertised_range_never_reaches_the_board() {
+    let mut rig = Rig::new();
+    rig.hello(0);
+    for (seq, hz) in [(1, 0u32), (2, CAPS.min_speed_hz - 1), (3, CAPS.max_speed_hz + 1), (4, u32::MAX)] {
+        let r = rig.ask(req(kind::SPEED, seq), &hz.to_le_bytes());
+        let mut rd = Reader::new(&r[0].1);
+        rd.u64().unwrap();
+        assert_eq!((rd.u8(), rd.u32()), (Some(1), Some(CAPS.speed_hz)), "{hz} Hz refused, speed kept");
+    }
+    assert!(rig.board.speeds.is_empty(), "asked the board for {:?}", rig.board.speeds);
+    let r = rig.ask(req(kind::SPEED, 5), &CAPS.max_speed_hz.to_le_bytes());
+    assert_eq!(r[0].1[8], 0, "in range: set");
+    assert_eq!(rig.board.speeds, [CAPS.max_speed_hz]);
 }
