@@ -15,7 +15,7 @@ use std::io::Write as _;
 use anyhow::Result;
 
 use crate::bus::BusSpeed;
-use crate::cli::exit;
+use crate::cli::{exit, out};
 use crate::electrical::options::{self, BusTimeOptions, PullupOptions};
 use crate::electrical::tables::{bus_time_table, pullup_table};
 use crate::electrical::units;
@@ -80,7 +80,7 @@ impl PullupArgs {
 
 pub fn run(args: &PullupArgs) -> Result<u8> {
     let report = size_pullups(&args.options().input()?)?;
-    let mut out = std::io::stdout().lock();
+    let mut out = out::locked();
     if args.json {
         writeln!(out, "{}", serde_json::to_string_pretty(&report)?)?;
     } else {
@@ -127,7 +127,7 @@ impl BusTimeArgs {
 
 pub fn run_bus_time(args: &BusTimeArgs) -> Result<u8> {
     let report = args.options().report()?;
-    let mut out = std::io::stdout().lock();
+    let mut out = out::locked();
     if args.json {
         writeln!(out, "{}", serde_json::to_string_pretty(&report)?)?;
     } else {

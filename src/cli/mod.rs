@@ -5,6 +5,7 @@
 pub mod compose;
 pub mod electrical;
 pub mod exit;
+pub mod out;
 
 mod ports;
 mod run;
@@ -171,6 +172,8 @@ pub fn main() -> ExitCode {
     let args = Cli::parse();
     match dispatch(args) {
         Ok(code) => ExitCode::from(code),
+        // The reader of standard output took all it wanted (`| head`).
+        Err(e) if out::closed(&e) => ExitCode::from(exit::OK),
         Err(e) => {
             eprintln!("error: {e:#}");
             ExitCode::from(exit::of_error(&e))
