@@ -283,6 +283,30 @@ fn syntax_and_runtime_errors_carry_file_line_and_traceback() {
     }
 }
 
+// The electrical functions read their options through the electrical
+// room's option table: errors name the function, the option and the
+// script line.
+#[test]
+fn electrical_options_are_checked_by_name() {
+    let (c, err) = fails("local ok = 1\nelectrical.pullup{ vdd = 3.3, bus_capacitance = '100p' }", &[]);
+    assert_eq!(c, 2);
+    assert!(err.contains("t.lua:2: electrical.pullup: unknown option `bus_capacitance`"), "{err}");
+    assert!(err.contains("bus_cap"), "the error lists the known options: {err}");
+    let (c, err) = fails("electrical.pullup{ vdd = 3.3, bus_cap = '100' }", &[]);
+    assert_eq!(c, 2);
+    assert!(err.contains("t.lua:1: electrical.pullup: invalid value '100' for bus_cap"), "{err}");
+    assert!(err.contains("is not a capacitance"), "{err}");
+    let (c, err) = fails("\n\nelectrical.bustime{ read = 1, ops = 'w1,r1' }", &[]);
+    assert_eq!(c, 2);
+    assert!(err.contains("t.lua:3: electrical.bustime: option read cannot be used with ops"), "{err}");
+    let (c, err) = fails("electrical.pullup{ vdd = {3.3}, bus_cap = '100p' }", &[]);
+    assert_eq!(c, 2);
+    assert!(err.contains("t.lua:1: electrical.pullup: option vdd takes one value, not a list"), "{err}");
+    let (c, err) = fails("electrical.pullup{ vdd = true, bus_cap = '100p' }", &[]);
+    assert_eq!(c, 2);
+    assert!(err.contains("t.lua:1: electrical.pullup: option vdd cannot be a boolean"), "{err}");
+}
+
 mod sandbox {
     use super::*;
 

@@ -3,7 +3,9 @@
 //! ([`exit`]) and owns standard output.
 
 pub mod compose;
+pub mod electrical;
 pub mod exit;
+pub mod out;
 pub mod outputs;
 pub mod watchdog;
 
@@ -19,7 +21,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Duration;
 
 use anyhow::{Result, bail};
-use clap::{Args, Parser, Subcommand};
+use clap::{Args, Parser, Subcommand, ValueEnum};
 
 use crate::adapter::{self, AdapterSpec, OpenOptions};
 use crate::bus::BusSpeed;
@@ -44,9 +46,9 @@ pub enum Command {
     /// List the addresses that answer on the bus.
     Scan(scan::ScanArgs),
     /// Size pull-up resistors: the window UM10204 allows, bus loading, E-series picks.
-    Pullup(crate::electrical::cli::PullupArgs),
+    Pullup(electrical::PullupArgs),
     /// Model the time a transaction shape takes on the wire.
-    Bustime(crate::electrical::cli::BusTimeArgs),
+    Bustime(electrical::BusTimeArgs),
     /// Play a trace against an adapter and compare every ACK and read byte.
     Replay(traces::ReplayArgs),
     /// Align two traces by content and show where they differ.
@@ -78,7 +80,27 @@ pub struct BusArgs {
     pub realtime: bool,
     /// Colour the frame log: auto (a terminal, unless NO_COLOR is set), always, never.
     #[arg(long, value_enum, default_value = "auto", alias = "color")]
-    pub colour: ColourChoice,
+    pub colour: Colour,
+}
+
+/// The values of `--colour`; the view decides what `auto` means.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Colour {
+    Auto,
+    Always,
+    Never,
+}
+
+impl Colour {
+    /// Whether to colour standard output.
+    pub fn resolve(self) -> bool {
+        match self {
+            Colour::Auto => ColourChoice::Auto,
+            Colour::Always => ColourChoice::Always,
+            Colour::Never => ColourChoice::Never,
+        }
+        .resolve()
+    }
 }
 
 impl BusArgs {
@@ -152,6 +174,8 @@ pub fn main() -> ExitCode {
     let args = Cli::parse();
     match dispatch(args) {
         Ok(code) => ExitCode::from(code),
+        // The reader of standard output took all it wanted (`| head`).
+        Err(e) if out::closed(&e) => ExitCode::from(exit::OK),
         Err(e) => {
             eprintln!("error: {e:#}");
             ExitCode::from(exit::of_error(&e))
@@ -163,8 +187,8 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
     match cli.command {
         Command::Run(a) => run::run(a),
         Command::Scan(a) => scan::scan(a),
-        Command::Pullup(a) => crate::electrical::cli::run(&a),
-        Command::Bustime(a) => crate::electrical::cli::run_bus_time(&a),
+        Command::Pullup(a) => electrical::run(&a),
+        Command::Bustime(a) => electrical::run_bus_time(&a),
         Command::Replay(a) => traces::replay(a),
         Command::Diff(a) => traces::diff(a),
         Command::ToScript(a) => traces::to_script(a),

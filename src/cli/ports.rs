@@ -52,7 +52,7 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
             list.push((p.clone(), "given".into()));
         }
     }
-    let mut out = std::io::stdout().lock();
+    let mut out = crate::cli::out::locked();
     if list.is_empty() {
         writeln!(out, "no serial ports found")?;
     }

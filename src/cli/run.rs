@@ -7,7 +7,7 @@ use std::time::{Duration, Instant};
 use anyhow::{Context, Result};
 use clap::Args;
 
-use crate::cli::exit;
+use crate::cli::{exit, out};
 use crate::player::RunError;
 use crate::script::{self, RunConfig, Session};
 use crate::trace::{Header, TraceWriter};
@@ -99,9 +99,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     };
     let colour = a.bus.colour.resolve();
     if a.json {
-        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
+        session.add_sink(Box::new(JsonLines::new(out::stdout())));
     } else {
-        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), colour, !a.quiet)));
+        session.add_sink(Box::new(PlainLog::new(out::stdout(), colour, !a.quiet)));
     }
     let cfg = RunConfig {
         script: a.script.clone(),

@@ -5,7 +5,7 @@ use std::io::Write;
 use anyhow::Result;
 use clap::{Args, ValueEnum};
 
-use crate::cli::exit;
+use crate::cli::{exit, out};
 use crate::player::RetryPolicy;
 use crate::player::{Probe, scan_range};
 use crate::script::Session;
@@ -63,7 +63,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let speed = adapter.speed();
     let mut session = Session::new(adapter, interrupt);
     if a.frames && !a.json {
-        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
+        session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
     }
     let probe = match a.probe {
         ProbeArg::Address => Probe::AddressOnly,
@@ -77,7 +77,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
         Err(e) => exit::of_run_error(e),
     };
     let _ = session.finish(code, result.as_ref().err().map(|e| e.to_string()));
-    let mut out = std::io::stdout().lock();
+    let mut stdout = out::locked();
     let found = match result {
         Ok(f) => f,
         Err(e) => {
@@ -89,7 +89,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
         ProbeArg::Address => "address-only write",
         ProbeArg::Read => "one-byte read",
     };
-    let write = |out: &mut std::io::StdoutLock| -> std::io::Result<()> {
+    let write = |out: &mut dyn Write| -> std::io::Result<()> {
         if a.json {
             let v = serde_json::json!({
                 "probed": range.len(),
@@ -109,8 +109,6 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
             writeln!(out, "{} answered", found.len())
         }
     };
-    match write(&mut out) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
-        _ => Ok(code),
-    }
+    write(&mut stdout)?;
+    Ok(code)
 }

@@ -106,7 +106,7 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
     let stop = interrupt_flag()?;
     let (master, slave, path) = pty().context("cannot open a pseudo-terminal")?;
     {
-        let mut out = std::io::stdout().lock();
+        let mut out = crate::cli::out::locked();
         writeln!(out, "{path}")?;
         out.flush()?;
     }

@@ -7,7 +7,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result};
 use clap::Args;
 
-use crate::cli::exit;
+use crate::cli::{exit, out};
 use crate::player::RunError;
 use crate::record::{Record, Stats};
 use crate::script::Session;
@@ -90,9 +90,9 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         session.add_sink(Box::new(w));
     }
     if a.json {
-        session.add_sink(Box::new(JsonLines::new(std::io::stdout())));
+        session.add_sink(Box::new(JsonLines::new(out::stdout())));
     } else if a.frames {
-        session.add_sink(Box::new(PlainLog::new(std::io::stdout(), a.bus.colour.resolve(), true)));
+        session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
     }
     let opts = ReplayOptions {
         time_scale: (!a.no_delays).then_some(a.time_scale),
@@ -112,7 +112,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     for w in reader.warnings().iter().cloned().chain(session.take_warnings()) {
         let _ = writeln!(err, "warning: {w}");
     }
-    let mut out = std::io::stdout().lock();
+    let mut out = out::locked();
     for d in &report.divergences {
         if a.json {
             let v = serde_json::json!({
@@ -203,7 +203,7 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
         let _ = writeln!(err, "warning: {w}");
     }
     let hunks = align(&ka.keys, &kb.keys);
-    let mut out = std::io::stdout().lock();
+    let mut out = out::locked();
     writeln!(out, "A = {} ({} frames)", a.a.display(), ka.keys.len())?;
     writeln!(out, "B = {} ({} frames)", a.b.display(), kb.keys.len())?;
     if !a.quiet {
@@ -286,7 +286,7 @@ pub fn to_script(a: ToScriptArgs) -> Result<u8> {
                 .and_then(|()| f.sync_data())
                 .with_context(|| format!("cannot write {}", p.display()))?
         }
-        None => std::io::stdout().lock().write_all(text.as_bytes())?,
+        None => out::locked().write_all(text.as_bytes())?,
     }
     Ok(exit::OK)
 }

@@ -112,6 +112,8 @@ pub enum ElectricalError {
     NotModelled(BusSpeed),
     #[error("give the bus capacitance: measured, or devices and wire length to estimate it")]
     NoCapacitance,
+    #[error("give the supply voltage of the pull-ups (vdd)")]
+    NoSupply,
     #[error("`{0}` is not an operation list: write w2,r6 (w = bytes written, r = bytes read)")]
     Ops(String),
     #[error("{0}")]

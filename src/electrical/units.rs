@@ -141,8 +141,8 @@ pub fn parse_in(text: &str, unit: Unit, exp: i32) -> Result<f64, QuantityError> 
     if v.is_finite() { Ok(v) } else { Err(err()) }
 }
 
-/// clap value parsers, one per quantity, so every option reads values the
-/// same way.
+/// Value parsers, one per quantity, so every option of every front end
+/// reads values the same way.
 pub fn ohms(text: &str) -> Result<f64, String> {
     parse(text, Unit::Ohm).map_err(|e| e.to_string())
 }

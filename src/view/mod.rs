@@ -9,7 +9,7 @@ pub mod plain;
 use std::io::IsTerminal;
 
 /// When to colour output.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ColourChoice {
     Auto,
     Always,
