@@ -69,6 +69,22 @@ fn lua_string(s: &str) -> String {
     out
 }
 
+/// The reserved words of Lua 5.4 (reference manual §3.1).
+const LUA_KEYWORDS: &[&str] = &[
+    "and", "break", "do", "else", "elseif", "end", "false", "for", "function", "goto", "if", "in", "local", "nil",
+    "not", "or", "repeat", "return", "then", "true", "until", "while",
+];
+
+/// A table key: bare where Lua reads it as a name, quoted otherwise (a
+/// recorded name may be a keyword or start with a digit).
+fn lua_key(name: &str) -> String {
+    let mut chars = name.chars();
+    let is_name = chars.next().is_some_and(|c| c.is_ascii_alphabetic() || c == '_')
+        && chars.all(|c| c.is_ascii_alphanumeric() || c == '_')
+        && !LUA_KEYWORDS.contains(&name);
+    if is_name { name.to_string() } else { format!("[{}]", lua_string(name)) }
+}
+
 /// Milliseconds with nanosecond precision and no trailing zeros.
 fn ms(d: Duration) -> String {
     let s = format!("{:.6}", d.as_nanos() as f64 / 1e6);
@@ -306,9 +322,8 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
         .devices
         .iter()
         .map(|(a, d)| {
-            // Names as quoted keys: a recorded name may be a Lua keyword.
             let regs: Vec<String> =
-                d.regs.iter().map(|(n, at)| format!("[{}] = {{ at = 0x{at:02X} }}", lua_string(n))).collect();
+                d.regs.iter().map(|(n, at)| format!("{} = {{ at = 0x{at:02X} }}", lua_key(n))).collect();
             format!(
                 "local {} = bus.device({}, {{ pointer = {}, map = {{ {} }} }})",
                 d.var,
@@ -414,5 +429,16 @@ mod tests {
             let lua = mlua::Lua::new();
             lua.load(format!("{line}\nreturn 1")).eval::<i64>().unwrap();
         }
+    }
+
+    #[test]
+    fn keys_are_bare_only_where_lua_reads_a_name() {
+        assert_eq!(lua_key("TEMP_HIGH"), "TEMP_HIGH");
+        assert_eq!(lua_key("end"), r#"["end"]"#);
+        assert_eq!(lua_key("1ST"), r#"["1ST"]"#);
+        let lua = mlua::Lua::new();
+        let t: mlua::Table =
+            lua.load(format!("return {{ {} = 1, {} = 2 }}", lua_key("end"), lua_key("1ST"))).eval().unwrap();
+        assert_eq!((t.get::<i64>("end").unwrap(), t.get::<i64>("1ST").unwrap()), (1, 2));
     }
 }
