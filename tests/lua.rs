@@ -457,3 +457,68 @@ fn register_wait_that_times_out_is_a_bus_failure_at_the_script_line() {
         check(not ok and tostring(err):find("never became 0x1"), "pcall catches the timeout")
     "#);
 }
+
+/// A script's texts are capped on the tool's side (the memory limit counts
+/// Lua's allocator only): what was cut is marked in the text and named in
+/// one warning at the end of the run.
+#[test]
+fn a_huge_log_line_is_cut_with_a_marker_and_a_warning() {
+    let (dir, path) = script("t.lua", "local a = 1\nlog(string.rep(\"\\1\", 100 * 1024 * 1024))\nlog(\"after\")\n");
+    let trace = dir.path().join("t.jsonl");
+    let o = run_path(&path, &["--trace", trace.to_str().unwrap(), "-q"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    // 64 KiB of \u0001 escapes (six bytes each) and the rest of the file.
+    let size = std::fs::metadata(&trace).unwrap().len();
+    assert!(size < 512 * 1024, "the trace is {size} bytes");
+    let text = std::fs::read_to_string(&trace).unwrap();
+    let line: serde_json::Value = serde_json::from_str(text.lines().nth(1).unwrap()).unwrap();
+    let logged = line["text"].as_str().unwrap();
+    assert_eq!(logged.len(), 64 * 1024 + "… [cut: 104857600 bytes in all]".len());
+    assert!(
+        logged.starts_with("\u{1}\u{1}") && logged.ends_with("\u{1}… [cut: 104857600 bytes in all]"),
+        "{logged:.40}"
+    );
+    assert!(text.contains("\"text\":\"after\""), "later lines are whole");
+    let err = stderr(&o);
+    assert_eq!(err.matches("warning: ").count(), 1, "{err}");
+    assert!(
+        err.contains("warning: ")
+            && err.contains("t.lua:2: the log line was cut to its first 65536 of 104857600 bytes"),
+        "{err}"
+    );
+}
+
+#[test]
+fn huge_error_texts_step_names_and_check_messages_are_cut_the_same_way() {
+    let o = run_script("local a = 1\nerror(string.rep(\"e\", 1000000), 0)\n", &["--json"]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 2, "{err:.300}");
+    assert!(err.len() < 200 * 1024, "stderr is {} bytes", err.len());
+    assert!(err.contains("eeee… [cut: 1000000 bytes in all]"), "{:.300}", &err[err.len() - 300..]);
+    assert!(err.contains("t.lua:2: the error text was cut to its first 65536 of 1000000 bytes"), "{err:.300}");
+    let recorded = end(&o)["error"].as_str().unwrap().to_string();
+    assert!(recorded.len() < 70 * 1024 && recorded.ends_with("… [cut: 1000000 bytes in all]"));
+
+    let o = run_script("step(string.rep(\"s\", 5000))\nstep(\"next\")\n", &["--json"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let steps: Vec<_> = records(&o).into_iter().filter(|r| r["kind"] == "step").collect();
+    let name = steps[0]["name"].as_str().unwrap();
+    assert_eq!(name, format!("{}… [cut: 5000 bytes in all]", "s".repeat(1024)));
+    assert_eq!(steps[1]["name"], "next");
+    assert!(stderr(&o).contains("t.lua:1: the step name was cut to its first 1024 of 5000 bytes"), "{}", stderr(&o));
+
+    let o = run_script("check_eq(1, 2, string.rep(\"w\", 100000))\n", &[]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 1, "{err:.300}");
+    assert!(err.contains("w… [cut: 100025 bytes in all]"), "{:.300}", &err[err.len() - 300..]);
+    assert!(err.contains("t.lua:1: the check message was cut"), "{err:.300}");
+}
+
+#[test]
+fn byte_strings_longer_than_an_operation_are_refused_before_they_are_copied() {
+    for call in ["bus.write(0x44, string.rep(\"x\", 70000))", "hex(string.rep(\"x\", 70000))"] {
+        let (c, err) = fails(call, &[]);
+        assert_eq!(c, 2, "{call}: {err}");
+        assert!(err.contains("has 70000 bytes; at most 65535 fit one operation"), "{call}: {err}");
+    }
+}

@@ -168,9 +168,14 @@ impl Session {
         }
     }
 
-    /// Warnings collected from failed sinks, for the end of the run.
+    /// Warnings collected from failed sinks and [`Self::warn`], for the end of the run.
     pub fn take_warnings(&mut self) -> Vec<String> {
         std::mem::take(&mut self.warnings)
+    }
+
+    /// A warning for the end of the run (a script's text that was cut).
+    pub fn warn(&mut self, warning: String) {
+        self.warnings.push(warning);
     }
 
     fn emit(&mut self, r: &Record) {

@@ -9,12 +9,13 @@
 use std::rc::Rc;
 use std::time::Duration;
 
-use mlua::{Lua, LuaSerdeExt, Table, Value, Variadic};
+use mlua::{Function, Lua, LuaSerdeExt, Table, Value, Variadic};
 
 use crate::adapter::AdapterError;
 use crate::bus::{Address, Operation, Outcome, Transaction};
 use crate::record::{Level, Purpose};
 
+use super::cap::{self, Message, StepName};
 use super::convert::{self, LuaResult, bad, call_options, ms_option};
 use super::device::DeviceHandle;
 use super::{Abort, Ctx, origin};
@@ -245,19 +246,29 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     install_globals(lua, &g, ctx)
 }
 
-fn join_args(args: &Variadic<Value>) -> LuaResult<String> {
-    let mut parts = Vec::with_capacity(args.len());
-    for v in args.iter() {
-        parts.push(match v {
-            Value::String(s) => s.to_string_lossy(),
-            Value::Integer(i) => i.to_string(),
-            Value::Number(n) => n.to_string(),
-            Value::Boolean(b) => b.to_string(),
-            Value::Nil => "nil".into(),
-            other => other.to_string()?,
-        });
+/// A log line: the arguments as text, separated by spaces, capped at
+/// [`cap::TEXT_CAP`]. Values with a `__tostring` go through the stock
+/// `tostring` (taken before the script ran, so a script cannot replace
+/// it), whose result stays a Lua string until its kept part is copied.
+fn log_line(lua: &Lua, tostring: &Function, args: &Variadic<Value>) -> LuaResult<String> {
+    let mut line = cap::Text::new(cap::TEXT_CAP);
+    for (i, v) in args.iter().enumerate() {
+        if i > 0 {
+            line.push(b" ");
+        }
+        match v {
+            Value::String(s) => line.push(&s.as_bytes()),
+            Value::Integer(n) => line.push(n.to_string().as_bytes()),
+            Value::Number(n) => line.push(n.to_string().as_bytes()),
+            Value::Boolean(b) => line.push(b.to_string().as_bytes()),
+            Value::Nil => line.push(b"nil"),
+            Value::Table(_) | Value::Function(_) | Value::Thread(_) | Value::UserData(_) => {
+                line.push(&tostring.call::<mlua::String>(v.clone())?.as_bytes())
+            }
+            other => line.push(other.to_string()?.as_bytes()),
+        }
     }
-    Ok(parts.join(" "))
+    Ok(line.finish_noted(lua, "log line", origin(lua)))
 }
 
 /// Hex text of a number (`0x1A`, `0x5E11`) or of a byte list (`1A 2B`).
@@ -293,17 +304,35 @@ fn same(a: &Value, b: &Value) -> LuaResult<bool> {
     })
 }
 
-fn shown(v: &Value) -> String {
+/// A value as a check message shows it, onto `out` (a string's bytes
+/// are copied only as far as the message's cap).
+fn show(out: &mut cap::Text, v: &Value) {
     match v {
-        Value::Integer(_) | Value::Table(_) => hex_value(v).unwrap_or_else(|_| format!("{v:?}")),
-        Value::Number(n) => n.to_string(),
-        Value::String(s) => format!("\"{}\"", s.to_string_lossy()),
-        other => other.to_string().unwrap_or_else(|_| other.type_name().to_string()),
+        Value::Integer(_) | Value::Table(_) => out.push(hex_value(v).unwrap_or_else(|_| format!("{v:?}")).as_bytes()),
+        Value::Number(n) => out.push(n.to_string().as_bytes()),
+        Value::String(s) => {
+            out.push(b"\"");
+            out.push(&s.as_bytes());
+            out.push(b"\"");
+        }
+        other => out.push(other.to_string().unwrap_or_else(|_| other.type_name().to_string()).as_bytes()),
     }
 }
 
 fn check_failed(lua: &Lua, message: String) -> mlua::Error {
     mlua::Error::external(Abort::Check { message, origin: origin(lua) })
+}
+
+/// A failed comparison's check: `what` (or "value"), then what `rest`
+/// says, capped at [`cap::TEXT_CAP`] as one message.
+fn failed_comparison(lua: &Lua, what: Option<Message>, rest: impl FnOnce(&mut cap::Text)) -> mlua::Error {
+    let mut m = cap::Text::new(cap::TEXT_CAP);
+    match &what {
+        Some(w) => w.push_to(&mut m),
+        None => m.push(b"value"),
+    }
+    rest(&mut m);
+    check_failed(lua, m.finish_noted(lua, "check message", origin(lua)))
 }
 
 fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
@@ -322,17 +351,19 @@ fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let c = ctx.clone();
     add(lua, g, "now_ms", move |_, ()| Ok(c.session.borrow().now().as_secs_f64() * 1e3))?;
 
+    let tostring: Function = g.get("tostring")?;
     for (name, level) in [("log", Level::Info), ("print", Level::Info), ("warn", Level::Warn)] {
         let c = ctx.clone();
+        let tostring = tostring.clone();
         add(lua, g, name, move |lua, args: Variadic<Value>| {
-            let text = join_args(&args)?;
+            let text = log_line(lua, &tostring, &args)?;
             c.session.borrow_mut().log(level, text, origin(lua));
             Ok(())
         })?;
     }
 
     let c = ctx.clone();
-    add(lua, g, "step", move |lua, name: String| {
+    add(lua, g, "step", move |lua, StepName(name)| {
         c.session.borrow_mut().step(name, origin(lua));
         Ok(())
     })?;
@@ -375,26 +406,29 @@ fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
         }
     })?;
 
-    add(lua, g, "check", |lua, (cond, message): (Value, Option<String>)| {
+    add(lua, g, "check", |lua, (cond, message): (Value, Option<Message>)| {
         if matches!(cond, Value::Nil | Value::Boolean(false)) {
-            return Err(check_failed(lua, message.unwrap_or_else(|| "condition is false".into())));
+            return Err(check_failed(lua, message.map_or_else(|| "condition is false".into(), |m| m.into_text(lua))));
         }
         Ok(())
     })?;
 
-    add(lua, g, "check_eq", |lua, (actual, expected, what): (Value, Value, Option<String>)| {
+    add(lua, g, "check_eq", |lua, (actual, expected, what): (Value, Value, Option<Message>)| {
         if !same(&actual, &expected)? {
-            let what = what.unwrap_or_else(|| "value".into());
-            return Err(check_failed(lua, format!("{what}: expected {}, got {}", shown(&expected), shown(&actual))));
+            return Err(failed_comparison(lua, what, |m| {
+                m.push(b": expected ");
+                show(m, &expected);
+                m.push(b", got ");
+                show(m, &actual);
+            }));
         }
         Ok(())
     })?;
 
-    add(lua, g, "check_range", |lua, (v, lo, hi, what): (Value, Value, Value, Option<String>)| {
+    add(lua, g, "check_range", |lua, (v, lo, hi, what): (Value, Value, Value, Option<Message>)| {
         let (x, l, h) = (convert::number(&v, "value")?, convert::number(&lo, "low")?, convert::number(&hi, "high")?);
         if !(l..=h).contains(&x) {
-            let what = what.unwrap_or_else(|| "value".into());
-            return Err(check_failed(lua, format!("{what}: expected {l} to {h}, got {x}")));
+            return Err(failed_comparison(lua, what, |m| m.push(format!(": expected {l} to {h}, got {x}").as_bytes())));
         }
         Ok(())
     })?;

@@ -49,18 +49,26 @@ pub fn address(v: &Value) -> LuaResult<Address> {
     }
 }
 
-/// Bytes from a table of numbers, a string of raw bytes, or one number.
+/// Bytes from a table of numbers, a string of raw bytes, or one number;
+/// at most one operation's worth (`MAX_OPERATION_BYTES`), whatever the
+/// value is handed to (`hex` too).
 pub fn bytes(v: &Value, what: &str) -> LuaResult<Vec<u8>> {
     let byte = |i: usize, v: &Value| -> LuaResult<u8> {
         let n = integer(v, &format!("{what} byte {i}"))?;
         u8::try_from(n).map_err(|_| bad(format!("{what} byte {i} is {n}; bytes are 0-255")))
     };
+    // Checked before copying: a long table or string is Lua's to count,
+    // its copy would be ours.
+    let fits = |len: usize| -> LuaResult<()> {
+        if len > MAX_OPERATION_BYTES {
+            return Err(bad(format!("{what} has {len} bytes; at most {MAX_OPERATION_BYTES} fit one operation")));
+        }
+        Ok(())
+    };
     match v {
         Value::Table(t) => {
             let len = t.raw_len();
-            if len > MAX_OPERATION_BYTES {
-                return Err(bad(format!("{what} has {len} bytes; at most {MAX_OPERATION_BYTES} fit one operation")));
-            }
+            fits(len)?;
             let mut out = Vec::with_capacity(len);
             for i in 1..=len {
                 out.push(byte(i, &t.raw_get::<Value>(i)?)?);
@@ -71,7 +79,11 @@ pub fn bytes(v: &Value, what: &str) -> LuaResult<Vec<u8>> {
             }
             Ok(out)
         }
-        Value::String(s) => Ok(s.as_bytes().to_vec()),
+        Value::String(s) => {
+            let bytes = s.as_bytes();
+            fits(bytes.len())?;
+            Ok(bytes.to_vec())
+        }
         Value::Integer(_) | Value::Number(_) => Ok(vec![byte(1, v)?]),
         other => Err(bad(format!("{what} must be a list of bytes, got {}", type_name(other)))),
     }

@@ -17,6 +17,7 @@
 
 pub mod api;
 pub mod batch;
+pub mod cap;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
@@ -311,6 +312,7 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
     };
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
     lua.set_app_data(KnownFunctions::default());
+    lua.set_app_data(cap::Cuts::default());
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
     // The session holds the run's deadline, so waits on the Rust side
     // (retries, polling, sleeps) end at the same moment the hook would.
@@ -356,18 +358,43 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
                 let tb = frames.iter().map(|o| format!("  at {o}")).collect::<Vec<_>>().join("\n");
                 *tb_ctx.traceback.borrow_mut() = Some(tb);
             }
-            Ok(err)
+            // Cut a huge error text here, inside Lua, before the tool
+            // copies it.
+            Ok(cap::error_value(lua, err, frames.first().cloned()))
         })
         .map_err(|e| script_err(e.to_string()))?;
     let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
-    let result: MultiValue = xpcall.call((main, handler)).map_err(|e| locate(classify(&e), innermost.take(), &file))?;
-    let mut values = result.into_iter();
-    match values.next() {
-        Some(Value::Boolean(true)) => Ok(()),
-        _ => {
-            let err = values.next().unwrap_or(Value::Nil);
-            Err(locate(classify_value(&err), innermost.take(), &file))
+    let result = match xpcall.call::<MultiValue>((main, handler)) {
+        Err(e) => Err(locate(classify(&e), innermost.take(), &file)),
+        Ok(values) => {
+            let mut values = values.into_iter();
+            match values.next() {
+                Some(Value::Boolean(true)) => Ok(()),
+                _ => {
+                    let err = values.next().unwrap_or(Value::Nil);
+                    Err(locate(classify_value(&err), innermost.take(), &file))
+                }
+            }
         }
+    };
+    let result = result.map_err(|a| bounded(&lua, a));
+    if let Some(w) = lua.remove_app_data::<cap::Cuts>().and_then(|c| c.warning()) {
+        ctx.session.borrow_mut().warn(w);
+    }
+    result
+}
+
+/// The abort with its message bounded ([`cap::bounded`]): a message the
+/// tool built may hold whatever a script passed it.
+fn bounded(lua: &Lua, abort: Abort) -> Abort {
+    match abort {
+        Abort::Check { message, origin } => {
+            Abort::Check { message: cap::bounded(lua, message, origin.clone()), origin }
+        }
+        Abort::Script { message, origin } => {
+            Abort::Script { message: cap::bounded(lua, message, origin.clone()), origin }
+        }
+        other => other,
     }
 }
 
