@@ -13,7 +13,7 @@ use crate::record::{Record, Stats};
 use crate::script::Session;
 use crate::trace::diff::{Hunk, Keyed, align, key_files};
 use crate::trace::mask::{Mask, Masks};
-use crate::trace::replay::{ReplayOptions, Stop, check_scale, replay as play};
+use crate::trace::replay::{ReplayOptions, Stop, check as check_trace, check_scale, replay as play};
 use crate::trace::to_script::{ScriptOptions, to_script as convert};
 use crate::trace::{Header, Trace, TraceReader, TraceWriter};
 use crate::view::format::{frame_line, human};
@@ -70,6 +70,19 @@ pub struct ReplayArgs {
 }
 
 pub fn replay(a: ReplayArgs) -> Result<u8> {
+    let time_scale = (!a.no_delays).then_some(a.time_scale);
+    // The whole trace is read and checked before the adapter is opened:
+    // a damaged line refuses the replay, not a part of it.
+    let mut checked = TraceReader::open(&a.trace)?;
+    let check = check_trace(&mut checked, time_scale);
+    let trace_warnings = checked.warnings().to_vec();
+    if let Err(e) = check {
+        let mut err = std::io::stderr().lock();
+        for w in &trace_warnings {
+            let _ = writeln!(err, "warning: {w}");
+        }
+        anyhow::bail!("{e} (nothing was replayed)");
+    }
     let mut reader = TraceReader::open(&a.trace)?;
     let interrupt = interrupt_flag()?;
     let mut adapter = a.bus.open()?;
@@ -94,11 +107,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     } else if a.frames {
         session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
     }
-    let opts = ReplayOptions {
-        time_scale: (!a.no_delays).then_some(a.time_scale),
-        keep_going: a.no_stop,
-        masks: Masks(a.mask.clone()),
-    };
+    let opts = ReplayOptions { time_scale, keep_going: a.no_stop, masks: Masks(a.mask.clone()) };
     let report = play(&mut session, &mut reader, &opts);
     let (code, error) = match &report.stopped {
         Some(Stop::Trace(e)) => (exit::INPUT, Some(e.to_string())),
@@ -109,7 +118,9 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     };
     let closed = session.finish(code, error.clone());
     let mut err = std::io::stderr().lock();
-    for w in reader.warnings().iter().cloned().chain(session.take_warnings()) {
+    // The check read the whole file, so its warnings are complete (the
+    // replay may have stopped before a cut last line).
+    for w in trace_warnings.into_iter().chain(session.take_warnings()) {
         let _ = writeln!(err, "warning: {w}");
     }
     let mut out = out::locked();

@@ -15,6 +15,8 @@
 //!   byte index, expected and actual values and the original script line.
 //! - The replay stops after the first frame that diverges unless told to
 //!   go on; it stops at once on an adapter failure or an interrupt.
+//! - A damaged trace is refused whole: [`check`] reads it through first
+//!   (streaming), so no frame of it reaches the adapter.
 
 use std::cell::RefCell;
 use std::fmt;
@@ -205,7 +207,57 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
 /// scaled): a month is longer than any bench recording.
 pub const MAX_OFFSET: Duration = Duration::from_secs(30 * 86_400);
 
+/// When frame `f` (just read from `trace`) starts after the replay's
+/// start: `None` with no scale (back to back), an error when it is beyond
+/// [`MAX_OFFSET`].
+fn offset<R: BufRead>(
+    trace: &TraceReader<R>,
+    f: &Frame,
+    clock0: Duration,
+    scale: Option<f64>,
+) -> Option<Result<Duration, TraceError>> {
+    let scale = scale?;
+    let offset = f.t.saturating_sub(clock0).as_secs_f64() * scale;
+    if offset <= MAX_OFFSET.as_secs_f64() {
+        return Some(Ok(Duration::from_secs_f64(offset)));
+    }
+    // A frame time far beyond any real recording is damage (or an
+    // attack): refuse it rather than wait for centuries.
+    Some(Err(TraceError::Corrupt {
+        file: trace.file().to_string(),
+        line: trace.line(),
+        detail: format!(
+            "frame {} would be replayed {offset:.0} s after the start; a recording longer than {} days is taken as \
+             damaged",
+            f.seq,
+            MAX_OFFSET.as_secs() / 86_400
+        ),
+    }))
+}
+
+/// Reads the rest of `trace` and checks it as [`replay`] would on its
+/// way: every line is a readable record (a cut last line is a warning,
+/// as ever) and no frame starts beyond [`MAX_OFFSET`] at this
+/// `time_scale`. A first pass over a fresh reader before the replay, so a
+/// damaged trace sends nothing to the board: one record in memory at a
+/// time, the cost of parsing the file once more. Returns the frames.
+pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) -> Result<u64, TraceError> {
+    let clock0 = trace.header().clock;
+    let mut frames = 0;
+    while let Some(record) = trace.next_record()? {
+        if let Record::Frame(f) = record {
+            if let Some(Err(e)) = offset(trace, &f, clock0, time_scale) {
+                return Err(e);
+            }
+            frames += 1;
+        }
+    }
+    Ok(frames)
+}
+
 /// Replays the rest of `trace` through `session`; see the module contract.
+/// Check the trace with [`check`] first: a line this finds damaged stops
+/// the replay there, after the frames before it were sent.
 pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opts: &ReplayOptions) -> ReplayReport {
     let last = Rc::new(RefCell::new(None));
     session.add_sink(Box::new(LastFrame(last.clone())));
@@ -229,24 +281,15 @@ pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opt
             }
             Record::Log { .. } | Record::End { .. } => continue,
         };
-        if let Some(scale) = opts.time_scale {
-            // A frame time far beyond any real recording is damage (or an
-            // attack): refuse it rather than wait for centuries.
-            let offset = f.t.saturating_sub(clock0).as_secs_f64() * scale;
-            if offset > MAX_OFFSET.as_secs_f64() {
-                report.stopped = Some(Stop::Trace(TraceError::Corrupt {
-                    file: trace.file().to_string(),
-                    line: trace.line(),
-                    detail: format!(
-                        "frame {} would be replayed {offset:.0} s after the start; a recording longer than {} days \
-                         is taken as damaged",
-                        f.seq,
-                        MAX_OFFSET.as_secs() / 86_400
-                    ),
-                }));
-                break;
-            }
-            let target = start + Duration::from_secs_f64(offset);
+        if let Some(offset) = offset(trace, &f, clock0, opts.time_scale) {
+            let offset = match offset {
+                Ok(o) => o,
+                Err(e) => {
+                    report.stopped = Some(Stop::Trace(e));
+                    break;
+                }
+            };
+            let target = start + offset;
             let now = session.now();
             if target > now
                 && let Err(e) = session.delay(target - now)
