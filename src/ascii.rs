@@ -84,6 +84,13 @@ fn needs_escape(c: char) -> bool {
     c == '\\' || c.is_control() || c == '\u{2028}' || c == '\u{2029}'
 }
 
+/// The length of the leading run of printable ASCII other than a
+/// backslash: text that needs no escape, found by a byte scan instead of
+/// decoding characters (the usual file name or register name is all of it).
+fn clean_ascii_len(s: &str) -> usize {
+    s.bytes().position(|b| !(0x20..0x7F).contains(&b) || b == b'\\').unwrap_or(s.len())
+}
+
 /// Text from a recording, a script or a file, made safe to show or to
 /// put in a line of generated code: every control character (below 0x20,
 /// tab included, 0x7F, the C1 controls U+0080-U+009F) and the Unicode line
@@ -92,7 +99,8 @@ fn needs_escape(c: char) -> bool {
 /// and cannot drive a terminal or end a comment. Plain text is returned as
 /// it is, without a copy.
 pub fn escape_controls(s: &str) -> std::borrow::Cow<'_, str> {
-    if !s.chars().any(needs_escape) {
+    let clean = clean_ascii_len(s);
+    if !s[clean..].chars().any(needs_escape) {
         return std::borrow::Cow::Borrowed(s);
     }
     let mut out = String::with_capacity(s.len() + 8);
@@ -104,8 +112,9 @@ pub fn escape_controls(s: &str) -> std::borrow::Cow<'_, str> {
 /// reused buffer (the frame line): plain runs are copied whole and nothing
 /// is allocated.
 pub fn push_escaped(out: &mut String, s: &str) {
+    let clean = clean_ascii_len(s);
     let mut plain_from = 0;
-    for (i, c) in s.char_indices().filter(|&(_, c)| needs_escape(c)) {
+    for (i, c) in s[clean..].char_indices().map(|(i, c)| (clean + i, c)).filter(|&(_, c)| needs_escape(c)) {
         out.push_str(&s[plain_from..i]);
         plain_from = i + c.len_utf8();
         match c {
@@ -162,6 +171,8 @@ mod tests {
     fn control_characters_are_shown_not_sent() {
         assert_eq!(escape_controls("plain text, 25 °C"), "plain text, 25 °C");
         assert!(matches!(escape_controls("plain"), std::borrow::Cow::Borrowed(_)));
+        assert!(matches!(escape_controls("25 °C, 50 %RH"), std::borrow::Cow::Borrowed(_)));
+        assert_eq!(escape_controls("°\\"), "°\\\\", "an escape after the ASCII run");
         // ESC ] 0 ; title BEL, ESC [ 2 J: a terminal title and a screen clear.
         assert_eq!(escape_controls("\u{1b}]0;x\u{7}\u{1b}[2J"), "\\x1B]0;x\\x07\\x1B[2J");
         assert_eq!(escape_controls("a\rb\nc\td\\e"), "a\\rb\\nc\\td\\\\e");
