@@ -1,6 +1,6 @@
 //! Text from a script, a recording or a file is shown on a person's
 //! screen, never obeyed: the frame log, error lines, replay and diff
-//! reports write control characters visibly (`\x1B`, `\r`, `\u{009B}`),
+//! reports and serve's messages write control characters visibly (`\x1B`, `\r`, `\u{009B}`),
 //! while `--json` and the trace keep the exact text.
 
 mod common;
@@ -198,4 +198,37 @@ fn bench_file_names_are_shown_escaped() {
     assert_inert("the run", &format!("{}{}", stdout(&o), stderr(&o)));
     let t = Trace::load(&trace).unwrap();
     assert_eq!(t.header.adapter.identity.description, "board\u{1b}]0;x\u{7}: desc\u{1b}[2J\r");
+}
+
+#[cfg(unix)]
+#[test]
+fn serve_shows_bench_and_profile_names_escaped() {
+    use std::io::{BufRead, BufReader};
+    use std::process::Stdio;
+
+    let dir = tempfile::tempdir().unwrap();
+    let stock = std::fs::read_to_string(common::root().join("adapters/dialect-stepwise.toml")).unwrap();
+    let changed = stock.replacen("name = \"stepwise\"", "name = \"step\\u001b]0;x\\u0007\"", 1);
+    assert_ne!(stock, changed);
+    let profile = dir.path().join("profile.toml");
+    std::fs::write(&profile, changed).unwrap();
+    let bench = dir.path().join("bench\u{1b}[2J.toml");
+    std::fs::copy(common::root().join("adapters/greenhouse.toml"), &bench).unwrap();
+
+    let mut child = buscue()
+        .args(["serve", "--speak", &format!("dialect:{}", profile.display())])
+        .args(["--bench", &format!("sim:{}", bench.display())])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut path = String::new();
+    BufReader::new(child.stdout.take().unwrap()).read_line(&mut path).unwrap();
+    let mut said = String::new();
+    BufReader::new(child.stderr.take().unwrap()).read_line(&mut said).unwrap();
+    let _ = child.kill();
+    let _ = child.wait();
+    assert!(path.starts_with("/dev/"), "{path:?}");
+    assert_inert("serve's message", &said);
+    assert!(said.contains("bench\\x1B[2J.toml") && said.contains("(step\\x1B]0;x\\x07 text dialect)"), "{said}");
 }
