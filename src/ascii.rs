@@ -1,7 +1,9 @@
 //! ASCII numbers written without the `fmt` machinery, for text built once
 //! per frame (frame lines, address text): a `write!` through a formatter
 //! costs hundreds of instructions where these cost tens, and the frame log
-//! is on every transaction's path.
+//! is on every transaction's path. Also the one escaper for text that
+//! came from a script, a recording or a file ([`escape_controls`],
+//! [`push_escaped`]): every screen shows such text, never obeys it.
 
 const HEX: &[u8; 16] = b"0123456789ABCDEF";
 
@@ -75,6 +77,20 @@ pub fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
     }
 }
 
+/// Whether `c` is written escaped: a backslash (the escape's own marker),
+/// a control character (below 0x20, tab included, 0x7F, the C1 controls
+/// U+0080-U+009F) or a Unicode line or paragraph separator.
+fn needs_escape(c: char) -> bool {
+    c == '\\' || c.is_control() || c == '\u{2028}' || c == '\u{2029}'
+}
+
+/// The length of the leading run of printable ASCII other than a
+/// backslash: text that needs no escape, found by a byte scan instead of
+/// decoding characters (the usual file name or register name is all of it).
+fn clean_ascii_len(s: &str) -> usize {
+    s.bytes().position(|b| !(0x20..0x7F).contains(&b) || b == b'\\').unwrap_or(s.len())
+}
+
 /// Text from a recording, a script or a file, made safe to show or to
 /// put in a line of generated code: every control character (below 0x20,
 /// tab included, 0x7F, the C1 controls U+0080-U+009F) and the Unicode line
@@ -83,22 +99,34 @@ pub fn push_hex_bytes(out: &mut String, bytes: &[u8]) {
 /// and cannot drive a terminal or end a comment. Plain text is returned as
 /// it is, without a copy.
 pub fn escape_controls(s: &str) -> std::borrow::Cow<'_, str> {
-    let special = |c: char| c == '\\' || c.is_control() || c == '\u{2028}' || c == '\u{2029}';
-    if !s.chars().any(special) {
+    let clean = clean_ascii_len(s);
+    if !s[clean..].chars().any(needs_escape) {
         return std::borrow::Cow::Borrowed(s);
     }
     let mut out = String::with_capacity(s.len() + 8);
-    for c in s.chars() {
+    push_escaped(&mut out, s);
+    std::borrow::Cow::Owned(out)
+}
+
+/// Appends `s` escaped as [`escape_controls`] does, for text built into a
+/// reused buffer (the frame line): plain runs are copied whole and nothing
+/// is allocated.
+pub fn push_escaped(out: &mut String, s: &str) {
+    let clean = clean_ascii_len(s);
+    let mut plain_from = 0;
+    for (i, c) in s[clean..].char_indices().map(|(i, c)| (clean + i, c)).filter(|&(_, c)| needs_escape(c)) {
+        out.push_str(&s[plain_from..i]);
+        plain_from = i + c.len_utf8();
         match c {
             '\\' => out.push_str("\\\\"),
             '\n' => out.push_str("\\n"),
             '\r' => out.push_str("\\r"),
             '\t' => out.push_str("\\t"),
-            c if (c as u32) < 0x80 && special(c) => {
+            c if (c as u32) < 0x80 => {
                 out.push_str("\\x");
-                push_hex_byte(&mut out, c as u8);
+                push_hex_byte(out, c as u8);
             }
-            c if special(c) => {
+            c => {
                 out.push_str("\\u{");
                 let n = c as u32;
                 for shift in [12, 8, 4, 0] {
@@ -106,10 +134,9 @@ pub fn escape_controls(s: &str) -> std::borrow::Cow<'_, str> {
                 }
                 out.push('}');
             }
-            c => out.push(c),
         }
     }
-    std::borrow::Cow::Owned(out)
+    out.push_str(&s[plain_from..]);
 }
 
 #[cfg(test)]
@@ -144,6 +171,8 @@ mod tests {
     fn control_characters_are_shown_not_sent() {
         assert_eq!(escape_controls("plain text, 25 °C"), "plain text, 25 °C");
         assert!(matches!(escape_controls("plain"), std::borrow::Cow::Borrowed(_)));
+        assert!(matches!(escape_controls("25 °C, 50 %RH"), std::borrow::Cow::Borrowed(_)));
+        assert_eq!(escape_controls("°\\"), "°\\\\", "an escape after the ASCII run");
         // ESC ] 0 ; title BEL, ESC [ 2 J: a terminal title and a screen clear.
         assert_eq!(escape_controls("\u{1b}]0;x\u{7}\u{1b}[2J"), "\\x1B]0;x\\x07\\x1B[2J");
         assert_eq!(escape_controls("a\rb\nc\td\\e"), "a\\rb\\nc\\td\\\\e");
@@ -153,5 +182,11 @@ mod tests {
             let e = escape_controls(&c.to_string()).into_owned();
             assert!(!e.chars().any(|x| x.is_control()), "U+{b:04X} escapes to {e:?}");
         }
+        // Into a buffer: what was there stays, plain runs around an escape are kept whole.
+        let mut line = String::from("[");
+        push_escaped(&mut line, "a\u{1b}[2Jb°\u{9b}");
+        push_escaped(&mut line, "");
+        push_escaped(&mut line, "c");
+        assert_eq!(line, "[a\\x1B[2Jb°\\u{009B}c");
     }
 }

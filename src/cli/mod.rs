@@ -1,6 +1,12 @@
 //! The command line: the top room. The only place that parses arguments,
 //! composes adapters from `--adapter` ([`compose`]), chooses exit codes
 //! ([`exit`]) and owns standard output.
+//!
+//! Whatever a command prints for a person and that may carry text from a
+//! script, a recording or a file (errors, warnings, paths, names) goes
+//! through [`shown`], so it is displayed and never drives the terminal.
+//! Machine output (`--json`, trace files, `to-script`) keeps its own exact
+//! or escaped forms.
 
 pub mod compose;
 pub mod electrical;
@@ -169,6 +175,17 @@ pub fn interrupt_flag() -> Result<Arc<AtomicBool>> {
     Ok(flag)
 }
 
+/// `x` as text safe for a person's screen: control characters written
+/// visibly ([`crate::ascii::escape_controls`]). For messages, not for
+/// frames: it allocates.
+pub(crate) fn shown(x: impl std::fmt::Display) -> String {
+    let text = x.to_string();
+    match crate::ascii::escape_controls(&text) {
+        std::borrow::Cow::Borrowed(_) => text,
+        std::borrow::Cow::Owned(escaped) => escaped,
+    }
+}
+
 /// The `buscue` command: parse, dispatch, exit.
 pub fn main() -> ExitCode {
     let args = Cli::parse();
@@ -177,7 +194,7 @@ pub fn main() -> ExitCode {
         // The reader of standard output took all it wanted (`| head`).
         Err(e) if out::closed(&e) => ExitCode::from(exit::OK),
         Err(e) => {
-            eprintln!("error: {e:#}");
+            eprintln!("error: {}", shown(format_args!("{e:#}")));
             ExitCode::from(exit::of_error(&e))
         }
     }

@@ -11,6 +11,8 @@ use serialport::SerialPortType;
 use crate::adapter::NativeSettings;
 use crate::adapter::native::probe;
 
+use super::shown;
+
 #[derive(Args, Debug)]
 pub struct PortsArgs {
     /// Try the native handshake on each port and say which answer.
@@ -64,9 +66,9 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
                 Ok(desc) => format!("answers: {desc}"),
                 Err(e) => format!("no native adapter ({e})"),
             };
-            writeln!(out, "{name}\t{what}\t{answer}")?;
+            writeln!(out, "{}\t{}\t{}", shown(name), shown(what), shown(&answer))?;
         } else {
-            writeln!(out, "{name}\t{what}")?;
+            writeln!(out, "{}\t{}", shown(name), shown(what))?;
         }
     }
     Ok(crate::cli::exit::OK)

@@ -17,7 +17,7 @@ use crate::view::plain::PlainLog;
 
 use super::outputs;
 use super::watchdog::Watchdog;
-use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration};
+use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration, shown};
 
 #[derive(Args, Debug)]
 pub struct RunArgs {
@@ -126,7 +126,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let closed = session.finish(code, error.clone());
     let mut err = std::io::stderr().lock();
     for w in session.take_warnings() {
-        let _ = writeln!(err, "warning: {w}");
+        let _ = writeln!(err, "warning: {}", shown(w));
     }
     for p in &report.unused_params {
         let _ = writeln!(err, "warning: --set {p} was never read by the script");
@@ -138,20 +138,22 @@ pub fn run(a: RunArgs) -> Result<u8> {
         }
     }
     if let Some(p) = &trace_path {
-        let _ = writeln!(err, "trace: {}", p.display());
+        let _ = writeln!(err, "trace: {}", shown(p.display()));
     }
     if let Some(msg) = error {
-        let _ = writeln!(err, "error: {msg}");
-        if let Some(tb) = &report.traceback {
-            let _ = writeln!(err, "{tb}");
+        let _ = writeln!(err, "error: {}", shown(msg));
+        // One line per frame: escaped line by line, so the breaks between
+        // frames stay breaks.
+        for line in report.traceback.iter().flat_map(|tb| tb.lines()) {
+            let _ = writeln!(err, "{}", shown(line));
         }
     }
     if let Err(e) = closed {
         // A trace that could not be written fails the run even when the
         // script did not; so does an adapter that cannot be closed.
         let _ = match &e {
-            RunError::Adapter(e) => writeln!(err, "error: closing the adapter: {e}"),
-            e => writeln!(err, "error: {e}"),
+            RunError::Adapter(e) => writeln!(err, "error: closing the adapter: {}", shown(e)),
+            e => writeln!(err, "error: {}", shown(e)),
         };
         return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }

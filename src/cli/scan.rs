@@ -11,7 +11,7 @@ use crate::player::{Probe, scan_range};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag};
+use super::{BusArgs, interrupt_flag, shown};
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum ProbeArg {
@@ -81,7 +81,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let found = match result {
         Ok(f) => f,
         Err(e) => {
-            eprintln!("error: scan stopped: {e}");
+            eprintln!("error: scan stopped: {}", shown(e));
             return Ok(code);
         }
     };

@@ -15,7 +15,7 @@ use crate::adapter::{Adapter as _, AdapterSpec, OpenOptions};
 use crate::serve::dialect::DialectServer;
 use crate::serve::{LinkFaults, ServeEnd, pty, serve as serve_loop, serve_native};
 
-use super::{interrupt_flag, parse_adapter};
+use super::{interrupt_flag, parse_adapter, shown};
 
 /// The protocol the served adapter speaks.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -112,9 +112,9 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
     }
     let speak = match &profile {
         None => "native protocol".to_string(),
-        Some(p) => format!("{} text dialect", p.name),
+        Some(p) => format!("{} text dialect", shown(&p.name)),
     };
-    eprintln!("serving {} on {path} ({speak}); Ctrl-C to stop", sim.identity().target);
+    eprintln!("serving {} on {path} ({speak}); Ctrl-C to stop", shown(&sim.identity().target));
     let (end, counts) = match profile {
         None => {
             let (end, server) = serve_native(sim, master, Some(slave), &faults, &stop)?;

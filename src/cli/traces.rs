@@ -20,7 +20,7 @@ use crate::view::format::{frame_line, human};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag, outputs, parse_duration};
+use super::{BusArgs, interrupt_flag, outputs, parse_duration, shown};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
@@ -121,7 +121,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     // The check read the whole file, so its warnings are complete (the
     // replay may have stopped before a cut last line).
     for w in trace_warnings.into_iter().chain(session.take_warnings()) {
-        let _ = writeln!(err, "warning: {w}");
+        let _ = writeln!(err, "warning: {}", shown(w));
     }
     let mut out = out::locked();
     for d in &report.divergences {
@@ -134,7 +134,8 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
             });
             let _ = writeln!(out, "{v}");
         } else {
-            let _ = writeln!(out, "diverged: {d}");
+            // Its decoded name and origin come from the recording.
+            let _ = writeln!(out, "diverged: {}", shown(d));
         }
     }
     let verdict = if report.divergences.is_empty() { "matches the recording" } else { "DIVERGES from the recording" };
@@ -143,7 +144,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         "replayed {} frame{} of {}: {verdict} ({} divergence{} in {} frame{}{}{})",
         report.frames,
         if report.frames == 1 { "" } else { "s" },
-        a.trace.display(),
+        shown(a.trace.display()),
         report.divergences.len(),
         if report.divergences.len() == 1 { "" } else { "s" },
         report.diverged_frames,
@@ -152,10 +153,10 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" },
     );
     if let Some(e) = error {
-        let _ = writeln!(err, "error: replay stopped: {e}");
+        let _ = writeln!(err, "error: replay stopped: {}", shown(e));
     }
     if let Err(e) = closed {
-        let _ = writeln!(err, "error: closing the adapter: {e:#}");
+        let _ = writeln!(err, "error: closing the adapter: {}", shown(format_args!("{e:#}")));
         return Ok(if code == exit::OK { exit::ADAPTER } else { code });
     }
     Ok(code)
@@ -211,12 +212,12 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
     let (ka, kb) = key_files(&a.a, &a.b, &masks)?;
     let mut err = std::io::stderr().lock();
     for w in ka.warnings.iter().chain(&kb.warnings) {
-        let _ = writeln!(err, "warning: {w}");
+        let _ = writeln!(err, "warning: {}", shown(w));
     }
     let hunks = align(&ka.keys, &kb.keys);
     let mut out = out::locked();
-    writeln!(out, "A = {} ({} frames)", a.a.display(), ka.keys.len())?;
-    writeln!(out, "B = {} ({} frames)", a.b.display(), kb.keys.len())?;
+    writeln!(out, "A = {} ({} frames)", shown(a.a.display()), ka.keys.len())?;
+    writeln!(out, "B = {} ({} frames)", shown(a.b.display()), kb.keys.len())?;
     if !a.quiet {
         for (n, Hunk { a: ra, b: rb }) in hunks.iter().take(a.show).enumerate() {
             writeln!(
@@ -287,7 +288,7 @@ pub fn to_script(a: ToScriptArgs) -> Result<u8> {
     }
     let trace = Trace::load(&a.trace)?;
     for w in &trace.warnings {
-        eprintln!("warning: {w}");
+        eprintln!("warning: {}", shown(w));
     }
     let text = convert(&trace, &ScriptOptions { checks: a.checks });
     match &a.output {

@@ -96,11 +96,11 @@ fn fire(code: u8, why: String, trace: &Option<TraceRescue>, path: &Option<String
     if let Some(t) = trace
         && let Err(e) = t.end(code, &message)
     {
-        let _ = writeln!(err, "error: cannot end the trace: {e}");
+        let _ = writeln!(err, "error: cannot end the trace: {}", super::shown(e));
     }
     if let Some(p) = path {
-        let _ = writeln!(err, "trace: {p}");
+        let _ = writeln!(err, "trace: {}", super::shown(p));
     }
-    let _ = writeln!(err, "error: {message}");
+    let _ = writeln!(err, "error: {}", super::shown(&message));
     std::process::exit(code as i32)
 }

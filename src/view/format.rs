@@ -13,12 +13,19 @@
 //! happened shows `?xN`), the result, the attempt when retried, why the
 //! tool sent it (scan, ack-poll, poll), decoded register names, and the
 //! script line.
+//!
+//! Text a script, a recording or a file supplied (log text, step names,
+//! decoded register names, origin file names) is written through
+//! [`crate::ascii`]'s escaper, so a frame log shows a control sequence
+//! instead of obeying it; the only escape sequences a line carries are
+//! the palette's own colours.
 
 use std::fmt::Write as _;
 use std::time::Duration;
 
 use crate::ascii::{
-    push_hex_byte as push_hex, push_hex_bytes, push_spaces, push_uint, push_uint_left, push_uint_right,
+    escape_controls, push_escaped, push_hex_byte as push_hex, push_hex_bytes, push_spaces, push_uint, push_uint_left,
+    push_uint_right,
 };
 use crate::bus::{Operation, Outcome};
 use crate::record::Frame;
@@ -210,13 +217,13 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
     }
     if let Some(d) = &f.decoded {
         s.push_str(" [");
-        s.push_str(d);
+        push_escaped(s, d);
         s.push(']');
     }
     if let Some(o) = &f.origin {
         s.push_str("  ");
         s.push_str(p.dim);
-        s.push_str(&o.file);
+        push_escaped(s, &o.file);
         s.push(':');
         push_uint(s, o.line as u64, 1);
         s.push_str(p.reset);
@@ -227,12 +234,14 @@ pub fn write_frame_line(s: &mut String, f: &Frame, colour: bool) {
 pub fn log_line(t: Duration, warn: bool, text: &str, colour: bool) -> String {
     let p = if colour { &COLOUR } else { &PLAIN };
     let (tag, style) = if warn { ("warn", p.warn) } else { ("note", "") };
+    let text = escape_controls(text);
     format!("{}{}{}  {style}{tag}{}   {text}", p.dim, seconds(t), p.reset, p.reset)
 }
 
 /// A step boundary.
 pub fn step_line(t: Duration, name: &str, colour: bool) -> String {
     let p = if colour { &COLOUR } else { &PLAIN };
+    let name = escape_controls(name);
     format!("{}{}{}  == {name} ==", p.dim, seconds(t), p.reset)
 }
 
@@ -333,6 +342,21 @@ mod tests {
             "{}",
             frame_line(&f, false)
         );
+    }
+
+    // Script and recording text is shown, not obeyed; the colours stay ours.
+    #[test]
+    fn untrusted_text_is_escaped() {
+        let mut f = frame(vec![Operation::Write(vec![0x00])], vec![OpOutcome { acks: vec![true], data: vec![] }], None);
+        f.decoded = Some("CTRL\u{1b}[2J".into());
+        f.origin = Some(Origin { file: "a\u{9b}b.lua".into(), line: 3 });
+        let line = frame_line(&f, false);
+        assert!(line.contains("[CTRL\\x1B[2J]") && line.ends_with("a\\u{009B}b.lua:3"), "{line}");
+        let coloured = frame_line(&f, true);
+        assert!(coloured.contains("\x1b[2ma\\u{009B}b.lua:3\x1b[0m"), "{coloured:?}");
+        let log = log_line(Duration::ZERO, false, "\u{1b}]0;x\u{7}\r", false);
+        assert!(log.ends_with("note   \\x1B]0;x\\x07\\r"), "{log:?}");
+        assert!(step_line(Duration::ZERO, "s\u{1b}c", true).ends_with("== s\\x1Bc =="));
     }
 
     #[test]
