@@ -3,9 +3,10 @@
 //! --adapter dialect:...` drives it, and the frames must match an
 //! in-process run.
 
-use std::io::{BufRead, BufReader};
+mod common;
+
 use std::path::Path;
-use std::process::{Child, Command, Stdio};
+use std::process::{Child, Command};
 use std::time::Duration;
 
 use serde_json::Value;
@@ -20,19 +21,8 @@ fn root() -> &'static Path {
 /// Starts `serve` in `profile`'s dialect and returns it with the device
 /// path it printed.
 fn serve(profile: &str, extra: &[&str]) -> (Child, String) {
-    let mut child = Command::new(BIN)
-        .current_dir(root())
-        .args(["serve", "--speak", &format!("dialect:{profile}")])
-        .args(extra)
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("buscue serve starts");
-    let mut line = String::new();
-    BufReader::new(child.stdout.take().expect("stdout is piped")).read_line(&mut line).expect("first line");
-    let path = line.trim().to_string();
-    assert!(path.starts_with("/dev/"), "first stdout line is the device path, got `{path}`");
-    (child, path)
+    let speak = format!("dialect:{profile}");
+    common::serve(&[&["--speak", speak.as_str()], extra].concat())
 }
 
 struct Run {

@@ -10,7 +10,7 @@
 mod common;
 
 use std::io::{BufRead, BufReader};
-use std::process::{Child, Command, Stdio};
+use std::process::{Command, Stdio};
 
 use common::{buscue, code, script, stderr};
 use serde_json::Value;
@@ -80,23 +80,10 @@ fn one_long_c_call_stops_at_the_limit() {
     stops_at_the_limit("local s = string.rep('a', 500)\nlocal r = s:find('.-.-.-b')\nlog('done')\n", &[]);
 }
 
-/// `buscue serve` on a pseudo-terminal; the child and the path it printed.
-fn serve() -> (Child, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_buscue"))
-        .arg("serve")
-        .stdout(Stdio::piped())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
-    let mut line = String::new();
-    BufReader::new(child.stdout.take().unwrap()).read_line(&mut line).unwrap();
-    (child, line.trim().to_string())
-}
-
 #[cfg(unix)]
 #[test]
 fn an_hour_long_sleep_over_a_served_adapter_stops_at_the_limit() {
-    let (mut child, path) = serve();
+    let (mut child, path) = common::serve(&[]);
     // Each slice of the sleep is one delay request on the wire.
     stops_at_the_limit("sleep_ms(3600000)\n", &["--adapter", &format!("serial:{path}")]);
     let _ = child.kill();

@@ -66,3 +66,23 @@ pub fn frames(o: &Output) -> Vec<serde_json::Value> {
 pub fn end(o: &Output) -> serde_json::Value {
     records(o).into_iter().find(|r| r["kind"] == "end").expect("an end record")
 }
+
+/// Starts `buscue serve ARGS` from the project root and returns the child
+/// and the device path it prints as its first line (its stderr is piped,
+/// for tests that read what it says when it ends).
+#[cfg(unix)]
+pub fn serve(args: &[&str]) -> (std::process::Child, String) {
+    use std::io::{BufRead, BufReader};
+    let mut child = buscue()
+        .arg("serve")
+        .args(args)
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("buscue serve starts");
+    let mut line = String::new();
+    BufReader::new(child.stdout.take().expect("stdout is piped")).read_line(&mut line).expect("first line");
+    let path = line.trim().to_string();
+    assert!(path.starts_with("/dev/"), "first stdout line is the device path, got `{path}`");
+    (child, path)
+}
