@@ -222,3 +222,19 @@ fn ctrl_c_during_a_long_real_time_sleep_exits_130_at_once() {
     assert!(!stdout(&o).contains("woke"));
     assert!(stderr(&o).contains("interrupted"), "{}", stderr(&o));
 }
+
+#[test]
+fn an_error_is_said_once() {
+    // Errors that name their cause in their own text used to print the
+    // cause a second time after it.
+    for (args, needle) in [
+        (vec!["replay", "/no/such/trace.jsonl"], "No such file"),
+        (vec!["to-script", "/no/such/trace.jsonl"], "No such file"),
+        (vec!["bustime", "--read", "0"], "reads 0 bytes"),
+        (vec!["run", "scripts/valve_expander.lua", "--adapter", "sim:/no/such/bench.toml"], "No such file"),
+    ] {
+        let o = run(&args);
+        assert_eq!(code(&o), 2, "{args:?}: {}", stderr(&o));
+        assert_eq!(stderr(&o).matches(needle).count(), 1, "{args:?}: {}", stderr(&o));
+    }
+}

@@ -194,10 +194,28 @@ pub fn main() -> ExitCode {
         // The reader of standard output took all it wanted (`| head`).
         Err(e) if out::closed(&e) => ExitCode::from(exit::OK),
         Err(e) => {
-            eprintln!("error: {}", shown(format_args!("{e:#}")));
+            eprintln!("error: {}", shown(message(&e)));
             ExitCode::from(exit::of_error(&e))
         }
     }
+}
+
+/// An error and its causes as one line, each cause once: many errors
+/// already say their cause in their own text (`file: No such file`), and
+/// printing the chain after them would repeat it.
+pub fn message(e: &anyhow::Error) -> String {
+    let mut text = String::new();
+    for cause in e.chain() {
+        let part = cause.to_string();
+        if text.contains(&part) {
+            continue;
+        }
+        if !text.is_empty() {
+            text.push_str(": ");
+        }
+        text.push_str(&part);
+    }
+    text
 }
 
 pub fn dispatch(cli: Cli) -> Result<u8> {

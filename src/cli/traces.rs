@@ -156,8 +156,13 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         let _ = writeln!(err, "error: replay stopped: {}", shown(e));
     }
     if let Err(e) = closed {
-        let _ = writeln!(err, "error: closing the adapter: {}", shown(format_args!("{e:#}")));
-        return Ok(if code == exit::OK { exit::ADAPTER } else { code });
+        // As for `run`: a trace that could not be written fails the replay
+        // too, and so does an adapter that cannot be closed.
+        let _ = match &e {
+            RunError::Adapter(a) => writeln!(err, "error: closing the adapter: {}", shown(a)),
+            e => writeln!(err, "error: {}", shown(e)),
+        };
+        return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }
     Ok(code)
 }
