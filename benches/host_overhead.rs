@@ -1,19 +1,26 @@
 //! Host overhead per transaction: a Lua loop of 100,000 one-byte register
-//! reads against the simulated adapter, frame log written to a file.
+//! reads against the simulated adapter.
 //!
 //! Run: `cargo bench --bench host_overhead` (release build). Prints
-//! microseconds of host time per transaction for the plain frame log and
-//! for the JSON stream. Goal: at most 2 us, far below the ~40 us a
-//! one-byte register read takes on the wire at 1 MHz.
+//! microseconds of host time per transaction for four cases: `default`,
+//! what `buscue run` does with no flags (a trace file and the plain frame
+//! log to a file, both through the writers the command uses); `quiet`, as
+//! `--no-trace -q` (no trace, no frame lines); and the frame log alone,
+//! plain (`plain`) and JSON (`json`). Goal: at most 2 us on the default
+//! path, far below the ~40 us a one-byte register read takes on the wire
+//! at 1 MHz.
 
 use std::io::BufWriter;
 use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
+use buscue::adapter::Adapter as _;
+use buscue::cli::out::{LogOut, Out};
 use buscue::record::Sink;
 use buscue::script::{self, DEFAULT_MEMORY_LIMIT, RunConfig, Session};
 use buscue::sim::{Bench, SimAdapter};
+use buscue::trace::{Header, TraceWriter};
 use buscue::view::json::JsonLines;
 use buscue::view::plain::PlainLog;
 
@@ -38,17 +45,26 @@ fn reads() -> u64 {
     std::env::var("BUSCUE_BENCH_READS").ok().and_then(|v| v.parse().ok()).unwrap_or(READS)
 }
 
-/// `BUSCUE_BENCH_CASE=plain` or `json` runs one frame log only, so an
-/// instruction count can be taken per case; unset (or anything else) runs
-/// both.
+const CASES: [&str; 4] = ["default", "quiet", "plain", "json"];
+
+/// `BUSCUE_BENCH_CASE=default`, `quiet`, `plain` or `json` runs one case
+/// only, so an instruction count can be taken per case; unset (or anything
+/// else) runs all.
 fn wants(case: &str) -> bool {
-    match std::env::var("BUSCUE_BENCH_CASE").as_deref() {
-        Ok(c @ ("plain" | "json")) => c == case,
+    match std::env::var("BUSCUE_BENCH_CASE") {
+        Ok(c) if CASES.contains(&c.as_str()) => c == case,
         _ => true,
     }
 }
 
-fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
+/// The frame log as `buscue run` writes it to a file (block-buffered).
+fn frame_log(f: std::fs::File) -> LogOut<Out<std::fs::File>> {
+    LogOut::new(Out::new(f), false)
+}
+
+/// Runs the loop with the sinks `make` adds for the folder it is given
+/// and the frame-log file.
+fn measure(label: &str, make: impl Fn(&std::path::Path, std::fs::File, &SimAdapter) -> Vec<Box<dyn Sink>>) {
     let dir = tempfile::tempdir().expect("temp dir");
     let script = dir.path().join("loop.lua");
     std::fs::write(
@@ -62,8 +78,11 @@ fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     let log = std::fs::File::create(dir.path().join("frames.log")).expect("log file");
     let adapter = SimAdapter::new(Bench::from_str(BENCH, "overhead").expect("bench"), false);
     let interrupt = Arc::new(AtomicBool::new(false));
+    let sinks = make(dir.path(), log, &adapter);
     let mut session = Session::new(Box::new(adapter), interrupt.clone());
-    session.add_sink(make(log));
+    for sink in sinks {
+        session.add_sink(sink);
+    }
     let cfg = RunConfig {
         script,
         params: Default::default(),
@@ -77,14 +96,15 @@ fn measure(label: &str, make: impl Fn(std::fs::File) -> Box<dyn Sink>) {
     assert!(report.abort.is_none(), "{:?}", report.abort);
     let mut session = report.session;
     session.finish(0, None).expect("finish");
-    let size = std::fs::metadata(dir.path().join("frames.log")).map(|m| m.len()).unwrap_or(0);
+    let size = |name: &str| std::fs::metadata(dir.path().join(name)).map(|m| m.len() as f64 / 1e6).unwrap_or(0.0);
     let n = reads();
     let per = host.as_secs_f64() * 1e6 / n as f64;
     let bus = session.stats.bus_time.as_secs_f64() * 1e6 / n as f64;
     println!(
-        "{label:<22} {n} reads  host {:>8.3} ms  {per:>6.3} us/transaction  (modelled bus time {bus:.1} us each, log {:.1} MB)",
+        "{label:<26} {n} reads  host {:>8.3} ms  {per:>6.3} us/transaction  (modelled bus time {bus:.1} us each, log {:.1} MB, trace {:.1} MB)",
         host.as_secs_f64() * 1e3,
-        size as f64 / 1e6
+        size("frames.log"),
+        size("trace.jsonl"),
     );
 }
 
@@ -96,11 +116,21 @@ fn main() {
         return;
     }
     for _ in 0..2 {
+        if wants("default") {
+            measure("default: trace + frame log", |dir, f, adapter| {
+                let header = Header::new("run", adapter.snapshot());
+                let trace = TraceWriter::create(&dir.join("trace.jsonl"), &header).expect("trace");
+                vec![Box::new(trace), Box::new(PlainLog::new(frame_log(f), false, true))]
+            });
+        }
+        if wants("quiet") {
+            measure("quiet: no trace, -q", |_, f, _| vec![Box::new(PlainLog::new(frame_log(f), false, false))]);
+        }
         if wants("plain") {
-            measure("plain frame log", |f| Box::new(PlainLog::new(BufWriter::new(f), false, true)));
+            measure("plain frame log", |_, f, _| vec![Box::new(PlainLog::new(BufWriter::new(f), false, true))]);
         }
         if wants("json") {
-            measure("JSON lines", |f| Box::new(JsonLines::new(BufWriter::new(f))));
+            measure("JSON lines", |_, f, _| vec![Box::new(JsonLines::new(BufWriter::new(f)))]);
         }
     }
 }

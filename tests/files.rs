@@ -138,3 +138,18 @@ fn a_trace_that_stops_being_written_fails_the_run() {
     let frames = String::from_utf8_lossy(&o.stdout).lines().filter(|l| l.contains(r#""kind":"frame""#)).count();
     assert!((2..100_000).contains(&frames), "stopped at the next transaction, not at the end: {frames}");
 }
+
+#[test]
+fn a_trace_that_reaches_its_limit_stops_the_run() {
+    let (dir, s) = script("loop.lua", "local d = bus.device(0x44)\nfor i = 1, 100000 do d:get(0) end\n");
+    let t = dir.path().join("t.jsonl");
+    let o = run(&["run", s.to_str().unwrap(), "-q", "--trace", t.to_str().unwrap(), "--trace-limit", "64K"]);
+    assert_eq!(code(&o), 6, "the trace-failure code: {}", stderr(&o));
+    assert!(stderr(&o).contains("the trace reached its size limit of 64 KiB (--trace-limit)"), "{}", stderr(&o));
+    let text = std::fs::read_to_string(&t).unwrap();
+    assert!(text.len() <= 64 << 10, "{} bytes", text.len());
+    let last = text.lines().last().unwrap();
+    assert!(last.starts_with(r#"{"kind":"end""#) && last.contains(r#""exit":6"#), "{last}");
+    let o = run(&["run", s.to_str().unwrap(), "--trace-limit", "lots"]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+}

@@ -149,6 +149,25 @@ pub fn parse_duration(s: &str) -> Result<Duration, String> {
     Ok(Duration::from_secs_f64(secs))
 }
 
+/// Parses a size for `--trace-limit`: bytes, or a whole number with K, M,
+/// G or T (1024-based; `KiB`, `MB` and the like are read the same way).
+pub fn parse_size(s: &str) -> Result<u64, String> {
+    let t = s.trim();
+    let (num, unit) = t.split_at(t.find(|c: char| !c.is_ascii_digit()).unwrap_or(t.len()));
+    let bad = || format!("`{s}` is not a size: write 0, 65536, 100M or 1G");
+    let n: u64 = num.parse().map_err(|_| bad())?;
+    let unit = unit.trim_start().to_ascii_uppercase();
+    let shift = match unit.trim_end_matches("IB").trim_end_matches('B') {
+        "" => 0,
+        "K" => 10,
+        "M" => 20,
+        "G" => 30,
+        "T" => 40,
+        _ => return Err(bad()),
+    };
+    n.checked_mul(1 << shift).ok_or_else(|| format!("`{s}` is out of range"))
+}
+
 /// Parses `name=value` for `--set`.
 pub fn parse_assignment(s: &str) -> Result<(String, String), String> {
     let (k, v) = s.split_once('=').ok_or_else(|| format!("`{s}`: write --set name=value"))?;
@@ -248,5 +267,18 @@ mod tests {
         assert_eq!(parse_assignment("msg=a=b"), Ok(("msg".into(), "a=b".into())));
         assert!(parse_assignment("novalue").is_err());
         assert!(parse_assignment("bad name=1").is_err());
+    }
+
+    #[test]
+    fn sizes() {
+        assert_eq!(parse_size("0"), Ok(0));
+        assert_eq!(parse_size("65536"), Ok(65536));
+        assert_eq!(parse_size("100M"), Ok(100 << 20));
+        assert_eq!(parse_size("1G"), Ok(1 << 30));
+        assert_eq!(parse_size("2 GiB"), Ok(2 << 30));
+        assert_eq!(parse_size("64kb"), Ok(64 << 10));
+        assert!(parse_size("1.5G").is_err());
+        assert!(parse_size("lots").is_err());
+        assert!(parse_size("99999999999T").is_err());
     }
 }

@@ -16,8 +16,8 @@ use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
 use super::outputs;
-use super::watchdog::Watchdog;
-use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration, shown};
+use super::watchdog::{self, Watchdog};
+use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration, parse_size, shown};
 
 #[derive(Args, Debug)]
 pub struct RunArgs {
@@ -57,6 +57,10 @@ pub struct RunArgs {
     /// Replace the file --trace names if it exists.
     #[arg(long, requires = "trace")]
     pub force: bool,
+    /// Stop the run when its trace would pass this size (100M, 1G; K, M, G
+    /// are 1024-based; 0 = no limit). Exit code 6.
+    #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace")]
+    pub trace_limit: u64,
 }
 
 pub fn run(a: RunArgs) -> Result<u8> {
@@ -92,16 +96,24 @@ pub fn run(a: RunArgs) -> Result<u8> {
             None => TraceWriter::create_default(&a.script, std::time::SystemTime::now(), &header)
                 .context("cannot create a trace file in traces/")?,
         };
+        let mut w = w;
+        let limit = (a.trace_limit > 0).then_some(a.trace_limit);
+        w.set_limit(limit, exit::RECORD_FAILED).context("--trace-limit")?;
         let path = w.path().to_path_buf();
         rescue = Some(w.rescue());
         session.add_sink(Box::new(w));
         Some(path)
     };
     let colour = a.bus.colour.resolve();
+    // The JSON stream stays line by line: programs read it live, as a
+    // person reads the frame log on a terminal.
+    let mut log_flush = None;
     if a.json {
         session.add_sink(Box::new(JsonLines::new(out::stdout())));
     } else {
-        session.add_sink(Box::new(PlainLog::new(out::stdout(), colour, !a.quiet)));
+        let log = out::frame_log();
+        log_flush = Some(log.flusher());
+        session.add_sink(Box::new(PlainLog::new(log, colour, !a.quiet)));
     }
     let cfg = RunConfig {
         script: a.script.clone(),
@@ -111,12 +123,12 @@ pub fn run(a: RunArgs) -> Result<u8> {
         allow_io: a.allow_io,
     };
     let started = Instant::now();
-    let dog = Watchdog::start(
-        session.deadline(),
-        interrupt.clone(),
-        rescue,
-        trace_path.as_ref().map(|p| p.display().to_string()),
-    );
+    let outputs = watchdog::Outputs {
+        trace: rescue,
+        trace_path: trace_path.as_ref().map(|p| p.display().to_string()),
+        log: log_flush,
+    };
+    let dog = Watchdog::start(session.deadline(), interrupt.clone(), outputs);
     let report = script::run(session, &cfg, interrupt);
     dog.disarm();
     let host = started.elapsed();

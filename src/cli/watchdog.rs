@@ -6,8 +6,9 @@
 //! the hook does not see. The watchdog is a thread that waits for the
 //! deadline (or an interrupt) plus [`GRACE`]; if the run has not ended by
 //! then, it ends the trace with an end record (the frames already on disk
-//! stay as they are), says why on standard error and exits the process
-//! with the time-limit or interrupt code. A run that ends normally
+//! stay as they are), flushes the frame log (block-buffered unless on a
+//! terminal; `process::exit` runs no destructors), says why on standard
+//! error and exits the process with the time-limit or interrupt code. A run that ends normally
 //! disarms it first.
 
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -19,6 +20,14 @@ use crate::player::RunError;
 use crate::trace::TraceRescue;
 
 use super::exit;
+use super::out::LogFlush;
+
+/// What the watchdog leaves in order when it stops a run.
+pub struct Outputs {
+    pub trace: Option<TraceRescue>,
+    pub trace_path: Option<String>,
+    pub log: Option<LogFlush>,
+}
 
 /// How long a run may take to stop by itself after its deadline or an
 /// interrupt before the watchdog stops it.
@@ -34,13 +43,8 @@ pub struct Watchdog {
 
 impl Watchdog {
     /// Starts watching. `deadline` is the run's wall-clock deadline and the
-    /// limit behind it; `trace` the trace to end if the watchdog fires.
-    pub fn start(
-        deadline: Option<(Instant, Duration)>,
-        interrupt: Arc<AtomicBool>,
-        trace: Option<TraceRescue>,
-        trace_path: Option<String>,
-    ) -> Self {
+    /// limit behind it; `outputs` what to end and flush if it fires.
+    pub fn start(deadline: Option<(Instant, Duration)>, interrupt: Arc<AtomicBool>, outputs: Outputs) -> Self {
         let done = Arc::new((Mutex::new(false), Condvar::new()));
         let d = done.clone();
         let thread = std::thread::spawn(move || {
@@ -55,14 +59,14 @@ impl Watchdog {
                 if interrupt.load(Ordering::Relaxed) {
                     let since = *interrupted_at.get_or_insert(now);
                     if now >= since + GRACE {
-                        fire(exit::INTERRUPTED, "interrupted".into(), &trace, &trace_path);
+                        fire(exit::INTERRUPTED, "interrupted".into(), &outputs);
                     }
                 }
                 if let Some((when, limit)) = deadline
                     && now >= when + GRACE
                 {
                     let text = format!("script {}", RunError::TimeLimit { limit });
-                    fire(exit::INPUT, text, &trace, &trace_path);
+                    fire(exit::INPUT, text, &outputs);
                 }
                 let wait = match deadline {
                     Some((when, _)) => (when + GRACE).saturating_duration_since(now).min(TICK),
@@ -89,16 +93,21 @@ impl Watchdog {
 }
 
 /// Ends the trace and the process: the run did not stop by itself.
-fn fire(code: u8, why: String, trace: &Option<TraceRescue>, path: &Option<String>) -> ! {
+fn fire(code: u8, why: String, outputs: &Outputs) -> ! {
     let message = format!("{why}; the script did not stop within {} s, so it was stopped", GRACE.as_secs());
+    // The frame log first: what it shows is in the trace already, and
+    // standard error's lines then come after it, as in a normal end.
+    if let Some(log) = &outputs.log {
+        log.flush();
+    }
     let mut err = std::io::stderr().lock();
     use std::io::Write as _;
-    if let Some(t) = trace
+    if let Some(t) = &outputs.trace
         && let Err(e) = t.end(code, &message)
     {
         let _ = writeln!(err, "error: cannot end the trace: {}", super::shown(e));
     }
-    if let Some(p) = path {
+    if let Some(p) = &outputs.trace_path {
         let _ = writeln!(err, "trace: {}", super::shown(p));
     }
     let _ = writeln!(err, "error: {}", super::shown(&message));

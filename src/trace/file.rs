@@ -4,30 +4,39 @@
 //! - A trace is UTF-8 text, one JSON object per line: the [`Header`] first,
 //!   then one [`Record`] per line in the order things happened.
 //! - [`TraceWriter`] hands each record to the operating system as one
-//!   whole line (`write` of the full line on an unbuffered file) before
-//!   the run moves on, so a crash, Ctrl-C, SIGKILL or unplugged adapter
-//!   loses nothing that completed; at most the last line is cut. It does
-//!   not `fsync` per record (that would cost milliseconds per frame); the
-//!   file is synced when the run ends.
+//!   whole line before the run moves on (through a shared mapping of the
+//!   file, or a `write` per line where there is none: [`super::append`]),
+//!   so a crash, Ctrl-C, SIGKILL or unplugged adapter loses nothing that
+//!   completed; at most the last line is cut. It does not `fsync` per
+//!   record (that would cost milliseconds per frame); the file is cut to
+//!   what was written and synced when the run ends.
+//! - A writer may have a size limit ([`TraceWriter::set_limit`]): a record
+//!   that would bring the file within [`END_ROOM`] bytes of it is not
+//!   written; the writer ends the trace with an end record saying so
+//!   (which the room kept for it holds) and returns [`LimitReached`].
 //! - A [`TraceRescue`] taken from a writer lets another thread end the
 //!   trace (a watchdog that stops a run which no longer answers): it
 //!   waits for the record being written, appends an end record with the
-//!   counts of the frames written so far, syncs, and from then on the
-//!   writer writes nothing more, so the end record stays last.
+//!   counts of the frames written so far, cuts and syncs the file, and
+//!   from then on the writer writes nothing more, so the end record stays
+//!   last.
 //! - [`TraceReader`] refuses a file whose header is missing, names another
 //!   format or an unknown major version; accepts newer minor versions
 //!   (unknown fields are ignored, unknown record kinds skipped with a
-//!   warning); tolerates a cut last line with a warning; and reports any
-//!   other unreadable line as an error naming its line number.
+//!   warning); tolerates a cut last line with a warning; takes NUL bytes
+//!   after the last line as the end of the file (what a killed writer
+//!   leaves of its last chunk); and reports any other unreadable line as
+//!   an error naming its line number.
 
 use std::fs::File;
-use std::io::{self, BufRead, BufReader, Read, Seek, SeekFrom, Write};
+use std::io::{self, BufRead, BufReader, Read, Seek, SeekFrom};
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::Duration;
 
 use thiserror::Error;
 
+use super::append::Appender;
 use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
 use crate::record::{Record, Sink, Stats};
 
@@ -48,7 +57,29 @@ pub enum TraceError {
     Corrupt { file: String, line: u64, detail: String },
 }
 
-/// A sink that writes a trace file, one flushed line per record.
+/// A run's trace reached the size limit it was given: the record that
+/// would have passed it was not written.
+#[derive(Debug, Error)]
+#[error("the trace reached its size limit of {} (--trace-limit)", size_text(*.limit))]
+pub struct LimitReached {
+    pub limit: u64,
+}
+
+/// Bytes of a size limit kept for the end record: other records stop
+/// this far short of it.
+pub const END_ROOM: u64 = 1024;
+
+/// A size as people write it: whole binary units where it is one, else bytes.
+pub fn size_text(n: u64) -> String {
+    const UNITS: [(u64, &str); 4] = [(1 << 40, "TiB"), (1 << 30, "GiB"), (1 << 20, "MiB"), (1 << 10, "KiB")];
+    match UNITS.iter().find(|(u, _)| n >= *u && n.is_multiple_of(*u)) {
+        Some((u, name)) => format!("{} {name}", n / u),
+        None => format!("{n} B"),
+    }
+}
+
+/// A sink that writes a trace file, one line per record, in the OS's hands
+/// before `record` returns.
 pub struct TraceWriter {
     shared: Arc<Mutex<Written>>,
     path: PathBuf,
@@ -57,7 +88,10 @@ pub struct TraceWriter {
 
 /// The file and what has gone into it, shared with [`TraceRescue`].
 struct Written {
-    file: File,
+    out: Appender,
+    /// The size the file may not pass, with the exit code its end record
+    /// gives when it is reached.
+    limit: Option<(u64, u8)>,
     /// Counts of the frames written, for an end record written by rescue.
     stats: Stats,
     /// The time of the last record written.
@@ -85,12 +119,19 @@ impl TraceRescue {
         if w.ended {
             return Ok(());
         }
-        let end = Record::End { t: w.last_t, stats: w.stats.clone(), exit, error: Some(error.to_string()) };
+        w.end(exit, error)?;
+        w.out.finish()
+    }
+}
+
+impl Written {
+    /// Appends an end record with the counts so far; nothing follows it.
+    fn end(&mut self, exit: u8, error: &str) -> io::Result<()> {
+        let end = Record::End { t: self.last_t, stats: self.stats.clone(), exit, error: Some(error.to_string()) };
         let mut line = serde_json::to_vec(&end)?;
         line.push(b'\n');
-        w.ended = true;
-        w.file.write_all(&line)?;
-        w.file.sync_data()
+        self.ended = true;
+        self.out.append(&line)
     }
 }
 
@@ -132,8 +173,8 @@ impl TraceWriter {
         {
             return Err(io::Error::new(io::ErrorKind::NotFound, format!("folder {} does not exist", dir.display())));
         }
-        let file = opts.open(path)?;
-        let written = Written { file, stats: Stats::default(), last_t: Duration::ZERO, ended: false };
+        let out = Appender::new(opts.open(path)?);
+        let written = Written { out, limit: None, stats: Stats::default(), last_t: Duration::ZERO, ended: false };
         let mut w = TraceWriter {
             shared: Arc::new(Mutex::new(written)),
             path: path.to_path_buf(),
@@ -142,8 +183,26 @@ impl TraceWriter {
         w.line.clear();
         serde_json::to_writer(&mut w.line, header)?;
         w.line.push(b'\n');
-        lock(&w.shared).file.write_all(&w.line)?;
+        lock(&w.shared).out.append(&w.line)?;
         Ok(w)
+    }
+
+    /// Limits the file to `limit` bytes (`None`: no limit); when a record
+    /// would pass it, the trace ends with an end record whose exit code is
+    /// `exit` (see the module doc). A limit the header already leaves no
+    /// room under is refused.
+    pub fn set_limit(&mut self, limit: Option<u64>, exit: u8) -> io::Result<()> {
+        let mut w = lock(&self.shared);
+        if let Some(l) = limit
+            && w.out.len() + END_ROOM > l
+        {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidInput,
+                format!("a size limit of {} leaves no room for records after the header", size_text(l)),
+            ));
+        }
+        w.limit = limit.map(|l| (l, exit));
+        Ok(())
     }
 
     pub fn path(&self) -> &Path {
@@ -165,6 +224,15 @@ impl Sink for TraceWriter {
         if w.ended {
             return Ok(());
         }
+        if let Some((limit, exit)) = w.limit
+            && !matches!(r, Record::End { .. })
+            && w.out.len() + self.line.len() as u64 + END_ROOM > limit
+        {
+            let reached = LimitReached { limit };
+            w.end(exit, &reached.to_string())?;
+            let at = |e: io::Error| io::Error::new(e.kind(), format!("{}: {e}", self.path.display()));
+            return Err(at(io::Error::other(reached)));
+        }
         match r {
             Record::Frame(f) => {
                 w.stats.add_frame(f);
@@ -173,12 +241,11 @@ impl Sink for TraceWriter {
             Record::Log { t, .. } | Record::Step { t, .. } => w.last_t = *t,
             Record::End { .. } => w.ended = true,
         }
-        // One write of the whole line: the OS has it when this returns.
-        w.file.write_all(&self.line).map_err(|e| io::Error::new(e.kind(), format!("{}: {e}", self.path.display())))
+        w.out.append(&self.line).map_err(|e| io::Error::new(e.kind(), format!("{}: {e}", self.path.display())))
     }
 
     fn flush(&mut self) -> io::Result<()> {
-        lock(&self.shared).file.sync_data()
+        lock(&self.shared).out.finish()
     }
 
     fn is_record(&self) -> bool {
@@ -336,6 +403,11 @@ impl<R: BufRead> TraceReader<R> {
             let offset = self.offset;
             self.offset += n as u64;
             let complete = self.buf.last() == Some(&b'\n');
+            if !complete && self.buf.iter().all(|&b| b == 0) {
+                // The unwritten rest of the chunk a killed writer had
+                // allocated (super::append): the end of the file.
+                return Ok(None);
+            }
             if self.buf.iter().all(u8::is_ascii_whitespace) {
                 continue;
             }
@@ -482,6 +554,62 @@ mod tests {
         assert_eq!(t.records.len(), 2);
         assert_eq!(t.warnings.len(), 1);
         assert!(t.warnings[0].starts_with("cut.jsonl:4: the last line is cut short"), "{:?}", t.warnings);
+    }
+
+    #[test]
+    fn nul_tail_is_the_end_of_the_file() {
+        // What a killed writer leaves: its lines, then NULs to the chunk's end.
+        let mut s = text(&[header_line("1.0"), log(1), log(2)]).into_bytes();
+        s.extend(std::iter::repeat_n(0u8, 70_000));
+        let t = Trace::from_reader(&s[..], "killed.jsonl").unwrap();
+        assert_eq!(t.records.len(), 2);
+        assert!(t.warnings.is_empty(), "not a cut line: {:?}", t.warnings);
+        // A line cut by the kill, then NULs: the cut line's warning, as before.
+        let mut s = text(&[header_line("1.0"), log(1)]).into_bytes();
+        s.extend_from_slice(&log(2).as_bytes()[..20]);
+        s.extend(std::iter::repeat_n(0u8, 4096));
+        let t = Trace::from_reader(&s[..], "cut.jsonl").unwrap();
+        assert_eq!(t.records.len(), 1);
+        assert!(
+            t.warnings.len() == 1 && t.warnings[0].starts_with("cut.jsonl:3: the last line is cut short"),
+            "{:?}",
+            t.warnings
+        );
+    }
+
+    #[test]
+    fn limit_ends_the_trace_with_room_for_the_end_record() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("t.jsonl");
+        let mut w = TraceWriter::create(&path, &header()).unwrap();
+        assert!(w.set_limit(Some(100), 6).is_err(), "no room after the header");
+        let limit = 16 << 10;
+        w.set_limit(Some(limit), 6).unwrap();
+        let r = Record::Step { t: Duration::from_millis(3), name: "configure".into(), origin: None };
+        let mut written = 0;
+        let e = loop {
+            match w.record(&r) {
+                Ok(()) => written += 1,
+                Err(e) => break e,
+            }
+        };
+        assert!(e.to_string().ends_with("the trace reached its size limit of 16 KiB (--trace-limit)"), "{e}");
+        assert!(w.record(&r).is_ok(), "nothing more is written after the end");
+        w.flush().unwrap();
+        assert!(std::fs::metadata(&path).unwrap().len() <= limit);
+        let t = Trace::load(&path).unwrap();
+        assert_eq!(t.records.len(), written + 1);
+        match t.records.last().unwrap() {
+            Record::End { exit: 6, error: Some(e), .. } => assert!(e.contains("size limit of 16 KiB"), "{e}"),
+            other => panic!("{other:?}"),
+        }
+    }
+
+    #[test]
+    fn sizes_read_as_people_write_them() {
+        assert_eq!(size_text(1 << 30), "1 GiB");
+        assert_eq!(size_text(100 << 20), "100 MiB");
+        assert_eq!(size_text(1500), "1500 B");
     }
 
     #[test]

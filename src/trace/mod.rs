@@ -10,6 +10,7 @@
 //! (turn a trace into an editable Lua script). The format is documented
 //! in docs/traces.md.
 
+mod append;
 pub mod diff;
 pub mod file;
 pub mod header;
@@ -17,5 +18,5 @@ pub mod mask;
 pub mod replay;
 pub mod to_script;
 
-pub use file::{Trace, TraceError, TraceReader, TraceRescue, TraceWriter};
+pub use file::{LimitReached, Trace, TraceError, TraceReader, TraceRescue, TraceWriter};
 pub use header::Header;

@@ -6,18 +6,22 @@ use crate::record::{Record, Sink};
 
 pub struct JsonLines<W: Write> {
     out: W,
+    /// One line, reused: the output gets it in one write, not serde's many.
+    line: Vec<u8>,
 }
 
 impl<W: Write> JsonLines<W> {
     pub fn new(out: W) -> Self {
-        JsonLines { out }
+        JsonLines { out, line: Vec::with_capacity(512) }
     }
 }
 
 impl<W: Write> Sink for JsonLines<W> {
     fn record(&mut self, r: &Record) -> io::Result<()> {
-        serde_json::to_writer(&mut self.out, r)?;
-        self.out.write_all(b"\n")
+        self.line.clear();
+        serde_json::to_writer(&mut self.line, r)?;
+        self.line.push(b'\n');
+        self.out.write_all(&self.line)
     }
 
     fn flush(&mut self) -> io::Result<()> {
