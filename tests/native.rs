@@ -311,30 +311,28 @@ fn a_failing_batch_block_sends_nothing_and_a_stale_queue_is_refused() {
     assert!(stderr.contains("already been sent") && stderr.contains(":3:"), "names the script line: {stderr}");
 }
 
-/// A script that keeps asking the adapter for something outside any
-/// transaction, against a served board that hangs up after a few frames.
-fn link_lost_during(call: &str) -> Output {
+/// Runs a script that keeps asking the adapter for something outside any
+/// transaction, against a served board that hangs up after a few frames,
+/// and checks the stop: the adapter/link code, the port's error at the line.
+fn link_lost_during(call: &str) {
     let served = serve(&["--hang-up-after", "4"]);
     let dir = tempfile::tempdir().unwrap();
     let script = dir.path().join("control.lua");
     std::fs::write(&script, format!("for i = 1, 100 do\n  {call}\nend\n")).unwrap();
-    run(script.to_str().unwrap(), &format!("serial:{}", served.path), &["--no-trace"])
+    let out = run(script.to_str().unwrap(), &format!("serial:{}", served.path), &["--no-trace"]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(4), "{call}: adapter/link failure, not a script error: {stderr}");
+    assert!(stderr.contains("stopped working") && stderr.contains("control.lua:2"), "{call}: {stderr}");
 }
 
 #[test]
 fn a_link_lost_during_bus_speed_is_the_adapter_exit_code() {
-    let out = link_lost_during("bus.speed(100000)");
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(4), "adapter/link failure, not a script error: {stderr}");
-    assert!(stderr.contains("stopped working") && stderr.contains("control.lua:2"), "{stderr}");
+    link_lost_during("bus.speed(100000)");
 }
 
 #[test]
 fn a_link_lost_during_bus_recover_is_the_adapter_exit_code() {
-    let out = link_lost_during("bus.recover()");
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(4), "adapter/link failure, not a script error: {stderr}");
-    assert!(stderr.contains("stopped working") && stderr.contains("control.lua:2"), "{stderr}");
+    link_lost_during("bus.recover()");
 }
 
 #[test]

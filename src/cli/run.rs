@@ -86,7 +86,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
             &text,
             params.clone(),
         );
-        let w = match &a.trace {
+        let mut w = match &a.trace {
             Some(path) => {
                 outputs::check(path, "the trace", &[(&a.script, "the script")])?;
                 let w =
@@ -96,7 +96,6 @@ pub fn run(a: RunArgs) -> Result<u8> {
             None => TraceWriter::create_default(&a.script, std::time::SystemTime::now(), &header)
                 .context("cannot create a trace file in traces/")?,
         };
-        let mut w = w;
         let limit = (a.trace_limit > 0).then_some(a.trace_limit);
         w.set_limit(limit, exit::RECORD_FAILED).context("--trace-limit")?;
         let path = w.path().to_path_buf();
@@ -123,12 +122,12 @@ pub fn run(a: RunArgs) -> Result<u8> {
         allow_io: a.allow_io,
     };
     let started = Instant::now();
-    let outputs = watchdog::Outputs {
+    let watched = watchdog::Outputs {
         trace: rescue,
         trace_path: trace_path.as_ref().map(|p| p.display().to_string()),
         log: log_flush,
     };
-    let dog = Watchdog::start(session.deadline(), interrupt.clone(), outputs);
+    let dog = Watchdog::start(session.deadline(), interrupt.clone(), watched);
     let report = script::run(session, &cfg, interrupt);
     dog.disarm();
     let host = started.elapsed();

@@ -11,8 +11,11 @@
 //!   between transactions and during every wait the session makes (retry
 //!   delays, ACK polling, sleeps, sliced so a long one ends promptly): the
 //!   transaction on the bus completes (with its STOP) and nothing new starts.
-//! - A sink that fails is dropped with one warning (a closed pipe silently),
-//!   so a viewer going away never stops a bus sequence half-way.
+//! - A viewer sink that fails is dropped with one warning (a closed pipe
+//!   silently), so a viewer going away never stops a bus sequence half-way.
+//!   The record sink (the trace, [`Sink::is_record`]) is different: when it
+//!   cannot write, the run stops at the next transaction with
+//!   [`RunError::Record`], since a run without its record has failed.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};

@@ -149,9 +149,10 @@ impl TraceWriter {
         Self::open_with(path, header, std::fs::OpenOptions::new().write(true).create_new(true))
     }
 
-    /// Creates the default trace of a run of `script`: a new file in
-    /// `traces/` (the one folder made when missing) named as
-    /// [`default_path`] says. Two runs that start in the same second get
+    /// Creates the default trace of a run of `script`: a new file
+    /// `traces/<script stem>-<UTC stamp>.jsonl` under the working folder
+    /// (`traces/` is the one folder made when missing), with `-2`, `-3`, ...
+    /// added when the name is taken. Two runs that start in the same second get
     /// different files: each name is taken with create-new semantics, and a
     /// taken name moves on to the next suffix.
     pub fn create_default(script: &Path, now: std::time::SystemTime, header: &Header) -> io::Result<Self> {
@@ -230,8 +231,7 @@ impl Sink for TraceWriter {
         {
             let reached = LimitReached { limit };
             w.end(exit, &reached.to_string())?;
-            let at = |e: io::Error| io::Error::new(e.kind(), format!("{}: {e}", self.path.display()));
-            return Err(at(io::Error::other(reached)));
+            return Err(at_path(&self.path, io::Error::other(reached)));
         }
         match r {
             Record::Frame(f) => {
@@ -241,7 +241,7 @@ impl Sink for TraceWriter {
             Record::Log { t, .. } | Record::Step { t, .. } => w.last_t = *t,
             Record::End { .. } => w.ended = true,
         }
-        w.out.append(&self.line).map_err(|e| io::Error::new(e.kind(), format!("{}: {e}", self.path.display())))
+        w.out.append(&self.line).map_err(|e| at_path(&self.path, e))
     }
 
     fn flush(&mut self) -> io::Result<()> {
@@ -253,22 +253,15 @@ impl Sink for TraceWriter {
     }
 }
 
+/// A write error that names the trace it happened to.
+fn at_path(path: &Path, e: io::Error) -> io::Error {
+    io::Error::new(e.kind(), format!("{}: {e}", path.display()))
+}
+
 /// The folder of default traces, under the working folder.
 pub const DEFAULT_DIR: &str = "traces";
 
-/// Where `buscue run` writes a trace when not told:
-/// `traces/<script stem>-<UTC stamp>.jsonl` under the working folder, with
-/// `-2`, `-3`, ... added if two runs start in the same second. Only a
-/// name: [`TraceWriter::create_default`] is what takes one safely.
-pub fn default_path(script: &Path, now: std::time::SystemTime) -> PathBuf {
-    let base = default_stem(script, now);
-    let mut n = 1;
-    while numbered(&base, n).exists() {
-        n += 1;
-    }
-    numbered(&base, n)
-}
-
+/// The stem of a default trace name: `<script stem>-<UTC stamp>`.
 fn default_stem(script: &Path, now: std::time::SystemTime) -> String {
     let stem = script.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "run".into());
     format!("{stem}-{}", super::header::file_stamp(now))
