@@ -12,6 +12,9 @@ use serde::{Deserialize, Serialize};
 use crate::bus::outcome::nanos;
 use crate::bus::{Address, Operation, Outcome};
 
+mod line;
+pub use line::write_line;
+
 /// Where in a script something happened.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Origin {

@@ -2,7 +2,7 @@
 
 use std::io::{self, Write};
 
-use crate::record::{Record, Sink};
+use crate::record::{Record, Sink, write_line};
 
 pub struct JsonLines<W: Write> {
     out: W,
@@ -19,8 +19,7 @@ impl<W: Write> JsonLines<W> {
 impl<W: Write> Sink for JsonLines<W> {
     fn record(&mut self, r: &Record) -> io::Result<()> {
         self.line.clear();
-        serde_json::to_writer(&mut self.line, r)?;
-        self.line.push(b'\n');
+        write_line(r, &mut self.line);
         self.out.write_all(&self.line)
     }
 

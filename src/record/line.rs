@@ -1,0 +1,326 @@
+//! A record as one line of JSON: the form a trace file and the `--json`
+//! stream hold.
+//!
+//! Contract: [`write_line`] appends exactly the bytes
+//! `serde_json::to_writer(out, record)` followed by a newline would, for
+//! every record. The frame record — one per transaction, on the path
+//! every run takes — is encoded here by hand, with its keys as constant
+//! bytes: serde_json scans every key and string for characters to escape
+//! and goes through a formatter per value, which cost more than the rest
+//! of the recording path together. Every other record, and the rare parts
+//! of a frame (a fault, a PEC mark), go through serde_json itself, so the
+//! two cannot drift where it matters least to be fast. The property test
+//! below checks the whole frame against serde_json byte for byte.
+
+use crate::bus::{OpOutcome, Operation};
+
+use super::{Frame, Origin, Record};
+
+/// Appends `record` as one JSON line, newline included.
+pub fn write_line(record: &Record, out: &mut Vec<u8>) {
+    match record {
+        Record::Frame(f) => frame(f, out),
+        // Writing to a Vec cannot fail, and every record type serializes
+        // (no maps with non-string keys, no failing Serialize impls).
+        other => serde_with(other, out),
+    }
+    out.push(b'\n');
+}
+
+fn serde_with<T: serde::Serialize + ?Sized>(value: &T, out: &mut Vec<u8>) {
+    let _ = serde_json::to_writer(out, value);
+}
+
+fn frame(f: &Frame, out: &mut Vec<u8>) {
+    out.extend_from_slice(b"{\"kind\":\"frame\",\"seq\":");
+    number(f.seq, out);
+    out.extend_from_slice(b",\"t_ns\":");
+    number(f.t.as_nanos() as u64, out);
+    out.extend_from_slice(b",\"address\":\"");
+    out.extend_from_slice(f.address.text().as_str().as_bytes());
+    out.extend_from_slice(b"\",\"ops\":[");
+    for (i, op) in f.ops.iter().enumerate() {
+        if i > 0 {
+            out.push(b',');
+        }
+        operation(op, out);
+    }
+    out.extend_from_slice(b"],\"outcome\":{\"ops\":[");
+    for (i, oo) in f.outcome.ops.iter().enumerate() {
+        if i > 0 {
+            out.push(b',');
+        }
+        op_outcome(oo, out);
+    }
+    out.extend_from_slice(b"],\"bus_ns\":");
+    number(f.outcome.bus_time.as_nanos() as u64, out);
+    if let Some(m) = f.outcome.measured {
+        out.extend_from_slice(b",\"measured_ns\":");
+        number(m.as_nanos() as u64, out);
+    }
+    if let Some(fault) = &f.outcome.fault {
+        out.extend_from_slice(b",\"fault\":");
+        serde_with(fault, out);
+    }
+    out.extend_from_slice(b"},\"attempt\":");
+    number(f.attempt as u64, out);
+    out.extend_from_slice(b",\"attempts\":");
+    number(f.attempts as u64, out);
+    if let Some(p) = &f.purpose {
+        out.extend_from_slice(b",\"purpose\":");
+        string(p.as_str(), out);
+    }
+    if let Some(Origin { file, line }) = &f.origin {
+        out.extend_from_slice(b",\"origin\":{\"file\":");
+        string(file, out);
+        out.extend_from_slice(b",\"line\":");
+        number(*line as u64, out);
+        out.push(b'}');
+    }
+    if let Some(d) = &f.decoded {
+        out.extend_from_slice(b",\"decoded\":");
+        string(d, out);
+    }
+    if let Some(pec) = &f.pec {
+        out.extend_from_slice(b",\"pec\":");
+        serde_with(pec, out);
+    }
+    out.push(b'}');
+}
+
+fn operation(op: &Operation, out: &mut Vec<u8>) {
+    match op {
+        Operation::Write(bytes) => {
+            out.extend_from_slice(b"{\"write\":");
+            byte_list(bytes, out);
+            out.push(b'}');
+        }
+        Operation::Read(n) => {
+            out.extend_from_slice(b"{\"read\":");
+            number(*n as u64, out);
+            out.push(b'}');
+        }
+        Operation::ReadCounted { max, trailer } => {
+            out.extend_from_slice(b"{\"read-counted\":{\"max\":");
+            number(*max as u64, out);
+            out.extend_from_slice(b",\"trailer\":");
+            number(*trailer as u64, out);
+            out.extend_from_slice(b"}}");
+        }
+    }
+}
+
+fn op_outcome(oo: &OpOutcome, out: &mut Vec<u8>) {
+    out.push(b'{');
+    if !oo.acks.is_empty() {
+        out.extend_from_slice(b"\"acks\":[");
+        for (i, &ack) in oo.acks.iter().enumerate() {
+            if i > 0 {
+                out.push(b',');
+            }
+            out.extend_from_slice(if ack { b"true" } else { b"false" });
+        }
+        out.push(b']');
+    }
+    if !oo.data.is_empty() {
+        if !oo.acks.is_empty() {
+            out.push(b',');
+        }
+        out.extend_from_slice(b"\"data\":");
+        byte_list(&oo.data, out);
+    }
+    out.push(b'}');
+}
+
+fn byte_list(bytes: &[u8], out: &mut Vec<u8>) {
+    out.push(b'[');
+    for (i, &b) in bytes.iter().enumerate() {
+        if i > 0 {
+            out.push(b',');
+        }
+        number(b as u64, out);
+    }
+    out.push(b']');
+}
+
+fn number(n: u64, out: &mut Vec<u8>) {
+    out.extend_from_slice(itoa::Buffer::new().format(n).as_bytes());
+}
+
+/// A JSON string as serde_json writes one: `"` and `\` escaped, the
+/// controls below 0x20 as `\b \t \n \f \r` or `\u00xx` (lower-case hex),
+/// everything else (DEL, non-ASCII) as it is.
+fn string(s: &str, out: &mut Vec<u8>) {
+    out.push(b'"');
+    let bytes = s.as_bytes();
+    let mut plain = 0;
+    for (i, &b) in bytes.iter().enumerate() {
+        let escape: &[u8] = match b {
+            b'"' => b"\\\"",
+            b'\\' => b"\\\\",
+            0x08 => b"\\b",
+            b'\t' => b"\\t",
+            b'\n' => b"\\n",
+            0x0C => b"\\f",
+            b'\r' => b"\\r",
+            0x00..=0x1F => &[b'\\', b'u', b'0', b'0', HEX[(b >> 4) as usize], HEX[(b & 0xF) as usize]],
+            _ => continue,
+        };
+        out.extend_from_slice(&bytes[plain..i]);
+        out.extend_from_slice(escape);
+        plain = i + 1;
+    }
+    out.extend_from_slice(&bytes[plain..]);
+    out.push(b'"');
+}
+
+const HEX: [u8; 16] = *b"0123456789abcdef";
+
+#[cfg(test)]
+mod tests {
+    use std::sync::Arc;
+    use std::time::Duration;
+
+    use proptest::prelude::*;
+
+    use super::*;
+    use crate::bus::{Address, Direction, Fault, LineFault, Outcome};
+    use crate::record::{Level, PecMark, Purpose, Stats};
+
+    fn serde_line(r: &Record) -> Vec<u8> {
+        let mut v = serde_json::to_vec(r).unwrap();
+        v.push(b'\n');
+        v
+    }
+
+    fn ours(r: &Record) -> Vec<u8> {
+        let mut v = Vec::new();
+        write_line(r, &mut v);
+        v
+    }
+
+    fn any_text() -> impl Strategy<Value = String> {
+        // Every control character, quotes, backslashes, DEL, non-ASCII.
+        prop_oneof![
+            proptest::collection::vec(any::<char>(), 0..12).prop_map(|c| c.into_iter().collect()),
+            proptest::collection::vec(0u8..0x80, 0..12).prop_map(|b| b.into_iter().map(char::from).collect()),
+            Just(String::new()),
+        ]
+    }
+
+    fn any_address() -> impl Strategy<Value = Address> {
+        prop_oneof![(0u8..=0x7F).prop_map(Address::Seven), (0u16..=0x3FF).prop_map(Address::Ten)]
+    }
+
+    fn any_op() -> impl Strategy<Value = Operation> {
+        prop_oneof![
+            proptest::collection::vec(any::<u8>(), 0..6).prop_map(Operation::Write),
+            (0usize..300).prop_map(Operation::Read),
+            (0usize..256, 0usize..3).prop_map(|(max, trailer)| Operation::ReadCounted { max, trailer }),
+        ]
+    }
+
+    fn any_op_outcome() -> impl Strategy<Value = OpOutcome> {
+        (proptest::collection::vec(any::<bool>(), 0..4), proptest::collection::vec(any::<u8>(), 0..4))
+            .prop_map(|(acks, data)| OpOutcome { acks, data })
+    }
+
+    fn any_fault() -> impl Strategy<Value = Fault> {
+        prop_oneof![
+            (0usize..4).prop_map(|op| Fault::AddressNack { op, direction: Direction::Read }),
+            (0usize..4, 0usize..9).prop_map(|(op, index)| Fault::DataNack { op, index }),
+            Just(Fault::ArbitrationLost),
+            Just(Fault::Bus { line: LineFault::SdaStuckLow }),
+            any::<u64>().prop_map(|waited_us| Fault::StretchTimeout { waited_us }),
+            any_text().prop_map(|detail| Fault::Adapter { detail }),
+        ]
+    }
+
+    fn any_purpose() -> impl Strategy<Value = Purpose> {
+        prop_oneof![
+            Just(Purpose::Scan),
+            Just(Purpose::AckPoll),
+            Just(Purpose::Poll),
+            Just(Purpose::Batch),
+            any_text().prop_map(|t| Purpose::from_name(&t)),
+        ]
+    }
+
+    prop_compose! {
+        fn any_frame()(
+            seq in any::<u64>(),
+            t in any::<u64>(),
+            address in any_address(),
+            ops in proptest::collection::vec(any_op(), 0..4),
+            outcomes in proptest::collection::vec(any_op_outcome(), 0..4),
+            bus in any::<u64>(),
+            measured in proptest::option::of(any::<u64>()),
+            fault in proptest::option::of(any_fault()),
+            attempt in any::<u32>(),
+            attempts in any::<u32>(),
+            purpose in proptest::option::of(any_purpose()),
+            origin in proptest::option::of((any_text(), any::<u32>())),
+            decoded in proptest::option::of(any_text()),
+            pec in proptest::option::of((0usize..3, 0usize..40, any::<u8>(), proptest::option::of(any::<u8>()), any::<bool>())),
+        ) -> Frame {
+            Frame {
+                seq,
+                t: Duration::from_nanos(t),
+                address,
+                ops,
+                outcome: Outcome {
+                    ops: outcomes,
+                    bus_time: Duration::from_nanos(bus),
+                    measured: measured.map(Duration::from_nanos),
+                    fault,
+                },
+                attempt,
+                attempts,
+                purpose,
+                origin: origin.map(|(file, line)| Origin { file: Arc::from(file), line }),
+                decoded,
+                pec: pec.map(|(op, index, expected, received, ok)| PecMark { op, index, expected, received, ok }),
+            }
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 2000, ..ProptestConfig::default() })]
+
+        #[test]
+        fn frames_are_the_bytes_serde_writes(f in any_frame()) {
+            let r = Record::Frame(f);
+            prop_assert_eq!(String::from_utf8(ours(&r)).unwrap(), String::from_utf8(serde_line(&r)).unwrap());
+        }
+    }
+
+    #[test]
+    fn every_character_below_0x80_escapes_as_serde_does() {
+        let all: String = (0u8..0x80).map(char::from).collect();
+        let mut mine = Vec::new();
+        string(&all, &mut mine);
+        assert_eq!(mine, serde_json::to_vec(&all).unwrap());
+        // RFC 8259 section 7: quotation mark, reverse solidus and the
+        // controls U+0000-U+001F must be escaped; DEL need not be.
+        let text = String::from_utf8(mine).unwrap();
+        assert!(text.contains(r#"\u0000"#) && text.contains(r#"\u001f"#) && text.contains(r#"\""#));
+        assert!(text.contains('\u{7f}'));
+    }
+
+    #[test]
+    fn other_records_go_through_serde() {
+        let records = [
+            Record::Log {
+                t: Duration::from_nanos(5),
+                level: Level::Warn,
+                text: "a\rb".into(),
+                origin: Some(Origin { file: "x.lua".into(), line: 2 }),
+            },
+            Record::Step { t: Duration::ZERO, name: "s".into(), origin: None },
+            Record::End { t: Duration::from_nanos(9), stats: Stats::default(), exit: 3, error: Some("e".into()) },
+        ];
+        for r in &records {
+            assert_eq!(ours(r), serde_line(r));
+        }
+    }
+}
