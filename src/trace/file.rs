@@ -38,7 +38,7 @@ use thiserror::Error;
 
 use super::append::Appender;
 use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
-use crate::record::{Record, Sink, Stats};
+use crate::record::{Record, Sink, Stats, write_line};
 
 /// Why a trace cannot be read.
 #[derive(Debug, Error)]
@@ -128,8 +128,8 @@ impl Written {
     /// Appends an end record with the counts so far; nothing follows it.
     fn end(&mut self, exit: u8, error: &str) -> io::Result<()> {
         let end = Record::End { t: self.last_t, stats: self.stats.clone(), exit, error: Some(error.to_string()) };
-        let mut line = serde_json::to_vec(&end)?;
-        line.push(b'\n');
+        let mut line = Vec::new();
+        write_line(&end, &mut line);
         self.ended = true;
         self.out.append(&line)
     }
@@ -219,8 +219,7 @@ impl TraceWriter {
 impl Sink for TraceWriter {
     fn record(&mut self, r: &Record) -> io::Result<()> {
         self.line.clear();
-        serde_json::to_writer(&mut self.line, r)?;
-        self.line.push(b'\n');
+        write_line(r, &mut self.line);
         let mut w = lock(&self.shared);
         if w.ended {
             return Ok(());
