@@ -144,7 +144,13 @@ fn byte_list(bytes: &[u8], out: &mut Vec<u8>) {
 }
 
 fn number(n: u64, out: &mut Vec<u8>) {
-    out.extend_from_slice(itoa::Buffer::new().format(n).as_bytes());
+    // Most numbers of a frame are bytes, counts and attempt numbers: the
+    // ones below 100 skip the general formatter.
+    match n {
+        0..=9 => out.push(b'0' + n as u8),
+        10..=99 => out.extend_from_slice(&[b'0' + (n / 10) as u8, b'0' + (n % 10) as u8]),
+        _ => out.extend_from_slice(itoa::Buffer::new().format(n).as_bytes()),
+    }
 }
 
 /// A JSON string as serde_json writes one: `"` and `\` escaped, the
@@ -152,27 +158,39 @@ fn number(n: u64, out: &mut Vec<u8>) {
 /// everything else (DEL, non-ASCII) as it is.
 fn string(s: &str, out: &mut Vec<u8>) {
     out.push(b'"');
-    let bytes = s.as_bytes();
-    let mut plain = 0;
-    for (i, &b) in bytes.iter().enumerate() {
-        let escape: &[u8] = match b {
-            b'"' => b"\\\"",
-            b'\\' => b"\\\\",
-            0x08 => b"\\b",
-            b'\t' => b"\\t",
-            b'\n' => b"\\n",
-            0x0C => b"\\f",
-            b'\r' => b"\\r",
-            0x00..=0x1F => &[b'\\', b'u', b'0', b'0', HEX[(b >> 4) as usize], HEX[(b & 0xF) as usize]],
-            _ => continue,
-        };
-        out.extend_from_slice(&bytes[plain..i]);
-        out.extend_from_slice(escape);
-        plain = i + 1;
+    let mut rest = s.as_bytes();
+    // Runs of bytes that need no escape are copied whole.
+    while let Some(i) = rest.iter().position(|&b| ESCAPED[b as usize]) {
+        out.extend_from_slice(&rest[..i]);
+        let b = rest[i];
+        match b {
+            b'"' => out.extend_from_slice(b"\\\""),
+            b'\\' => out.extend_from_slice(b"\\\\"),
+            0x08 => out.extend_from_slice(b"\\b"),
+            b'\t' => out.extend_from_slice(b"\\t"),
+            b'\n' => out.extend_from_slice(b"\\n"),
+            0x0C => out.extend_from_slice(b"\\f"),
+            b'\r' => out.extend_from_slice(b"\\r"),
+            _ => out.extend_from_slice(&[b'\\', b'u', b'0', b'0', HEX[(b >> 4) as usize], HEX[(b & 0xF) as usize]]),
+        }
+        rest = &rest[i + 1..];
     }
-    out.extend_from_slice(&bytes[plain..]);
+    out.extend_from_slice(rest);
     out.push(b'"');
 }
+
+/// The bytes a JSON string cannot hold as they are (RFC 8259 section 7).
+const ESCAPED: [bool; 256] = {
+    let mut t = [false; 256];
+    let mut b = 0;
+    while b < 0x20 {
+        t[b] = true;
+        b += 1;
+    }
+    t[b'"' as usize] = true;
+    t[b'\\' as usize] = true;
+    t
+};
 
 const HEX: [u8; 16] = *b"0123456789abcdef";
 
