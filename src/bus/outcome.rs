@@ -35,19 +35,29 @@ pub enum LineFault {
     MisplacedCondition,
 }
 
+impl std::fmt::Display for LineFault {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            LineFault::SdaStuckLow => "SDA stuck low",
+            LineFault::SclStuckLow => "SCL stuck low",
+            LineFault::MisplacedCondition => "a START or STOP where none belongs",
+        })
+    }
+}
+
 /// How a transaction failed.
 #[derive(Debug, Clone, PartialEq, Eq, Error, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
 pub enum Fault {
     /// No target ACKed the address byte(s) of the phase starting at `op`.
-    #[error("address NACK ({direction:?} phase at operation {op})")]
+    #[error("address NACK ({direction} phase at operation {op})")]
     AddressNack { op: usize, direction: Direction },
     /// The target NACKed data byte `index` of write operation `op`.
     #[error("data NACK at operation {op}, byte {index}")]
     DataNack { op: usize, index: usize },
     #[error("arbitration lost")]
     ArbitrationLost,
-    #[error("bus error: {line:?}")]
+    #[error("bus error: {line}")]
     Bus { line: LineFault },
     /// A target held SCL low for longer than the adapter waits.
     #[error("clock-stretch timeout after {waited_us} us")]

@@ -46,6 +46,15 @@ pub enum Direction {
     Read,
 }
 
+impl std::fmt::Display for Direction {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Direction::Write => "write",
+            Direction::Read => "read",
+        })
+    }
+}
+
 /// One operation of a transaction.
 #[derive(Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]

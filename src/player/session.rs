@@ -62,7 +62,7 @@ pub enum RunError {
 fn describe(fault: &Fault, ops: &[Operation]) -> String {
     match fault {
         Fault::AddressNack { direction, .. } => {
-            format!("address NACK on {direction:?}").to_lowercase().replace("nack", "NACK")
+            format!("address NACK on {direction}")
         }
         Fault::DataNack { op, index } => {
             let byte = match ops.get(*op) {
