@@ -258,7 +258,7 @@ fn stuck_bus_is_recovered() {
     let text = r#"
         bus.read(0x20, 1) bus.read(0x20, 1)
         local ok, err = pcall(bus.read, 0x20, 1)
-        check(not ok and tostring(err):find("SdaStuckLow"), "third read finds SDA held low")
+        check(not ok and err.kind == "bus-error" and tostring(err):find("SDA stuck low"), "third read finds SDA held low")
         local pulses, released = bus.recover()
         check_eq(pulses, 4, "SCL pulses until SDA let go")
         check(released)
@@ -312,10 +312,19 @@ mod sandbox {
 
     #[test]
     fn no_process_spawning() {
-        for text in ["os.execute('true')", "io.popen('true')", "os.exit(0)", "os.remove('x')"] {
+        for (text, name) in [
+            ("os.execute('true')", "os.execute"),
+            ("io.popen('true')", "io.popen"),
+            ("os.exit(0)", "os.exit"),
+            ("os.remove('x')", "os.remove"),
+        ] {
             let (c, err) = fails(text, &[]);
             assert_eq!(c, 2, "{text}");
-            assert!(err.contains("nil value"), "{text}: {err}");
+            // Said as what it is, with the way to allow it.
+            assert!(
+                err.contains(&format!("{name} is switched off by the sandbox; run with --allow-io")),
+                "{text}: {err}"
+            );
         }
     }
 
@@ -337,9 +346,9 @@ mod sandbox {
     #[test]
     fn no_c_modules_debug_or_binary_chunks() {
         for (text, needle) in [
-            ("package.loadlib('libc.so.6', 'system')", "nil value"),
-            ("debug.getinfo(1)", "nil value"),
-            ("string.dump(function() end)", "nil value"),
+            ("package.loadlib('libc.so.6', 'system')", "package.loadlib is switched off in scripts"),
+            ("debug.getinfo(1)", "debug.getinfo is switched off in scripts"),
+            ("string.dump(function() end)", "string.dump is switched off in scripts"),
             ("assert(load('\\27Lua\\84\\0'))", "attempt to load a binary chunk"),
             ("require('../secrets')", "module names are letters"),
             ("require('no_such_module')", "no module found"),
@@ -397,7 +406,7 @@ mod sandbox {
 fn load_without_an_environment_sees_the_sandboxed_globals() {
     ok(r#"
         check_eq(load("return math.pi")(), math.pi, "text chunk without env sees the globals")
-        check(load("return io")() == nil, "and they are the sandboxed ones")
+        check(not pcall(load("return io.open")), "and they are the sandboxed ones")
         local parts = { "return math.", "floor(3.5)" }
         check_eq(load(function() return table.remove(parts, 1) end)(), 3, "a reader function without env")
         check_eq(load("return x", "chunk", "t", { x = 7 })(), 7, "an explicit env is honoured")

@@ -53,16 +53,24 @@ pub fn transact(
     result.map_err(|e| run_error(lua, e))
 }
 
-/// Registers a function under `table.name` with errors located at the
-/// calling script line.
+/// Registers a function in `table` under the last part of `name`
+/// (`bus.write` goes in as `write`), with errors located at the calling
+/// script line; an argument of the wrong type is refused in the script's
+/// terms, naming the function as a script calls it (`name`).
 pub fn add<A, R, F>(lua: &Lua, table: &Table, name: &str, f: F) -> mlua::Result<()>
 where
     A: mlua::FromLuaMulti,
     R: mlua::IntoLuaMulti,
     F: Fn(&Lua, A) -> LuaResult<R> + 'static,
 {
-    let func = lua.create_function(move |lua, args: A| f(lua, args).map_err(|e| located(lua, e)))?;
-    table.set(name, func)
+    let key = name.rsplit('.').next().unwrap_or(name);
+    let shown = name.to_string();
+    let func = lua.create_function(move |lua, args: mlua::MultiValue| {
+        let args =
+            A::from_lua_args(args, 1, Some(&shown), lua).map_err(|e| located(lua, convert::in_script_terms(e)))?;
+        f(lua, args).map_err(|e| located(lua, e))
+    })?;
+    table.set(key, func)
 }
 
 pub fn default_retry(ctx: &Ctx) -> crate::player::RetryPolicy {
@@ -74,7 +82,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let bus = lua.create_table()?;
 
     let c = ctx.clone();
-    add(lua, &bus, "write", move |lua, (addr, data, opts): (Value, Value, Option<Table>)| {
+    add(lua, &bus, "bus.write", move |lua, (addr, data, opts): (Value, Value, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Write(convert::bytes(&data, "write")?)]);
         transact(lua, &c, &tx, &o, None, None)?;
@@ -82,7 +90,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "read", move |lua, (addr, n, opts): (Value, Value, Option<Table>)| {
+    add(lua, &bus, "bus.read", move |lua, (addr, n, opts): (Value, Value, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Read(convert::count(&n, "read count")?)]);
         let out = transact(lua, &c, &tx, &o, None, None)?;
@@ -90,7 +98,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "write_read", move |lua, (addr, data, n, opts): (Value, Value, Value, Option<Table>)| {
+    add(lua, &bus, "bus.write_read", move |lua, (addr, data, n, opts): (Value, Value, Value, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let ops =
             vec![Operation::Write(convert::bytes(&data, "write")?), Operation::Read(convert::count(&n, "read count")?)];
@@ -99,7 +107,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "transfer", move |lua, (addr, ops_v, opts): (Value, Table, Option<Table>)| {
+    add(lua, &bus, "bus.transfer", move |lua, (addr, ops_v, opts): (Value, Table, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let mut ops = Vec::new();
         for (i, op) in ops_v.sequence_values::<Table>().enumerate() {
@@ -149,7 +157,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "scan", move |lua, opts: Option<Table>| {
+    add(lua, &bus, "bus.scan", move |lua, opts: Option<Table>| {
         if let Some(t) = &opts {
             convert::check_keys(t, "scan options", &["reserved", "ten_bit", "probe"])?;
         }
@@ -178,7 +186,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "speed", move |lua, v: Value| {
+    add(lua, &bus, "bus.speed", move |lua, v: Value| {
         if !v.is_nil() {
             let s = convert::speed(&v)?;
             let set = c.session.borrow_mut().set_speed(s);
@@ -194,7 +202,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "retry", move |lua, v: Value| {
+    add(lua, &bus, "bus.retry", move |lua, v: Value| {
         let mut s = c.session.borrow_mut();
         let prev = s.default_retry;
         if !v.is_nil() {
@@ -208,7 +216,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "wait_ack", move |lua, (addr, opts): (Value, Option<Table>)| {
+    add(lua, &bus, "bus.wait_ack", move |lua, (addr, opts): (Value, Option<Table>)| {
         if let Some(t) = &opts {
             convert::check_keys(t, "wait_ack options", &["timeout_ms", "interval_ms"])?;
         }
@@ -220,25 +228,25 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "recover", move |lua, ()| {
+    add(lua, &bus, "bus.recover", move |lua, ()| {
         let r = c.session.borrow_mut().recover().map_err(|e| run_error(lua, e))?;
         Ok((r.pulses, r.released))
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "stats", move |lua, ()| lua.to_value(&c.session.borrow().stats))?;
+    add(lua, &bus, "bus.stats", move |lua, ()| lua.to_value(&c.session.borrow().stats))?;
 
-    add(lua, &bus, "ten", |_, v: Value| {
+    add(lua, &bus, "bus.ten", |_, v: Value| {
         Ok(Address::ten(convert::integer(&v, "10-bit address")?).map_err(|e| bad(e.to_string()))?.to_string())
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "device", move |lua, (addr, opts): (Value, Option<Table>)| {
+    add(lua, &bus, "bus.device", move |lua, (addr, opts): (Value, Option<Table>)| {
         let d = DeviceHandle::new(c.clone(), convert::address(&addr)?, opts, default_retry(&c))?;
         lua.create_userdata(d)
     })?;
     let c = ctx.clone();
-    add(lua, &bus, "batch", move |lua, block: mlua::Function| super::batch::batch(lua, &c, block))?;
+    add(lua, &bus, "bus.batch", move |lua, block: mlua::Function| super::batch::batch(lua, &c, block))?;
     g.set("bus", bus)?;
 
     super::smbus_api::install(lua, &g, ctx.clone())?;
@@ -259,7 +267,7 @@ fn log_line(lua: &Lua, tostring: &Function, args: &Variadic<Value>) -> LuaResult
         match v {
             Value::String(s) => line.push(&s.as_bytes()),
             Value::Integer(n) => line.push(n.to_string().as_bytes()),
-            Value::Number(n) => line.push(n.to_string().as_bytes()),
+            Value::Number(n) => line.push(convert::number_text(*n).as_bytes()),
             Value::Boolean(b) => line.push(b.to_string().as_bytes()),
             Value::Nil => line.push(b"nil"),
             Value::Table(_) | Value::Function(_) | Value::Thread(_) | Value::UserData(_) => {
@@ -309,7 +317,7 @@ fn same(a: &Value, b: &Value) -> LuaResult<bool> {
 fn show(out: &mut cap::Text, v: &Value) {
     match v {
         Value::Integer(_) | Value::Table(_) => out.push(hex_value(v).unwrap_or_else(|_| format!("{v:?}")).as_bytes()),
-        Value::Number(n) => out.push(n.to_string().as_bytes()),
+        Value::Number(n) => out.push(convert::number_text(*n).as_bytes()),
         Value::String(s) => {
             out.push(b"\"");
             out.push(&s.as_bytes());

@@ -18,12 +18,95 @@ fn type_name(v: &Value) -> &'static str {
     v.type_name()
 }
 
+/// An argument mlua could not convert, said as a script author reads it:
+/// `bus.transfer: argument 2 must be a table, got a string` instead of
+/// `bad argument #2: error converting Lua string to table`. Other errors
+/// pass through.
+pub fn in_script_terms(e: mlua::Error) -> mlua::Error {
+    let mlua::Error::BadArgument { to, pos, name, cause } = &e else { return e };
+    let function = to.as_deref().map(|t| format!("{t}: ")).unwrap_or_default();
+    let which = match name {
+        Some(n) => format!("argument {n}"),
+        None => format!("argument {pos}"),
+    };
+    let reason = match &**cause {
+        mlua::Error::FromLuaConversionError { from, to, message } => {
+            let range = message.as_deref().filter(|m| m.contains("out of range")).map(|_| " in range");
+            match range {
+                Some(r) => format!("must be {}{r}", kind_wanted(to)),
+                None => format!("must be {}, got {}", kind_wanted(to), kind_given(from)),
+            }
+        }
+        other => other.to_string(),
+    };
+    bad(format!("{function}{which} {reason}"))
+}
+
+/// A Rust target type of a conversion as a script author names it.
+fn kind_wanted(to: &str) -> &'static str {
+    match to {
+        "table" | "Table" => "a table",
+        "function" | "Function" => "a function",
+        "string" | "String" => "a string",
+        "boolean" | "bool" => "true or false",
+        "f32" | "f64" | "number" => "a number",
+        t if t.starts_with('i') || t.starts_with('u') || t == "integer" => "a whole number",
+        _ => "a value of another type",
+    }
+}
+
+/// A Lua type name as a script author names it.
+fn kind_given(from: &str) -> String {
+    match from {
+        "integer" | "number" => "a number".into(),
+        "nil" => "nil".into(),
+        "boolean" => "a boolean".into(),
+        "userdata" | "table" | "string" | "function" | "thread" => format!("a {from}"),
+        other => format!("a {other}"),
+    }
+}
+
+/// A float as Lua's `tostring` writes it (Lua 5.4: `LUAI_NUMFFORMAT`,
+/// `"%.14g"`, and `.0` after one that looks like an integer), so what a
+/// script logs or a message shows reads as the script's own `print` would
+/// show it: `0.3`, not `0.30000000000000004`.
+pub fn number_text(n: f64) -> String {
+    if n.is_nan() {
+        // glibc's printf: the sign of a NaN is shown.
+        return if n.is_sign_negative() { "-nan" } else { "nan" }.into();
+    }
+    if n.is_infinite() {
+        return if n < 0.0 { "-inf" } else { "inf" }.into();
+    }
+    const P: i32 = 14;
+    // %g: the exponent X of the value rounded to P significant digits
+    // picks the style (C11 7.21.6.1, the `g` conversion).
+    let sci = format!("{:.*e}", (P - 1) as usize, n);
+    let (mantissa, exp) = sci.split_once('e').unwrap_or((&sci, "0"));
+    let x: i32 = exp.parse().unwrap_or(0);
+    let mut text = if !(-4..P).contains(&x) {
+        let m = trim_fraction(mantissa);
+        format!("{m}e{}{:02}", if x < 0 { '-' } else { '+' }, x.unsigned_abs())
+    } else {
+        trim_fraction(&format!("{:.*}", (P - 1 - x) as usize, n)).to_string()
+    };
+    if text.bytes().all(|b| b == b'-' || b.is_ascii_digit()) {
+        text.push_str(".0");
+    }
+    text
+}
+
+/// `%g` drops trailing zeros of the fraction, and the point with them.
+fn trim_fraction(t: &str) -> &str {
+    if t.contains('.') { t.trim_end_matches('0').trim_end_matches('.') } else { t }
+}
+
 /// An integer from a Lua number; refuses fractions instead of rounding.
 pub fn integer(v: &Value, what: &str) -> LuaResult<i64> {
     match v {
         Value::Integer(i) => Ok(*i),
         Value::Number(n) if n.fract() == 0.0 && n.is_finite() && n.abs() < 9.0e15 => Ok(*n as i64),
-        Value::Number(n) => Err(bad(format!("{what} must be a whole number, got {n}"))),
+        Value::Number(n) => Err(bad(format!("{what} must be a whole number, got {}", number_text(*n)))),
         Value::String(s) => {
             let t = s.to_string_lossy();
             crate::bus::address::parse_int(&t).ok_or_else(|| bad(format!("{what} must be a number, got \"{t}\"")))
@@ -45,7 +128,10 @@ pub fn number(v: &Value, what: &str) -> LuaResult<f64> {
 pub fn address(v: &Value) -> LuaResult<Address> {
     match v {
         Value::String(s) => Address::parse(&s.to_string_lossy()).map_err(|e| bad(e.to_string())),
-        other => Address::seven(integer(other, "address")?).map_err(|e| bad(e.to_string())),
+        other => match integer(other, "address")? {
+            n if n < 0 => Err(bad(format!("address {n} is negative; a 7-bit address is 0x00-0x7F"))),
+            n => Address::seven(n).map_err(|e| bad(e.to_string())),
+        },
     }
 }
 
@@ -190,4 +276,55 @@ pub fn ms_option(t: Option<&Table>, key: &str, default: f64) -> LuaResult<std::t
         return Err(bad(format!("{key} must be 0-86400000, got {ms}")));
     }
     Ok(std::time::Duration::from_secs_f64(ms / 1000.0))
+}
+
+#[cfg(test)]
+mod tests {
+    use proptest::prelude::*;
+
+    use super::*;
+
+    /// Lua's own `tostring`, the outside check: the runtime the scripts run on.
+    fn lua_says(lua: &Lua, n: f64) -> String {
+        lua.globals().get::<mlua::Function>("tostring").unwrap().call::<String>(n).unwrap()
+    }
+
+    #[test]
+    fn numbers_read_as_lua_prints_them() {
+        let lua = Lua::new();
+        for n in [
+            0.1 + 0.2,
+            0.0,
+            -0.0,
+            1.0,
+            -2.5,
+            1e15,
+            1e14,
+            99999999999999.0,
+            123456789012345.0,
+            1e-4,
+            1e-5,
+            0.000123456789012345,
+            1.5e300,
+            f64::MIN_POSITIVE,
+            f64::MAX,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            2.0f64.powi(53),
+        ] {
+            assert_eq!(number_text(n), lua_says(&lua, n), "{n:e}");
+        }
+        assert_eq!(number_text(0.1 + 0.2), "0.3");
+        assert_eq!(number_text(3.0), "3.0");
+    }
+
+    proptest! {
+        #[test]
+        fn any_float_reads_as_lua_prints_it(bits in any::<u64>()) {
+            let n = f64::from_bits(bits);
+            prop_assume!(!n.is_nan());
+            let lua = Lua::new();
+            prop_assert_eq!(number_text(n), lua_says(&lua, n));
+        }
+    }
 }

@@ -18,6 +18,7 @@
 pub mod api;
 pub mod batch;
 pub mod cap;
+pub mod caught;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
@@ -270,6 +271,8 @@ fn locate(abort: Abort, innermost: Option<Origin>, file: &str) -> Abort {
 fn classify_value(v: &Value) -> Abort {
     match v {
         Value::Error(e) => classify(e),
+        // A failure a script caught and raised again.
+        Value::UserData(_) if let Some(a) = caught::inside(v) => a,
         // Lua reports running out of its allowance as this plain string.
         Value::String(s) if s.to_string_lossy() == "not enough memory" => {
             Abort::Limit("script memory limit reached; raise it with --memory-limit".into())
@@ -305,8 +308,11 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
         .map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?;
     let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
     let search = search_dirs(&cfg.script);
+    // The stock `xpcall`, for the run itself: the script's own is wrapped.
+    let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
     let setup = || -> mlua::Result<()> {
         sandbox::install(&lua, cfg.allow_io, &search)?;
+        caught::install(&lua)?;
         api::install(&lua, ctx.clone())?;
         Ok(())
     };
@@ -363,7 +369,6 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
             Ok(cap::error_value(lua, err, frames.first().cloned()))
         })
         .map_err(|e| script_err(e.to_string()))?;
-    let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
     let result = match xpcall.call::<MultiValue>((main, handler)) {
         Err(e) => Err(locate(classify(&e), innermost.take(), &file)),
         Ok(values) => {

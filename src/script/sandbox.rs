@@ -2,7 +2,8 @@
 //!
 //! Untrusted (the default): `io` is gone; `os` keeps only `clock`, `date`,
 //! `difftime` and `time`; `dofile`, `loadfile`, `string.dump` and
-//! `package.loadlib` are gone; `load` accepts text chunks only (a chunk
+//! `package.loadlib` are gone (each name taken away is a stand-in that
+//! says so when used, and how to allow it where it can be allowed); `load` accepts text chunks only (a chunk
 //! loaded without an environment sees the sandboxed globals, as in stock
 //! Lua; an environment passed, `nil` included, is honoured); `require`
 //! loads `NAME.lua` (dots become folders) from the script's folder or
@@ -27,14 +28,17 @@ local raw_load = load
 load = function(chunk, name, _mode, ...)
   return raw_load(chunk, name, "t", ...)
 end
-string.dump = nil
+string.dump = function()
+  error("string.dump is switched off in scripts: binary chunks are never loaded", 2)
+end
 "#;
 
 pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()> {
     let g = lua.globals();
     lua.load(PRELUDE).set_name(format!("{INTERNAL_CHUNK} sandbox")).exec()?;
     let package: Table = g.get("package")?;
-    package.set("loadlib", Value::Nil)?;
+    package.set("loadlib", off_function(lua, "package.loadlib", NEVER)?)?;
+    g.set("debug", off_library(lua, "debug", NEVER)?)?;
     package.set("cpath", "")?;
     let path = search.iter().map(|d| format!("{}/?.lua", d.display())).collect::<Vec<_>>().join(";");
     if allow_io {
@@ -43,14 +47,15 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
         return Ok(());
     }
     package.set("path", path)?;
-    g.set("io", Value::Nil)?;
-    g.set("dofile", Value::Nil)?;
-    g.set("loadfile", Value::Nil)?;
+    g.set("io", off_library(lua, "io", HOW_TO_ALLOW)?)?;
+    g.set("dofile", off_function(lua, "dofile", HOW_TO_ALLOW)?)?;
+    g.set("loadfile", off_function(lua, "loadfile", HOW_TO_ALLOW)?)?;
     let os: Table = g.get("os")?;
     let safe = lua.create_table()?;
     for k in ["clock", "date", "difftime", "time"] {
         safe.set(k, os.get::<Value>(k)?)?;
     }
+    safe.set_metatable(Some(off_fields(lua, "os", HOW_TO_ALLOW)?))?;
     g.set("os", safe)?;
     let loaded: Table = package.get("loaded")?;
     for k in ["io", "os"] {
@@ -61,6 +66,42 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
     let require = lua.create_function(move |lua, name: String| require(lua, &dirs, &name))?;
     g.set("require", require)?;
     Ok(())
+}
+
+/// How a name switched off by the untrusted sandbox can be had.
+const HOW_TO_ALLOW: &str = "switched off by the sandbox; run with --allow-io to allow it";
+/// For names no script gets.
+const NEVER: &str = "switched off in scripts (C code and the debug library are never loaded)";
+
+/// A stand-in for a function the sandbox took away: calling it says so
+/// (instead of Lua's "attempt to call a nil value").
+fn off_function(lua: &Lua, name: &str, why: &'static str) -> mlua::Result<mlua::Function> {
+    let message = format!("{name} is {why}");
+    lua.create_function(move |_, _: mlua::MultiValue| Err::<(), _>(mlua::Error::RuntimeError(message.clone())))
+}
+
+/// A metatable whose `__index` says that `library.name` was taken away,
+/// for any name the table lacks.
+fn off_fields(lua: &Lua, library: &str, why: &'static str) -> mlua::Result<Table> {
+    let library = library.to_string();
+    let index = lua.create_function(move |_, (_, key): (Value, Value)| {
+        let key = match &key {
+            Value::String(s) => s.to_string_lossy(),
+            other => format!("[{}]", other.type_name()),
+        };
+        Err::<(), _>(mlua::Error::RuntimeError(format!("{library}.{key} is {why}")))
+    })?;
+    let mt = lua.create_table()?;
+    mt.set("__index", index)?;
+    Ok(mt)
+}
+
+/// A stand-in for a library the sandbox took away: an empty table whose
+/// every field says so.
+fn off_library(lua: &Lua, library: &str, why: &'static str) -> mlua::Result<Table> {
+    let t = lua.create_table()?;
+    t.set_metatable(Some(off_fields(lua, library, why)?))?;
+    Ok(t)
 }
 
 fn valid_module_name(name: &str) -> bool {
