@@ -16,7 +16,7 @@ fn battery_demo_checks_every_pec() {
     assert!(name["ops"][1]["read-counted"].is_object(), "a Block Read is one counted read: {name}");
 }
 
-// SMBus specification (PEC, §6.4 in 2.0/3.x numbering, from memory): the
+// SMBus specification (PEC: 3.x §6.4, 2.0 §5.4; from memory): the
 // target checks the PEC of a write; our gauge NACKs a wrong one. The PEC of
 // 0x16 0x10 0x0F (Write Byte ALARM_PCT = 15 to 0x0B) is CRC-8/SMBUS of
 // those bytes; 0x00 is not it.
@@ -158,4 +158,27 @@ fn bustime_errors_name_the_size_given_and_are_said_once() {
         assert_eq!(code(&o), 2);
         assert_eq!(stderr(&o), "error: operation 0 reads 0 bytes; a read must ask for at least one byte\n", "{args:?}");
     }
+}
+
+// SMBus 3.x §6.5.8 (2.0 §5.5.8), rules from memory: the Block
+// Write-Block Read Process Call needs M ≥ 1 write bytes, N ≥ 1 read bytes
+// and M + N ≤ 32 under the 2.0 limit. The demo gauge's HISTORY (0x41)
+// answers `hours` bytes for a write block {first, hours}: {0, 0} gets
+// N = 0; {0, 31} gets N = 31 with M = 2, 33 bytes in all.
+#[test]
+fn block_process_call_keeps_the_length_rules() {
+    let o = run_script("smbus.block_process_call(0x0B, 0x41, {})", &[]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+    assert!(stderr(&o).contains("at least one byte (M ≥ 1)"), "{}", stderr(&o));
+    let o = run_script("smbus.block_process_call(0x0B, 0x41, string.rep('x', 32))", &[]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+    assert!(stderr(&o).contains("write at most 31 bytes"), "{}", stderr(&o));
+    let o = run_script("smbus.block_process_call(0x0B, 0x41, {0, 0})", &[]);
+    assert_eq!(code(&o), 3, "{}", stderr(&o));
+    assert!(stderr(&o).contains("read block count is 0"), "{}", stderr(&o));
+    let o = run_script("smbus.block_process_call(0x0B, 0x41, {0, 31})", &[]);
+    assert_eq!(code(&o), 3, "{}", stderr(&o));
+    assert!(stderr(&o).contains("M = 2 and read block N = 31 make 33, above the 32-byte limit"), "{}", stderr(&o));
+    let o = run_script("check_eq(#smbus.block_process_call(0x0B, 0x41, {0, 30}), 30)", &[]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
 }
