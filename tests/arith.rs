@@ -167,18 +167,16 @@ fn bustime_errors_name_the_size_given_and_are_said_once() {
 // N = 0; {0, 31} gets N = 31 with M = 2, 33 bytes in all.
 #[test]
 fn block_process_call_keeps_the_length_rules() {
-    let o = run_script("smbus.block_process_call(0x0B, 0x41, {})", &[]);
-    assert_eq!(code(&o), 2, "{}", stderr(&o));
-    assert!(stderr(&o).contains("at least one byte (M ≥ 1)"), "{}", stderr(&o));
-    let o = run_script("smbus.block_process_call(0x0B, 0x41, string.rep('x', 32))", &[]);
-    assert_eq!(code(&o), 2, "{}", stderr(&o));
-    assert!(stderr(&o).contains("write at most 31 bytes"), "{}", stderr(&o));
-    let o = run_script("smbus.block_process_call(0x0B, 0x41, {0, 0})", &[]);
-    assert_eq!(code(&o), 3, "{}", stderr(&o));
-    assert!(stderr(&o).contains("read block count is 0"), "{}", stderr(&o));
-    let o = run_script("smbus.block_process_call(0x0B, 0x41, {0, 31})", &[]);
-    assert_eq!(code(&o), 3, "{}", stderr(&o));
-    assert!(stderr(&o).contains("M = 2 and read block N = 31 make 33, above the 32-byte limit"), "{}", stderr(&o));
+    for (block, want_code, needle) in [
+        ("{}", 2, "at least one byte (M ≥ 1)"),
+        ("string.rep('x', 32)", 2, "write at most 31 bytes"),
+        ("{0, 0}", 3, "read block count is 0"),
+        ("{0, 31}", 3, "M = 2 and read block N = 31 make 33, above the 32-byte limit"),
+    ] {
+        let o = run_script(&format!("smbus.block_process_call(0x0B, 0x41, {block})"), &[]);
+        assert_eq!(code(&o), want_code, "{block}: {}", stderr(&o));
+        assert!(stderr(&o).contains(needle), "{block}: {}", stderr(&o));
+    }
     let o = run_script("check_eq(#smbus.block_process_call(0x0B, 0x41, {0, 30}), 30)", &[]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
 }

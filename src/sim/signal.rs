@@ -36,7 +36,7 @@ impl SignalSpec {
     pub fn extent(&self) -> Option<(f64, f64)> {
         let reach = self.swing.abs() + self.noise.abs();
         let ok = [self.base, self.swing, self.noise, self.period_s].iter().all(|v| v.is_finite());
-        ok.then(|| (self.base - reach, self.base + reach))
+        ok.then_some((self.base - reach, self.base + reach))
     }
 }
 
