@@ -92,7 +92,7 @@ pub fn clip_spans(text: &str) -> String {
             return out;
         };
         let inner = &body[..end];
-        match cut(inner) {
+        match cut(inner, SHOWN_CHARS) {
             Some((head, n)) => {
                 out.push_str(head);
                 out.push('…');
@@ -110,19 +110,27 @@ pub fn clip_spans(text: &str) -> String {
     out
 }
 
+/// Characters of a key (a dotted path) shown before it is cut: keys are
+/// longer than values as a rule (`faults.address_nack_probability`).
+const KEY_CHARS: usize = 80;
+
 /// `text` cut to its first [`SHOWN_CHARS`] characters, an ellipsis and
 /// its length, when longer.
 pub fn clip(text: &str) -> String {
-    match cut(text) {
+    clip_to(text, SHOWN_CHARS)
+}
+
+fn clip_to(text: &str, chars: usize) -> String {
+    match cut(text, chars) {
         Some((head, n)) => format!("{head}… ({n} characters)"),
         None => text.to_string(),
     }
 }
 
-/// The head to show of a text longer than [`SHOWN_CHARS`] characters,
-/// with its length; None when it is short enough to show whole.
-fn cut(text: &str) -> Option<(&str, usize)> {
-    let (i, _) = text.char_indices().nth(SHOWN_CHARS)?;
+/// The head to show of a text longer than `chars` characters, with its
+/// length; None when it is short enough to show whole.
+fn cut(text: &str, chars: usize) -> Option<(&str, usize)> {
+    let (i, _) = text.char_indices().nth(chars)?;
     Some((&text[..i], text.chars().count()))
 }
 
@@ -176,7 +184,7 @@ impl Ctx<'_> {
         ConfigError {
             file: self.file.to_string(),
             line: line_of(self.text, &steps(path)),
-            key: clip(key),
+            key: clip_to(key, KEY_CHARS),
             message: clip_spans(&message.into()),
         }
     }
@@ -230,36 +238,34 @@ impl Ctx<'_> {
         prefix: &str,
         e: serde_path_to_error::Error<toml::de::Error>,
     ) -> ConfigError {
-        {
-            let path = e.path().to_string();
-            let path_named_table = path != "." && !path.is_empty();
-            let key = if path == "." {
-                prefix.to_string()
-            } else if prefix.is_empty() {
-                path
-            } else {
-                format!("{prefix}.{path}")
-            };
-            let msg = e.into_inner().to_string();
-            // Nested tables add "in `table`" lines after the message proper.
-            let msg = msg.trim().lines().rfind(|l| !l.starts_with("in `")).unwrap_or_default().to_string();
-            // A missing or unknown field names itself in the message.
-            let named = msg.split('`').nth(1).map(str::to_string);
-            let key = match (&named, key.is_empty() || key == ".") {
-                (Some(n), true) => n.clone(),
-                (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
-                    if key.ends_with(n.as_str()) {
-                        key
-                    } else if prefix.is_empty() && !path_named_table {
-                        n.clone()
-                    } else {
-                        format!("{key}.{n}")
-                    }
+        let path = e.path().to_string();
+        let path_named_table = path != "." && !path.is_empty();
+        let key = if path == "." {
+            prefix.to_string()
+        } else if prefix.is_empty() {
+            path
+        } else {
+            format!("{prefix}.{path}")
+        };
+        let msg = e.into_inner().to_string();
+        // Nested tables add "in `table`" lines after the message proper.
+        let msg = msg.trim().lines().rfind(|l| !l.starts_with("in `")).unwrap_or_default().to_string();
+        // A missing or unknown field names itself in the message.
+        let named = msg.split('`').nth(1).map(str::to_string);
+        let key = match (&named, key.is_empty() || key == ".") {
+            (Some(n), true) => n.clone(),
+            (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
+                if key.ends_with(n.as_str()) {
+                    key
+                } else if prefix.is_empty() && !path_named_table {
+                    n.clone()
+                } else {
+                    format!("{key}.{n}")
                 }
-                _ => key,
-            };
-            self.err(device, &key, msg)
-        }
+            }
+            _ => key,
+        };
+        self.err(device, &key, msg)
     }
 }
 
@@ -514,6 +520,34 @@ mod tests {
         // The text search took the block's first `seed =`: 13.
         assert_eq!(line(text, Some(1), "faults.seed"), Some(15));
         assert_eq!(line(text, Some(0), "faults.seed"), Some(7));
+    }
+
+    #[test]
+    fn long_quoted_spans_are_cut_with_their_length() {
+        let long = "é".repeat(50);
+        let cut = format!("{}…", "é".repeat(40));
+        assert_eq!(clip_spans("must be \"big\", got \"x\""), "must be \"big\", got \"x\"");
+        assert_eq!(clip_spans(&format!("got `{long}` here")), format!("got `{cut}` (50 characters) here"));
+        // serde escapes quotes inside a string; the span ends at the real one.
+        let escaped = format!("string \"{}\\\"{}\", expected u8", "a".repeat(30), "b".repeat(30));
+        let shown = clip_spans(&escaped);
+        assert!(shown.ends_with("…\" (62 characters), expected u8"), "{shown}");
+        // No closing quote: the rest is the value.
+        assert_eq!(clip_spans(&format!("found \"{long}")), format!("found \"{cut} (50 characters)"));
+        assert_eq!(clip(&"k".repeat(41)), format!("{}… (41 characters)", "k".repeat(40)));
+        // Keys are cut later than values.
+        let key = "faults.address_nack_probability_and_then_some_more_text";
+        assert_eq!(Ctx { file: "t", text: "" }.err(None, key, "m").key, key);
+    }
+
+    #[test]
+    fn format_tags_and_minor_versions() {
+        assert_eq!(check_format("buscue-bench/1", "buscue-bench/1"), Ok(None));
+        assert_eq!(check_format("buscue-bench/1.0", "buscue-bench/1"), Ok(None));
+        assert_eq!(check_format("buscue-bench/1.3", "buscue-bench/1"), Ok(Some("1.3".into())));
+        assert!(check_format("buscue-bench/2.0", "buscue-bench/1").unwrap_err().contains("major version 1"));
+        assert!(check_format("buscue-bench/1.x", "buscue-bench/1").is_err());
+        assert!(check_format("other/1", "buscue-bench/1").is_err());
     }
 
     #[test]
