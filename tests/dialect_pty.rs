@@ -142,6 +142,9 @@ fn unplugging_mid_run_stops_with_the_adapter_exit_code_and_keeps_the_frames() {
             "{}",
             r.stderr
         );
+        // Said once: by the call that failed, not again when the adapter closes.
+        assert_eq!(r.stderr.matches("error:").count(), 1, "{profile}: {}", r.stderr);
+        assert!(!r.stderr.contains("closing the adapter"), "{profile}: {}", r.stderr);
         let f = frames(&r.records);
         assert!(f.len() >= 2, "{profile}: frames before the unplug are logged ({} of them)", f.len());
         let last = f.last().expect("at least one frame");
@@ -167,6 +170,22 @@ fn a_silent_port_times_out_with_the_command_named() {
     let msg = format!("{e:#}");
     assert!(msg.contains("no reply to `QUIET` within 50 ms"), "{msg}");
     assert!(msg.contains("init[0]"), "{msg}");
+}
+
+#[test]
+fn an_ambiguous_reply_pattern_is_refused_on_load() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let bad = dir.path().join("bad.toml");
+    let text = std::fs::read_to_string(root().join("adapters/dialect-stepwise.toml")).expect("shipped profile");
+    let from = "error = \"E {fault} {us} {text}\"";
+    assert!(text.contains(from), "the stepwise profile has its error pattern");
+    std::fs::write(&bad, text.replace(from, "error = \"E {fault} {us} {text} {text}\"")).expect("write");
+    let line = text.lines().position(|l| l.contains(from)).expect("error line") + 1;
+    let r = run("scripts/climate_bringup.lua", &format!("dialect:{}@/dev/null", bad.display()));
+    assert_eq!(r.code, 2, "{}", r.stderr);
+    assert!(r.stderr.contains(&format!("bad.toml:{line}: key `replies.error`")), "{}", r.stderr);
+    assert!(r.stderr.contains("ambiguous"), "{}", r.stderr);
+    assert_eq!(r.stderr.matches("error:").count(), 1, "{}", r.stderr);
 }
 
 #[test]

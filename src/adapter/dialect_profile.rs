@@ -24,7 +24,7 @@ use crate::config::ConfigError;
 use crate::config::{Ctx, check_format};
 
 use super::Capabilities;
-use super::dialect_syntax::{Form, parse};
+use super::dialect_syntax::{Form, parse, pattern};
 
 /// Errors name file, line and key, like bench files.
 pub type ProfileError = ConfigError;
@@ -332,9 +332,15 @@ impl Profile {
         let raw: Raw = cx.parse(None, "", cx.table()?)?;
         let err = |key: &str, m: String| cx.err(None, key, m);
         check_format(&raw.format, FORMAT).map_err(|m| err("format", m))?;
+        // Templates render a command; patterns match a reply, so they must
+        // match one way only.
         let form = |key: &str, text: &str, allowed: &[&str]| parse(text, allowed).map_err(|m| err(key, m));
+        let reply = |key: &str, text: &str, allowed: &[&str]| pattern(text, allowed).map_err(|m| err(key, m));
         let opt = |key: &str, text: &Option<String>, allowed: &[&str]| {
             text.as_deref().map(|t| form(key, t, allowed)).transpose()
+        };
+        let opt_reply = |key: &str, text: &Option<String>, allowed: &[&str]| {
+            text.as_deref().map(|t| reply(key, t, allowed)).transpose()
         };
 
         let s = &raw.serial;
@@ -399,7 +405,7 @@ impl Profile {
         let exchange = |key: &str, x: &RawExchange, expect_fields: &[&str]| {
             Ok::<_, ProfileError>(Exchange {
                 send: form(&format!("{key}.send"), &x.send, fields::NONE)?,
-                expect: form(&format!("{key}.expect"), &x.expect, expect_fields)?,
+                expect: reply(&format!("{key}.expect"), &x.expect, expect_fields)?,
             })
         };
         let init = raw
@@ -428,20 +434,20 @@ impl Profile {
 
         let r = &raw.replies;
         let replies = Replies {
-            ok: opt("replies.ok", &r.ok, fields::NONE)?,
-            ack: opt("replies.ack", &r.ack, fields::NONE)?,
-            nack: opt("replies.nack", &r.nack, fields::NONE)?,
-            data: opt("replies.data", &r.data, fields::BYTE)?,
-            error: opt("replies.error", &r.error, fields::ERROR)?,
-            recovered: opt("replies.recovered", &r.recovered, fields::RECOVERED)?,
-            done: opt("replies.done", &r.done, fields::DONE)?,
-            address_nack: opt("replies.address_nack", &r.address_nack, fields::ADDRESS_NACK)?,
-            data_nack: opt("replies.data_nack", &r.data_nack, fields::DATA_NACK)?,
+            ok: opt_reply("replies.ok", &r.ok, fields::NONE)?,
+            ack: opt_reply("replies.ack", &r.ack, fields::NONE)?,
+            nack: opt_reply("replies.nack", &r.nack, fields::NONE)?,
+            data: opt_reply("replies.data", &r.data, fields::BYTE)?,
+            error: opt_reply("replies.error", &r.error, fields::ERROR)?,
+            recovered: opt_reply("replies.recovered", &r.recovered, fields::RECOVERED)?,
+            done: opt_reply("replies.done", &r.done, fields::DONE)?,
+            address_nack: opt_reply("replies.address_nack", &r.address_nack, fields::ADDRESS_NACK)?,
+            data_nack: opt_reply("replies.data_nack", &r.data_nack, fields::DATA_NACK)?,
             ignore: r
                 .ignore
                 .iter()
                 .enumerate()
-                .map(|(i, t)| form(&format!("replies.ignore[{i}]"), t, fields::TEXT))
+                .map(|(i, t)| reply(&format!("replies.ignore[{i}]"), t, fields::TEXT))
                 .collect::<Result<_, _>>()?,
         };
         let need = |key: &str, f: &Option<Form>, why: &str| match f {
@@ -624,6 +630,21 @@ mod tests {
 
         let e = err(&swap("buscue-dialect/1", "buscue-dialect/7"));
         assert_eq!(e.key, "format", "{e}");
+
+        // Two adjacent {text} captures could split a reply any way.
+        let t = swap("error = \"E {fault} {us} {text}\"", "error = \"E {fault} {us} {text}{text}\"");
+        let e = err(&t);
+        assert_eq!(e.key, "replies.error", "{e}");
+        assert_eq!(e.line, line_of(&t, "{text}{text}"), "{e}");
+        assert!(e.message.contains("ambiguous"), "{e}");
+
+        // A long value is shown by its first characters and its length.
+        let long = "z".repeat(100_000);
+        let e = err(&swap("parity = \"none\"", &format!("parity = \"{long}\"")));
+        assert!(e.to_string().len() < 300, "{} bytes", e.to_string().len());
+        assert!(e.message.contains(&format!("\"{}…\" (100000 characters)", "z".repeat(40))), "{e}");
+        let e = err(&swap("write = \"PUT {byte}\"", &format!("write = \"PUT {{{long}}}\"")));
+        assert!(e.to_string().len() < 400 && e.message.contains("(100002 characters)"), "{e}");
     }
 
     #[test]

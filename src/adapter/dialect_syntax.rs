@@ -14,7 +14,11 @@
 //!
 //! Contract: [`parse`] refuses unknown field names and kinds that do not
 //! suit the field, with a message naming the field, so a profile either
-//! loads whole or fails with the key and the reason.
+//! loads whole or fails with the key and the reason. [`pattern`] parses a
+//! pattern and also refuses one that cannot be matched one way only: a
+//! `text` capture (which takes everything up to what follows) directly
+//! followed by another capture of no fixed width, such as two adjacent
+//! `{text}` captures, with only blanks (which match none) between them.
 
 use std::fmt;
 
@@ -242,6 +246,33 @@ pub fn parse(text: &str, allowed: &[&str]) -> Result<Form, String> {
         return Err("is empty".into());
     }
     Ok(Form { source: text.to_string(), pieces })
+}
+
+/// Parses a pattern: as [`parse`], and refuses a `text` capture followed,
+/// with nothing but blanks between, by another capture whose width is
+/// not fixed (only `hexN` is): where one ends and the next starts would
+/// be a guess.
+pub fn pattern(text: &str, allowed: &[&str]) -> Result<Form, String> {
+    let form = parse(text, allowed)?;
+    let mut open_text: Option<&'static str> = None;
+    for p in &form.pieces {
+        match p {
+            Piece::Blank => {}
+            Piece::Lit(_) => open_text = None,
+            Piece::Field { name, kind } => {
+                if let Some(before) = open_text
+                    && !matches!(kind, Kind::Hex(Some(_)))
+                {
+                    return Err(format!(
+                        "`{{{before}}}` (text) is followed by `{{{name}}}` with no literal text between them: \
+                         where one capture ends and the other starts is ambiguous; put literal text between them"
+                    ));
+                }
+                open_text = (*kind == Kind::Text).then_some(*name);
+            }
+        }
+    }
+    Ok(form)
 }
 
 fn list(allowed: &[&str]) -> String {
@@ -486,6 +517,22 @@ mod tests {
             }
         }
         assert!(matched > 0, "some random lines do match the catch-all pattern");
+    }
+
+    #[test]
+    fn refuses_ambiguous_text_captures() {
+        let e = pattern("ERR {text}{text}", &["text"]).unwrap_err();
+        assert!(e.contains("`{text}` (text) is followed by `{text}`"), "{e}");
+        assert!(pattern("ERR {text} {text}", &["text"]).is_err(), "blanks match none: still adjacent");
+        assert!(pattern("ERR {text} {us}", &["text", "us"]).is_err());
+        assert!(pattern("ERR {fault:text}{data}", &["fault", "data"]).is_err());
+        // Literal text between, a fixed-width field, or text at the end: one way only.
+        assert!(pattern("ERR {text} at {us}us", &["text", "us"]).is_ok());
+        assert!(pattern("{text}{byte}", &["text", "byte"]).is_ok());
+        assert!(pattern("E {fault} {us} {text}", &["fault", "us", "text"]).is_ok());
+        assert!(pattern("{fault} {text}", &["fault", "text"]).is_ok());
+        // Templates render, never match: two texts are fine there.
+        assert!(parse("SAY {text}{text}", &["text"]).is_ok());
     }
 
     #[test]

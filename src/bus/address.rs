@@ -6,7 +6,7 @@
 //!   `A6..A0 R/W` (UM10204 §3.1.10).
 //! - A 10-bit address is 0x000–0x3FF and goes on the wire as
 //!   `11110 A9 A8 R/W` followed by `A7..A0` (UM10204 §3.1.11).
-//! - Sixteen 7-bit addresses are reserved (UM10204 §3.1.12, Table 4):
+//! - Sixteen 7-bit addresses are reserved (UM10204 §3.1.12, Table 3; table number from memory):
 //!   0x00–0x07 and 0x78–0x7F. [`Address::reserved`] names the purpose;
 //!   callers refuse them unless the user says so explicitly.
 
@@ -50,7 +50,7 @@ pub enum AddressError {
     Syntax(String),
 }
 
-/// The purpose of a reserved 7-bit address (UM10204 §3.1.12, Table 4).
+/// The purpose of a reserved 7-bit address (UM10204 §3.1.12, Table 3).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Reserved {
     /// 0000 000, R/W = 0: general call; R/W = 1: START byte.
@@ -235,7 +235,7 @@ mod tests {
         assert_eq!(top.second_byte(), Some(0xFF));
     }
 
-    // UM10204 §3.1.12, Table 4 "Reserved addresses": sixteen in all.
+    // UM10204 §3.1.12, Table 3 "Reserved addresses" (rev. 6 and 7; table number from memory): sixteen in all.
     #[test]
     fn reserved_table() {
         use Reserved::*;

@@ -37,5 +37,9 @@ pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<SimAdapter> {
         AdapterSpec::Native { path, .. } => bail!("{path} is a serial port, not a simulated bench"),
         AdapterSpec::Dialect { path, .. } => bail!("{} is a serial port, not a simulated bench", path.display()),
     };
+    // Keys a newer bench format has and this build ignored: said once, as the bench opens.
+    for w in &bench.warnings {
+        eprintln!("warning: {}", super::shown(w));
+    }
     Ok(SimAdapter::new(bench, opts.realtime))
 }

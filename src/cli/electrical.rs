@@ -16,6 +16,7 @@ use anyhow::Result;
 
 use crate::bus::BusSpeed;
 use crate::cli::{exit, out};
+use crate::electrical::limits::Sink;
 use crate::electrical::options::{self, BusTimeOptions, PullupOptions};
 use crate::electrical::tables::{bus_time_table, pullup_table};
 use crate::electrical::units;
@@ -30,6 +31,11 @@ pub struct PullupArgs {
     /// Speed to meet: standard, fast, fast-plus, or a clock such as 400k.
     #[arg(long, value_name = "MODE|CLOCK", value_parser = options::speed_target, default_value = "standard")]
     pub speed: SpeedTarget,
+    /// Sink rating of the weakest device (UM10204 Table 9): 3mA (at VOL 0.4 V),
+    /// 6mA (at VOL 0.6 V, Fast-mode) or 20mA (at VOL 0.4 V, Fast-mode Plus)
+    /// [default: each mode's own].
+    #[arg(long, value_name = "RATING", value_parser = options::sink_rating)]
+    pub sink: Option<Sink>,
     /// Measured bus capacitance, e.g. 150p, 0.2n.
     #[arg(long, value_name = "CAP", value_parser = units::picofarads, allow_hyphen_values = true,
           conflicts_with_all = ["devices", "wire_length", "wire_cap"])]
@@ -66,6 +72,7 @@ impl PullupArgs {
         PullupOptions {
             vdd: Some(self.vdd),
             speed: self.speed,
+            sink: self.sink,
             bus_cap: self.bus_cap,
             devices: self.devices,
             pin_cap: self.pin_cap,
@@ -267,6 +274,11 @@ mod tests {
             ("fit", "2k2"),
         ]))
         .unwrap();
+        assert_eq!(a.options(), b);
+        let a = pull(&["--vdd", "5", "--bus-cap", "400p", "--speed", "fast", "--sink", "6mA"]).unwrap();
+        let b =
+            options::pullup_options(named(&[("vdd", "5"), ("bus_cap", "400p"), ("speed", "fast"), ("sink", "6mA")]))
+                .unwrap();
         assert_eq!(a.options(), b);
         let a =
             pull(&["--vdd", "5", "--devices", "3", "--wire-length", "30cm", "--wire-cap", "60pF/m", "--speed", "fast"])

@@ -7,6 +7,17 @@
 //! (unknown or missing keys, wrong types) into such errors; format tags
 //! are checked by [`check_format`] (family and major version).
 //!
+//! A file whose format tag names a newer minor version than this build
+//! knows may carry optional keys this build does not know:
+//! [`Ctx::parse_keys`] ignores those with a warning (a [`ConfigError`]
+//! located like any error) when [`Keys`] says the file is newer, and
+//! refuses them otherwise, so a typo in a current file is still an error.
+//!
+//! Values from the file are shown, not echoed whole: every quoted or
+//! backticked span of a message longer than [`SHOWN_CHARS`] characters is
+//! cut to its first characters and its length ([`clip_spans`]), so a
+//! 100 KB value makes a one-line error.
+//!
 //! Lines come from the parser, never from searching the text: the file is
 //! parsed with `toml_edit` (the parser under `toml`, which keeps spans),
 //! the key's path is walked through the document, and the byte offset
@@ -48,6 +59,95 @@ impl fmt::Display for ConfigError {
 
 impl std::error::Error for ConfigError {}
 
+/// Characters of a value a message shows before it is cut.
+pub const SHOWN_CHARS: usize = 40;
+
+/// `text` with every span between backticks or double quotes (backslash
+/// escapes honoured, as serde writes strings) cut to its first
+/// [`SHOWN_CHARS`] characters, an ellipsis and its length in characters:
+/// `"xxxx…" (100000 characters)`. A key or value that is not quoted
+/// (a whole message) is cut the same way with [`clip`].
+pub fn clip_spans(text: &str) -> String {
+    let mut out = String::with_capacity(text.len().min(1024));
+    let mut rest = text;
+    while let Some(open) = rest.find(['`', '"']) {
+        let quote = rest.as_bytes()[open] as char;
+        out.push_str(&rest[..=open]);
+        let body = &rest[open + 1..];
+        let mut end = None;
+        let mut escaped = false;
+        for (i, c) in body.char_indices() {
+            match c {
+                '\\' if quote == '"' && !escaped => escaped = true,
+                c if c == quote && !escaped => {
+                    end = Some(i);
+                    break;
+                }
+                _ => escaped = false,
+            }
+        }
+        let Some(end) = end else {
+            // No closing quote: the rest is the value.
+            out.push_str(&clip(body));
+            return out;
+        };
+        let inner = &body[..end];
+        match cut(inner, SHOWN_CHARS) {
+            Some((head, n)) => {
+                out.push_str(head);
+                out.push('…');
+                out.push(quote);
+                out.push_str(&format!(" ({n} characters)"));
+            }
+            None => {
+                out.push_str(inner);
+                out.push(quote);
+            }
+        }
+        rest = &body[end + 1..];
+    }
+    out.push_str(rest);
+    out
+}
+
+/// Characters of a key (a dotted path) shown before it is cut: keys are
+/// longer than values as a rule (`faults.address_nack_probability`).
+const KEY_CHARS: usize = 80;
+
+/// `text` cut to its first [`SHOWN_CHARS`] characters, an ellipsis and
+/// its length, when longer.
+pub fn clip(text: &str) -> String {
+    clip_to(text, SHOWN_CHARS)
+}
+
+fn clip_to(text: &str, chars: usize) -> String {
+    match cut(text, chars) {
+        Some((head, n)) => format!("{head}… ({n} characters)"),
+        None => text.to_string(),
+    }
+}
+
+/// The head to show of a text longer than `chars` characters, with its
+/// length; None when it is short enough to show whole.
+fn cut(text: &str, chars: usize) -> Option<(&str, usize)> {
+    let (i, _) = text.char_indices().nth(chars)?;
+    Some((&text[..i], text.chars().count()))
+}
+
+/// How [`Ctx::parse_keys`] meets keys this build does not know.
+#[derive(Debug, Default)]
+pub struct Keys {
+    /// The file's format version when it is a newer minor than this
+    /// build's: its unknown keys are ignored. None: they are refused.
+    pub newer: Option<String>,
+    /// One per key ignored, located like an error.
+    pub ignored: Vec<ConfigError>,
+}
+
+/// Most unknown keys one file may have ignored: each costs a parse of
+/// its table, so a file of nothing but unknown keys is refused instead.
+pub const MAX_IGNORED_KEYS: usize = 64;
+
 /// Error context for one TOML file: every error it makes names the file
 /// and finds the line of the key it is about.
 pub struct Ctx<'a> {
@@ -63,7 +163,7 @@ impl Ctx<'_> {
             file: self.file.to_string(),
             line: e.span().map(|s| line_at(text, s.start)),
             key: String::new(),
-            message: e.message().to_string(),
+            message: clip_spans(e.message()),
         })
     }
 
@@ -84,8 +184,41 @@ impl Ctx<'_> {
         ConfigError {
             file: self.file.to_string(),
             line: line_of(self.text, &steps(path)),
-            key: key.to_string(),
-            message: message.into(),
+            key: clip_to(key, KEY_CHARS),
+            message: clip_spans(&message.into()),
+        }
+    }
+
+    /// [`Ctx::parse`], meeting unknown keys as `keys` says: refused, or,
+    /// in a file of a newer minor version, removed from `table` and noted
+    /// in `keys.ignored` (at most [`MAX_IGNORED_KEYS`]).
+    pub fn parse_keys<T: DeserializeOwned>(
+        &self,
+        device: Option<usize>,
+        prefix: &str,
+        table: toml::Table,
+        keys: &mut Keys,
+    ) -> Result<T, ConfigError> {
+        let mut value = toml::Value::Table(table);
+        loop {
+            let e = match serde_path_to_error::deserialize(value.clone()) {
+                Ok(t) => return Ok(t),
+                Err(e) => e,
+            };
+            let unknown = e.inner().to_string().starts_with("unknown field");
+            let name = e.inner().to_string().split('`').nth(1).map(str::to_string);
+            let segments: Vec<serde_path_to_error::Segment> = e.path().iter().cloned().collect();
+            let err = self.located(device, prefix, e);
+            let (Some(version), true, Some(name)) = (&keys.newer, unknown, name) else {
+                return Err(err);
+            };
+            if keys.ignored.len() >= MAX_IGNORED_KEYS || !remove_key(&mut value, &segments, &name) {
+                return Err(err);
+            }
+            keys.ignored.push(ConfigError {
+                message: format!("not a key this build knows (the file is format version {version}, newer); ignored"),
+                ..err
+            });
         }
     }
 
@@ -95,51 +228,96 @@ impl Ctx<'_> {
         prefix: &str,
         table: toml::Table,
     ) -> Result<T, ConfigError> {
-        serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| {
-            let path = e.path().to_string();
-            let path_named_table = path != "." && !path.is_empty();
-            let key = if path == "." {
-                prefix.to_string()
-            } else if prefix.is_empty() {
-                path
-            } else {
-                format!("{prefix}.{path}")
-            };
-            let msg = e.into_inner().to_string();
-            // Nested tables add "in `table`" lines after the message proper.
-            let msg = msg.trim().lines().rfind(|l| !l.starts_with("in `")).unwrap_or_default().to_string();
-            // A missing or unknown field names itself in the message.
-            let named = msg.split('`').nth(1).map(str::to_string);
-            let key = match (&named, key.is_empty() || key == ".") {
-                (Some(n), true) => n.clone(),
-                (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
-                    if key.ends_with(n.as_str()) {
-                        key
-                    } else if prefix.is_empty() && !path_named_table {
-                        n.clone()
-                    } else {
-                        format!("{key}.{n}")
-                    }
+        serde_path_to_error::deserialize(toml::Value::Table(table)).map_err(|e| self.located(device, prefix, e))
+    }
+
+    /// A deserialisation error as a located [`ConfigError`].
+    fn located(
+        &self,
+        device: Option<usize>,
+        prefix: &str,
+        e: serde_path_to_error::Error<toml::de::Error>,
+    ) -> ConfigError {
+        let path = e.path().to_string();
+        let path_named_table = path != "." && !path.is_empty();
+        let key = if path == "." {
+            prefix.to_string()
+        } else if prefix.is_empty() {
+            path
+        } else {
+            format!("{prefix}.{path}")
+        };
+        let msg = e.into_inner().to_string();
+        // Nested tables add "in `table`" lines after the message proper.
+        let msg = msg.trim().lines().rfind(|l| !l.starts_with("in `")).unwrap_or_default().to_string();
+        // A missing or unknown field names itself in the message.
+        let named = msg.split('`').nth(1).map(str::to_string);
+        let key = match (&named, key.is_empty() || key == ".") {
+            (Some(n), true) => n.clone(),
+            (Some(n), false) if msg.starts_with("unknown field") || msg.starts_with("missing field") => {
+                if key.ends_with(n.as_str()) {
+                    key
+                } else if prefix.is_empty() && !path_named_table {
+                    n.clone()
+                } else {
+                    format!("{key}.{n}")
                 }
-                _ => key,
+            }
+            _ => key,
+        };
+        self.err(device, &key, msg)
+    }
+}
+
+/// Removes key `name` at `path` (or the key `path` ends in, when it is
+/// `name`) from `root`; whether there was one to remove.
+fn remove_key(root: &mut toml::Value, path: &[serde_path_to_error::Segment], name: &str) -> bool {
+    use serde_path_to_error::Segment;
+    fn walk<'v>(mut v: &'v mut toml::Value, path: &[Segment]) -> Option<&'v mut toml::Value> {
+        for seg in path {
+            v = match seg {
+                Segment::Map { key } => v.get_mut(key.as_str())?,
+                Segment::Seq { index } => v.get_mut(*index)?,
+                _ => return None,
             };
-            self.err(device, &key, msg)
-        })
+        }
+        Some(v)
+    }
+    if let Some(t) = walk(root, path).and_then(toml::Value::as_table_mut)
+        && t.remove(name).is_some()
+    {
+        return true;
+    }
+    match path.split_last() {
+        Some((Segment::Map { key }, parent)) if key == name => {
+            walk(root, parent).and_then(toml::Value::as_table_mut).is_some_and(|t| t.remove(name).is_some())
+        }
+        _ => false,
     }
 }
 
 /// Checks a `family/major[.minor]` format tag against `expected`
-/// (`family/N`): the family and the major version must match; a newer
-/// minor version only adds optional keys.
-pub fn check_format(found: &str, expected: &str) -> Result<(), String> {
+/// (`family/N`, minor 0): the family and the major version must match,
+/// and a minor version must be a number. A newer minor version only adds
+/// optional keys; it comes back as `Some(version)`, for [`Keys::newer`].
+pub fn check_format(found: &str, expected: &str) -> Result<Option<String>, String> {
     let (family, major) = expected.split_once('/').unwrap_or((expected, ""));
     let Some(ver) = found.strip_prefix(family).and_then(|r| r.strip_prefix('/')) else {
         return Err(format!("expected \"{expected}\", found \"{found}\""));
     };
-    if ver.split('.').next().unwrap_or_default() != major {
-        return Err(format!("{family} format version {ver} is not supported; this buscue reads major version {major}"));
+    let (found_major, minor) = ver.split_once('.').unwrap_or((ver, "0"));
+    if found_major != major {
+        return Err(format!(
+            "{family} format version \"{ver}\" is not supported; this buscue reads major version {major}"
+        ));
     }
-    Ok(())
+    match minor.parse::<u32>() {
+        Ok(0) => Ok(None),
+        Ok(_) => Ok(Some(ver.to_string())),
+        Err(_) => {
+            Err(format!("format version \"{ver}\": the minor version must be a number, as in \"{family}/{major}.1\""))
+        }
+    }
 }
 
 /// One step of a key path: a key of a table, or an index into an array
@@ -342,6 +520,34 @@ mod tests {
         // The text search took the block's first `seed =`: 13.
         assert_eq!(line(text, Some(1), "faults.seed"), Some(15));
         assert_eq!(line(text, Some(0), "faults.seed"), Some(7));
+    }
+
+    #[test]
+    fn long_quoted_spans_are_cut_with_their_length() {
+        let long = "é".repeat(50);
+        let cut = format!("{}…", "é".repeat(40));
+        assert_eq!(clip_spans("must be \"big\", got \"x\""), "must be \"big\", got \"x\"");
+        assert_eq!(clip_spans(&format!("got `{long}` here")), format!("got `{cut}` (50 characters) here"));
+        // serde escapes quotes inside a string; the span ends at the real one.
+        let escaped = format!("string \"{}\\\"{}\", expected u8", "a".repeat(30), "b".repeat(30));
+        let shown = clip_spans(&escaped);
+        assert!(shown.ends_with("…\" (62 characters), expected u8"), "{shown}");
+        // No closing quote: the rest is the value.
+        assert_eq!(clip_spans(&format!("found \"{long}")), format!("found \"{cut} (50 characters)"));
+        assert_eq!(clip(&"k".repeat(41)), format!("{}… (41 characters)", "k".repeat(40)));
+        // Keys are cut later than values.
+        let key = "faults.address_nack_probability_and_then_some_more_text";
+        assert_eq!(Ctx { file: "t", text: "" }.err(None, key, "m").key, key);
+    }
+
+    #[test]
+    fn format_tags_and_minor_versions() {
+        assert_eq!(check_format("buscue-bench/1", "buscue-bench/1"), Ok(None));
+        assert_eq!(check_format("buscue-bench/1.0", "buscue-bench/1"), Ok(None));
+        assert_eq!(check_format("buscue-bench/1.3", "buscue-bench/1"), Ok(Some("1.3".into())));
+        assert!(check_format("buscue-bench/2.0", "buscue-bench/1").unwrap_err().contains("major version 1"));
+        assert!(check_format("buscue-bench/1.x", "buscue-bench/1").is_err());
+        assert!(check_format("other/1", "buscue-bench/1").is_err());
     }
 
     #[test]

@@ -10,7 +10,7 @@ use serde::Serialize;
 
 use crate::bus::timing::breakdown;
 use crate::bus::transaction::MAX_OPERATION_BYTES;
-use crate::bus::{Address, BusSpeed, Operation, Transaction};
+use crate::bus::{Address, BusSpeed, Operation, ShapeError, Transaction};
 
 use super::pullup::ElectricalError;
 
@@ -60,11 +60,14 @@ pub fn bus_time(tx: &Transaction, speed: BusSpeed) -> BusTimeReport {
     }
 }
 
-/// A write of `n` stand-in bytes. Beyond the per-operation limit only one
-/// byte more is made: enough for [`shape`] to refuse it, without
-/// allocating whatever a typo asked for.
-pub fn stand_in_write(n: usize) -> Operation {
-    Operation::Write(vec![0; n.min(MAX_OPERATION_BYTES + 1)])
+/// A write of `n` stand-in bytes as operation `op`; beyond the
+/// per-operation limit it is refused here, naming `n`, without allocating
+/// whatever a typo asked for.
+pub fn stand_in_write(op: usize, n: usize) -> Result<Operation, ElectricalError> {
+    if n > MAX_OPERATION_BYTES {
+        return Err(ShapeError::TooLong { op, len: n, max: MAX_OPERATION_BYTES }.into());
+    }
+    Ok(Operation::Write(vec![0; n]))
 }
 
 /// Reads an operation list such as `w2,r6` or `w1 r2 w3`.
@@ -73,11 +76,12 @@ pub fn parse_ops(text: &str) -> Result<Vec<Operation>, ElectricalError> {
     let ops: Vec<Operation> = text
         .split([',', ' '])
         .filter(|t| !t.is_empty())
-        .map(|t| {
+        .enumerate()
+        .map(|(op, t)| {
             let (kind, n) = t.split_at(t.char_indices().nth(1).map_or(t.len(), |(i, _)| i));
             let n: usize = n.parse().map_err(|_| bad())?;
             match kind {
-                "w" | "W" => Ok(stand_in_write(n)),
+                "w" | "W" => stand_in_write(op, n),
                 "r" | "R" => Ok(Operation::Read(n)),
                 _ => Err(bad()),
             }
@@ -132,6 +136,11 @@ mod tests {
         assert!(parse_ops("r-1").is_err());
         assert!(parse_ops("é2").is_err());
         assert!(matches!(shape(7, parse_ops("r0").unwrap()), Err(ElectricalError::Shape(_))));
-        assert!(matches!(shape(7, parse_ops("w999999").unwrap()), Err(ElectricalError::Shape(_))));
+        // Too long: the error names the size given, not a stand-in's.
+        let e = parse_ops("r1,w99999999999").unwrap_err();
+        assert_eq!(e.to_string(), "operation 1 moves 99999999999 bytes; at most 65535 are allowed per operation");
+        let e = shape(7, parse_ops("r99999999999").unwrap()).unwrap_err();
+        assert_eq!(e.to_string(), "operation 0 moves 99999999999 bytes; at most 65535 are allowed per operation");
+        assert!(parse_ops("w65535").is_ok());
     }
 }

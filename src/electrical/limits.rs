@@ -6,9 +6,25 @@
 //! of the SDA and SCL I/O stages" (VOL, IOL, Ci) and Table 10
 //! "Characteristics of the SDA and SCL bus lines" (tr, Cb). Table numbers
 //! and values are from memory of the specification: check them against
-//! your copy.
+//! your copy. The rows of Table 9 used here, as remembered:
+//!
+//! | row | Standard-mode | Fast-mode | Fast-mode Plus |
+//! | --- | --- | --- | --- |
+//! | VOL1, 3 mA sink, VDD > 2 V | 0.4 V | 0.4 V | 0.4 V |
+//! | VOL2, 2 mA sink, VDD ≤ 2 V | (none) | 0.2 × VDD | 0.2 × VDD |
+//! | IOL at VOL = 0.4 V | 3 mA | 3 mA | 20 mA |
+//! | IOL at VOL = 0.6 V | (none) | 6 mA | (none) |
+//!
+//! The same rows, with the same conditions (2 mA and "VDD ≤ 2.0 V" for
+//! 0.2 × VDD; 3, 20 and 6 mA), appear in microcontroller datasheets that
+//! reproduce the table for their I2C pins; that agreement is the only
+//! outside check made here, not a reading of UM10204 itself.
+//!
+//! Which row a bus is sized with is a [`Sink`] rating: the drive of the
+//! weakest device on the bus. Without one, each mode takes the rating its
+//! own devices must meet ([`ModeLimits::sink`]).
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::bus::Mode;
 
@@ -20,9 +36,14 @@ pub const SOURCE: &str =
 /// R × C: ln(0.7 / 0.3) = 0.8473 (UM10204 §7.1).
 pub const RISE_FACTOR: f64 = 0.8473;
 
-/// Below this supply, VOL(max) is 0.2 × VDD instead of 0.4 V (UM10204
-/// Table 9).
+/// At or below this supply, VOL(max) is 0.2 × VDD at a 2 mA sink instead
+/// of a rating at 0.4 V or 0.6 V (UM10204 Table 9, VOL2 "VDD ≤ 2 V"; from
+/// memory).
 pub const LOW_SUPPLY_V: f64 = 2.0;
+
+/// The sink current VOL2 = 0.2 × VDD is specified at (UM10204 Table 9;
+/// from memory).
+pub const LOW_SUPPLY_SINK_MA: f64 = 2.0;
 
 /// Capacitance of one I/O pin, at most (UM10204 Table 9, Ci = 10 pF);
 /// used as the default when the bus capacitance is estimated.
@@ -36,14 +57,89 @@ pub const WIRE_PF_PER_M: f64 = 100.0;
 /// Supply range accepted: 1.2 V to 5.5 V (common practice for I2C parts).
 pub const VDD_RANGE_V: (f64, f64) = (1.2, 5.5);
 
+/// A sink rating of UM10204 Table 9 (from memory): the current the
+/// weakest device on the bus is rated to sink at a low-level output
+/// voltage, for supplies above 2 V.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Sink {
+    /// 3 mA at VOL 0.4 V: the rating of Standard-mode and Fast-mode.
+    #[serde(rename = "3mA")]
+    Ma3,
+    /// 6 mA at VOL 0.6 V: Fast-mode's second rating. A device that has it
+    /// is a Fast-mode device, so it also meets 3 mA at 0.4 V, which is
+    /// what it is held to in the other modes (whose VOL(max) is 0.4 V).
+    #[serde(rename = "6mA")]
+    Ma6,
+    /// 20 mA at VOL 0.4 V: the rating of Fast-mode Plus.
+    #[serde(rename = "20mA")]
+    Ma20,
+}
+
+impl Sink {
+    pub const ALL: [Sink; 3] = [Sink::Ma3, Sink::Ma6, Sink::Ma20];
+
+    /// The rating's name, as the option takes it: `3mA`, `6mA`, `20mA`.
+    pub fn name(self) -> &'static str {
+        match self {
+            Sink::Ma3 => "3mA",
+            Sink::Ma6 => "6mA",
+            Sink::Ma20 => "20mA",
+        }
+    }
+
+    /// Reads `3mA`, `6mA` or `20mA` (any case, with or without `mA`).
+    pub fn parse(text: &str) -> Result<Sink, String> {
+        let t = text.trim().to_ascii_lowercase().replace(' ', "");
+        let n = t.strip_suffix("ma").unwrap_or(&t);
+        Sink::ALL.into_iter().find(|s| s.name().trim_end_matches("mA") == n).ok_or_else(|| {
+            format!(
+                "`{text}` is not a sink rating of UM10204 Table 9: write 3mA (at VOL 0.4 V), \
+                 6mA (at VOL 0.6 V, Fast-mode) or 20mA (at VOL 0.4 V, Fast-mode Plus)"
+            )
+        })
+    }
+}
+
+/// Which row of Table 9 a [`Drive`] comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum DriveRow {
+    /// IOL at VOL = 0.4 V (VDD > 2 V).
+    Vol04,
+    /// IOL at VOL = 0.6 V, Fast-mode only (VDD > 2 V).
+    Vol06,
+    /// VOL2 = 0.2 × VDD at a 2 mA sink (VDD ≤ 2 V).
+    LowSupply,
+}
+
+/// The low-level output voltage and sink current Rp(min) is computed
+/// with: one row of Table 9 for one mode and supply.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Drive {
+    /// VOL(max), in volts.
+    pub vol_max_v: f64,
+    /// IOL, in milliamperes.
+    pub iol_ma: f64,
+    pub row: DriveRow,
+}
+
+impl Drive {
+    /// The drive in words: `3 mA at VOL 0.4 V`, `2 mA at VOL 0.2 × VDD = 0.36 V`.
+    pub fn describe(&self) -> String {
+        match self.row {
+            DriveRow::LowSupply => format!("{} mA at VOL 0.2 × VDD = {:.2} V", self.iol_ma, self.vol_max_v),
+            _ => format!("{} mA at VOL {} V", self.iol_ma, self.vol_max_v),
+        }
+    }
+}
+
 /// The limits of one speed mode.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct ModeLimits {
     pub mode: Mode,
-    /// VOL(max) for VDD at or above 2 V, in volts (Table 9).
-    pub vol_max_v: f64,
-    /// Sink current at VOL(max), in milliamperes (Table 9).
-    pub iol_ma: f64,
+    /// The sink rating the mode's own devices must meet (Table 9): what
+    /// the mode is sized with when no rating is given.
+    pub sink: Sink,
     /// tr(max), rise time of SDA and SCL, in nanoseconds (Table 10).
     pub rise_max_ns: f64,
     /// Cb(max), capacitive load of each bus line, in picofarads (Table 10).
@@ -52,9 +148,9 @@ pub struct ModeLimits {
 
 /// Standard-mode, Fast-mode, Fast-mode Plus, slowest first.
 pub const LIMITS: [ModeLimits; 3] = [
-    ModeLimits { mode: Mode::Standard, vol_max_v: 0.4, iol_ma: 3.0, rise_max_ns: 1000.0, cb_max_pf: 400.0 },
-    ModeLimits { mode: Mode::Fast, vol_max_v: 0.4, iol_ma: 3.0, rise_max_ns: 300.0, cb_max_pf: 400.0 },
-    ModeLimits { mode: Mode::FastPlus, vol_max_v: 0.4, iol_ma: 20.0, rise_max_ns: 120.0, cb_max_pf: 550.0 },
+    ModeLimits { mode: Mode::Standard, sink: Sink::Ma3, rise_max_ns: 1000.0, cb_max_pf: 400.0 },
+    ModeLimits { mode: Mode::Fast, sink: Sink::Ma3, rise_max_ns: 300.0, cb_max_pf: 400.0 },
+    ModeLimits { mode: Mode::FastPlus, sink: Sink::Ma20, rise_max_ns: 120.0, cb_max_pf: 550.0 },
 ];
 
 /// The limits of a mode; None above Fast-mode Plus (not modelled).
@@ -63,14 +159,27 @@ pub fn limits(mode: Mode) -> Option<&'static ModeLimits> {
 }
 
 impl ModeLimits {
-    /// VOL(max) at supply `vdd`: 0.2 × VDD below 2 V (Table 9).
-    pub fn vol_max(&self, vdd: f64) -> f64 {
-        if vdd < LOW_SUPPLY_V { 0.2 * vdd } else { self.vol_max_v }
+    /// The drive of devices rated `sink` on a bus of this mode at supply
+    /// `vdd` (Table 9, from memory): at or below 2 V, 0.2 × VDD at 2 mA
+    /// whatever the rating (the table gives no other row there; it lists
+    /// that row for Fast-mode and Fast-mode Plus and none for
+    /// Standard-mode, which is held to the same row here); above 2 V, the
+    /// rating's own row, 6 mA at 0.6 V only in Fast-mode.
+    pub fn drive(&self, vdd: f64, sink: Sink) -> Drive {
+        if vdd <= LOW_SUPPLY_V {
+            return Drive { vol_max_v: 0.2 * vdd, iol_ma: LOW_SUPPLY_SINK_MA, row: DriveRow::LowSupply };
+        }
+        match (sink, self.mode) {
+            (Sink::Ma6, Mode::Fast) => Drive { vol_max_v: 0.6, iol_ma: 6.0, row: DriveRow::Vol06 },
+            (Sink::Ma3 | Sink::Ma6, _) => Drive { vol_max_v: 0.4, iol_ma: 3.0, row: DriveRow::Vol04 },
+            (Sink::Ma20, _) => Drive { vol_max_v: 0.4, iol_ma: 20.0, row: DriveRow::Vol04 },
+        }
     }
 
     /// Rp(min) = (VDD − VOL(max)) / IOL, in ohms (UM10204 §7.1).
-    pub fn rp_min_ohm(&self, vdd: f64) -> f64 {
-        (vdd - self.vol_max(vdd)) / (self.iol_ma * 1e-3)
+    pub fn rp_min_ohm(&self, vdd: f64, sink: Sink) -> f64 {
+        let d = self.drive(vdd, sink);
+        (vdd - d.vol_max_v) / (d.iol_ma * 1e-3)
     }
 
     /// Rp(max) = tr / (0.8473 × Cb), in ohms (UM10204 §7.1).
@@ -97,10 +206,30 @@ mod tests {
     #[test]
     fn rp_min_at_5v_and_3v3() {
         let sm = limits(Mode::Standard).unwrap();
-        assert!(close(sm.rp_min_ohm(5.0), 1533.3, 0.1), "{}", sm.rp_min_ohm(5.0));
-        assert!(close(sm.rp_min_ohm(3.3), 966.7, 0.1), "{}", sm.rp_min_ohm(3.3));
-        // Fast-mode Plus sinks 20 mA: (5 − 0.4) / 20 mA = 230 Ω.
-        assert!(close(limits(Mode::FastPlus).unwrap().rp_min_ohm(5.0), 230.0, 1e-9));
+        assert!(close(sm.rp_min_ohm(5.0, sm.sink), 1533.3, 0.1), "{}", sm.rp_min_ohm(5.0, sm.sink));
+        assert!(close(sm.rp_min_ohm(3.3, sm.sink), 966.7, 0.1), "{}", sm.rp_min_ohm(3.3, sm.sink));
+        // Fast-mode Plus sinks 20 mA (Table 9, from memory): (5 − 0.4) / 20 mA = 230 Ω.
+        let fp = limits(Mode::FastPlus).unwrap();
+        assert!(close(fp.rp_min_ohm(5.0, fp.sink), 230.0, 1e-9));
+        // The same bus sized for 3 mA devices: (5 − 0.4) / 3 mA = 1533.3 Ω.
+        assert!(close(fp.rp_min_ohm(5.0, Sink::Ma3), 1533.3, 0.1));
+    }
+
+    // UM10204 Table 9 (from memory): Fast-mode's second rating is 6 mA at
+    // VOL 0.6 V. (5 − 0.6) / 6 mA = 733.3 Ω; (3.3 − 0.6) / 6 mA = 450 Ω.
+    // Standard-mode's VOL(max) stays 0.4 V, so a 6 mA part is held to its
+    // 3 mA rating there: 1533.3 Ω at 5 V.
+    #[test]
+    fn fast_mode_six_milliamp_rating() {
+        let fm = limits(Mode::Fast).unwrap();
+        let d = fm.drive(5.0, Sink::Ma6);
+        assert_eq!((d.vol_max_v, d.iol_ma, d.row), (0.6, 6.0, DriveRow::Vol06));
+        assert!(close(fm.rp_min_ohm(5.0, Sink::Ma6), 733.3, 0.1));
+        assert!(close(fm.rp_min_ohm(3.3, Sink::Ma6), 450.0, 1e-9));
+        let sm = limits(Mode::Standard).unwrap();
+        assert!(close(sm.rp_min_ohm(5.0, Sink::Ma6), 1533.3, 0.1));
+        let fp = limits(Mode::FastPlus).unwrap();
+        assert_eq!(fp.drive(5.0, Sink::Ma6).iol_ma, 3.0);
     }
 
     // UM10204 §7.1: Rp(max) = tr / (0.8473 × Cb); tr = 1000 ns (Sm),
@@ -117,7 +246,8 @@ mod tests {
     }
 
     // UM10204 Table 10: Cb(max) 400 pF for Sm and Fm, 550 pF for Fm+;
-    // tr(max) 1000/300/120 ns (values from memory).
+    // tr(max) 1000/300/120 ns (values from memory). Table 9: Sm and Fm
+    // devices sink 3 mA, Fm+ devices 20 mA (from memory).
     #[test]
     fn table_values() {
         let by = |m| limits(m).unwrap();
@@ -128,16 +258,43 @@ mod tests {
             [by(Mode::Standard).rise_max_ns, by(Mode::Fast).rise_max_ns, by(Mode::FastPlus).rise_max_ns],
             [1000.0, 300.0, 120.0]
         );
+        assert_eq!(
+            [by(Mode::Standard).sink, by(Mode::Fast).sink, by(Mode::FastPlus).sink],
+            [Sink::Ma3, Sink::Ma3, Sink::Ma20]
+        );
         assert!(limits(Mode::AboveFastPlus).is_none());
     }
 
-    // UM10204 Table 9: VOL(max) = 0.2 × VDD when VDD is below 2 V.
+    // UM10204 Table 9 (from memory): VOL2 = 0.2 × VDD at a 2 mA sink for
+    // VDD ≤ 2 V, whatever the rating above 2 V.
     #[test]
-    fn vol_below_2v() {
+    fn at_or_below_2v() {
         let fm = limits(Mode::Fast).unwrap();
-        assert!(close(fm.vol_max(1.8), 0.36, 1e-12));
-        assert_eq!(fm.vol_max(3.3), 0.4);
-        // (1.8 − 0.36) / 3 mA = 480 Ω.
-        assert!(close(fm.rp_min_ohm(1.8), 480.0, 1e-9));
+        let d = fm.drive(1.8, Sink::Ma3);
+        assert!(close(d.vol_max_v, 0.36, 1e-12));
+        assert_eq!((d.iol_ma, d.row), (2.0, DriveRow::LowSupply));
+        // (1.8 − 0.36) / 2 mA = 720 Ω, for every mode and rating.
+        for l in &LIMITS {
+            for s in Sink::ALL {
+                assert!(close(l.rp_min_ohm(1.8, s), 720.0, 1e-9), "{:?} {s:?}", l.mode);
+            }
+        }
+        // At exactly 2 V the low-supply row applies: (2 − 0.4) / 2 mA = 800 Ω.
+        assert!(close(fm.rp_min_ohm(2.0, Sink::Ma3), 800.0, 1e-9));
+        assert_eq!(fm.drive(2.0, Sink::Ma3).row, DriveRow::LowSupply);
+        // Just above it, VOL1 0.4 V at 3 mA: (2.01 − 0.4) / 3 mA = 536.7 Ω.
+        assert_eq!(fm.drive(2.01, Sink::Ma3).row, DriveRow::Vol04);
+        assert!(close(fm.rp_min_ohm(2.01, Sink::Ma3), 536.7, 0.1));
+    }
+
+    #[test]
+    fn sink_ratings_by_name() {
+        assert_eq!(Sink::parse("6mA"), Ok(Sink::Ma6));
+        assert_eq!(Sink::parse("20 ma"), Ok(Sink::Ma20));
+        assert_eq!(Sink::parse("3"), Ok(Sink::Ma3));
+        let e = Sink::parse("8mA").unwrap_err();
+        assert!(e.contains("`8mA` is not a sink rating") && e.contains("6mA (at VOL 0.6 V, Fast-mode)"), "{e}");
+        assert!(Sink::parse("mA").is_err());
+        assert_eq!(serde_json::to_value(Sink::Ma6).unwrap(), "6mA");
     }
 }

@@ -21,7 +21,7 @@ use thiserror::Error;
 use crate::bus::{BusSpeed, Mode, Operation};
 
 use super::bustime::{BusTimeReport, bus_time, parse_ops, shape, stand_in_write};
-use super::limits;
+use super::limits::{self, Sink};
 use super::pullup::{Capacitance, ElectricalError, PullupInput, SpeedTarget};
 use super::units;
 
@@ -88,6 +88,11 @@ pub fn speed_target(text: &str) -> Result<SpeedTarget, String> {
     SpeedTarget::parse(text).map_err(|e| e.to_string())
 }
 
+/// The value parser of `pullup`'s sink-rating option.
+pub fn sink_rating(text: &str) -> Result<Sink, String> {
+    Sink::parse(text)
+}
+
 /// The value parser of `bustime`'s clock option.
 pub fn bus_clock(text: &str) -> Result<BusSpeed, String> {
     text.parse().map_err(|e: crate::bus::speed::SpeedError| e.to_string())
@@ -112,6 +117,7 @@ fn count<N: std::str::FromStr>(text: &str) -> Result<N, String> {
 pub struct PullupOptions {
     pub vdd: Option<f64>,
     pub speed: SpeedTarget,
+    pub sink: Option<Sink>,
     pub bus_cap: Option<f64>,
     pub devices: Option<u32>,
     pub pin_cap: Option<f64>,
@@ -127,6 +133,7 @@ impl Default for PullupOptions {
         PullupOptions {
             vdd: None,
             speed: DEFAULT_SPEED_TARGET,
+            sink: None,
             bus_cap: None,
             devices: None,
             pin_cap: None,
@@ -143,6 +150,7 @@ impl Default for PullupOptions {
 pub static PULLUP: &[Opt<PullupOptions>] = &[
     Opt::one("vdd", |o, t| units::volts(t).map(|v| o.vdd = Some(v))),
     Opt::one("speed", |o, t| speed_target(t).map(|v| o.speed = v)),
+    Opt::one("sink", |o, t| sink_rating(t).map(|v| o.sink = Some(v))),
     Opt::excluding("bus_cap", &["devices", "wire_length", "wire_cap"], |o, t| {
         units::picofarads(t).map(|v| o.bus_cap = Some(v))
     }),
@@ -176,6 +184,7 @@ impl PullupOptions {
             existing_ohm: self.existing.clone(),
             fit_ohm: self.fit,
             module_ohm: self.add_module,
+            sink: self.sink,
         })
     }
 }
@@ -222,7 +231,7 @@ impl BusTimeOptions {
             None => {
                 let mut ops = Vec::new();
                 if let Some(n) = self.write {
-                    ops.push(stand_in_write(n));
+                    ops.push(stand_in_write(0, n)?);
                 }
                 if let Some(n) = self.read {
                     ops.push(Operation::Read(n));
@@ -298,6 +307,8 @@ mod tests {
         assert_eq!(o.vdd, Some(3.3));
         assert_eq!(o.speed, DEFAULT_SPEED_TARGET);
         assert_eq!(o.existing, vec![10_000.0, 4_700.0]);
+        assert_eq!(o.sink, None);
+        assert_eq!(pullup_options(pairs(&[("sink", "6mA")])).unwrap().sink, Some(Sink::Ma6));
         let list = vec![("existing".to_string(), Given::Many(vec!["10k".into(), "4k7".into()]))];
         assert_eq!(pullup_options(list).unwrap().existing, vec![10_000.0, 4_700.0]);
         let t = bus_time_options(pairs(&[("write", "1"), ("read", "1"), ("speed", "1M")])).unwrap();
@@ -324,6 +335,8 @@ mod tests {
         );
         assert!(bus_time_options(pairs(&[("address_bits", "9")])).is_err());
         assert!(bus_time_options(pairs(&[("read", "two")])).unwrap_err().to_string().contains("for read"));
+        let e = pullup_options(pairs(&[("sink", "8mA")])).unwrap_err();
+        assert!(matches!(e, OptionError::Invalid { name: "sink", .. }), "{e}");
     }
 
     #[test]

@@ -9,6 +9,12 @@
 //! Rp(min) = (VDD − VOL(max)) / IOL, Rp(max) = tr / (0.8473 × Cb), and the
 //! rise time of a pull-up R is 0.8473 × R × Cb.
 //!
+//! VOL(max) and IOL are the drive of the devices ([`limits::Drive`]): the
+//! sink rating the input gives for the weakest device on the bus, or else
+//! each mode's own (3 mA for Standard-mode and Fast-mode, 20 mA for
+//! Fast-mode Plus). The fastest mode the report names is found with the
+//! same rule, and the report says which drive it assumed.
+//!
 //! Resistors on the bus combine in parallel: the existing pull-ups, the
 //! one to fit, and any added modules. An added module also adds one pin's
 //! capacitance to Cb; a fitted resistor is taken to add none.
@@ -19,7 +25,7 @@ use thiserror::Error;
 use crate::bus::{BusSpeed, Mode};
 
 use super::eseries::Series;
-use super::limits::{self, LIMITS, ModeLimits, rise_ns};
+use super::limits::{self, Drive, DriveRow, LIMITS, ModeLimits, Sink, rise_ns};
 use super::units::Si;
 
 /// The speed the bus must meet: a mode, or a clock whose mode is the
@@ -89,6 +95,10 @@ pub struct PullupInput {
     /// The pull-up of one more module: how many such modules fit?
     #[serde(default)]
     pub module_ohm: Option<f64>,
+    /// The sink rating of the weakest device on the bus; None: each
+    /// mode's own ([`ModeLimits::sink`]).
+    #[serde(default)]
+    pub sink: Option<Sink>,
 }
 
 fn default_pin_pf() -> f64 {
@@ -116,7 +126,7 @@ pub enum ElectricalError {
     NoSupply,
     #[error("`{0}` is not an operation list: write w2,r6 (w = bytes written, r = bytes read)")]
     Ops(String),
-    #[error("{0}")]
+    #[error(transparent)]
     Shape(#[from] crate::bus::ShapeError),
 }
 
@@ -176,7 +186,12 @@ pub struct PullupReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub clock_hz: Option<u32>,
     pub limits: ModeLimits,
-    pub vol_max_v: f64,
+    /// The sink rating given for the devices; None: each mode's own.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sink: Option<Sink>,
+    /// VOL(max) and IOL of the devices in this mode at this supply: what
+    /// Rp(min) is computed with.
+    pub drive: Drive,
     pub cb_pf: f64,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub cb_estimate: Option<CbEstimate>,
@@ -192,8 +207,12 @@ pub struct PullupReport {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub modules: Option<ModuleRoom>,
     pub suggestions: Suggestions,
-    /// The fastest mode whose limits this bus meets, as it stands.
+    /// The fastest mode whose limits this bus meets, as it stands, with
+    /// the devices' drive that claim assumes (the given sink rating, or
+    /// that mode's own).
     pub fastest_mode: Option<Mode>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fastest_mode_drive: Option<Drive>,
     /// Problems: the bus as described is out of specification.
     pub warnings: Vec<String>,
     /// Things worth knowing that are not problems.
@@ -239,11 +258,17 @@ pub fn parallel(resistors: impl IntoIterator<Item = f64>) -> f64 {
 struct Window<'a> {
     limits: &'a ModeLimits,
     vdd: f64,
+    sink: Sink,
 }
 
 impl Window<'_> {
+    /// Whether any value fits: Rp(min) ≤ Rp(max) and Cb within Cb(max).
+    fn open(&self, cb_pf: f64) -> bool {
+        self.limits.rp_min_ohm(self.vdd, self.sink) <= self.limits.rp_max_ohm(cb_pf) && cb_pf <= self.limits.cb_max_pf
+    }
+
     fn fit(&self, r: f64, cb_pf: f64) -> Fit {
-        if r < self.limits.rp_min_ohm(self.vdd) {
+        if r < self.limits.rp_min_ohm(self.vdd, self.sink) {
             Fit::TooStrong
         } else if r > self.limits.rp_max_ohm(cb_pf) {
             Fit::TooWeak
@@ -297,10 +322,12 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     let fit = input.fit_ohm.map(|r| positive("pull-up to fit", "Ω", r)).transpose()?;
     let module = input.module_ohm.map(|r| positive("module pull-up", "Ω", r)).transpose()?;
 
-    let w = Window { limits: lim, vdd };
-    let rp_min = lim.rp_min_ohm(vdd);
+    let sink = input.sink.unwrap_or(lim.sink);
+    let w = Window { limits: lim, vdd, sink };
+    let drive = lim.drive(vdd, sink);
+    let rp_min = lim.rp_min_ohm(vdd, sink);
     let rp_max = lim.rp_max_ohm(cb_pf);
-    let window_open = rp_min <= rp_max && cb_pf <= lim.cb_max_pf;
+    let window_open = w.open(cb_pf);
     let existing_p = (!existing.is_empty()).then(|| w.pullup(existing.clone(), cb_pf));
     let with_fit = fit.map(|f| w.pullup(existing.iter().copied().chain([f]).collect(), cb_pf));
     let on_bus: Vec<f64> = existing.iter().copied().chain(fit).collect();
@@ -331,17 +358,16 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     };
     let suggestions = Suggestions { e12_ohm: suggest(Series::E12), e24_ohm: suggest(Series::E24) };
 
-    let fastest_mode = LIMITS
-        .iter()
-        .rev()
-        .find(|l| {
-            let w = Window { limits: l, vdd };
-            match bus {
-                Some(p) => w.inside(p.equivalent_ohm, cb_pf),
-                None => l.rp_min_ohm(vdd) <= l.rp_max_ohm(cb_pf) && cb_pf <= l.cb_max_pf,
-            }
-        })
-        .map(|l| l.mode);
+    // Each mode with the given rating, or with its own: a claim of
+    // Fast-mode Plus without a rating assumes 20 mA devices, and says so.
+    let fastest = LIMITS.iter().rev().find_map(|l| {
+        let w = Window { limits: l, vdd, sink: input.sink.unwrap_or(l.sink) };
+        let meets = match bus {
+            Some(p) => w.inside(p.equivalent_ohm, cb_pf),
+            None => w.open(cb_pf),
+        };
+        meets.then(|| (l.mode, l.drive(vdd, w.sink)))
+    });
 
     let ohms = |r: f64| Si(r, "Ω");
     let mut warnings = Vec::new();
@@ -370,8 +396,8 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
              Take pull-ups off some modules or use larger values.",
             ohms(p.equivalent_ohm),
             ohms(rp_min),
-            lim.iol_ma,
-            lim.vol_max(vdd)
+            drive.iol_ma,
+            drive.vol_max_v
         )),
         Fit::TooWeak => warnings.push(format!(
             "{label} come to {}, above Rp(max) {}: the rise time of {:.0} ns exceeds tr(max) {:.0} ns. \
@@ -396,14 +422,39 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
     {
         warnings.push(format!("No number of {} modules added keeps the bus inside the window.", ohms(m.module_ohm)));
     }
-    if vdd < limits::LOW_SUPPLY_V {
-        notes.push(format!("Below {} V, VOL(max) is 0.2 × VDD = {:.2} V.", limits::LOW_SUPPLY_V, lim.vol_max(vdd)));
-    }
-    if mode == Mode::FastPlus {
-        notes.push(
-            "Fast-mode Plus Rp(min) assumes every device on the bus sinks 20 mA; with Standard-mode or Fast-mode parts on it, size for 3 mA."
-                .into(),
-        );
+    if drive.row == DriveRow::LowSupply {
+        notes.push(format!(
+            "At or below {} V, VOL(max) is 0.2 × VDD = {:.2} V at a {} mA sink (UM10204 Table 9, VOL2, from memory){}.",
+            limits::LOW_SUPPLY_V,
+            drive.vol_max_v,
+            drive.iol_ma,
+            if input.sink.is_some() { "; the sink rating given is for supplies above 2 V" } else { "" }
+        ));
+        if mode == Mode::Standard {
+            notes.push(
+                "Table 9 gives that row for Fast-mode and Fast-mode Plus; Standard-mode has none there and is held to it here."
+                    .into(),
+            );
+        }
+    } else {
+        match (mode, input.sink) {
+            (Mode::FastPlus, None) => notes.push(
+                "Fast-mode Plus Rp(min) assumes every device on the bus sinks 20 mA at VOL 0.4 V; \
+                 with Standard-mode or Fast-mode parts on it, give --sink 3mA."
+                    .into(),
+            ),
+            (Mode::Fast, None) => notes.push(
+                "Fast-mode devices rated 6 mA at VOL 0.6 V (UM10204 Table 9, from memory) allow a lower Rp(min): \
+                 give --sink 6mA if every device on the bus has it."
+                    .into(),
+            ),
+            (m, Some(Sink::Ma6)) if m != Mode::Fast => notes.push(format!(
+                "The 6 mA rating is at VOL 0.6 V, a Fast-mode rating; {} holds VOL(max) to 0.4 V, \
+                 where these devices sink 3 mA.",
+                m.name()
+            )),
+            _ => {}
+        }
     }
     if let SpeedTarget::Clock(c) = input.speed {
         notes.push(format!("A {c} clock is held to the {} limits, the slowest mode that covers it.", mode.name()));
@@ -430,7 +481,8 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
             SpeedTarget::Mode(_) => None,
         },
         limits: *lim,
-        vol_max_v: lim.vol_max(vdd),
+        sink: input.sink,
+        drive,
         cb_pf,
         cb_estimate,
         rp_min_ohm: rp_min,
@@ -440,7 +492,8 @@ pub fn size_pullups(input: &PullupInput) -> Result<PullupReport, ElectricalError
         with_fit,
         modules,
         suggestions,
-        fastest_mode,
+        fastest_mode: fastest.map(|(m, _)| m),
+        fastest_mode_drive: fastest.map(|(_, d)| d),
         ok: warnings.is_empty(),
         warnings,
         notes,
@@ -462,6 +515,7 @@ mod tests {
             existing_ohm: vec![],
             fit_ohm: None,
             module_ohm: None,
+            sink: None,
         }
     }
 
@@ -582,6 +636,64 @@ mod tests {
         assert_eq!(size_pullups(&i).unwrap().fastest_mode, Some(Mode::Standard));
     }
 
+    // The fastest-mode claim names the drive it assumed. 5 V, 400 pF:
+    // Fast-mode Plus with its own 20 mA rating has Rp(min) (5 − 0.4) /
+    // 20 mA = 230 Ω ≤ Rp(max) 120 ns / (0.8473 × 400 pF) = 354 Ω, open.
+    // For 3 mA devices Rp(min) is 1.53 kΩ everywhere: above 354 Ω (Fm+)
+    // and 885 Ω (Fm), below 1000 ns / (0.8473 × 400 pF) = 2.95 kΩ (Sm).
+    // UM10204 §7.1 formulas, Tables 9 and 10 values from memory.
+    #[test]
+    fn fastest_mode_says_what_it_assumes() {
+        let r = size_pullups(&input(5.0, Mode::Fast, 400.0)).unwrap();
+        assert!(!r.window_open);
+        assert_eq!(r.fastest_mode, Some(Mode::FastPlus));
+        let d = r.fastest_mode_drive.unwrap();
+        assert_eq!((d.iol_ma, d.vol_max_v), (20.0, 0.4));
+        let t = crate::electrical::tables::pullup_table(&r);
+        assert!(
+            t.contains(
+                "fastest mode       Fast-mode Plus, if every device sinks 20 mA at VOL 0.4 V (that mode's own rating)"
+            ),
+            "{t}"
+        );
+        let mut i = input(5.0, Mode::Fast, 400.0);
+        i.sink = Some(Sink::Ma3);
+        let r = size_pullups(&i).unwrap();
+        assert_eq!(r.fastest_mode, Some(Mode::Standard));
+        assert_eq!(r.fastest_mode_drive.unwrap().iol_ma, 3.0);
+        let t = crate::electrical::tables::pullup_table(&r);
+        assert!(t.contains("Standard-mode, if every device sinks 3 mA at VOL 0.4 V (the sink rating given)"), "{t}");
+    }
+
+    // UM10204 Table 9 (from memory): Fast-mode devices rated 6 mA at VOL
+    // 0.6 V. At 5 V and 400 pF: Rp(min) (5 − 0.6) / 6 mA = 733.3 Ω, Rp(max)
+    // 300 ns / (0.8473 × 400 pF) = 885.2 Ω: open. IEC 60063 values inside:
+    // E12 820 Ω; E24 750 Ω and 820 Ω.
+    #[test]
+    fn six_milliamp_devices_open_the_fast_mode_window() {
+        let mut i = input(5.0, Mode::Fast, 400.0);
+        i.sink = Some(Sink::Ma6);
+        let r = size_pullups(&i).unwrap();
+        assert!((r.rp_min_ohm - 733.3).abs() < 0.1, "{}", r.rp_min_ohm);
+        assert!((r.rp_max_ohm - 885.2).abs() < 0.1, "{}", r.rp_max_ohm);
+        assert!(r.window_open && r.ok, "{:?}", r.warnings);
+        assert_eq!(r.suggestions.e12_ohm, vec![820.0]);
+        assert_eq!(r.suggestions.e24_ohm, vec![750.0, 820.0]);
+        assert_eq!(r.fastest_mode, Some(Mode::Fast));
+        assert_eq!(r.drive.row, DriveRow::Vol06);
+        let t = crate::electrical::tables::pullup_table(&r);
+        assert!(t.contains("VOL(max) 0.60 V at 6 mA (the sink rating given)"), "{t}");
+        // Without the rating the report offers it.
+        let r = size_pullups(&input(5.0, Mode::Fast, 400.0)).unwrap();
+        assert!(r.notes.iter().any(|n| n.contains("6 mA at VOL 0.6 V")), "{:?}", r.notes);
+        // In Standard-mode the 6 mA part is held to 3 mA at 0.4 V.
+        let mut i = input(5.0, Mode::Standard, 400.0);
+        i.sink = Some(Sink::Ma6);
+        let r = size_pullups(&i).unwrap();
+        assert!((r.rp_min_ohm - 1533.3).abs() < 0.1);
+        assert!(r.notes.iter().any(|n| n.contains("holds VOL(max) to 0.4 V")), "{:?}", r.notes);
+    }
+
     #[test]
     fn empty_window_says_what_to_do() {
         // Fast-mode at 400 pF: Rp(max) 885 Ω < Rp(min) 1.53 kΩ at 5 V.
@@ -598,9 +710,14 @@ mod tests {
         i.speed = SpeedTarget::parse("250k").unwrap();
         let r = size_pullups(&i).unwrap();
         assert_eq!(r.mode, Mode::Fast);
-        assert!((r.vol_max_v - 0.36).abs() < 1e-12);
+        assert!((r.drive.vol_max_v - 0.36).abs() < 1e-12);
+        assert_eq!(r.drive.iol_ma, 2.0);
         assert_eq!(r.clock_hz, Some(250_000));
-        assert!(r.notes.iter().any(|n| n.contains("0.2 × VDD")));
+        assert!(r.notes.iter().any(|n| n.contains("0.2 × VDD = 0.36 V at a 2 mA sink")), "{:?}", r.notes);
+        // (1.8 − 0.36) / 2 mA = 720 Ω (UM10204 §7.1, Table 9 VOL2 from memory).
+        assert!((r.rp_min_ohm - 720.0).abs() < 1e-9, "{}", r.rp_min_ohm);
+        let t = crate::electrical::tables::pullup_table(&r);
+        assert!(t.contains("VOL(max) 0.36 V at 2 mA"), "{t}");
     }
 
     #[test]

@@ -59,9 +59,10 @@ pub fn pullup_table(r: &PullupReport) -> String {
     row(
         "limits",
         format!(
-            "VOL(max) {:.2} V at {} mA, tr(max) {} ns, Cb(max) {}",
-            r.vol_max_v,
-            l.iol_ma,
+            "VOL(max) {:.2} V at {} mA{}, tr(max) {} ns, Cb(max) {}",
+            r.drive.vol_max_v,
+            r.drive.iol_ma,
+            if r.sink.is_some() { " (the sink rating given)" } else { "" },
             l.rise_max_ns,
             pf(l.cb_max_pf)
         ),
@@ -89,7 +90,14 @@ pub fn pullup_table(r: &PullupReport) -> String {
     let e24_only: Vec<f64> =
         r.suggestions.e24_ohm.iter().copied().filter(|v| !r.suggestions.e12_ohm.contains(v)).collect();
     row("E24 also", value_list(&e24_only));
-    row("fastest mode", r.fastest_mode.map_or("none".into(), |m| m.name().to_string()));
+    let fastest = match (r.fastest_mode, r.fastest_mode_drive) {
+        (Some(m), Some(d)) => {
+            let whose = if r.sink.is_some() { "the sink rating given" } else { "that mode's own rating" };
+            format!("{}, if every device sinks {} ({whose})", m.name(), d.describe())
+        }
+        _ => "none".into(),
+    };
+    row("fastest mode", fastest);
     for w in &r.warnings {
         let _ = writeln!(out, "warning: {w}");
     }

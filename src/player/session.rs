@@ -504,7 +504,7 @@ mod tests {
         for a in [0x29, 0x44, 0x45, 0x50] {
             assert!(found.contains(&Address::Seven(a)), "{a:#x} missing from {found:?}");
         }
-        assert_eq!(s.stats.attempts, 112, "0x08-0x77 is 112 addresses (UM10204 Table 4 reserves the other 16)");
+        assert_eq!(s.stats.attempts, 112, "0x08-0x77 is 112 addresses (UM10204 Table 3 reserves the other 16)");
     }
 
     #[test]

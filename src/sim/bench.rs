@@ -3,7 +3,10 @@
 //!
 //! Contract: [`Bench::from_str`] either returns a bench whose every device
 //! is valid, or a [`BenchError`] naming the file, the line, the key and
-//! what is wrong. Unknown keys are errors, never ignored.
+//! what is wrong. Unknown keys are errors, except in a file of a newer
+//! minor version (`buscue-bench/1.3`), whose optional keys this build may
+//! not know: those are ignored, each with a warning in
+//! [`Bench::warnings`] naming file, line and key.
 
 use std::collections::HashSet;
 use std::time::Duration;
@@ -12,7 +15,7 @@ use serde::Deserialize;
 
 use crate::bus::{Address, BusSpeed};
 pub use crate::config::ConfigError as BenchError;
-use crate::config::{Ctx, check_format};
+use crate::config::{Ctx, Keys, check_format};
 
 use super::bus::{DeviceFaults, Slot};
 use super::climate::{Busy, ClimateSensor};
@@ -21,7 +24,7 @@ use super::eeprom::{Eeprom, EepromConfig};
 use super::gauge::{Gauge, GaugeConfig};
 use super::register::{Access, ByteOrder, Layout, RegisterDevice, RegisterInit};
 use super::rng::SplitMix64;
-use super::signal::{Signal, SignalSpec};
+use super::signal::{CountRange, RegisterSignal, Signal, SignalSpec};
 
 /// The bench that runs when no adapter is named, and the name it goes by.
 pub const DEMO_BENCH_NAME: &str = "adapters/greenhouse.toml";
@@ -112,6 +115,9 @@ struct RegisterDef {
     reset: i64,
     #[serde(default = "rw")]
     access: String,
+    /// Two's complement: `reset` and `signal` may be negative.
+    #[serde(default)]
+    signed: bool,
     #[serde(default)]
     signal: Option<SignalSpec>,
 }
@@ -223,13 +229,22 @@ pub struct Bench {
     pub ten_bit: bool,
     pub arbitration: Option<(f64, SplitMix64)>,
     pub slots: Vec<Slot>,
+    /// Keys ignored in a file of a newer minor version, one line each
+    /// (`file:line: key `k`: ...`), for the command to show.
+    pub warnings: Vec<String>,
 }
 
 impl Bench {
     /// Parses and validates a bench file's text; `file` names it in errors.
     pub fn from_str(text: &str, file: &str) -> Result<Bench, BenchError> {
         let cx = Ctx { file, text };
-        let top: Top = cx.parse(None, "", cx.table()?)?;
+        let table = cx.table()?;
+        // The version decides how unknown keys are met, so it is read first.
+        let mut keys = Keys::default();
+        if let Some(f) = table.get("format").and_then(toml::Value::as_str) {
+            keys.newer = check_format(f, FORMAT).map_err(|m| cx.err(None, "format", m))?;
+        }
+        let top: Top = cx.parse_keys(None, "", table, &mut keys)?;
         check_format(&top.format, FORMAT).map_err(|m| cx.err(None, "format", m))?;
         let speed: BusSpeed =
             top.speed.parse().map_err(|e: crate::bus::speed::SpeedError| cx.err(None, "speed", e.to_string()))?;
@@ -259,7 +274,7 @@ impl Bench {
                     common_t.insert(k.to_string(), v);
                 }
             }
-            let c: Common = cx.parse(Some(n), "", common_t)?;
+            let c: Common = cx.parse_keys(Some(n), "", common_t, &mut keys)?;
             let address = match c.address_bits {
                 7 => Address::seven(c.address),
                 10 => Address::ten(c.address),
@@ -275,7 +290,7 @@ impl Bench {
             if !names.insert(c.name.clone()) {
                 return Err(cx.err(Some(n), "name", format!("`{}` names two devices", c.name)));
             }
-            let device = build_device(&cx, n, &c, address, t)?;
+            let device = build_device(&cx, n, &c, address, t, &mut keys)?;
             let faults = match c.faults {
                 Some(f) => {
                     probability(f.address_nack_probability)
@@ -301,6 +316,7 @@ impl Bench {
             ten_bit: top.ten_bit,
             arbitration,
             slots,
+            warnings: keys.ignored.iter().map(ToString::to_string).collect(),
         })
     }
 }
@@ -315,11 +331,12 @@ fn build_device(
     c: &Common,
     address: Address,
     rest: toml::Table,
+    keys: &mut Keys,
 ) -> Result<Box<dyn Device>, BenchError> {
     let name = c.name.clone();
     Ok(match c.model.as_str() {
         "register" => {
-            let s: RegisterSpec = cx.parse(Some(n), "", rest)?;
+            let s: RegisterSpec = cx.parse_keys(Some(n), "", rest, keys)?;
             let bits = |k: &str, v: u8| {
                 if v == 8 || v == 16 {
                     Ok(v as usize / 8)
@@ -345,7 +362,6 @@ fn build_device(
                     format!("must be 1-{max_count} for a {}-bit pointer", s.pointer_bits),
                 ));
             }
-            let max_value = if register_bytes == 2 { 0xFFFF } else { 0xFF };
             let mut regs = Vec::new();
             let mut seen = HashSet::new();
             for (i, r) in s.register.into_iter().enumerate() {
@@ -360,13 +376,23 @@ fn build_device(
                 if !seen.insert(r.at) {
                     return Err(cx.err(Some(n), &key("at"), format!("register 0x{:X} is defined twice", r.at)));
                 }
-                if r.reset < 0 || r.reset > max_value {
+                // The reset value and the signal's reach are held to the
+                // same range, refused the same way.
+                let range = CountRange { bits: s.register_bits, signed: r.signed };
+                if !range.contains(r.reset as f64) {
+                    let hint = if !r.signed && r.reset < 0 { "; set signed = true for a signed register" } else { "" };
                     return Err(cx.err(
                         Some(n),
                         &key("reset"),
-                        format!("{} does not fit a {}-bit register", r.reset, s.register_bits),
+                        format!("{} does not fit {}{hint}", r.reset, range.describe()),
                     ));
                 }
+                let signal = match r.signal {
+                    Some(spec) => {
+                        Some(RegisterSignal::new(spec, range).map_err(|m| cx.err(Some(n), &key("signal"), m))?)
+                    }
+                    None => None,
+                };
                 let access = match r.access.as_str() {
                     "rw" => Access::ReadWrite,
                     "ro" => Access::ReadOnly,
@@ -380,19 +406,14 @@ fn build_device(
                     }
                 };
                 let _ = r.name;
-                regs.push(RegisterInit {
-                    at: r.at as usize,
-                    reset: r.reset as u16,
-                    access,
-                    signal: r.signal.map(Signal::new),
-                });
+                regs.push(RegisterInit { at: r.at as usize, reset: range.encode(r.reset), access, signal });
             }
             let layout =
                 Layout { pointer_bytes, register_bytes, order, auto_increment: s.auto_increment, register_count };
             Box::new(RegisterDevice::new(name, address, layout, regs))
         }
         "eeprom" => {
-            let s: EepromSpec = cx.parse(Some(n), "", rest)?;
+            let s: EepromSpec = cx.parse_keys(Some(n), "", rest, keys)?;
             let word_address_bytes = match s.word_address_bits {
                 8 => 1,
                 16 => 2,
@@ -427,7 +448,7 @@ fn build_device(
             Box::new(Eeprom::new(name, address, cfg, s.fill as u8))
         }
         "climate-sensor" => {
-            let s: ClimateSpec = cx.parse(Some(n), "", rest)?;
+            let s: ClimateSpec = cx.parse_keys(Some(n), "", rest, keys)?;
             let busy = match s.busy.as_str() {
                 "stretch" => Busy::Stretch,
                 "nack" => Busy::Nack,
@@ -443,7 +464,7 @@ fn build_device(
             Box::new(ClimateSensor::new(name, address, busy, Signal::new(s.temperature_c), Signal::new(s.humidity_pct)))
         }
         "smbus-gauge" => {
-            let s: GaugeSpec = cx.parse(Some(n), "", rest)?;
+            let s: GaugeSpec = cx.parse_keys(Some(n), "", rest, keys)?;
             if !s.pack_name.is_ascii() || s.pack_name.len() > 32 {
                 return Err(cx.err(Some(n), "pack_name", "must be ASCII, at most 32 characters (one SMBus 2.0 block)"));
             }
@@ -541,5 +562,109 @@ mod tests {
         let e = err("format = \"buscue-bench/2\"\nname = \"t\"\n");
         assert_eq!(e.key, "format");
         assert!(Bench::from_str("format = \"buscue-bench/1.3\"\nname = \"t\"\n", "b").is_ok());
+        let e = err("format = \"buscue-bench/1.x\"\nname = \"t\"\n");
+        assert!(e.message.contains("minor version must be a number"), "{e}");
+    }
+
+    /// A bench with unknown keys at the top, in a device, in a register
+    /// entry and in an inline table, under format version `version`.
+    fn with_unknown_keys(version: &str) -> String {
+        format!(
+            concat!(
+                "format = \"buscue-bench/{}\"\n",        // 1
+                "name = \"t\"\n",                        // 2
+                "backlight = true\n",                    // 3
+                "[[device]]\n",                          // 4
+                "name = \"d\"\n",                        // 5
+                "model = \"register\"\n",                // 6
+                "address = 0x20\n",                      // 7
+                "faults = {{ seed = 1, jitter = 2 }}\n", // 8
+                "colour = \"green\"\n",                  // 9
+                "[[device.register]]\n",                 // 10
+                "at = 1\n",                              // 11
+                "reset = 7\n",                           // 12
+                "unit = \"degC\"\n",                     // 13
+            ),
+            version
+        )
+    }
+
+    // Newer minors are read: keys this build does not know are ignored,
+    // each with a warning naming file, line and key. In a file of the
+    // version this build knows the same keys are refused.
+    #[test]
+    fn a_newer_minor_has_its_unknown_keys_ignored_with_a_warning() {
+        let b = Bench::from_str(&with_unknown_keys("1.3"), "b.toml").unwrap_or_else(|e| panic!("{e}"));
+        let w = b.warnings.join("\n");
+        assert_eq!(b.warnings.len(), 4, "{w}");
+        for (line, key) in [(3, "backlight"), (8, "faults.jitter"), (9, "colour"), (13, "register[0].unit")] {
+            assert!(w.contains(&format!("b.toml:{line}: key `{key}`: not a key this build knows")), "{key}: {w}");
+        }
+        assert!(w.contains("format version 1.3, newer"), "{w}");
+        for v in ["1", "1.0"] {
+            let e = err(&with_unknown_keys(v));
+            assert_eq!((e.key.as_str(), e.line), ("backlight", Some(3)), "{v}: {e}");
+            assert!(e.message.starts_with("unknown field `backlight`"), "{e}");
+        }
+        // A known key with a wrong value is refused whatever the version.
+        let e = err(&with_unknown_keys("1.3").replace("reset = 7", "reset = 700"));
+        assert_eq!(e.key, "register[0].reset", "{e}");
+    }
+
+    fn register(body: &str) -> String {
+        format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"register\"\naddress = 0x20\n{body}\n")
+    }
+
+    // A reset value and a signal's reach are held to the register's range
+    // and refused the same way: unsigned 8-bit is 0-255, signed 8-bit
+    // -128 to 127, two's complement (common practice).
+    #[test]
+    fn register_values_outside_the_range_are_refused() {
+        let e = err(&register("[[device.register]]\nat = 1\nreset = 0x1FF\n"));
+        assert_eq!(e.key, "register[0].reset");
+        assert_eq!(e.message, "511 does not fit an unsigned 8-bit register (0 to 255)");
+        let e = err(&register("[[device.register]]\nat = 1\nsignal = { base = -5 }\n"));
+        assert_eq!(e.key, "register[0].signal");
+        assert_eq!(e.line, Some(9), "{e}");
+        assert!(e.message.starts_with("reads -5, which does not fit an unsigned 8-bit register (0 to 255)"), "{e}");
+        assert!(e.message.contains("set signed = true"), "{e}");
+        // 16 bits: 65000 + 600 + 0 reaches 65600 > 65535.
+        let e =
+            err(&register("register_bits = 16\n[[device.register]]\nat = 1\nsignal = { base = 65000, swing = 600 }\n"));
+        assert!(e.message.contains("64400 to 65600"), "{e}");
+        let e = err(&register("[[device.register]]\nat = 1\nsigned = true\nreset = 128\n"));
+        assert_eq!(e.message, "128 does not fit a signed 8-bit register (-128 to 127)");
+    }
+
+    #[test]
+    fn a_signed_register_reads_twos_complement() {
+        use crate::adapter::Adapter as _;
+        use crate::bus::{Operation, Transaction};
+        let text = register(concat!(
+            "[[device.register]]\nat = 1\nsigned = true\nreset = -5\n",
+            "[[device.register]]\nat = 2\nsigned = true\nsignal = { base = -100 }\n",
+        ));
+        let mut a = crate::sim::SimAdapter::new(Bench::from_str(&text, "b.toml").unwrap(), false);
+        let read = |a: &mut crate::sim::SimAdapter, at: u8| {
+            let tx = Transaction::new(Address::Seven(0x20), vec![Operation::Write(vec![at]), Operation::Read(1)]);
+            a.execute(&tx).ops[1].data.clone()
+        };
+        // -5 = 0xFB, -100 = 0x9C in 8-bit two's complement.
+        assert_eq!(read(&mut a, 1), vec![0xFB]);
+        assert_eq!(read(&mut a, 2), vec![0x9C]);
+    }
+
+    // A value is shown by its first characters and its length, never whole.
+    #[test]
+    fn a_long_value_is_shown_cut_with_its_length() {
+        let long = "m".repeat(100_000);
+        let e = err(&register(&format!("byte_order = \"{long}\"")));
+        let text = e.to_string();
+        assert!(text.len() < 300, "{} bytes", text.len());
+        assert!(text.contains(&format!("\"{}…\" (100000 characters)", "m".repeat(40))), "{text}");
+        let e = err(&format!("{HEAD}[[device]]\nname = \"d\"\nmodel = \"{long}\"\naddress = 0x20\n"));
+        assert!(e.to_string().len() < 400 && e.to_string().contains("(100000 characters)"), "{e}");
+        let e = err(&format!("{HEAD}{long} = 1\n"));
+        assert!(e.to_string().len() < 400 && e.to_string().contains("(100000 characters)"), "{e}");
     }
 }

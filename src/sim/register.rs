@@ -12,14 +12,15 @@
 //!   same way;
 //! - a data byte written to a read-only register is NACKed; a write-only
 //!   register reads as zero; a signal register reads a fresh sample of its
-//!   signal, scaled to counts.
+//!   signal as counts of the register's range (two's complement when the
+//!   register is signed).
 
 use std::time::Duration;
 
 use crate::bus::{Address, Direction};
 
 use super::device::{Answer, Device};
-use super::signal::Signal;
+use super::signal::RegisterSignal;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Access {
@@ -50,7 +51,7 @@ pub struct RegisterDevice {
     layout: Layout,
     values: Vec<u16>,
     access: Vec<Access>,
-    signals: Vec<Option<Signal>>,
+    signals: Vec<Option<RegisterSignal>>,
     pointer: usize,
     // write-phase state
     pointer_bytes_seen: usize,
@@ -65,7 +66,7 @@ pub struct RegisterInit {
     pub at: usize,
     pub reset: u16,
     pub access: Access,
-    pub signal: Option<Signal>,
+    pub signal: Option<RegisterSignal>,
 }
 
 impl RegisterDevice {
@@ -102,10 +103,7 @@ impl RegisterDevice {
         let p = self.pointer;
         let v = match (&mut self.signals[p], self.access[p]) {
             (_, Access::WriteOnly) => 0,
-            (Some(sig), _) => {
-                let max = if self.layout.register_bytes == 2 { 65_535.0 } else { 255.0 };
-                sig.sample(now.as_secs_f64()).round().clamp(0.0, max) as u16
-            }
+            (Some(sig), _) => sig.sample_counts(now.as_secs_f64()),
             (None, _) => self.values[p],
         };
         self.out = encode(v, self.layout.register_bytes, self.layout.order);

@@ -2,7 +2,8 @@
 //!
 //! Contract: [`crc8`] is CRC-8 with polynomial x⁸ + x² + x + 1 (0x07),
 //! initial value 0, no reflection, no final XOR, as the SMBus
-//! specification defines PEC (SMBus 2.0 §7.4 and 3.x §6.4, section
+//! specification defines PEC (SMBus 3.x §6.4, 2.0 §5.4: the section
+//! before the bus protocols, which are 3.x §6.5 and 2.0 §5.5; section
 //! numbers from memory). It covers every byte of the message on the wire,
 //! address bytes included (the repeated address byte of a read protocol
 //! too), up to but not including the PEC byte itself. The CRC catalogue

@@ -23,6 +23,14 @@
 //!   then exactly that many bytes (and the PEC) in the same transaction, as
 //!   the protocol requires; a count above the [`BlockLimit`] is an error
 //!   naming the count and the limit.
+//! - The Block Write-Block Read Process Call has its own length rules
+//!   (SMBus 3.x §6.5.8, 2.0 §5.5.8; rules and section numbers from
+//!   memory): the write block count M ≥ 1, the read block count N ≥ 1,
+//!   and M + N at most the block limit (32 bytes in 2.0, 255 in 3.x). A
+//!   call whose M leaves no room for one byte of reply is refused before
+//!   anything is sent; the counted read asks for at most limit − M bytes;
+//!   a reply count of 0, or one that takes M + N past the limit, is an
+//!   error naming M, N and the limit.
 
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
@@ -38,7 +46,10 @@ pub enum BlockLimit {
     #[default]
     #[serde(rename = "2.0")]
     Smbus2,
-    /// 255 bytes (SMBus 3.0 raised the block size, from memory).
+    /// 255 bytes (SMBus 3.0 raised the block size; "A Block Read or Block
+    /// Write is allowed to transfer a maximum of 255 data bytes" is the
+    /// text of SMBus 3.3 §6.5.7 as quoted in public patch discussions, not
+    /// read in the specification itself).
     #[serde(rename = "3")]
     Smbus3,
 }
@@ -126,6 +137,15 @@ impl Request {
     /// The bytes the controller writes (PEC not included) and what is read
     /// back: the one description both building and decoding work from.
     fn plan(&self, limit: BlockLimit) -> Result<(Vec<u8>, Reading), SmbusError> {
+        if let Request::BlockProcessCall { data, .. } = self {
+            // M ≥ 1, and M + N ≤ limit with N ≥ 1 (SMBus 3.x §6.5.8, from memory).
+            if data.is_empty() {
+                return Err(SmbusError::ProcessCallNoWrite);
+            }
+            if data.len() >= limit.max() {
+                return Err(SmbusError::ProcessCallNoRoom { m: data.len(), limit: limit.max() });
+            }
+        }
         let block = |command: u8, data: &[u8]| {
             if data.len() > limit.max() {
                 return Err(SmbusError::BlockTooLong { len: data.len(), limit: limit.max() });
@@ -154,6 +174,16 @@ impl Request {
             Request::BlockRead { command } => (vec![*command], Reading::Block),
             Request::BlockProcessCall { command, data } => (block(*command, data)?, Reading::Block),
         })
+    }
+
+    /// Most bytes the target may send in a block reply: the limit for a
+    /// Block Read, what the write block leaves of it (limit − M) for the
+    /// Block Write-Block Read Process Call.
+    fn read_max(&self, limit: BlockLimit) -> usize {
+        match self {
+            Request::BlockProcessCall { data, .. } => limit.max().saturating_sub(data.len()),
+            _ => limit.max(),
+        }
     }
 }
 
@@ -226,6 +256,20 @@ pub enum SmbusError {
     PecMismatch(PecCheck),
     #[error("block count {count} is above the {limit}-byte limit")]
     BlockCount { count: usize, limit: usize },
+    #[error("Block Write-Block Read Process Call needs a write block of at least one byte (M ≥ 1)")]
+    ProcessCallNoWrite,
+    #[error(
+        "Block Write-Block Read Process Call: a write block of {m} bytes leaves no room for a reply \
+         (M + N must be at most {limit}, with N ≥ 1): write at most {} bytes", .limit - 1
+    )]
+    ProcessCallNoRoom { m: usize, limit: usize },
+    #[error("Block Write-Block Read Process Call: the target's read block count is 0 (N must be at least 1)")]
+    ProcessCallNoReply,
+    #[error(
+        "Block Write-Block Read Process Call: write block M = {m} and read block N = {n} make {}, above the \
+         {limit}-byte limit for M + N", .m + .n
+    )]
+    ProcessCallTooLong { m: usize, n: usize, limit: usize },
     #[error("reply length mismatch: expected {expected} bytes, received {received}")]
     ReplyLength { expected: usize, received: usize },
 }
@@ -269,7 +313,9 @@ impl Call {
                 let read = Operation::Read(n + trailer);
                 if out.is_empty() { vec![read] } else { vec![Operation::Write(out), read] }
             }
-            Reading::Block => vec![Operation::Write(out), Operation::ReadCounted { max: self.limit.max(), trailer }],
+            Reading::Block => {
+                vec![Operation::Write(out), Operation::ReadCounted { max: self.request.read_max(self.limit), trailer }]
+            }
         };
         Ok(Transaction::new(self.address, ops))
     }
@@ -306,6 +352,15 @@ impl Call {
             Reading::Block => {
                 let count =
                     *data.first().ok_or(SmbusError::ReplyLength { expected: 1 + trailer, received: 0 })? as usize;
+                if let Request::BlockProcessCall { data: written, .. } = &self.request {
+                    if count == 0 {
+                        return Err(SmbusError::ProcessCallNoReply);
+                    }
+                    if count > self.request.read_max(self.limit) {
+                        let (m, limit) = (written.len(), self.limit.max());
+                        return Err(SmbusError::ProcessCallTooLong { m, n: count, limit });
+                    }
+                }
                 if count > self.limit.max() {
                     return Err(SmbusError::BlockCount { count, limit: self.limit.max() });
                 }
@@ -415,7 +470,8 @@ mod tests {
     }
 
     // Protocol diagrams of the SMBus specification, 3.x §6.5.1-§6.5.8
-    // (section numbers from memory; 2.0 has the same diagrams in §5.5).
+    // (section numbers from memory, §6.5.7 seen quoted from 3.3; 2.0 has
+    // the same diagrams in §5.5).
 
     // §6.5.1 Quick Command: S, Addr + R/W, A, P; no data, no PEC.
     #[test]
@@ -499,7 +555,7 @@ mod tests {
         );
     }
 
-    // SMBus PEC definition (3.x §6.4, from memory): the PEC of a Read Word
+    // SMBus PEC definition (3.x §6.4, 2.0 §5.4; from memory): the PEC of a Read Word
     // covers Addr Wr, Command, Addr Rd (the repeated address byte) and both
     // data bytes.
     #[test]
@@ -629,6 +685,45 @@ mod tests {
         );
         let pec = reference_pec(&[W, 0x41, 2, 0, 2, R, 2, 80, 79]);
         assert_eq!(c.decode(&outcome(vec![vec![], vec![2, 80, 79, pec]])).unwrap().value, Value::Block(vec![80, 79]));
+    }
+
+    // SMBus 3.x §6.5.8 (2.0 §5.5.8), rules from memory: M ≥ 1, N ≥ 1,
+    // M + N ≤ 32 bytes under the 2.0 limit (255 under 3.x).
+    #[test]
+    fn block_process_call_length_rules() {
+        let bpc = |m: usize, limit| Call {
+            limit,
+            ..call(Request::BlockProcessCall { command: 0x41, data: vec![7; m] }, false)
+        };
+        assert_eq!(bpc(0, BlockLimit::Smbus2).transaction(), Err(SmbusError::ProcessCallNoWrite));
+        // M = 32 leaves nothing for N ≥ 1 under a 32-byte limit; M = 31 leaves 1.
+        assert_eq!(bpc(32, BlockLimit::Smbus2).transaction(), Err(SmbusError::ProcessCallNoRoom { m: 32, limit: 32 }));
+        let msg = SmbusError::ProcessCallNoRoom { m: 32, limit: 32 }.to_string();
+        assert!(msg.contains("write at most 31 bytes"), "{msg}");
+        let tx = bpc(31, BlockLimit::Smbus2).transaction().unwrap();
+        assert_eq!(tx.ops[1], Operation::ReadCounted { max: 1, trailer: 0 });
+        // M = 2: the target may send at most 30 (2.0) or 253 (3.x).
+        let tx = bpc(2, BlockLimit::Smbus2).transaction().unwrap();
+        assert_eq!(tx.ops[1], Operation::ReadCounted { max: 30, trailer: 0 });
+        let tx = bpc(2, BlockLimit::Smbus3).transaction().unwrap();
+        assert_eq!(tx.ops[1], Operation::ReadCounted { max: 253, trailer: 0 });
+        assert!(bpc(254, BlockLimit::Smbus3).transaction().is_ok());
+        assert!(bpc(255, BlockLimit::Smbus3).transaction().is_err());
+        // A zero count, and a count that takes M + N past the limit.
+        let c = bpc(2, BlockLimit::Smbus2);
+        assert_eq!(c.decode(&outcome(vec![vec![], vec![0]])), Err(SmbusError::ProcessCallNoReply));
+        assert_eq!(
+            c.decode(&outcome(vec![vec![], vec![31]])),
+            Err(SmbusError::ProcessCallTooLong { m: 2, n: 31, limit: 32 })
+        );
+        let msg = SmbusError::ProcessCallTooLong { m: 2, n: 31, limit: 32 }.to_string();
+        assert!(msg.contains("make 33, above the 32-byte limit"), "{msg}");
+        let thirty: Vec<u8> = std::iter::once(30).chain(1..=30).collect();
+        assert_eq!(c.decode(&outcome(vec![vec![], thirty])).unwrap().value, Value::Block((1..=30).collect()));
+        // A Block Read may still be answered with a count of 0 (SMBus 3.3
+        // §6.5.7, "The byte count may be 0", as quoted).
+        let read = call(Request::BlockRead { command: 0x30 }, false);
+        assert_eq!(read.decode(&outcome(vec![vec![], vec![0]])).unwrap().value, Value::Block(vec![]));
     }
 
     #[test]

@@ -196,12 +196,13 @@ mod tests {
         assert_eq!(d.push(0).unwrap().unwrap(), src);
     }
 
-    // Examples following the encoding rules of Cheshire and Baker (1999),
-    // section 3 ("COBS" encoding procedure). The byte vectors are the
-    // widely reproduced example table of that procedure (from memory of
-    // that table; each is also checked by decoding it back).
+    // The commonly published table of COBS examples (the one general
+    // references on the algorithm reproduce), not a table of the 1999
+    // paper: vectors from memory of that table, each also decoded back.
+    // They follow the paper's encoding rules (block codes, the dropped
+    // phantom zero).
     #[test]
-    fn paper_examples() {
+    fn published_examples() {
         let cases: [(&[u8], &[u8]); 5] = [
             (&[0x00], &[0x01, 0x01]),
             (&[0x00, 0x00], &[0x01, 0x01, 0x01]),
@@ -218,8 +219,10 @@ mod tests {
         assert_eq!(&e[..n], &[0x01], "empty data encodes as one block code");
     }
 
-    // The paper's 254-byte maximum block: 254 non-zero bytes are one 0xFF
-    // block with no trailing code; a 255th byte starts a new block.
+    // The 254-byte maximum block of the paper's encoding: 254 non-zero
+    // bytes are one 0xFF block with no trailing code; a 255th byte starts
+    // a new block (the last two rows of the published example table, from
+    // memory).
     #[test]
     fn full_blocks() {
         let mut data = [0u8; 255];
