@@ -46,13 +46,13 @@ fn named(name: &str, t: &Table) -> LuaResult<Vec<(String, Given)>> {
 
 pub fn install(lua: &Lua, g: &Table) -> mlua::Result<()> {
     let t = lua.create_table()?;
-    add(lua, &t, "pullup", |lua, opts: Table| {
+    add(lua, &t, "electrical.pullup", |lua, opts: Table| {
         let fail = |e: &dyn std::fmt::Display| bad(format!("electrical.pullup: {e}"));
         let options = options::pullup_options(named("pullup", &opts)?).map_err(|e| fail(&e))?;
         let report = options.input().and_then(|i| size_pullups(&i)).map_err(|e| fail(&e))?;
         lua.to_value(&report)
     })?;
-    add(lua, &t, "bustime", |lua, opts: Table| {
+    add(lua, &t, "electrical.bustime", |lua, opts: Table| {
         let fail = |e: &dyn std::fmt::Display| bad(format!("electrical.bustime: {e}"));
         let options = options::bus_time_options(named("bustime", &opts)?).map_err(|e| fail(&e))?;
         let report = options.report().map_err(|e| fail(&e))?;

@@ -118,61 +118,61 @@ pub fn install(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
     let s = Rc::new(Smbus { ctx, pec_default: Rc::new(Cell::new(false)) });
 
     let x = s.clone();
-    add(lua, &t, "use_pec", move |_, on: bool| Ok(x.pec_default.replace(on)))?;
-    add(lua, &t, "crc8", |_, data: Value| Ok(crc8(&convert::bytes(&data, "crc8")?)))?;
+    add(lua, &t, "smbus.use_pec", move |_, on: bool| Ok(x.pec_default.replace(on)))?;
+    add(lua, &t, "smbus.crc8", |_, data: Value| Ok(crc8(&convert::bytes(&data, "crc8")?)))?;
 
     let x = s.clone();
-    add(lua, &t, "quick", move |lua, (a, o): (Value, Option<Table>)| {
+    add(lua, &t, "smbus.quick", move |lua, (a, o): (Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::QuickCommand { read: false }, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "send_byte", move |lua, (a, b, o): (Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.send_byte", move |lua, (a, b, o): (Value, Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::SendByte { data: byte(&b, "data")? }, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "receive_byte", move |lua, (a, o): (Value, Option<Table>)| {
+    add(lua, &t, "smbus.receive_byte", move |lua, (a, o): (Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::ReceiveByte, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "write_byte", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.write_byte", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
         to_lua(
             lua,
             x.exchange(lua, &a, Request::WriteByte { command: byte(&c, "command")?, data: byte(&v, "data")? }, o)?,
         )
     })?;
     let x = s.clone();
-    add(lua, &t, "write_word", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.write_word", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
         to_lua(
             lua,
             x.exchange(lua, &a, Request::WriteWord { command: byte(&c, "command")?, data: word(&v, "data")? }, o)?,
         )
     })?;
     let x = s.clone();
-    add(lua, &t, "read_byte", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.read_byte", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::ReadByte { command: byte(&c, "command")? }, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "read_word", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.read_word", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::ReadWord { command: byte(&c, "command")? }, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "process_call", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.process_call", move |lua, (a, c, v, o): (Value, Value, Value, Option<Table>)| {
         to_lua(
             lua,
             x.exchange(lua, &a, Request::ProcessCall { command: byte(&c, "command")?, data: word(&v, "data")? }, o)?,
         )
     })?;
     let x = s.clone();
-    add(lua, &t, "block_write", move |lua, (a, c, d, o): (Value, Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.block_write", move |lua, (a, c, d, o): (Value, Value, Value, Option<Table>)| {
         let data = convert::bytes(&d, "block")?;
         to_lua(lua, x.exchange(lua, &a, Request::BlockWrite { command: byte(&c, "command")?, data }, o)?)
     })?;
     let x = s.clone();
-    add(lua, &t, "block_read", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.block_read", move |lua, (a, c, o): (Value, Value, Option<Table>)| {
         to_lua(lua, x.exchange(lua, &a, Request::BlockRead { command: byte(&c, "command")? }, o)?)
     })?;
     let x = s;
-    add(lua, &t, "block_process_call", move |lua, (a, c, d, o): (Value, Value, Value, Option<Table>)| {
+    add(lua, &t, "smbus.block_process_call", move |lua, (a, c, d, o): (Value, Value, Value, Option<Table>)| {
         let data = convert::bytes(&d, "block")?;
         to_lua(lua, x.exchange(lua, &a, Request::BlockProcessCall { command: byte(&c, "command")?, data }, o)?)
     })?;
