@@ -230,7 +230,10 @@ impl DialectServer {
                     Err(f) => Said::Fault(f),
                 }
             } else if let Some(v) = m(&s.write) {
-                Said::Ack(bus.wire_write(w, v.num("byte").unwrap_or(0) as u8))
+                match bus.wire_write(w, v.num("byte").unwrap_or(0) as u8) {
+                    Ok(ack) => Said::Ack(ack),
+                    Err(f) => Said::Fault(f),
+                }
             } else if m(&s.read_ack).is_some() {
                 Said::Byte(bus.wire_read(w, true))
             } else if m(&s.read_nack).is_some() {

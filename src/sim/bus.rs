@@ -12,6 +12,11 @@
 //! clock, a target's byte at its start, STOP at the STOP condition), clock
 //! stretching so far included. The bus clock advances by the whole
 //! transaction at its STOP.
+//!
+//! The bus sees bits, not intentions: a 7-bit write to the 10-bit prefix
+//! (0x78-0x7B) puts on the wire the bytes of a 10-bit address, so its
+//! first data byte is taken as the low address byte a 10-bit target
+//! answers (UM10204 §3.1.11), exactly as when it is sent as an address.
 
 use std::time::Duration;
 
@@ -155,11 +160,19 @@ impl SimBus {
                     }
                     Event::WriteByte { op, index, byte } => {
                         last_op = op;
-                        let ack = self.wire_write(&mut w, byte);
-                        ops[op].acks.push(ack);
-                        if !ack {
-                            fault = Some(Fault::DataNack { op, index });
-                            break;
+                        match self.wire_write(&mut w, byte) {
+                            Ok(true) => ops[op].acks.push(true),
+                            Ok(false) => {
+                                ops[op].acks.push(false);
+                                fault = Some(Fault::DataNack { op, index });
+                                break;
+                            }
+                            Err(f) => {
+                                // ACKed, then the clock was held too long.
+                                ops[op].acks.push(true);
+                                fault = Some(f);
+                                break;
+                            }
                         }
                     }
                     Event::ReadByte { op, index, ack } => {
@@ -195,9 +208,11 @@ impl SimBus {
         Ok(())
     }
 
-    /// A repeated START.
+    /// A repeated START. A 10-bit prefix still waiting for its low byte
+    /// is forgotten: the next byte is a first address byte again.
     pub fn wire_restart(&mut self, w: &mut Wire) {
         w.step(&Event::RepeatedStart);
+        w.ten_high = None;
     }
 
     /// An address byte (R/W included); `Ok(true)` when a device ACKs it.
@@ -213,6 +228,13 @@ impl SimBus {
                 return Err(Fault::ArbitrationLost);
             }
         }
+        self.address(w, byte, now)
+    }
+
+    /// A byte that addresses: after a 10-bit prefix written with R/W = 0,
+    /// the low address byte, however the controller meant it; else a first
+    /// address byte.
+    fn address(&mut self, w: &mut Wire, byte: u8, now: Duration) -> Result<bool, Fault> {
         let (dir, target) = if let Some(high) = w.ten_high.take() {
             let t = self.find(Address::Ten(((high as u16) << 8) | byte as u16));
             w.ten_target = t;
@@ -261,13 +283,19 @@ impl SimBus {
         }
     }
 
-    /// A data byte from the controller; true = ACK. Nobody selected: NACK.
-    pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> bool {
+    /// A data byte from the controller; `Ok(true)` = ACK. Nobody selected:
+    /// NACK. Right after a 10-bit prefix written with R/W = 0 the byte is
+    /// the low address byte on the wire, and is answered as one (which is
+    /// where a clock-stretch timeout can come from).
+    pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> Result<bool, Fault> {
         let now = w.step(&Event::WriteByte { op: 0, index: 0, byte });
-        match w.target.filter(|_| w.selected) {
+        if w.ten_high.is_some() {
+            return self.address(w, byte, now);
+        }
+        Ok(match w.target.filter(|_| w.selected) {
             Some(i) => self.slots[i].device.write(byte, now),
             None => false,
-        }
+        })
     }
 
     /// A data byte from the target, answered with ACK or NACK. With nobody
