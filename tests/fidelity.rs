@@ -42,6 +42,18 @@ use buscue::sim::{Bench, SimAdapter};
 /// A bench of our own at 100 kHz: an EEPROM with 32-byte pages and a
 /// 5 ms write cycle, two climate sensors with flat signals (one stretches
 /// while busy, one NACKs), and a register device on a 10-bit address.
+fn bench() -> SimAdapter {
+    let climate = |name: &str, address: u8, busy: &str| {
+        format!(
+            "[[device]]\nname = \"{name}\"\nmodel = \"climate-sensor\"\naddress = 0x{address:02X}\nbusy = \"{busy}\"\n\
+             temperature_c = {{ base = 21.5 }}\nhumidity_pct = {{ base = 40.0 }}\n"
+        )
+    };
+    let text = format!("{BENCH}{}{}", climate("stretchy", 0x44, "stretch"), climate("nacky", 0x45, "nack"));
+    SimAdapter::new(Bench::from_str(&text, "fidelity.toml").expect("the test bench is valid"), false)
+}
+
+/// The bench's other devices.
 const BENCH: &str = r#"
 format = "buscue-bench/1"
 name = "fidelity"
@@ -58,32 +70,13 @@ word_address_bits = 16
 write_cycle_ms = 5.0
 
 [[device]]
-name = "stretchy"
-model = "climate-sensor"
-address = 0x44
-busy = "stretch"
-temperature_c = { base = 21.5 }
-humidity_pct = { base = 40.0 }
-
-[[device]]
-name = "nacky"
-model = "climate-sensor"
-address = 0x45
-busy = "nack"
-temperature_c = { base = 21.5 }
-humidity_pct = { base = 40.0 }
-
-[[device]]
 name = "expander"
 model = "register"
 address = 0x2A5
 address_bits = 10
 register_count = 4
-"#;
 
-fn bench() -> SimAdapter {
-    SimAdapter::new(Bench::from_str(BENCH, "fidelity.toml").expect("the test bench is valid"), false)
-}
+"#;
 
 fn tx(address: Address, ops: Vec<Operation>) -> Transaction {
     Transaction::new(address, ops)
