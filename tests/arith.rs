@@ -83,10 +83,12 @@ fn bustime_command_and_lua_agree() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let v: serde_json::Value = serde_json::from_str(&stdout(&o)).unwrap();
     let total = v["total_ns"].as_u64().unwrap_or_else(|| panic!("no total_ns in {v}"));
-    // bus/timing.rs model: 4 bytes x 9 us + 2.5 us of conditions at 1 MHz.
-    assert_eq!(total, 38_500);
+    // bus/timing.rs model: 4 bytes x 9 us + 3.5 us of conditions at 1 MHz
+    // (START 0.5; Sr and STOP 1.5 each: the SCL low phase 0.5 and two
+    // conditions of 0.5, half a period above the Fast-mode Plus minimums).
+    assert_eq!(total, 39_500);
     let o = run_script(
-        "local t = electrical.bustime{ speed = '1M', write = 1, read = 1 } check_eq(t.total_ns, 38500)\n\
+        "local t = electrical.bustime{ speed = '1M', write = 1, read = 1 } check_eq(t.total_ns, 39500)\n\
          local p = electrical.pullup{ vdd = 5, bus_cap = '200p', existing = {'10k', '10k'} } check(p.rp_min_ohm > 1500)",
         &[],
     );

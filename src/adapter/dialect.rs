@@ -16,9 +16,10 @@
 //!   rebuilds the outcome from the reply: read data, and where it stopped.
 //! - Time: with a `commands.delay` template the adapter keeps time; the
 //!   driver's clock advances by each transaction's bus time (the adapter's
-//!   measured time where the reply carries `{us}`, else the modelled time)
-//!   and by each delay it asks for. Without one, the driver sleeps and its
-//!   clock is the wall clock.
+//!   measured time where the reply carries `{us}`, else the modelled time
+//!   of what crossed the bus: a NACK ends it at the refused byte, see
+//!   [`Transaction::events_crossed`]) and by each delay it asks for.
+//!   Without one, the driver sleeps and its clock is the wall clock.
 
 use std::io::{Read, Write};
 use std::path::{Path, PathBuf};
@@ -558,9 +559,11 @@ impl DialectAdapter {
         match spread(tx, fields.bytes("data").unwrap_or_default(), fault.as_ref(), fields.num("op")) {
             Ok(ops) => {
                 let measured = fields.num("us").map(Duration::from_micros);
-                let bus_time = crate::bus::timing::transaction_time(tx, self.speed);
-                self.accounted += measured.unwrap_or(bus_time);
-                Outcome { ops, bus_time, measured, fault }
+                let mut outcome = Outcome { ops, bus_time: Duration::ZERO, measured, fault };
+                // What crossed the bus: a NACK cuts the transaction short.
+                outcome.bus_time = breakdown_events(&tx.events_crossed(&outcome), self.speed).total();
+                self.accounted += measured.unwrap_or(outcome.bus_time);
+                outcome
             }
             Err(m) => self.fail(LinkError::Reply(format!("reply `{reply}` to `{line}`: {m}"))),
         }

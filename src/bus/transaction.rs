@@ -32,7 +32,7 @@ use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
 use super::address::Address;
-use super::outcome::Outcome;
+use super::outcome::{Fault, Outcome};
 
 /// Largest byte count one operation may ask for, whatever the adapter says.
 /// A guard against a script asking for gigabytes; no bus device needs more.
@@ -234,6 +234,44 @@ impl Transaction {
     /// takes its count from the first byte the outcome holds for it.
     pub fn events_observed(&self, outcome: &Outcome) -> Vec<Event> {
         self.events_resolved(|op| outcome.ops.get(op).and_then(|o| o.data.first().copied()))
+    }
+
+    /// The events that crossed the bus, given an outcome: the observed
+    /// events ([`Transaction::events_observed`]) cut after the byte a NACK
+    /// refused, then the STOP the controller sends. For bus time where the
+    /// adapter reports only where the transaction stopped.
+    /// - a data NACK ends at the refused byte;
+    /// - an address NACK ends at the last address byte of the phase opening
+    ///   the operation it names: exact for a 7-bit address; for a 10-bit one
+    ///   the fault does not say which address byte was refused, so the whole
+    ///   phase is counted (at most two bytes more than crossed);
+    /// - any other fault does not say where it struck: every event is kept,
+    ///   an upper bound.
+    pub fn events_crossed(&self, outcome: &Outcome) -> Vec<Event> {
+        let mut ev = self.events_observed(outcome);
+        let cut = match outcome.fault {
+            Some(Fault::DataNack { op, index }) => {
+                ev.iter().position(|e| matches!(e, Event::WriteByte { op: o, index: i, .. } if *o == op && *i == index))
+            }
+            Some(Fault::AddressNack { op, .. }) => {
+                let mut phase = PhaseTracker::default();
+                let mut last = None;
+                for (i, e) in ev.iter().enumerate() {
+                    match *e {
+                        Event::AddressByte(byte) if phase.address_byte(self, byte).1 == op => last = Some(i),
+                        Event::WriteByte { op: o, .. } | Event::ReadByte { op: o, .. } if o >= op => break,
+                        _ => {}
+                    }
+                }
+                last
+            }
+            _ => None,
+        };
+        if let Some(i) = cut {
+            ev.truncate(i + 1);
+            ev.push(Event::Stop);
+        }
+        ev
     }
 
     /// The events when counted read `op` announced `count(op)` (None:
@@ -482,6 +520,34 @@ mod tests {
         };
         assert_eq!(t.events_observed(&outcome), vec![Start, AddressByte(0x17), rb(0, 0, true), rb(0, 1, false), Stop]);
         assert_eq!(t.byte_counts(), (0, 33));
+    }
+
+    // A NACK ends the transaction: the controller sends STOP after the
+    // refused byte (UM10204 §3.1.6, acknowledge and not acknowledge;
+    // section number from memory), which is what the simulator and the
+    // stepwise driver do.
+    #[test]
+    fn events_crossed_end_at_the_refused_byte() {
+        let failed = |fault| Outcome { ops: vec![], bus_time: std::time::Duration::ZERO, measured: None, fault };
+        let t = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03, 0x04]), Operation::Read(2)]);
+        let data = failed(Some(Fault::DataNack { op: 0, index: 0 }));
+        assert_eq!(t.events_crossed(&data), vec![Start, AddressByte(0x88), wb(0, 0, 0x03), Stop]);
+        let read_phase = failed(Some(Fault::AddressNack { op: 1, direction: Direction::Read }));
+        assert_eq!(
+            t.events_crossed(&read_phase),
+            vec![Start, AddressByte(0x88), wb(0, 0, 0x03), wb(0, 1, 0x04), RepeatedStart, AddressByte(0x89), Stop]
+        );
+        // 10-bit: the fault does not say which address byte was refused;
+        // the whole phase of the operation is counted.
+        let ten = Transaction::new(Address::Ten(0x2A5), vec![Operation::Read(1)]);
+        let nack = failed(Some(Fault::AddressNack { op: 0, direction: Direction::Read }));
+        assert_eq!(
+            ten.events_crossed(&nack),
+            vec![Start, AddressByte(0xF4), AddressByte(0xA5), RepeatedStart, AddressByte(0xF5), Stop]
+        );
+        // Faults that do not say where they struck keep every event.
+        assert_eq!(t.events_crossed(&failed(Some(Fault::ArbitrationLost))), t.events());
+        assert_eq!(t.events_crossed(&failed(None)), t.events());
     }
 
     #[test]

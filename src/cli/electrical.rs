@@ -206,11 +206,11 @@ mod tests {
     fn bus_time_options() {
         let t = |args: &[&str]| Time::try_parse_from(std::iter::once("t").chain(args.iter().copied())).map(|p| p.a);
         let r = t(&["--speed", "1M", "--write", "1", "--read", "1"]).unwrap().options().report().unwrap();
-        assert_eq!(r.total_ns, 38_500); // bus::timing's worked example
+        assert_eq!(r.total_ns, 39_500); // bus::timing's worked example
         let r2 = t(&["--speed", "1M", "--ops", "w1,r1"]).unwrap().options().report().unwrap();
         assert_eq!(r, r2);
         let table = bus_time_table(&r);
-        assert!(table.contains("38.50 µs"), "{table}");
+        assert!(table.contains("39.50 µs"), "{table}");
         assert!(t(&["--address-bits", "9", "--read", "1"]).is_err());
         assert_eq!(t(&["--address-bits", "10", "--read", "1"]).unwrap().address_bits, 10);
         assert!(t(&["--write", "1", "--ops", "w1"]).is_err());

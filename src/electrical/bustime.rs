@@ -106,13 +106,15 @@ mod tests {
     use super::*;
 
     // Same figures as bus::timing's own test (arithmetic on its model): a
-    // one-byte register read at 1 MHz is 38.5 us.
+    // one-byte register read at 1 MHz is 4 bytes × 9 us + START 0.5 +
+    // Sr (low 0.5 + tSU;STA 0.5 + tHD;STA 0.5) + STOP (low 0.5 + tSU;STO
+    // 0.5 + tBUF 0.5) = 39.5 us.
     #[test]
     fn report_matches_the_timing_model() {
         let tx = shape(7, parse_ops("w1,r1").unwrap()).unwrap();
         let r = bus_time(&tx, BusSpeed::FAST_PLUS);
-        assert_eq!(r.total_ns, 38_500);
-        assert_eq!((r.conditions_ns, r.address_ns, r.data_ns, r.payload_bytes), (2_500, 18_000, 18_000, 2));
+        assert_eq!(r.total_ns, 39_500);
+        assert_eq!((r.conditions_ns, r.address_ns, r.data_ns, r.payload_bytes), (3_500, 18_000, 18_000, 2));
         assert_eq!(r.ops, vec!["w1", "r1"]);
         assert_eq!(r.mode_name, "Fast-mode Plus");
     }

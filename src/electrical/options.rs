@@ -312,7 +312,7 @@ mod tests {
         let list = vec![("existing".to_string(), Given::Many(vec!["10k".into(), "4k7".into()]))];
         assert_eq!(pullup_options(list).unwrap().existing, vec![10_000.0, 4_700.0]);
         let t = bus_time_options(pairs(&[("write", "1"), ("read", "1"), ("speed", "1M")])).unwrap();
-        assert_eq!(t.report().unwrap().total_ns, 38_500); // bus::timing's worked example
+        assert_eq!(t.report().unwrap().total_ns, 39_500); // bus::timing's worked example
         assert_eq!(bus_time_options(pairs(&[])).unwrap(), BusTimeOptions::default());
     }
 

@@ -230,7 +230,10 @@ impl DialectServer {
                     Err(f) => Said::Fault(f),
                 }
             } else if let Some(v) = m(&s.write) {
-                Said::Ack(bus.wire_write(w, v.num("byte").unwrap_or(0) as u8))
+                match bus.wire_write(w, v.num("byte").unwrap_or(0) as u8) {
+                    Ok(ack) => Said::Ack(ack),
+                    Err(f) => Said::Fault(f),
+                }
             } else if m(&s.read_ack).is_some() {
                 Said::Byte(bus.wire_read(w, true))
             } else if m(&s.read_nack).is_some() {
@@ -359,7 +362,9 @@ mod tests {
     #[test]
     fn one_line_replies() {
         let got = transcript("oneline", &["X 44 W00 R2", "X 13 W00", "X 44 W00 12", "X 44 W0012", "RATE 400"]);
-        assert_eq!(got[0], "OK 5E11 T475", "475 us at 100 kHz, as adapters/DIALECTS.md shows");
+        // 100 kHz: START 5 + 5 bytes × 90 + Sr 15 + STOP 15 us (the model
+        // in bus::timing, worked in the README).
+        assert_eq!(got[0], "OK 5E11 T485", "485 us at 100 kHz, as adapters/DIALECTS.md shows");
         assert_eq!(got[1], "NA 0 ");
         assert!(got[2].starts_with("ERR adapter"), "two bytes need no separator in this dialect: {got:?}");
         assert_eq!(got[3], "ND 0 1 ", "ID is read-only: the value byte is NACKed");

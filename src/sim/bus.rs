@@ -5,6 +5,18 @@
 //! the `wire_*` steps take one wire event at a time (START, address byte,
 //! data byte, STOP) for a primitive-level dialect served on a serial port.
 //! `execute` is built on the steps, so both agree by construction.
+//!
+//! Time: each step adds its event's bus time ([`EventTimes`]) as it
+//! happens, and a device is told the bus time at which it sees its event
+//! (`EventTimes::seen_ns`: a controller's byte at the end of its ACK
+//! clock, a target's byte at its start, STOP at the STOP condition), clock
+//! stretching so far included. The bus clock advances by the whole
+//! transaction at its STOP.
+//!
+//! The bus sees bits, not intentions: a 7-bit write to the 10-bit prefix
+//! (0x78-0x7B) puts on the wire the bytes of a 10-bit address, so its
+//! first data byte is taken as the low address byte a 10-bit target
+//! answers (UM10204 §3.1.11), exactly as when it is sent as an address.
 
 use std::time::Duration;
 
@@ -81,15 +93,14 @@ impl SimBus {
     }
 
     /// Clocks SCL until a device holding SDA lets go (at most nine pulses),
-    /// then STOP.
+    /// then STOP; the clock advances by both.
     pub fn recover(&mut self) -> (u8, bool) {
         let Some(i) = self.sda_held_by else {
             return (0, true);
         };
         let needed = self.slots[i].faults.as_ref().map_or(1, |f| f.release_after_pulses.max(1));
-        let t = Duration::from_nanos(1_000_000_000 / self.speed.hz() as u64);
         let pulses = needed.min(9);
-        self.clock.advance(t * pulses as u32);
+        self.clock.advance(Duration::from_nanos(EventTimes::new(self.speed).recovery_ns(pulses)));
         if needed <= 9 {
             self.sda_held_by = None;
             if let Some(f) = self.slots[i].faults.as_mut() {
@@ -149,11 +160,19 @@ impl SimBus {
                     }
                     Event::WriteByte { op, index, byte } => {
                         last_op = op;
-                        let ack = self.wire_write(&mut w, byte);
-                        ops[op].acks.push(ack);
-                        if !ack {
-                            fault = Some(Fault::DataNack { op, index });
-                            break;
+                        match self.wire_write(&mut w, byte) {
+                            Ok(true) => ops[op].acks.push(true),
+                            Ok(false) => {
+                                ops[op].acks.push(false);
+                                fault = Some(Fault::DataNack { op, index });
+                                break;
+                            }
+                            Err(f) => {
+                                // ACKed, then the clock was held too long.
+                                ops[op].acks.push(true);
+                                fault = Some(f);
+                                break;
+                            }
                         }
                     }
                     Event::ReadByte { op, index, ack } => {
@@ -182,23 +201,25 @@ impl SimBus {
     /// make a START).
     pub fn wire_start(&mut self, w: &mut Wire) -> Result<(), Fault> {
         *w = Wire { start: self.clock.now(), times: EventTimes::new(self.speed), ..Wire::default() };
-        w.add(&Event::Start);
+        w.step(&Event::Start);
         if self.sda_held_by.is_some() {
             return Err(Fault::Bus { line: LineFault::SdaStuckLow });
         }
         Ok(())
     }
 
-    /// A repeated START.
+    /// A repeated START. A 10-bit prefix still waiting for its low byte
+    /// is forgotten: the next byte is a first address byte again.
     pub fn wire_restart(&mut self, w: &mut Wire) {
-        w.add(&Event::RepeatedStart);
+        w.step(&Event::RepeatedStart);
+        w.ten_high = None;
     }
 
     /// An address byte (R/W included); `Ok(true)` when a device ACKs it.
     /// Arbitration is contested on the first address byte; a 10-bit
     /// address selects its device on the low byte (UM10204 §3.1.11).
     pub fn wire_address(&mut self, w: &mut Wire, byte: u8) -> Result<bool, Fault> {
-        w.add(&Event::AddressByte(byte));
+        let now = w.step(&Event::AddressByte(byte));
         if !w.addressed {
             w.addressed = true;
             if let Some((p, rng)) = self.arbitration.as_mut()
@@ -207,6 +228,13 @@ impl SimBus {
                 return Err(Fault::ArbitrationLost);
             }
         }
+        self.address(w, byte, now)
+    }
+
+    /// A byte that addresses: after a 10-bit prefix written with R/W = 0,
+    /// the low address byte, however the controller meant it; else a first
+    /// address byte.
+    fn address(&mut self, w: &mut Wire, byte: u8, now: Duration) -> Result<bool, Fault> {
         let (dir, target) = if let Some(high) = w.ten_high.take() {
             let t = self.find(Address::Ten(((high as u16) << 8) | byte as u16));
             w.ten_target = t;
@@ -237,7 +265,7 @@ impl SimBus {
         if w.forced_nack {
             return Ok(false);
         }
-        match self.slots[i].device.select(dir, w.now()) {
+        match self.slots[i].device.select(dir, now) {
             Answer::Nack => Ok(false),
             Answer::Ack => {
                 w.selected = true;
@@ -255,21 +283,27 @@ impl SimBus {
         }
     }
 
-    /// A data byte from the controller; true = ACK. Nobody selected: NACK.
-    pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> bool {
-        w.add(&Event::WriteByte { op: 0, index: 0, byte });
-        match w.target.filter(|_| w.selected) {
-            Some(i) => self.slots[i].device.write(byte, w.now()),
-            None => false,
+    /// A data byte from the controller; `Ok(true)` = ACK. Nobody selected:
+    /// NACK. Right after a 10-bit prefix written with R/W = 0 the byte is
+    /// the low address byte on the wire, and is answered as one (which is
+    /// where a clock-stretch timeout can come from).
+    pub fn wire_write(&mut self, w: &mut Wire, byte: u8) -> Result<bool, Fault> {
+        let now = w.step(&Event::WriteByte { op: 0, index: 0, byte });
+        if w.ten_high.is_some() {
+            return self.address(w, byte, now);
         }
+        Ok(match w.target.filter(|_| w.selected) {
+            Some(i) => self.slots[i].device.write(byte, now),
+            None => false,
+        })
     }
 
     /// A data byte from the target, answered with ACK or NACK. With nobody
     /// selected the pull-ups leave SDA high: 0xFF (common practice).
     pub fn wire_read(&mut self, w: &mut Wire, ack: bool) -> u8 {
-        w.add(&Event::ReadByte { op: 0, index: 0, ack });
+        let now = w.step(&Event::ReadByte { op: 0, index: 0, ack });
         match w.target.filter(|_| w.selected) {
-            Some(i) => self.slots[i].device.read(w.now()),
+            Some(i) => self.slots[i].device.read(now),
             None => 0xFF,
         }
     }
@@ -277,10 +311,10 @@ impl SimBus {
     /// STOP: ends the transaction, advances the clock by its bus time and
     /// returns that time.
     pub fn wire_stop(&mut self, mut w: Wire) -> Duration {
-        w.add(&Event::Stop);
+        let now = w.step(&Event::Stop);
         if let Some(i) = w.target.filter(|_| w.selected) {
             let slot = &mut self.slots[i];
-            slot.device.stop(w.now());
+            slot.device.stop(now);
             slot.executions += 1;
             if let Some(f) = slot.faults.as_mut()
                 && f.hold_sda_after.is_some_and(|n| slot.executions >= n)
@@ -316,11 +350,11 @@ pub struct Wire {
 }
 
 impl Wire {
-    fn now(&self) -> Duration {
-        self.start + self.stretch
-    }
-
-    fn add(&mut self, e: &Event) {
+    /// Puts event `e` on the wire: returns the bus time at which a target
+    /// sees it and adds its bus time.
+    fn step(&mut self, e: &Event) -> Duration {
+        let seen = self.start + self.stretch + Duration::from_nanos(self.bus_ns + self.times.seen_ns(e));
         self.bus_ns += self.times.event_ns(e);
+        seen
     }
 }

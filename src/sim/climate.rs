@@ -13,6 +13,10 @@
 //! | 0x04 | HUMIDITY    | ro     | unsigned, 0.01 %RH per count                       |
 //! | 0x05 | TEMP_HIGH   | rw     | alert threshold, signed 0.01 °C, reset 30.00 °C    |
 //!
+//! A conversion starts when the CONTROL value with START set has arrived:
+//! at the end of its low byte's ACK clock (the `now` the bus gives
+//! [`Device::write`]), not at the START of the write.
+//!
 //! While a conversion runs, the `busy` setting decides what a read of
 //! TEMPERATURE or HUMIDITY sees: `stretch` holds SCL low until the result
 //! is ready, `nack` NACKs the address for any access, `none` returns the

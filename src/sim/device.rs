@@ -4,9 +4,18 @@
 //! address (with R/W) has been sent, [`Device::write`] for each byte the
 //! controller sends, [`Device::read`] for each byte the controller clocks
 //! out, and [`Device::stop`] when the transaction ends, whether by STOP
-//! after success or by the STOP the controller sends after a NACK. `now` is
-//! the bus clock at the start of the transaction plus any clock stretching
-//! so far. A repeated START re-selects the same device.
+//! after success or by the STOP the controller sends after a NACK. A
+//! repeated START re-selects the same device.
+//!
+//! `now` is the bus time at which the device sees its event on the wire,
+//! clock stretching so far included (`bus::timing::EventTimes::seen_ns`):
+//! - [`Device::select`] and [`Device::write`]: the end of the byte's ACK
+//!   clock, which is where an [`Answer::AckAfter`] stretch starts;
+//! - [`Device::read`]: the start of the byte, when the device puts its
+//!   first bit on SDA;
+//! - [`Device::stop`]: the STOP condition itself (SDA rising), before the
+//!   bus-free time. A write cycle or a conversion that starts at STOP
+//!   starts here.
 
 use std::time::Duration;
 
@@ -16,7 +25,8 @@ use crate::bus::{Address, Direction};
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Answer {
     Ack,
-    /// ACK, then hold SCL low for this long before the first data bit.
+    /// ACK, then hold SCL low for this long, counted from the `now` the
+    /// device was selected at, before the first data bit.
     AckAfter(Duration),
     Nack,
 }

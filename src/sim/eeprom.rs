@@ -6,8 +6,10 @@
 //! - data bytes go into the page buffer at the address, which advances and
 //!   wraps *within the page*: writing past the end of a page overwrites the
 //!   start of the same page;
-//! - STOP after data starts the internal write cycle; until it ends the
-//!   device NACKs its own address, which is what ACK polling waits for;
+//! - STOP after data starts the internal write cycle, timed from the STOP
+//!   condition itself (the `now` the bus gives [`Device::stop`]); until it
+//!   ends the device NACKs its own address, which is what ACK polling
+//!   waits for;
 //! - reads are sequential from the word address and wrap at the end of the
 //!   memory;
 //! - with write protection on, data bytes are NACKed and nothing is stored.
