@@ -32,7 +32,7 @@ use thiserror::Error;
 use super::link::{LinkError, SerialLink};
 use super::native_fault;
 use super::{Adapter, AdapterError, Capabilities, Identity, LineLevels, LinkCounters, Recovery};
-use crate::bus::timing::transaction_time;
+use crate::bus::timing::{breakdown_events, transaction_time};
 use crate::bus::{BusSpeed, Direction, OpOutcome, Operation, Outcome, Transaction};
 
 /// User settings of a native serial adapter (`serial:PATH,key=value`).
@@ -504,9 +504,20 @@ fn outcome_of(tx: &Transaction, rep: &TxReport, r: &mut Reader<'_>, speed: BusSp
         }
         f => native_fault::fault_of(f, stop, if precise { rep.index as usize } else { 0 }),
     });
-    let bus_time =
-        if rep.bus_ns == UNKNOWN_NS { transaction_time(tx, speed) } else { Duration::from_nanos(rep.bus_ns as u64) };
-    Some(Outcome { ops, bus_time, measured: Some(Duration::from_nanos(rep.measured_ns as u64)), fault })
+    let mut outcome =
+        Outcome { ops, bus_time: Duration::ZERO, measured: Some(Duration::from_nanos(rep.measured_ns as u64)), fault };
+    // An adapter that does not time the bus: model what crossed it, where
+    // the report says where a NACK cut the transaction short; an
+    // imprecise report (its fault placed conservatively) is timed whole,
+    // an upper bound.
+    outcome.bus_time = if rep.bus_ns != UNKNOWN_NS {
+        Duration::from_nanos(rep.bus_ns as u64)
+    } else if precise {
+        breakdown_events(&tx.events_crossed(&outcome), speed).total()
+    } else {
+        transaction_time(tx, speed)
+    };
+    Some(outcome)
 }
 
 impl Adapter for NativeAdapter {
@@ -653,6 +664,21 @@ mod tests {
         assert_eq!(o.ops[1].acks, [true, true, false]);
         assert_eq!(o.fault, Some(Fault::DataNack { op: 1, index: 2 }));
         assert_eq!((o.bus_time, o.measured), (Duration::from_nanos(900), Some(Duration::from_nanos(5))));
+    }
+
+    // A precise NACK from an adapter that does not time the bus: the host
+    // models what crossed it. Operation 0 reads one byte (START, address
+    // byte, one data byte), then the write phase's Sr and address byte
+    // and bytes 0-2 of operation 1, then the STOP: the same events as a
+    // transaction that ends there, so the same modelled time.
+    #[test]
+    fn untimed_precise_nack_is_timed_by_what_crossed() {
+        let rep = TxReport { status: Status::DataNack, op: 1, index: 2, info: 0, bus_ns: UNKNOWN_NS, measured_ns: 0 };
+        let o = outcome_of(&tx(), &rep, &mut Reader::new(&[0x42]), BusSpeed::STANDARD).unwrap();
+        let crossed =
+            Transaction::new(Address::Seven(0x50), vec![Operation::Read(1), Operation::Write(vec![0x00, 0x10, 0xAA])]);
+        assert_eq!(o.bus_time, transaction_time(&crossed, BusSpeed::STANDARD));
+        assert!(o.bus_time < transaction_time(&tx(), BusSpeed::STANDARD));
     }
 
     // Through embedded-hal alone (op unknown) no read data comes back and
