@@ -28,7 +28,7 @@ use buscue::adapter::dialect_profile::Profile;
 use buscue::adapter::native::{NativeAdapter, NativeSettings};
 use buscue::bus::{Address, Operation, Outcome, Transaction};
 use buscue::serve::dialect::DialectServer;
-use buscue::serve::{LinkFaults, pty, serve, serve_native};
+use buscue::serve::{LinkFaults, Peers, pty, serve, serve_native};
 use buscue::sim::{Bench, SimAdapter};
 
 /// A bare register target: 8-bit pointer, 16 read-write 8-bit registers.
@@ -73,10 +73,12 @@ impl Served {
         let thread = std::thread::spawn(move || {
             let faults = LinkFaults::default();
             let board = match protocol {
-                Protocol::Native => serve_native(bench(), master, Some(slave), &faults, &s).expect("serve").1.board,
+                Protocol::Native => {
+                    serve_native(bench(), master, Some(slave), &faults, &s, Peers::One).expect("serve").1.board
+                }
                 Protocol::Dialect(name) => {
                     let mut server = DialectServer::new(Profile::load(name).expect("shipped profile"), bench());
-                    serve(master, Some(slave), &mut server, &faults, &s).expect("serve");
+                    serve(master, Some(slave), &mut server, &faults, &s, Peers::One).expect("serve");
                     return server.adapter().bus().executions("scratch").unwrap_or(0);
                 }
             };

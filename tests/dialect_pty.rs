@@ -18,11 +18,11 @@ fn root() -> &'static Path {
     Path::new(env!("CARGO_MANIFEST_DIR"))
 }
 
-/// Starts `serve` in `profile`'s dialect and returns it with the device
-/// path it printed.
+/// Starts `serve` in `profile`'s dialect, for one peer, and returns it
+/// with the device path it printed.
 fn serve(profile: &str, extra: &[&str]) -> (Child, String) {
     let speak = format!("dialect:{profile}");
-    common::serve(&[&["--speak", speak.as_str()], extra].concat())
+    common::serve(&[&["--speak", speak.as_str(), "--once"], extra].concat())
 }
 
 struct Run {
@@ -247,7 +247,7 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
     use buscue::adapter::dialect_profile::Profile;
     use buscue::bus::BusSpeed;
     use buscue::serve::dialect::DialectServer;
-    use buscue::serve::{LinkFaults, ServeEnd, serve as serve_loop};
+    use buscue::serve::{LinkFaults, Peers, ServeEnd, serve as serve_loop};
     use buscue::sim::{Bench, SimAdapter};
     use serialport::SerialPort as _;
 
@@ -260,8 +260,8 @@ fn speed_recovery_and_identity_go_through_both_dialects() {
             let bench = Bench::from_str(buscue::sim::DEMO_BENCH, "greenhouse").expect("demo bench");
             let mut server = DialectServer::new(served, SimAdapter::new(bench, false));
             let stop = std::sync::atomic::AtomicBool::new(false);
-            let ended =
-                serve_loop(master, Some(slave), &mut server, &LinkFaults::default(), &stop).expect("serving works");
+            let ended = serve_loop(master, Some(slave), &mut server, &LinkFaults::default(), &stop, Peers::One)
+                .expect("serving works");
             (ended, server.adapter().speed())
         });
         let mut a = DialectAdapter::open(profile, Path::new(&path)).expect("opens");

@@ -14,7 +14,7 @@ use buscue::adapter::native::{NativeAdapter, NativeError, NativeSettings};
 use buscue::adapter::{Adapter, AdapterSpec, OpenOptions};
 use buscue::bus::{Address, Operation, Transaction};
 use buscue::cli::compose::open_sim;
-use buscue::serve::{LinkFaults, ServeEnd, pty, serve_native};
+use buscue::serve::{LinkFaults, Peers, ServeEnd, pty, serve_native};
 use serde_json::Value;
 
 const BIN: &str = env!("CARGO_BIN_EXE_buscue");
@@ -130,7 +130,7 @@ fn serve_in_process(faults: LinkFaults) -> (String, Arc<AtomicBool>, std::thread
     let h = std::thread::spawn(move || {
         // Device models are not Send: the bench is built on its thread.
         let sim = open_sim(&AdapterSpec::DemoBench, &OpenOptions::default()).unwrap();
-        let (end, server) = serve_native(sim, master, Some(slave), &faults, &s).unwrap();
+        let (end, server) = serve_native(sim, master, Some(slave), &faults, &s, Peers::One).unwrap();
         let light = server.board.adapter().bus().executions("canopy-light").unwrap();
         (end, light, server.bridge_stats().dropped)
     });

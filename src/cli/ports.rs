@@ -21,9 +21,10 @@ pub struct PortsArgs {
     /// Baud rate for --probe.
     #[arg(long, default_value_t = 115_200)]
     pub baud: u32,
-    /// Also probe these ports (pseudo-terminals are not listed by the system).
+    /// Only these ports: list them and, with --probe, touch no other
+    /// (pseudo-terminals are not listed by the system; name them here).
     #[arg(long = "port", value_name = "PATH")]
-    pub extra: Vec<String>,
+    pub only: Vec<String>,
 }
 
 pub fn ports(a: PortsArgs) -> Result<u8> {
@@ -49,10 +50,18 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
             (p.port_name, what)
         })
         .collect();
-    for p in &a.extra {
-        if !list.iter().any(|(n, _)| n == p) {
-            list.push((p.clone(), "given".into()));
-        }
+    if !a.only.is_empty() {
+        // Only what was named, in the order named, described where the
+        // system lists it: a probe must not open a port nobody asked for.
+        list = a
+            .only
+            .iter()
+            .map(|p| {
+                let what = list.iter().find(|(n, _)| n == p).map_or_else(|| "given".to_string(), |(_, w)| w.clone());
+                (p.clone(), what)
+            })
+            .collect();
+        list.dedup_by(|x, y| x.0 == y.0);
     }
     let mut out = crate::cli::out::locked();
     if list.is_empty() {

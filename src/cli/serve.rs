@@ -13,7 +13,7 @@ use super::compose::open_sim;
 use crate::adapter::dialect_profile::Profile;
 use crate::adapter::{Adapter as _, AdapterSpec, OpenOptions};
 use crate::serve::dialect::DialectServer;
-use crate::serve::{LinkFaults, ServeEnd, pty, serve as serve_loop, serve_native};
+use crate::serve::{LinkFaults, Peers, ServeEnd, pty, serve as serve_loop, serve_native};
 
 use super::{interrupt_flag, parse_adapter, shown};
 
@@ -74,6 +74,10 @@ pub struct ServeArgs {
     /// Seed of the link faults.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// End when the first peer closes the port, instead of waiting for
+    /// the next one.
+    #[arg(long)]
+    pub once: bool,
 }
 
 fn probability(s: &str) -> Result<f64, String> {
@@ -115,14 +119,16 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         Some(p) => format!("{} text dialect", shown(&p.name)),
     };
     eprintln!("serving {} on {path} ({speak}); Ctrl-C to stop", shown(&sim.identity().target));
+    let mut left = || eprintln!("the peer closed the port; waiting for the next one on {path}");
+    let peers = if a.once { Peers::One } else { Peers::Many(&mut left) };
     let (end, counts) = match profile {
         None => {
-            let (end, server) = serve_native(sim, master, Some(slave), &faults, &stop)?;
+            let (end, server) = serve_native(sim, master, Some(slave), &faults, &stop, peers)?;
             (end, format!("{} requests executed", server.bridge_stats().executed))
         }
         Some(p) => {
             let mut server = DialectServer::new(p, sim);
-            let end = serve_loop(master, Some(slave), &mut server, &faults, &stop)?;
+            let end = serve_loop(master, Some(slave), &mut server, &faults, &stop, peers)?;
             let s = &server.stats;
             (end, format!("{} command lines, {} transactions", s.commands, s.transactions))
         }

@@ -102,6 +102,13 @@ impl super::Server for DialectServer {
         !self.lines.is_empty()
     }
 
+    fn peer_left(&mut self) {
+        // A half-sent line and a transaction left open die with the host
+        // that sent them.
+        self.lines.clear();
+        self.release_bus();
+    }
+
     fn reset(&mut self, _link: &mut super::ServedLink) -> std::io::Result<()> {
         self.lines.clear();
         self.release_bus();

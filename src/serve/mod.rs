@@ -5,8 +5,10 @@
 //! - [`serve`] reads the port on a helper thread (so the peer's writes
 //!   never block on us), hands arriving bytes to a [`Server`] (the
 //!   protocol), and writes its answers back. It returns when the peer
-//!   closes the port, when an injected hang-up fires, or when `stop` is
-//!   set.
+//!   closes the port ([`Peers::One`]), when an injected hang-up fires, or
+//!   when `stop` is set; with [`Peers::Many`] a peer closing the port is
+//!   not the end: the next one to open it is served by the same adapter
+//!   (the bench keeps its state, as hardware would).
 //! - [`LinkFaults`] injects seeded link trouble in both directions:
 //!   dropped bytes, flipped bits, added latency per answer, a reset of the
 //!   served adapter in the middle of a frame, a hang-up after N frames.
@@ -136,6 +138,10 @@ pub trait Server {
     fn start(&mut self, _link: &mut ServedLink) -> io::Result<()> {
         Ok(())
     }
+    /// The peer closed the port and another may open it: forget what the
+    /// last one left half said. (An adapter does not see a host close its
+    /// port; what it keeps is what a real one would keep.)
+    fn peer_left(&mut self) {}
 }
 
 /// Frame size and pipelining window of the served native adapter.
@@ -150,6 +156,9 @@ pub struct NativeServer {
     sessions: SplitMix64,
     frames: u64,
     in_frame: bool,
+    /// What the bridges before the last reset counted: a reset starts a
+    /// new bridge (and session), not a new count of what was served.
+    earlier: buscue_bridge::bridge::BridgeStats,
 }
 
 impl NativeServer {
@@ -184,11 +193,17 @@ impl NativeServer {
             sessions,
             frames: 0,
             in_frame: false,
+            earlier: Default::default(),
         }
     }
 
+    /// What was served since the start, across adapter resets.
     pub fn bridge_stats(&self) -> buscue_bridge::bridge::BridgeStats {
-        self.bridge.stats()
+        let now = self.bridge.stats();
+        buscue_bridge::bridge::BridgeStats {
+            executed: self.earlier.executed + now.executed,
+            dropped: self.earlier.dropped + now.dropped,
+        }
     }
 }
 
@@ -221,6 +236,7 @@ impl Server for NativeServer {
         if session == self.bridge.session() {
             session = session.wrapping_add(1);
         }
+        self.earlier = self.bridge_stats();
         *self.bridge = Bridge::new(Caps { speed_hz: old, ..self.caps }, session);
         self.in_frame = false;
         self.bridge.announce(link)
@@ -234,13 +250,35 @@ impl Server for NativeServer {
 /// Why serving stopped.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ServeEnd {
-    /// The peer closed the port.
+    /// The peer closed the port (and only one was to be served).
     PeerClosed,
     /// The injected hang-up fired.
     HungUp,
     /// `stop` was set.
     Stopped,
 }
+
+/// How many peers, one after another, a [`serve`] call serves.
+pub enum Peers<'a> {
+    /// The first; serving ends when it closes the port.
+    One,
+    /// Any number: when one closes the port, the next may open it. The
+    /// function is told each time one leaves.
+    Many(&'a mut dyn FnMut()),
+}
+
+/// What the reader thread hands the serving loop.
+enum Incoming {
+    Bytes(Vec<u8>),
+    /// The peer closed its side (the master reads EIO while no one has
+    /// the port open).
+    Closed,
+}
+
+/// How often the reader looks again for a new peer while none has the
+/// port open: the kernel offers no wake-up for a pseudo-terminal being
+/// opened.
+const NEXT_PEER_POLL: Duration = Duration::from_millis(50);
 
 /// Serves `server` on the master side of a pseudo-terminal. `slave`, if
 /// given, is held open until the first byte arrives, so the port does not
@@ -251,24 +289,37 @@ pub fn serve<S: Server>(
     server: &mut S,
     faults: &LinkFaults,
     stop: &AtomicBool,
+    mut peers: Peers<'_>,
 ) -> io::Result<ServeEnd> {
     let mut reader = port.try_clone_native().map_err(io::Error::from)?;
     reader.set_timeout(Duration::from_millis(200)).map_err(io::Error::from)?;
-    let (tx, rx) = mpsc::channel::<Vec<u8>>();
+    let (tx, rx) = mpsc::channel::<Incoming>();
     let reader_stop = std::sync::Arc::new(AtomicBool::new(false));
     let rs = reader_stop.clone();
     let thread = std::thread::spawn(move || {
         let mut buf = [0u8; 4096];
+        let mut open = true;
         while !rs.load(Ordering::Relaxed) {
             match reader.read(&mut buf) {
                 Ok(0) => break,
                 Ok(n) => {
-                    if tx.send(buf[..n].to_vec()).is_err() {
+                    open = true;
+                    if tx.send(Incoming::Bytes(buf[..n].to_vec())).is_err() {
                         break;
                     }
                 }
                 Err(e) if e.kind() == io::ErrorKind::TimedOut || e.kind() == io::ErrorKind::Interrupted => {}
-                Err(_) => break, // EIO: the peer closed the slave side
+                // No one has the slave side open (the master reads EIO,
+                // or polls as hung up). Said once per peer; then look
+                // again until the next one opens it.
+                Err(e) if e.raw_os_error() == Some(5) || e.kind() == io::ErrorKind::BrokenPipe => {
+                    if open && tx.send(Incoming::Closed).is_err() {
+                        break;
+                    }
+                    open = false;
+                    std::thread::sleep(NEXT_PEER_POLL);
+                }
+                Err(_) => break,
             }
         }
     });
@@ -292,12 +343,21 @@ pub fn serve<S: Server>(
             break ServeEnd::Stopped;
         }
         match rx.recv_timeout(Duration::from_millis(50)) {
-            Ok(bytes) => {
+            Ok(Incoming::Bytes(bytes)) => {
                 slave = None;
                 chunk.clear();
                 incoming.apply(&bytes, &mut chunk);
                 link.inbox.extend(chunk.iter().copied());
             }
+            Ok(Incoming::Closed) => match &mut peers {
+                Peers::One => break ServeEnd::PeerClosed,
+                Peers::Many(left) => {
+                    link.inbox.clear();
+                    server.peer_left();
+                    left();
+                    continue;
+                }
+            },
             Err(mpsc::RecvTimeoutError::Timeout) => continue,
             Err(mpsc::RecvTimeoutError::Disconnected) => break ServeEnd::PeerClosed,
         }
@@ -325,7 +385,18 @@ pub fn serve<S: Server>(
             }
         }
         if hung {
-            break if faults.hang_up_after.is_some() { ServeEnd::HungUp } else { ServeEnd::PeerClosed };
+            if faults.hang_up_after.is_some() {
+                break ServeEnd::HungUp;
+            }
+            // The peer went while we answered: as if it closed the port.
+            match &mut peers {
+                Peers::One => break ServeEnd::PeerClosed,
+                Peers::Many(left) => {
+                    link.inbox.clear();
+                    server.peer_left();
+                    left();
+                }
+            }
         }
     };
     drop(slave);
@@ -347,17 +418,19 @@ pub fn pty() -> io::Result<(TTYPort, TTYPort, String)> {
     Ok((master, slave, name))
 }
 
-/// Serves a simulated bench with the native protocol until the peer
-/// closes, `stop` is set or a fault ends it; returns the server so callers
-/// can look at the board side (executions per device).
+/// Serves a simulated bench with the native protocol until the peer (or
+/// the last of `peers`) closes, `stop` is set or a fault ends it; returns
+/// the server so callers can look at the board side (executions per
+/// device).
 pub fn serve_native(
     sim: SimAdapter,
     port: TTYPort,
     slave: Option<TTYPort>,
     faults: &LinkFaults,
     stop: &AtomicBool,
+    peers: Peers<'_>,
 ) -> io::Result<(ServeEnd, NativeServer)> {
     let mut server = NativeServer::new(sim, faults.seed);
-    let end = serve(port, slave, &mut server, faults, stop)?;
+    let end = serve(port, slave, &mut server, faults, stop, peers)?;
     Ok((end, server))
 }
