@@ -37,6 +37,9 @@ use std::process::ExitCode;
 #[derive(Parser, Debug)]
 #[command(
     name = "buscue",
+    // Help wraps to the terminal's width (clap's wrap_help), up to 100
+    // columns: longer lines are hard to read.
+    max_term_width = 100,
     version,
     about = "Play scripted I2C transaction sequences through a bus adapter or the simulated bench"
 )]

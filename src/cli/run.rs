@@ -32,7 +32,7 @@ pub struct RunArgs {
     #[arg(long, default_value = "10m", value_parser = parse_duration)]
     pub timeout: Duration,
     /// Memory limit for the script, in MiB.
-    #[arg(long, default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
+    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
     pub memory_limit: u32,
     /// Let the script use io, os and the stock require (file and process
     /// access). Only for scripts you trust.

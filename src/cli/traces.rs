@@ -40,7 +40,7 @@ pub struct ReplayArgs {
     #[command(flatten)]
     pub bus: BusArgs,
     /// Multiply the recorded gaps between frames by this (0.5 = twice as fast).
-    #[arg(long, default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
+    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
     pub time_scale: f64,
     /// Send the frames back to back, without the recorded gaps.
     #[arg(long)]
