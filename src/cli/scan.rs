@@ -11,7 +11,7 @@ use crate::player::{Probe, scan_range};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag, shown};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag};
 
 /// The probes of `--probe`. Described in the option's own help, not per
 /// value: value descriptions would give `scan --help` a layout of its own.
@@ -37,6 +37,8 @@ pub enum ProbeArg {
 pub struct ScanArgs {
     #[command(flatten)]
     pub bus: BusArgs,
+    #[command(flatten)]
+    pub show: ShowArgs,
     /// How to ask each address: `address` sends START, address + W, STOP
     /// (no data byte crosses the bus, so a register device changes
     /// nothing); `read` reads one byte, for devices that take an
@@ -68,7 +70,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let speed = adapter.speed();
     let mut session = Session::new(adapter, interrupt);
     if a.frames && !a.json {
-        session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
+        session.add_sink(Box::new(PlainLog::with_layout(out::stdout(), a.show.layout(None), true)));
     }
     let probe = match a.probe {
         ProbeArg::Address => Probe::AddressOnly,
@@ -86,7 +88,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let found = match result {
         Ok(f) => f,
         Err(e) => {
-            eprintln!("error: scan stopped: {}", shown(e));
+            eprintln!("{}", error_line(format_args!("scan stopped: {e}"), a.show.colour.resolve_stderr()));
             return Ok(code);
         }
     };
