@@ -238,3 +238,26 @@ fn an_error_is_said_once() {
         assert_eq!(stderr(&o).matches(needle).count(), 1, "{args:?}: {}", stderr(&o));
     }
 }
+
+// `bus.stats` keeps the end record's fields and counts the NACKs of
+// probes apart: a scan of the demo bench (112 probes, UM10204 §3.1.12,
+// six answering) and one ACK poll that is answered at once, then a read
+// of a missing device that NACKs twice under a two-try policy.
+#[test]
+fn bus_stats_counts_probe_nacks_apart() {
+    let o = run_script(
+        "local found = bus.scan()\n\
+         bus.wait_ack(0x45, {timeout_ms = 50})\n\
+         pcall(bus.read, 0x33, 1, {retry = 2})\n\
+         local s = bus.stats()\n\
+         check_eq(#found, 6, 'answering devices')\n\
+         check_eq(s.probes, 113, 'probes')\n\
+         check_eq(s.probe_nacks, 106, 'probes nobody answered')\n\
+         check_eq(s.other_nacks, 2, 'the missing device, twice')\n\
+         check_eq(s.nacks, 108, 'every NACK, as the end record counts')\n\
+         check_eq(s.attempts, 115, 'attempts')\n",
+        &["--no-trace", "-q"],
+    );
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stderr(&o).contains("(115 attempts, 1 retry, 2 NACKs, 106 of 113 probes NACKed)"), "{}", stderr(&o));
+}

@@ -40,7 +40,7 @@ fn quiet_success(o: &Output, what: &str) {
 /// that read it print far more than a pipe buffer holds.
 fn long_trace(dir: &Path, name: &str, extra: &[&str]) -> PathBuf {
     let path = dir.join(name);
-    let mut args = vec!["run", "scripts/climate_bringup.lua", "-q", "--set", "samples=500", "--trace"];
+    let mut args = vec!["run", "scripts/climate_bringup.lua", "-q", "--set", "samples=600", "--trace"];
     args.push(path.to_str().unwrap());
     args.extend_from_slice(extra);
     let o = run(&args);

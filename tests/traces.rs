@@ -240,6 +240,90 @@ fn replay_finds_a_changed_register_and_masks_hide_it() {
     assert_eq!(o.status.code(), Some(5), "a mask on another register hides nothing");
 }
 
+/// A copy of `trace` at `to` whose frames pass through `change` first.
+fn changed(trace: &Path, to: &Path, change: impl Fn(&mut Frame)) {
+    let t = Trace::load(trace).unwrap();
+    let mut w = TraceWriter::create(to, &t.header).unwrap();
+    for r in &t.records {
+        let mut r = r.clone();
+        if let Record::Frame(f) = &mut r {
+            change(f);
+        }
+        w.record(&r).unwrap();
+    }
+}
+
+/// Hex bytes as the byte diff shows them.
+fn cells(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02X}")).collect::<Vec<_>>().join(" ")
+}
+
+// One 48-byte verify that differs in every byte: one heading and a byte
+// diff of three rows of 16 (expected above got), not 48 lines. The JSON
+// output keeps one object per byte.
+#[test]
+fn replay_groups_the_divergences_of_one_operation() {
+    let dir = tempfile::tempdir().unwrap();
+    let good = record(dir.path(), "scripts/eeprom_calibration.lua", &[]);
+    let verify = |f: &Frame| f.ops.len() == 2 && f.ops[1] == Operation::Read(48);
+    let real: Vec<u8> = Trace::load(&good).unwrap().frames().find(|f| verify(f)).unwrap().outcome.ops[1].data.clone();
+    assert_eq!(real.len(), 48);
+    // The recording claims the inverse of what the board holds.
+    let other = dir.path().join("other.jsonl");
+    changed(&good, &other, |f| {
+        if verify(f) {
+            f.outcome.ops[1].data.iter_mut().for_each(|b| *b ^= 0xFF);
+        }
+    });
+    let recorded: Vec<u8> = real.iter().map(|b| b ^ 0xFF).collect();
+    let o = buscue(&["replay", other.to_str().unwrap(), "--colour", "never"]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(5), "{out}{err}");
+    let lines: Vec<&str> = out.lines().collect();
+    assert_eq!(lines.len(), 7, "{out}");
+    assert!(
+        lines[0]
+            .starts_with("diverged: frame #15 (0x50) op 1: 48 read bytes differ  at scripts/eeprom_calibration.lua:"),
+        "{out}"
+    );
+    for (row, at) in [0usize, 16, 32].into_iter().enumerate() {
+        assert_eq!(lines[1 + 2 * row], format!("  byte {at:<4} expected {}", cells(&recorded[at..at + 16])), "{out}");
+        assert_eq!(lines[2 + 2 * row], format!("            got      {}", cells(&real[at..at + 16])), "{out}");
+    }
+    assert!(err.contains("(48 divergences in 1 frame; stopped at the first"), "{err}");
+
+    let o = buscue(&["replay", other.to_str().unwrap(), "--json"]);
+    let (out, _) = text(&o);
+    let divergences: Vec<serde_json::Value> = out
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .filter(|v: &serde_json::Value| v["kind"] == "divergence")
+        .collect();
+    assert_eq!(divergences.len(), 48);
+    assert_eq!(divergences[5]["byte"], 5);
+    assert_eq!(divergences[5]["expected"], format!("0x{:02X}", recorded[5]));
+    assert_eq!(divergences[5]["actual"], format!("0x{:02X}", real[5]));
+
+    // A few bytes apart: the bytes between that match show as `..`.
+    let few = dir.path().join("few.jsonl");
+    changed(&good, &few, |f| {
+        if verify(f) {
+            for i in [1, 3, 20] {
+                f.outcome.ops[1].data[i] ^= 0x01;
+            }
+        }
+    });
+    let o = buscue(&["replay", few.to_str().unwrap(), "--colour", "always"]);
+    let (out, _) = text(&o);
+    assert!(out.starts_with("\x1b[31;1mdiverged:\x1b[0m frame #15 (0x50) op 1: 3 read bytes differ"), "{out:?}");
+    let bare = out.replace("\x1b[31;1m", "").replace("\x1b[2m", "").replace("\x1b[0m", "");
+    let e = |i: usize| format!("{:02X}", real[i] ^ 0x01);
+    let g = |i: usize| format!("{:02X}", real[i]);
+    assert!(bare.contains(&format!("  byte 0    expected .. {} .. {}\n", e(1), e(3))), "{bare}");
+    assert!(bare.contains(&format!("            got      .. {} .. {}\n", g(1), g(3))), "{bare}");
+    assert!(bare.contains(&format!("  byte 16   expected .. .. .. .. {}\n", e(20))), "{bare}");
+}
+
 // ---- diff ----
 
 #[test]
@@ -318,6 +402,41 @@ fn diff_masks_sensor_readings() {
         "0x45,reg=TEMPERATURE",
     ]);
     assert_eq!(masked.status.code(), Some(0), "{}", text(&masked).0);
+}
+
+// Two runs that both scanned the bus: the addresses nobody answers at
+// share one line; those that answered, and those the script talked to,
+// keep their rows. NACKs of the probes have their own column.
+#[test]
+fn diff_groups_the_addresses_a_scan_only_probed() {
+    let dir = tempfile::tempdir().unwrap();
+    let script = dir.path().join("survey.lua");
+    std::fs::write(&script, "bus.scan()\nbus.write_read(0x44, {0x00}, 2)\nbus.wait_ack(0x45, {timeout_ms = 50})\n")
+        .unwrap();
+    let (a, b) = (dir.path().join("a.jsonl"), dir.path().join("b.jsonl"));
+    for t in [&a, &b] {
+        let o = buscue(&["run", script.to_str().unwrap(), "-q", "--trace", t.to_str().unwrap()]);
+        assert_eq!(o.status.code(), Some(0), "{:?}", text(&o));
+    }
+    let o = buscue(&["diff", a.to_str().unwrap(), b.to_str().unwrap()]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{out}{err}");
+    // The demo bench answers at six of the 112 addresses a scan probes
+    // (0x08-0x77, UM10204 §3.1.12): 106 share one line.
+    assert!(out.contains("\n106 addresses never answered a probe (106 probes in A, 106 in B)\n"), "{out}");
+    let rows: Vec<&str> = out.lines().filter(|l| l.starts_with("0x")).collect();
+    assert_eq!(rows.len(), 6, "one row pair per answering address: {out}");
+    assert!(out.lines().all(|l| l.chars().count() <= 80), "{out}");
+    let header = out.lines().find(|l| l.starts_with("address")).unwrap();
+    assert!(header.contains(" NACKs probes NACKed ") && header.ends_with(" bus time us"), "{header}");
+    // 0x45 was probed by the scan and polled (a sensor that answers at
+    // once): two probes, no NACK outside them.
+    let row = rows.iter().find(|l| l.starts_with("0x45")).unwrap();
+    let n: Vec<&str> = row.split_whitespace().collect();
+    assert_eq!(&n[1..7], ["A", "2", "0", "0", "2", "0"], "{row}");
+    // Colour on demand: the verdict in green.
+    let o = buscue(&["diff", a.to_str().unwrap(), b.to_str().unwrap(), "-q", "--colour", "always"]);
+    assert!(text(&o).0.contains("\x1b[32msame: "), "{:?}", text(&o).0);
 }
 
 // ---- trace -> script -> run -> trace ----

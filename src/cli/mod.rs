@@ -32,11 +32,15 @@ use clap::{Args, Parser, Subcommand, ValueEnum};
 use crate::adapter::{self, AdapterSpec, OpenOptions};
 use crate::bus::BusSpeed;
 use crate::view::ColourChoice;
+use crate::view::format::{Layout, Tone, paint};
 use std::process::ExitCode;
 
 #[derive(Parser, Debug)]
 #[command(
     name = "buscue",
+    // Help wraps to the terminal's width (clap's wrap_help), up to 100
+    // columns: longer lines are hard to read.
+    max_term_width = 100,
     version,
     about = "Play scripted I2C transaction sequences through a bus adapter or the simulated bench"
 )]
@@ -84,9 +88,40 @@ pub struct BusArgs {
     /// Pace the simulated bench in real time instead of virtual time.
     #[arg(long)]
     pub realtime: bool,
-    /// Colour the frame log: auto (a terminal, unless NO_COLOR is set), always, never.
+}
+
+/// How a command's human output looks: every command that shows frames
+/// or reports differences takes these.
+#[derive(Args, Debug, Clone)]
+pub struct ShowArgs {
+    /// Colour: auto (a terminal, unless NO_COLOR is set), always, never.
     #[arg(long, value_enum, default_value = "auto", alias = "color")]
     pub colour: Colour,
+    /// Show frame lines whole, however wide (as a file or a pipe gets
+    /// them), instead of fitting them to the terminal.
+    #[arg(long, conflicts_with = "width")]
+    pub wide: bool,
+    /// Fit frame lines to this many columns (default: the terminal's
+    /// width; off a terminal nothing is fitted).
+    #[arg(long, value_name = "COLUMNS", value_parser = clap::value_parser!(u16).range(20..))]
+    pub width: Option<u16>,
+}
+
+impl ShowArgs {
+    /// The frame-line layout for standard output; `script` is the run's
+    /// own script as frames name it.
+    pub fn layout(&self, script: Option<Arc<str>>) -> Layout {
+        Layout { colour: self.colour.resolve(), width: self.width(), script, all_bytes: false }
+    }
+
+    /// The columns to fit frame lines to, if any.
+    pub fn width(&self) -> Option<usize> {
+        match (self.wide, self.width) {
+            (true, _) => None,
+            (false, Some(w)) => Some(w as usize),
+            (false, None) => out::terminal_width(),
+        }
+    }
 }
 
 /// The values of `--colour`; the view decides what `auto` means.
@@ -98,14 +133,22 @@ pub enum Colour {
 }
 
 impl Colour {
-    /// Whether to colour standard output.
-    pub fn resolve(self) -> bool {
+    fn choice(self) -> ColourChoice {
         match self {
             Colour::Auto => ColourChoice::Auto,
             Colour::Always => ColourChoice::Always,
             Colour::Never => ColourChoice::Never,
         }
-        .resolve()
+    }
+
+    /// Whether to colour standard output.
+    pub fn resolve(self) -> bool {
+        self.choice().resolve()
+    }
+
+    /// Whether to colour standard error.
+    pub fn resolve_stderr(self) -> bool {
+        self.choice().resolve_stderr()
     }
 }
 
@@ -205,15 +248,41 @@ pub(crate) fn shown(x: impl std::fmt::Display) -> String {
     }
 }
 
+/// An error line for standard error: `error: ` and the message, shown
+/// safely ([`shown`]), the label in the error colour when `colour`.
+pub(crate) fn error_line(msg: impl std::fmt::Display, colour: bool) -> String {
+    format!("{} {}", paint("error:", Tone::Bad, colour), shown(msg))
+}
+
+/// A warning line for standard error, as [`error_line`].
+pub(crate) fn warning_line(msg: impl std::fmt::Display, colour: bool) -> String {
+    format!("{} {}", paint("warning:", Tone::Warn, colour), shown(msg))
+}
+
+impl Command {
+    /// The `--colour` the command was given, if it takes one.
+    fn colour(&self) -> Option<Colour> {
+        match self {
+            Command::Run(a) => Some(a.show.colour),
+            Command::Scan(a) => Some(a.show.colour),
+            Command::Replay(a) => Some(a.show.colour),
+            Command::Diff(a) => Some(a.show.colour),
+            _ => None,
+        }
+    }
+}
+
 /// The `buscue` command: parse, dispatch, exit.
 pub fn main() -> ExitCode {
     let args = Cli::parse();
+    // Commands without --colour colour their error as `auto` would.
+    let colour = args.command.colour().unwrap_or(Colour::Auto).resolve_stderr();
     match dispatch(args) {
         Ok(code) => ExitCode::from(code),
         // The reader of standard output took all it wanted (`| head`).
         Err(e) if out::closed(&e) => ExitCode::from(exit::OK),
         Err(e) => {
-            eprintln!("error: {}", shown(message(&e)));
+            eprintln!("{}", error_line(message(&e), colour));
             ExitCode::from(exit::of_error(&e))
         }
     }

@@ -155,6 +155,33 @@ impl<W: Write> Write for LogOut<W> {
     }
 }
 
+/// The width of the terminal standard output is, when it is one: `COLUMNS`
+/// when it holds a positive number (POSIX.1-2017, XBD 8.3: the user's
+/// preferred width, which overrides the system's), else the window size
+/// the terminal reports. `None` off a terminal: a file or a pipe has no
+/// width.
+pub fn terminal_width() -> Option<usize> {
+    if !io::stdout().is_terminal() {
+        return None;
+    }
+    let columns = std::env::var("COLUMNS").ok().and_then(|v| v.trim().parse::<usize>().ok());
+    columns.filter(|&n| n > 0).or_else(window_columns)
+}
+
+#[cfg(unix)]
+fn window_columns() -> Option<usize> {
+    // SAFETY: a zeroed winsize is a valid value of the plain C struct, and
+    // TIOCGWINSZ only writes one into the pointer it is given.
+    let mut ws: libc::winsize = unsafe { std::mem::zeroed() };
+    let rc = unsafe { libc::ioctl(libc::STDOUT_FILENO, libc::TIOCGWINSZ, &mut ws) };
+    (rc == 0 && ws.ws_col > 0).then_some(ws.ws_col as usize)
+}
+
+#[cfg(not(unix))]
+fn window_columns() -> Option<usize> {
+    None
+}
+
 /// Whether `e` is standard output closed by its reader.
 pub fn closed(e: &anyhow::Error) -> bool {
     e.chain().any(|c| c.downcast_ref::<io::Error>().and_then(io::Error::get_ref).is_some_and(|i| i.is::<Closed>()))

@@ -17,7 +17,9 @@ use crate::view::plain::PlainLog;
 
 use super::outputs;
 use super::watchdog::{self, Watchdog};
-use super::{BusArgs, interrupt_flag, parse_assignment, parse_duration, parse_size, shown};
+use super::{
+    BusArgs, ShowArgs, error_line, interrupt_flag, parse_assignment, parse_duration, parse_size, shown, warning_line,
+};
 
 #[derive(Args, Debug)]
 pub struct RunArgs {
@@ -25,6 +27,8 @@ pub struct RunArgs {
     pub script: PathBuf,
     #[command(flatten)]
     pub bus: BusArgs,
+    #[command(flatten)]
+    pub show: ShowArgs,
     /// Script parameter, read by `param("name", default)`; repeatable.
     #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment)]
     pub set: Vec<(String, String)>,
@@ -32,7 +36,7 @@ pub struct RunArgs {
     #[arg(long, default_value = "10m", value_parser = parse_duration)]
     pub timeout: Duration,
     /// Memory limit for the script, in MiB.
-    #[arg(long, default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
+    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
     pub memory_limit: u32,
     /// Let the script use io, os and the stock require (file and process
     /// access). Only for scripts you trust.
@@ -103,7 +107,6 @@ pub fn run(a: RunArgs) -> Result<u8> {
         session.add_sink(Box::new(w));
         Some(path)
     };
-    let colour = a.bus.colour.resolve();
     // The JSON stream stays line by line: programs read it live, as a
     // person reads the frame log on a terminal.
     let mut log_flush = None;
@@ -112,7 +115,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
     } else {
         let log = out::frame_log();
         log_flush = Some(log.flusher());
-        session.add_sink(Box::new(PlainLog::new(log, colour, !a.quiet)));
+        // Frames name the script as the Lua chunk does: by the path given.
+        let layout = a.show.layout(Some(a.script.display().to_string().into()));
+        session.add_sink(Box::new(PlainLog::with_layout(log, layout, !a.quiet)));
     }
     let cfg = RunConfig {
         script: a.script.clone(),
@@ -136,11 +141,12 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let error = report.abort.as_ref().map(|e| e.to_string());
     let closed = session.finish(code, error.clone());
     let mut err = std::io::stderr().lock();
+    let colour = a.show.colour.resolve_stderr();
     for w in session.take_warnings() {
-        let _ = writeln!(err, "warning: {}", shown(w));
+        let _ = writeln!(err, "{}", warning_line(w, colour));
     }
     for p in &report.unused_params {
-        let _ = writeln!(err, "warning: --set {p} was never read by the script");
+        let _ = writeln!(err, "{}", warning_line(format_args!("--set {p} was never read by the script"), colour));
     }
     if !a.json {
         let _ = writeln!(err, "{}", summary(&session.stats, host));
@@ -152,7 +158,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         let _ = writeln!(err, "trace: {}", shown(p.display()));
     }
     if let Some(msg) = error {
-        let _ = writeln!(err, "error: {}", shown(msg));
+        let _ = writeln!(err, "{}", error_line(msg, colour));
         // One line per frame: escaped line by line, so the breaks between
         // frames stay breaks.
         for line in report.traceback.iter().flat_map(|tb| tb.lines()) {
@@ -163,8 +169,8 @@ pub fn run(a: RunArgs) -> Result<u8> {
         // A trace that could not be written fails the run even when the
         // script did not; so does an adapter that cannot be closed.
         let _ = match &e {
-            RunError::Adapter(e) => writeln!(err, "error: closing the adapter: {}", shown(e)),
-            e => writeln!(err, "error: {}", shown(e)),
+            RunError::Adapter(e) => writeln!(err, "{}", error_line(format_args!("closing the adapter: {e}"), colour)),
+            e => writeln!(err, "{}", error_line(e, colour)),
         };
         return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }

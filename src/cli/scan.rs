@@ -11,17 +11,18 @@ use crate::player::{Probe, scan_range};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag, shown};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag};
 
+/// The probes of `--probe`. Described in the option's own help, not per
+/// value: value descriptions would give `scan --help` a layout of its own.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum ProbeArg {
-    /// START, address + W, STOP. No data byte crosses the bus, so a device
-    /// that follows the usual pointer-then-data convention changes no
-    /// register. The default.
+    // START, address + W, STOP: no data byte crosses the bus, so a device
+    // that follows the usual pointer-then-data convention changes no
+    // register. The default.
     Address,
-    /// START, address + R, one byte NACKed, STOP. For devices that treat an
-    /// address-only write as a command (SMBus Quick Command); beware that a
-    /// read can clear read-to-clear status bits or pop a FIFO.
+    // START, address + R, one byte NACKed, STOP: for devices that take an
+    // address-only write as a command (SMBus Quick Command).
     Read,
 }
 
@@ -33,14 +34,20 @@ pub enum ProbeArg {
 /// --include-reserved, since probing the general-call address talks to
 /// every device at once.
 #[derive(Args, Debug)]
-#[command(verbatim_doc_comment)]
 pub struct ScanArgs {
     #[command(flatten)]
     pub bus: BusArgs,
-    /// How to ask each address.
+    #[command(flatten)]
+    pub show: ShowArgs,
+    /// How to ask each address: `address` sends START, address + W, STOP
+    /// (no data byte crosses the bus, so a register device changes
+    /// nothing); `read` reads one byte, for devices that take an
+    /// address-only write as a command, and can clear read-to-clear
+    /// status bits or pop a FIFO.
     #[arg(long, value_enum, default_value = "address")]
     pub probe: ProbeArg,
-    /// Also probe the reserved 7-bit addresses.
+    /// Also probe the reserved 7-bit addresses (UM10204 §3.1.12); 0x00 is
+    /// the general call, which every device hears.
     #[arg(long)]
     pub include_reserved: bool,
     /// Also probe the 1024 10-bit addresses.
@@ -63,7 +70,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let speed = adapter.speed();
     let mut session = Session::new(adapter, interrupt);
     if a.frames && !a.json {
-        session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
+        session.add_sink(Box::new(PlainLog::with_layout(out::stdout(), a.show.layout(None), true)));
     }
     let probe = match a.probe {
         ProbeArg::Address => Probe::AddressOnly,
@@ -81,7 +88,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     let found = match result {
         Ok(f) => f,
         Err(e) => {
-            eprintln!("error: scan stopped: {}", shown(e));
+            eprintln!("{}", error_line(format_args!("scan stopped: {e}"), a.show.colour.resolve_stderr()));
             return Ok(code);
         }
     };

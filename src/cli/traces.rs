@@ -7,20 +7,21 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result};
 use clap::Args;
 
+use crate::bus::Address;
 use crate::cli::{exit, out};
 use crate::player::RunError;
 use crate::record::{Record, Stats};
 use crate::script::Session;
 use crate::trace::diff::{Hunk, Keyed, align, key_files};
 use crate::trace::mask::{Mask, Masks};
-use crate::trace::replay::{ReplayOptions, Stop, check as check_trace, check_scale, replay as play};
+use crate::trace::replay::{Heading, ReplayOptions, Stop, check as check_trace, check_scale, groups, replay as play};
 use crate::trace::to_script::{ScriptOptions, to_script as convert};
 use crate::trace::{Header, Trace, TraceReader, TraceWriter};
-use crate::view::format::{frame_line, human};
+use crate::view::format::{Layout, TimeUnit, Tone, cell_diff, frame_line, in_unit, paint};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, interrupt_flag, outputs, parse_duration, shown};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag, outputs, parse_duration, shown, warning_line};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
@@ -39,8 +40,10 @@ pub struct ReplayArgs {
     pub trace: PathBuf,
     #[command(flatten)]
     pub bus: BusArgs,
+    #[command(flatten)]
+    pub show: ShowArgs,
     /// Multiply the recorded gaps between frames by this (0.5 = twice as fast).
-    #[arg(long, default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
+    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
     pub time_scale: f64,
     /// Send the frames back to back, without the recorded gaps.
     #[arg(long)]
@@ -76,10 +79,11 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     let mut checked = TraceReader::open(&a.trace)?;
     let check = check_trace(&mut checked, time_scale);
     let trace_warnings = checked.warnings().to_vec();
+    let colour = a.show.colour.resolve_stderr();
     if let Err(e) = check {
         let mut err = std::io::stderr().lock();
         for w in &trace_warnings {
-            let _ = writeln!(err, "warning: {w}");
+            let _ = writeln!(err, "{}", warning_line(w, colour));
         }
         anyhow::bail!("{e} (nothing was replayed)");
     }
@@ -105,7 +109,8 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     if a.json {
         session.add_sink(Box::new(JsonLines::new(out::stdout())));
     } else if a.frames {
-        session.add_sink(Box::new(PlainLog::new(out::stdout(), a.bus.colour.resolve(), true)));
+        let script = reader.header().script.as_ref().map(|s| s.path.as_str().into());
+        session.add_sink(Box::new(PlainLog::with_layout(out::stdout(), a.show.layout(script), true)));
     }
     let opts = ReplayOptions { time_scale, keep_going: a.no_stop, masks: Masks(a.mask.clone()) };
     let report = play(&mut session, &mut reader, &opts);
@@ -121,24 +126,38 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     // The check read the whole file, so its warnings are complete (the
     // replay may have stopped before a cut last line).
     for w in trace_warnings.into_iter().chain(session.take_warnings()) {
-        let _ = writeln!(err, "warning: {}", shown(w));
+        let _ = writeln!(err, "{}", warning_line(w, colour));
     }
     let mut out = out::locked();
-    for d in &report.divergences {
-        if a.json {
+    if a.json {
+        for d in &report.divergences {
             let v = serde_json::json!({
                 "kind": "divergence", "seq": d.seq, "replay_seq": d.replay_seq,
                 "address": d.address.to_string(), "aspect": format!("{:?}", d.aspect).to_lowercase(),
-                "op": d.op, "byte": d.byte, "expected": d.expected, "actual": d.actual,
+                "op": d.op, "byte": d.byte, "expected": d.expected.to_string(), "actual": d.actual.to_string(),
                 "origin": d.origin.as_ref().map(|o| o.to_string()), "decoded": d.decoded,
             });
             let _ = writeln!(out, "{v}");
-        } else {
+        }
+    } else {
+        let colour = a.show.colour.resolve();
+        for group in groups(&report.divergences) {
             // Its decoded name and origin come from the recording.
-            let _ = writeln!(out, "diverged: {}", shown(d));
+            let _ = writeln!(out, "{} {}", paint("diverged:", Tone::Bad, colour), shown(Heading(group)));
+            if group.len() > 1 {
+                let cells: Vec<_> =
+                    group.iter().map(|d| (d.byte.unwrap_or_default(), d.expected.cell(), d.actual.cell())).collect();
+                for line in cell_diff(&cells, colour) {
+                    let _ = writeln!(out, "{line}");
+                }
+            }
         }
     }
-    let verdict = if report.divergences.is_empty() { "matches the recording" } else { "DIVERGES from the recording" };
+    let verdict = if report.divergences.is_empty() {
+        paint("matches the recording", Tone::Ok, colour)
+    } else {
+        paint("DIVERGES from the recording", Tone::Bad, colour)
+    };
     let _ = writeln!(
         err,
         "replayed {} frame{} of {}: {verdict} ({} divergence{} in {} frame{}{}{})",
@@ -153,14 +172,14 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" },
     );
     if let Some(e) = error {
-        let _ = writeln!(err, "error: replay stopped: {}", shown(e));
+        let _ = writeln!(err, "{}", error_line(format_args!("replay stopped: {e}"), colour));
     }
     if let Err(e) = closed {
         // As for `run`: a trace that could not be written fails the replay
         // too, and so does an adapter that cannot be closed.
         let _ = match &e {
-            RunError::Adapter(a) => writeln!(err, "error: closing the adapter: {}", shown(a)),
-            e => writeln!(err, "error: {}", shown(e)),
+            RunError::Adapter(a) => writeln!(err, "{}", error_line(format_args!("closing the adapter: {a}"), colour)),
+            e => writeln!(err, "{}", error_line(e, colour)),
         };
         return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }
@@ -180,55 +199,78 @@ pub struct DiffArgs {
     #[arg(long, value_name = "MASK", value_parser = parse_mask)]
     pub mask: Vec<Mask>,
     /// Show at most this many differences in full (all are counted).
-    #[arg(long, default_value_t = 20)]
-    pub show: usize,
+    #[arg(long = "show", value_name = "N", default_value_t = 20)]
+    pub show_n: usize,
     /// Print only the summaries.
     #[arg(long, short = 'q')]
     pub quiet: bool,
+    #[command(flatten)]
+    pub show: ShowArgs,
 }
 
-fn frames_at(path: &Path, keyed: &Keyed, range: std::ops::Range<usize>) -> Result<Vec<String>> {
+/// The frame lines of frames `range` of a keyed trace, laid out by `layout`
+/// (the trace's own script named as the run named it).
+fn frames_at(path: &Path, keyed: &Keyed, range: std::ops::Range<usize>, layout: &Layout) -> Result<Vec<String>> {
+    let layout = Layout { script: keyed.header.script.as_ref().map(|s| s.path.as_str().into()), ..layout.clone() };
     let mut r = TraceReader::open(path)?;
     let mut out = Vec::new();
     for i in range {
         let (offset, line) = keyed.places[i];
         if let Record::Frame(f) = r.record_at(offset, line)? {
-            out.push(frame_line(&f, false));
+            out.push(frame_line(&f, &layout));
         }
     }
     Ok(out)
 }
 
-fn summary_row(s: &Stats) -> String {
+/// The columns of the per-address summary (79 wide with the address and
+/// trace columns): NACKs are those outside probes, which have their own
+/// two columns (probes, and how many were NACKed).
+fn summary_row(s: &Stats, unit: TimeUnit) -> String {
     format!(
-        "{:>6} {:>8} {:>7.1}% {:>7} {:>8} {:>8} {:>11}",
+        "{:>6} {:>7} {:>6} {:>6} {:>6} {:>7} {:>6} {:>12}",
         s.transactions,
-        s.attempts,
-        s.nack_rate() * 100.0,
         s.retries,
+        s.other_nacks(),
+        s.probes,
+        s.probe_nacks,
         s.bytes_written,
         s.bytes_read,
-        human(s.bus_time)
+        in_unit(s.bus_time, unit)
     )
+}
+
+/// Whether an address was never heard from in a trace: it is not in it,
+/// or every frame to it was a probe and every probe was NACKed (a scan
+/// passing an empty address). Such addresses share one line of the
+/// summary, not a row pair each.
+fn silent(s: &Stats) -> bool {
+    s.attempts == 0 || (s.only_probes() && s.probe_nacks == s.attempts)
 }
 
 pub fn diff(a: DiffArgs) -> Result<u8> {
     let masks = Masks(a.mask.clone());
     let (ka, kb) = key_files(&a.a, &a.b, &masks)?;
     let mut err = std::io::stderr().lock();
+    let err_colour = a.show.colour.resolve_stderr();
     for w in ka.warnings.iter().chain(&kb.warnings) {
-        let _ = writeln!(err, "warning: {}", shown(w));
+        let _ = writeln!(err, "{}", warning_line(w, err_colour));
     }
     let hunks = align(&ka.keys, &kb.keys);
+    let colour = a.show.colour.resolve();
+    // Frame lines are indented by `  A `, and keep every byte: they are
+    // there to be compared.
+    let layout = a.show.layout(None);
+    let layout = Layout { width: layout.width.map(|w| w.saturating_sub(4)), all_bytes: true, ..layout };
     let mut out = out::locked();
     writeln!(out, "A = {} ({} frames)", shown(a.a.display()), ka.keys.len())?;
     writeln!(out, "B = {} ({} frames)", shown(a.b.display()), kb.keys.len())?;
     if !a.quiet {
-        for (n, Hunk { a: ra, b: rb }) in hunks.iter().take(a.show).enumerate() {
+        for (n, Hunk { a: ra, b: rb }) in hunks.iter().take(a.show_n).enumerate() {
             writeln!(
                 out,
-                "\ndifference {}: {} frame{} of A at #{} vs {} frame{} of B at #{}",
-                n + 1,
+                "\n{} {} frame{} of A at #{} vs {} frame{} of B at #{}",
+                paint(&format!("difference {}:", n + 1), Tone::Bad, colour),
                 ra.len(),
                 if ra.len() == 1 { "" } else { "s" },
                 ra.start + 1,
@@ -236,36 +278,63 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
                 if rb.len() == 1 { "" } else { "s" },
                 rb.start + 1
             )?;
-            for l in frames_at(&a.a, &ka, ra.clone())? {
+            for l in frames_at(&a.a, &ka, ra.clone(), &layout)? {
                 writeln!(out, "  A {l}")?;
             }
-            for l in frames_at(&a.b, &kb, rb.clone())? {
+            for l in frames_at(&a.b, &kb, rb.clone(), &layout)? {
                 writeln!(out, "  B {l}")?;
             }
         }
-        if hunks.len() > a.show {
-            writeln!(out, "\n... {} more differences (--show N to see them)", hunks.len() - a.show)?;
+        if hunks.len() > a.show_n {
+            writeln!(out, "\n... {} more differences (--show N to see them)", hunks.len() - a.show_n)?;
         }
     }
-    writeln!(out, "\naddress   trace  trans.  attempts   NACKs retries  written     read    bus time")?;
-    let addrs: std::collections::BTreeSet<_> = ka.summary.keys().chain(kb.summary.keys()).collect();
     let none = Stats::default();
-    for addr in addrs {
-        let (sa, sb) = (ka.summary.get(addr).unwrap_or(&none), kb.summary.get(addr).unwrap_or(&none));
-        let mark = if sa == sb { ' ' } else { '*' };
-        writeln!(out, "{:<9} A     {}", addr.to_string(), summary_row(sa))?;
-        writeln!(out, "{:<8}{mark} B     {}", "", summary_row(sb))?;
-    }
-    let frames = ka.keys.len().max(kb.keys.len());
+    let addrs: std::collections::BTreeSet<_> = ka.summary.keys().chain(kb.summary.keys()).collect();
+    let pairs: Vec<_> = addrs
+        .into_iter()
+        .map(|addr| (addr, ka.summary.get(addr).unwrap_or(&none), kb.summary.get(addr).unwrap_or(&none)))
+        .collect();
+    let (quiet, rows): (Vec<_>, Vec<_>) = pairs.into_iter().partition(|(_, sa, sb)| silent(sa) && silent(sb));
+    let longest = rows.iter().flat_map(|(_, sa, sb)| [sa.bus_time, sb.bus_time]).max().unwrap_or_default();
+    let unit = TimeUnit::fitting(longest);
     writeln!(
         out,
-        "\n{}",
-        if hunks.is_empty() {
-            format!("same: {frames} frames match")
-        } else {
-            format!("{} difference{}", hunks.len(), if hunks.len() == 1 { "" } else { "s" })
-        }
+        "\n{:<9} {:<5} {:>6} {:>7} {:>6} {:>6} {:>6} {:>7} {:>6} {:>12}",
+        "address",
+        "trace",
+        "trans.",
+        "retries",
+        "NACKs",
+        "probes",
+        "NACKed",
+        "written",
+        "read",
+        format!("bus time {}", unit.label())
     )?;
+    for (addr, sa, sb) in &rows {
+        let mark = if sa == sb { " ".to_string() } else { paint("*", Tone::Bad, colour) };
+        writeln!(out, "{:<9} A     {}", addr.to_string(), summary_row(sa, unit))?;
+        writeln!(out, "{:<8}{mark} B     {}", "", summary_row(sb, unit))?;
+    }
+    if !quiet.is_empty() {
+        let probes = |pick: fn(&(&Address, &Stats, &Stats)) -> u64| quiet.iter().map(pick).sum::<u64>();
+        let (pa, pb) = (probes(|q| q.1.probes), probes(|q| q.2.probes));
+        writeln!(
+            out,
+            "{} address{} never answered a probe ({pa} probe{} in A, {pb} in B)",
+            quiet.len(),
+            if quiet.len() == 1 { "" } else { "es" },
+            if pa == 1 { "" } else { "s" },
+        )?;
+    }
+    let frames = ka.keys.len().max(kb.keys.len());
+    let verdict = if hunks.is_empty() {
+        paint(&format!("same: {frames} frames match"), Tone::Ok, colour)
+    } else {
+        paint(&format!("{} difference{}", hunks.len(), if hunks.len() == 1 { "" } else { "s" }), Tone::Bad, colour)
+    };
+    writeln!(out, "\n{verdict}")?;
     Ok(if hunks.is_empty() { exit::OK } else { exit::DIVERGED })
 }
 

@@ -101,6 +101,14 @@ impl Purpose {
         }
     }
 
+    /// Whether frames of this purpose are probes: they ask whether a
+    /// device answers (a scan probe, an ACK poll), so a NACK is one of the
+    /// answers they expect, not a failure. [`Stats`] counts their NACKs
+    /// apart.
+    pub fn is_probe(&self) -> bool {
+        matches!(self, Purpose::Scan | Purpose::AckPoll)
+    }
+
     /// The purpose a name stands for; see the type's note on unknown names.
     pub fn from_name(name: &str) -> Purpose {
         Purpose::KNOWN
@@ -161,6 +169,14 @@ pub enum Level {
 }
 
 /// Counters a run reports at its end.
+///
+/// NACKs are counted twice over: `nacks` holds every NACKed attempt (as
+/// the trace's end record always has), `probe_nacks` those of probes
+/// (scan probes and ACK polls, [`Purpose::is_probe`]), which ask whether
+/// a device answers and expect a NACK as often as not. What a person
+/// should look at is the rest, [`Stats::other_nacks`]. The probe counters
+/// are not part of the trace format (its end record keeps the fields it
+/// has always had); a reader recounts them from the frames.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Stats {
     /// Transactions asked for (a retried one counts once).
@@ -168,11 +184,17 @@ pub struct Stats {
     /// Tries put on the bus, retries included.
     pub attempts: u64,
     pub retries: u64,
+    /// NACKed attempts, probes included.
     pub nacks: u64,
     pub bytes_written: u64,
     pub bytes_read: u64,
     #[serde(rename = "bus_ns", with = "nanos")]
     pub bus_time: Duration,
+    /// Attempts that were probes, and how many of them were NACKed.
+    #[serde(skip)]
+    pub probes: u64,
+    #[serde(skip)]
+    pub probe_nacks: u64,
 }
 
 impl Stats {
@@ -185,8 +207,11 @@ impl Stats {
         } else {
             self.retries += 1;
         }
+        let probe = f.purpose.as_ref().is_some_and(Purpose::is_probe);
+        self.probes += probe as u64;
         if f.outcome.fault.as_ref().is_some_and(crate::bus::Fault::is_nack) {
             self.nacks += 1;
+            self.probe_nacks += probe as u64;
         }
         for (op, oo) in f.ops.iter().zip(&f.outcome.ops) {
             match op {
@@ -197,9 +222,19 @@ impl Stats {
         self.bus_time += f.outcome.bus_time;
     }
 
-    /// NACKed attempts over all attempts, 0-1.
-    pub fn nack_rate(&self) -> f64 {
-        if self.attempts == 0 { 0.0 } else { self.nacks as f64 / self.attempts as f64 }
+    /// NACKed attempts other than probes: the ones a script should care about.
+    pub fn other_nacks(&self) -> u64 {
+        self.nacks.saturating_sub(self.probe_nacks)
+    }
+
+    /// Attempts other than probes.
+    pub fn other_attempts(&self) -> u64 {
+        self.attempts.saturating_sub(self.probes)
+    }
+
+    /// Whether every attempt counted was a probe (and there was one).
+    pub fn only_probes(&self) -> bool {
+        self.probes > 0 && self.probes == self.attempts
     }
 }
 
@@ -274,6 +309,47 @@ mod tests {
         let text = serde_json::to_string(&f).unwrap();
         assert!(text.starts_with(r#"{"kind":"frame","seq":3,"t_ns":1234567,"address":"10:0x2A5""#), "{text}");
         assert_eq!(serde_json::from_str::<Record>(&text).unwrap(), f);
+    }
+
+    // Probes (scan, ACK poll) are counted apart; the end record's fields
+    // stay those of trace format 1.0, the probe counters are not written.
+    #[test]
+    fn stats_count_probe_nacks_apart() {
+        let nack = Some(crate::bus::Fault::AddressNack { op: 0, direction: crate::bus::Direction::Write });
+        let frame = |purpose: Option<Purpose>, fault: Option<crate::bus::Fault>| Frame {
+            seq: 1,
+            t: Duration::ZERO,
+            address: Address::Seven(0x50),
+            ops: vec![Operation::Write(vec![])],
+            outcome: Outcome { ops: vec![OpOutcome::default()], bus_time: Duration::ZERO, measured: None, fault },
+            attempt: 1,
+            attempts: 1,
+            purpose,
+            origin: None,
+            decoded: None,
+            pec: None,
+        };
+        let mut s = Stats::default();
+        for f in [
+            frame(Some(Purpose::AckPoll), nack.clone()),
+            frame(Some(Purpose::AckPoll), nack.clone()),
+            frame(Some(Purpose::AckPoll), None),
+            frame(Some(Purpose::Scan), nack.clone()),
+            frame(Some(Purpose::Poll), nack.clone()),
+            frame(None, nack.clone()),
+            frame(None, None),
+        ] {
+            s.add_frame(&f);
+        }
+        assert_eq!((s.attempts, s.nacks, s.probes, s.probe_nacks), (7, 5, 4, 3));
+        assert_eq!((s.other_nacks(), s.other_attempts()), (2, 3), "a register poll's NACK is one to look at");
+        assert!(!s.only_probes());
+        let text = serde_json::to_string(&s).unwrap();
+        assert_eq!(
+            text,
+            r#"{"transactions":7,"attempts":7,"retries":0,"nacks":5,"bytes_written":0,"bytes_read":0,"bus_ns":0}"#
+        );
+        assert_eq!(serde_json::from_str::<Stats>(&text).unwrap().probes, 0, "recounted from frames, not read");
     }
 
     // Trace format 1.0 writes purposes as these names; they must not change.

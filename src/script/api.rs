@@ -234,7 +234,19 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
-    add(lua, &bus, "bus.stats", move |lua, ()| lua.to_value(&c.session.borrow().stats))?;
+    add(lua, &bus, "bus.stats", move |lua, ()| {
+        // The fields of the trace's end record, and the NACKs of probes
+        // (scans, ACK polls) counted apart from the others.
+        let session = c.session.borrow();
+        let s = &session.stats;
+        let t = lua.to_value(s)?;
+        if let Value::Table(t) = &t {
+            t.set("probes", s.probes)?;
+            t.set("probe_nacks", s.probe_nacks)?;
+            t.set("other_nacks", s.other_nacks())?;
+        }
+        Ok(t)
+    })?;
 
     add(lua, &bus, "bus.ten", |_, v: Value| {
         Ok(Address::ten(convert::integer(&v, "10-bit address")?).map_err(|e| bad(e.to_string()))?.to_string())

@@ -31,7 +31,7 @@ use crate::bus::{Address, Fault, Operation, Outcome};
 
 use super::mask::Masks;
 use super::{Header, TraceError, TraceReader};
-use crate::record::{Frame, Stats};
+use crate::record::{Frame, Purpose, Stats};
 
 /// Edit-distance bound per aligned region; see the module contract.
 pub const MAX_EDITS: usize = 20_000;
@@ -83,7 +83,8 @@ pub fn frame_key(f: &Frame, masks: &Masks) -> u64 {
 
 /// The parts of a record line the diff needs. Parsing into this plain
 /// struct skips the buffering an internally tagged enum costs and the
-/// strings the diff never looks at (script lines, purposes).
+/// strings the diff never looks at (script lines). The purpose is kept:
+/// the summaries count the NACKs of probes apart.
 #[derive(Deserialize)]
 struct FrameLine<'a> {
     #[serde(borrow)]
@@ -100,6 +101,8 @@ struct FrameLine<'a> {
     attempt: u32,
     #[serde(default)]
     attempts: u32,
+    #[serde(default)]
+    purpose: Option<Purpose>,
     #[serde(default)]
     decoded: Option<String>,
 }
@@ -118,7 +121,7 @@ impl FrameLine<'_> {
             outcome: self.outcome?,
             attempt: self.attempt,
             attempts: self.attempts,
-            purpose: None,
+            purpose: self.purpose,
             origin: None,
             decoded: self.decoded,
             pec: None,

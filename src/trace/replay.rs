@@ -52,6 +52,46 @@ pub enum Aspect {
     Result,
 }
 
+/// What the recording or the replay showed for one aspect of a frame.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Seen {
+    /// A written byte's ACK (`true`) or NACK; `None`: never sent.
+    Ack(Option<bool>),
+    /// A read byte; `None`: none was read.
+    Byte(Option<u8>),
+    /// The transaction's result; `None`: ok.
+    Result(Option<FaultClass>),
+}
+
+impl Seen {
+    /// Two columns for a byte diff: `5E` or `--` (no byte), ` A` (ACK),
+    /// ` N` (NACK) or ` -` (never sent).
+    pub fn cell(&self) -> String {
+        match self {
+            Seen::Byte(Some(b)) => format!("{b:02X}"),
+            Seen::Byte(None) => "--".into(),
+            Seen::Ack(Some(true)) => " A".into(),
+            Seen::Ack(Some(false)) => " N".into(),
+            Seen::Ack(None) => " -".into(),
+            Seen::Result(_) => self.to_string(),
+        }
+    }
+}
+
+impl fmt::Display for Seen {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Seen::Ack(Some(true)) => f.write_str("ACK"),
+            Seen::Ack(Some(false)) => f.write_str("NACK"),
+            Seen::Ack(None) => f.write_str("not sent"),
+            Seen::Byte(Some(v)) => write!(f, "0x{v:02X}"),
+            Seen::Byte(None) => f.write_str("none"),
+            Seen::Result(None) => f.write_str("ok"),
+            Seen::Result(Some(c)) => f.write_str(&c.label()),
+        }
+    }
+}
+
 /// One difference between the recording and the replay.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Divergence {
@@ -63,35 +103,96 @@ pub struct Divergence {
     /// Operation index and byte index within it, where it applies.
     pub op: Option<usize>,
     pub byte: Option<usize>,
-    pub expected: String,
-    pub actual: String,
+    pub expected: Seen,
+    pub actual: Seen,
     pub origin: Option<Origin>,
     pub decoded: Option<String>,
 }
 
-impl fmt::Display for Divergence {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+impl Aspect {
+    fn name(&self) -> &'static str {
+        match self {
+            Aspect::Ack => "ACK",
+            Aspect::Data => "data",
+            Aspect::Result => "result",
+        }
+    }
+}
+
+impl Divergence {
+    /// `frame #N (ADDRESS NAME)`: the recorded frame it is in.
+    fn write_frame(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "frame #{} ({}", self.seq, self.address)?;
         if let Some(d) = &self.decoded {
             write!(f, " {d}")?;
         }
-        write!(f, ")")?;
+        write!(f, ")")
+    }
+
+    fn write_origin(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match &self.origin {
+            Some(o) => write!(f, "  at {o}"),
+            None => Ok(()),
+        }
+    }
+
+    /// Whether `other` is in the same operation of the same frame and
+    /// about the same aspect (the divergences [`groups`] puts together).
+    fn same_operation(&self, other: &Divergence) -> bool {
+        self.seq == other.seq
+            && self.replay_seq == other.replay_seq
+            && self.op.is_some()
+            && self.op == other.op
+            && self.aspect == other.aspect
+    }
+}
+
+impl fmt::Display for Divergence {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        self.write_frame(f)?;
         if let Some(op) = self.op {
             write!(f, " op {op}")?;
         }
         if let Some(b) = self.byte {
             write!(f, " byte {b}")?;
         }
-        let what = match self.aspect {
-            Aspect::Ack => "ACK",
-            Aspect::Data => "data",
-            Aspect::Result => "result",
-        };
-        write!(f, ": {what} expected {}, got {}", self.expected, self.actual)?;
-        if let Some(o) = &self.origin {
-            write!(f, "  at {o}")?;
+        write!(f, ": {} expected {}, got {}", self.aspect.name(), self.expected, self.actual)?;
+        self.write_origin(f)
+    }
+}
+
+/// The divergences of one operation, for a person to read: consecutive
+/// divergences about the same operation of the same frame and the same
+/// aspect (the ACKs of its written bytes, or its read bytes). A frame's
+/// result is a group of its own. Divergences come from [`compare`] in
+/// frame, operation and byte order, so a group is a run of them.
+pub fn groups(divergences: &[Divergence]) -> impl Iterator<Item = &[Divergence]> {
+    divergences.chunk_by(|a, b| a.same_operation(b))
+}
+
+/// The heading of a group of divergences (see [`groups`]):
+/// `frame #15 (0x50) op 1: 48 data bytes differ  at eeprom.lua:33`; a
+/// group of one is the divergence itself.
+pub struct Heading<'a>(pub &'a [Divergence]);
+
+impl fmt::Display for Heading<'_> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.0 {
+            [] => Ok(()),
+            [one] => one.fmt(f),
+            [first, ..] => {
+                first.write_frame(f)?;
+                if let Some(op) = first.op {
+                    write!(f, " op {op}")?;
+                }
+                let what = match first.aspect {
+                    Aspect::Ack => "ACKs differ",
+                    _ => "read bytes differ",
+                };
+                write!(f, ": {} {what}", self.0.len())?;
+                first.write_origin(f)
+            }
         }
-        Ok(())
     }
 }
 
@@ -133,22 +234,6 @@ impl Sink for LastFrame {
     }
 }
 
-fn ack_text(a: Option<&bool>) -> String {
-    match a {
-        Some(true) => "ACK".into(),
-        Some(false) => "NACK".into(),
-        None => "not sent".into(),
-    }
-}
-
-fn byte_text(b: Option<&u8>) -> String {
-    b.map_or_else(|| "none".into(), |v| format!("0x{v:02X}"))
-}
-
-fn result_text(f: Option<FaultClass>) -> String {
-    f.map_or_else(|| "ok".into(), FaultClass::label)
-}
-
 /// Compares a replayed outcome with a recorded frame; returns the
 /// differences and the number of differing read bytes masks hid.
 pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Masks) -> (Vec<Divergence>, u64) {
@@ -156,7 +241,7 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
     let mut masked = 0;
     let fm = masks.for_frame(expected);
     let mut read_index = 0;
-    let div = |aspect, op, byte, e: String, a: String| Divergence {
+    let div = |aspect, op, byte, e: Seen, a: Seen| Divergence {
         seq: expected.seq,
         replay_seq,
         address: expected.address,
@@ -176,7 +261,13 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
             Operation::Write(_) => {
                 for j in 0..e.acks.len().max(a.acks.len()) {
                     if e.acks.get(j) != a.acks.get(j) {
-                        out.push(div(Aspect::Ack, Some(i), Some(j), ack_text(e.acks.get(j)), ack_text(a.acks.get(j))));
+                        out.push(div(
+                            Aspect::Ack,
+                            Some(i),
+                            Some(j),
+                            Seen::Ack(e.acks.get(j).copied()),
+                            Seen::Ack(a.acks.get(j).copied()),
+                        ));
                     }
                 }
             }
@@ -188,7 +279,13 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
                         if fm.hides(read_index + j) {
                             masked += 1;
                         } else {
-                            out.push(div(Aspect::Data, Some(i), Some(j), byte_text(x), byte_text(y)));
+                            out.push(div(
+                                Aspect::Data,
+                                Some(i),
+                                Some(j),
+                                Seen::Byte(x.copied()),
+                                Seen::Byte(y.copied()),
+                            ));
                         }
                     }
                 }
@@ -198,7 +295,7 @@ pub fn compare(expected: &Frame, actual: &Outcome, replay_seq: u64, masks: &Mask
     }
     let (er, ar) = (expected.outcome.fault.as_ref().map(Fault::class), actual.fault.as_ref().map(Fault::class));
     if er != ar {
-        out.push(div(Aspect::Result, None, None, result_text(er), result_text(ar)));
+        out.push(div(Aspect::Result, None, None, Seen::Result(er), Seen::Result(ar)));
     }
     (out, masked)
 }
@@ -340,5 +437,88 @@ pub fn check_scale(f: f64) -> Result<f64, String> {
         Ok(f)
     } else {
         Err(format!("time scale must be 0-1000, got {f}"))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bus::{Address, OpOutcome};
+
+    fn recorded(read: Vec<u8>, acks: Vec<bool>) -> Frame {
+        Frame {
+            seq: 15,
+            t: Duration::ZERO,
+            address: Address::Seven(0x50),
+            ops: vec![Operation::Write(vec![0x00, 0x10, 0x20]), Operation::Read(read.len())],
+            outcome: Outcome {
+                ops: vec![OpOutcome { acks, data: vec![] }, OpOutcome { acks: vec![], data: read }],
+                bus_time: Duration::ZERO,
+                measured: None,
+                fault: None,
+            },
+            attempt: 1,
+            attempts: 1,
+            purpose: None,
+            origin: Some(Origin { file: "ee.lua".into(), line: 33 }),
+            decoded: None,
+            pec: None,
+        }
+    }
+
+    // What counts as a divergence is unchanged (one per byte, in order);
+    // the groups only put those of one operation and aspect together.
+    #[test]
+    fn divergences_are_grouped_per_operation_and_aspect() {
+        let f = recorded(vec![1, 2, 3, 4], vec![true, true, true]);
+        let replayed = Outcome {
+            ops: vec![
+                OpOutcome { acks: vec![true, false], data: vec![] },
+                OpOutcome { acks: vec![], data: vec![9, 2, 9] },
+            ],
+            bus_time: Duration::ZERO,
+            measured: None,
+            fault: Some(Fault::DataNack { op: 0, index: 1 }),
+        };
+        let (divs, masked) = compare(&f, &replayed, 40, &Masks::default());
+        assert_eq!(masked, 0);
+        let kinds: Vec<_> = divs.iter().map(|d| (d.aspect.clone(), d.op, d.byte)).collect();
+        assert_eq!(
+            kinds,
+            [
+                (Aspect::Ack, Some(0), Some(1)),
+                (Aspect::Ack, Some(0), Some(2)),
+                (Aspect::Data, Some(1), Some(0)),
+                (Aspect::Data, Some(1), Some(2)),
+                (Aspect::Data, Some(1), Some(3)),
+                (Aspect::Result, None, None),
+            ]
+        );
+        let groups: Vec<_> = groups(&divs).collect();
+        assert_eq!(groups.iter().map(|g| g.len()).collect::<Vec<_>>(), [2, 3, 1]);
+        assert_eq!(Heading(groups[0]).to_string(), "frame #15 (0x50) op 0: 2 ACKs differ  at ee.lua:33");
+        assert_eq!(Heading(groups[1]).to_string(), "frame #15 (0x50) op 1: 3 read bytes differ  at ee.lua:33");
+        // A group of one is the divergence's own line, as it always was.
+        assert_eq!(
+            Heading(groups[2]).to_string(),
+            "frame #15 (0x50): result expected ok, got data-NACK@1  at ee.lua:33"
+        );
+        let cells: Vec<_> = groups[0].iter().map(|d| (d.expected.cell(), d.actual.cell())).collect();
+        assert_eq!(cells, [(" A".to_string(), " N".to_string()), (" A".into(), " -".into())]);
+        assert_eq!(groups[1][2].actual.cell(), "--", "a byte the replay never read");
+        assert_eq!(groups[1][2].actual.to_string(), "none");
+    }
+
+    // Two frames in a row that differ in the same operation stay apart.
+    #[test]
+    fn groups_never_span_frames() {
+        let f = recorded(vec![1], vec![true, true, true]);
+        let mut other = Outcome { ops: f.outcome.ops.clone(), ..f.outcome.clone() };
+        other.ops[1].data[0] = 7;
+        let (mut divs, _) = compare(&f, &other, 1, &Masks::default());
+        let mut g = f.clone();
+        g.seq = 16;
+        divs.extend(compare(&g, &other, 2, &Masks::default()).0);
+        assert_eq!(groups(&divs).count(), 2);
     }
 }
