@@ -139,6 +139,30 @@ pub fn push_escaped(out: &mut String, s: &str) {
     out.push_str(&s[plain_from..]);
 }
 
+/// The last text an escaper made of a shared string, kept so that a run
+/// naming the same script file in every frame escapes it once, not once
+/// per frame. Keyed by the string's allocation (`Arc::ptr_eq`): the memo
+/// holds a clone, so the allocation cannot be freed and reused for other
+/// text while it is the key.
+#[derive(Debug, Default)]
+pub struct EscapeMemo {
+    key: Option<std::sync::Arc<str>>,
+    text: String,
+}
+
+impl EscapeMemo {
+    /// The escaped form of `key`, made by `escape` when `key` is not the
+    /// string it was last asked about.
+    pub fn get(&mut self, key: &std::sync::Arc<str>, escape: impl FnOnce(&str, &mut String)) -> &str {
+        if !self.key.as_ref().is_some_and(|k| std::sync::Arc::ptr_eq(k, key)) {
+            self.text.clear();
+            escape(key, &mut self.text);
+            self.key = Some(key.clone());
+        }
+        &self.text
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -12,14 +12,21 @@
 //! two cannot drift where it matters least to be fast. The property test
 //! below checks the whole frame against serde_json byte for byte.
 
+use crate::ascii::EscapeMemo;
 use crate::bus::{OpOutcome, Operation};
 
 use super::{Frame, Origin, Record};
 
 /// Appends `record` as one JSON line, newline included.
 pub fn write_line(record: &Record, out: &mut Vec<u8>) {
+    write_line_with(record, out, &mut EscapeMemo::default());
+}
+
+/// [`write_line`] for a writer of many lines: `files` keeps the script
+/// file name as last written, so a run's frames escape it once.
+pub fn write_line_with(record: &Record, out: &mut Vec<u8>, files: &mut EscapeMemo) {
     match record {
-        Record::Frame(f) => frame(f, out),
+        Record::Frame(f) => frame(f, out, files),
         // Writing to a Vec cannot fail, and every record type serializes
         // (no maps with non-string keys, no failing Serialize impls).
         other => serde_with(other, out),
@@ -31,7 +38,7 @@ fn serde_with<T: serde::Serialize + ?Sized>(value: &T, out: &mut Vec<u8>) {
     let _ = serde_json::to_writer(out, value);
 }
 
-fn frame(f: &Frame, out: &mut Vec<u8>) {
+fn frame(f: &Frame, out: &mut Vec<u8>, files: &mut EscapeMemo) {
     out.extend_from_slice(b"{\"kind\":\"frame\",\"seq\":");
     number(f.seq, out);
     out.extend_from_slice(b",\"t_ns\":");
@@ -72,7 +79,7 @@ fn frame(f: &Frame, out: &mut Vec<u8>) {
     }
     if let Some(Origin { file, line }) = &f.origin {
         out.extend_from_slice(b",\"origin\":{\"file\":");
-        string(file, out);
+        out.extend_from_slice(files.get(file, push_string).as_bytes());
         out.extend_from_slice(b",\"line\":");
         number(*line as u64, out);
         out.push(b'}');
@@ -194,6 +201,14 @@ const ESCAPED: [bool; 256] = {
 
 const HEX: [u8; 16] = *b"0123456789abcdef";
 
+/// [`string`] into a `String` (what an [`EscapeMemo`] keeps).
+fn push_string(s: &str, out: &mut String) {
+    let mut bytes = Vec::with_capacity(s.len() + 2);
+    string(s, &mut bytes);
+    // JSON escaping keeps valid UTF-8 valid (it only adds ASCII).
+    out.push_str(&String::from_utf8_lossy(&bytes));
+}
+
 #[cfg(test)]
 mod tests {
     use std::sync::Arc;
@@ -309,6 +324,25 @@ mod tests {
         fn frames_are_the_bytes_serde_writes(f in any_frame()) {
             let r = Record::Frame(f);
             prop_assert_eq!(String::from_utf8(ours(&r)).unwrap(), String::from_utf8(serde_line(&r)).unwrap());
+        }
+    }
+
+    proptest! {
+        // One writer, many frames: the memo of the script file name must
+        // follow the frames' files, whatever order they come in.
+        #[test]
+        fn frames_through_one_writer_are_the_bytes_serde_writes(fs in proptest::collection::vec(any_frame(), 1..6), shared in any::<bool>()) {
+            let mut memo = EscapeMemo::default();
+            let same: Arc<str> = Arc::from("a\"b.lua");
+            for mut f in fs {
+                if shared && let Some(o) = &mut f.origin {
+                    o.file = same.clone();
+                }
+                let r = Record::Frame(f);
+                let mut v = Vec::new();
+                write_line_with(&r, &mut v, &mut memo);
+                prop_assert_eq!(String::from_utf8(v).unwrap(), String::from_utf8(serde_line(&r)).unwrap());
+            }
         }
     }
 

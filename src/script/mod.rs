@@ -147,66 +147,82 @@ fn script_frames(lua: &Lua, max: usize) -> Vec<Origin> {
 
 /// Hands the script's own stack frames, innermost first, to `each` until
 /// it returns false.
+///
+/// Every transaction asks this of its caller's frame, so it reads the
+/// stack through Lua's own debug interface in one call per frame
+/// (`lua_getinfo` with `"Sl"`) instead of mlua's per-field accessors, and
+/// keeps the file names it made ([`KNOWN_SOURCES`]): which file a frame
+/// belongs to depends only on its chunk's source name, so a hit costs a
+/// compare of that name, not a new string.
 fn walk_script_frames(lua: &Lua, mut each: impl FnMut(Origin) -> bool) {
-    // Level 0 is the running function: the Rust callback or message
-    // handler that asked, never the script.
-    for level in 1..64 {
-        let Some(frame) = lua.inspect_stack(level, |d| {
-            let Some(file) = script_file(lua, d) else { return Some(None) };
-            let line = d.current_line()?;
-            Some(Some(Origin { file, line: line as u32 }))
-        }) else {
-            break;
-        };
-        if let Some(Some(o)) = frame
-            && !each(o)
-        {
-            break;
+    lua.exec_raw_lua(|raw| {
+        let state = raw.state();
+        // Level 0 is the running function: the Rust callback or message
+        // handler that asked, never the script.
+        for level in 1..64 {
+            // SAFETY: `state` is the running state, held locked by
+            // `exec_raw_lua` for this call; `lua_getstack` and
+            // `lua_getinfo` with "Sl" only read its stack (they neither
+            // raise errors nor allocate), and the strings they point the
+            // record at live as long as the frame's function, which is on
+            // the stack for the whole of this loop body.
+            unsafe {
+                let mut ar: mlua::ffi::lua_Debug = std::mem::zeroed();
+                if mlua::ffi::lua_getstack(state, level, &mut ar) == 0
+                    || mlua::ffi::lua_getinfo(state, c"Sl".as_ptr(), &mut ar) == 0
+                {
+                    break;
+                }
+                let c_function = !ar.what.is_null() && *ar.what == b'C' as std::ffi::c_char;
+                if c_function || ar.source.is_null() || ar.currentline < 0 {
+                    continue;
+                }
+                let source = std::slice::from_raw_parts(ar.source.cast::<u8>(), ar.srclen);
+                if source.starts_with(INTERNAL_CHUNK.as_bytes()) {
+                    continue;
+                }
+                let file = known_file(source, || {
+                    std::ffi::CStr::from_ptr(ar.short_src.as_ptr()).to_string_lossy().into_owned()
+                });
+                if !each(Origin { file, line: ar.currentline as u32 }) {
+                    break;
+                }
+            }
         }
-    }
+    })
 }
 
-/// The functions stack frames ran lately and what each is: a script's
-/// (with its file name) or not (`None`: a C function or the tool's own
-/// Lua). Every transaction asks this of its caller's frame, and the answer
-/// is a property of the function, so it is worked out once per function
-/// instead of decoding the frame's source strings each time. The entries
-/// hold the functions themselves, so none can be collected and its address
-/// reused while it is listed. Kept as the Lua state's app data.
-#[derive(Default)]
-struct KnownFunctions {
-    /// Newest first, at most [`KNOWN_FUNCTIONS`].
-    seen: Vec<(mlua::Function, Option<Arc<str>>)>,
+/// Script chunks seen lately, newest first, with their file names: at
+/// most [`KNOWN_SOURCES`], enough for a script calling the bus from a
+/// few modules (a miss only costs the slow path). The answer depends on
+/// the source name alone, so one list serves every Lua state of the
+/// thread.
+const KNOWN_SOURCES: usize = 8;
+
+/// A chunk's source name and the file name made of it.
+type KnownSource = (Box<[u8]>, Arc<str>);
+
+thread_local! {
+    static KNOWN: std::cell::RefCell<Vec<KnownSource>> = const { std::cell::RefCell::new(Vec::new()) };
 }
 
-/// Enough for a script calling the bus from a few functions and modules;
-/// a miss only costs the slow path.
-const KNOWN_FUNCTIONS: usize = 8;
-
-/// The file a frame's function belongs to, if it is a script's.
-fn script_file(lua: &Lua, d: &mlua::Debug) -> Option<Arc<str>> {
-    let f = d.function();
-    let p = f.to_pointer();
-    // try_: never a panic if the cache is in use (it is not re-entered).
-    let mut known = lua.try_app_data_mut::<KnownFunctions>().ok().flatten();
-    if let Some(k) = known.as_mut()
-        && let Some(i) = k.seen.iter().position(|(g, _)| g.to_pointer() == p)
-    {
-        if i > 0 {
-            let hit = k.seen.remove(i);
-            k.seen.insert(0, hit);
+/// The file name of the script chunk named `source`, made by `name` the
+/// first time.
+fn known_file(source: &[u8], name: impl FnOnce() -> String) -> Arc<str> {
+    KNOWN.with(|k| {
+        let mut k = k.borrow_mut();
+        if let Some(i) = k.iter().position(|(s, _)| &**s == source) {
+            if i > 0 {
+                let hit = k.remove(i);
+                k.insert(0, hit);
+            }
+            return k[0].1.clone();
         }
-        return k.seen[0].1.clone();
-    }
-    let s = d.source();
-    let internal = s.source.as_deref().is_some_and(|src| src.starts_with(INTERNAL_CHUNK));
-    let file: Option<Arc<str>> =
-        if s.what == "C" || internal { None } else { Some(Arc::from(s.short_src.as_deref().unwrap_or("?"))) };
-    if let Some(k) = known.as_mut() {
-        k.seen.truncate(KNOWN_FUNCTIONS - 1);
-        k.seen.insert(0, (f, file.clone()));
-    }
-    file
+        let file: Arc<str> = Arc::from(name());
+        k.truncate(KNOWN_SOURCES - 1);
+        k.insert(0, (source.into(), file.clone()));
+        file
+    })
 }
 
 /// Finds the [`Abort`] inside whatever error Lua hands back.
@@ -317,7 +333,6 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
         Ok(())
     };
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
-    lua.set_app_data(KnownFunctions::default());
     lua.set_app_data(cap::Cuts::default());
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
     // The session holds the run's deadline, so waits on the Rust side

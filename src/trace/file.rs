@@ -38,7 +38,8 @@ use thiserror::Error;
 
 use super::append::Appender;
 use super::header::{FORMAT, Header, VERSION_MAJOR, VERSION_MINOR};
-use crate::record::{Record, Sink, Stats, write_line};
+use crate::ascii::EscapeMemo;
+use crate::record::{Record, Sink, Stats, write_line, write_line_with};
 
 /// Why a trace cannot be read.
 #[derive(Debug, Error)]
@@ -84,6 +85,8 @@ pub struct TraceWriter {
     shared: Arc<Mutex<Written>>,
     path: PathBuf,
     line: Vec<u8>,
+    /// The script file name as last written.
+    files: EscapeMemo,
 }
 
 /// The file and what has gone into it, shared with [`TraceRescue`].
@@ -180,6 +183,7 @@ impl TraceWriter {
             shared: Arc::new(Mutex::new(written)),
             path: path.to_path_buf(),
             line: Vec::with_capacity(512),
+            files: EscapeMemo::default(),
         };
         w.line.clear();
         serde_json::to_writer(&mut w.line, header)?;
@@ -219,7 +223,7 @@ impl TraceWriter {
 impl Sink for TraceWriter {
     fn record(&mut self, r: &Record) -> io::Result<()> {
         self.line.clear();
-        write_line(r, &mut self.line);
+        write_line_with(r, &mut self.line, &mut self.files);
         let mut w = lock(&self.shared);
         if w.ended {
             return Ok(());

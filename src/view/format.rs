@@ -39,7 +39,9 @@ use std::fmt::Write as _;
 use std::sync::Arc;
 use std::time::Duration;
 
-use crate::ascii::{escape_controls, push_escaped, push_hex_byte as push_hex, push_spaces, push_uint, push_uint_left};
+use crate::ascii::{
+    EscapeMemo, escape_controls, push_escaped, push_hex_byte as push_hex, push_spaces, push_uint, push_uint_left,
+};
 use crate::bus::{Operation, Outcome};
 use crate::record::Frame;
 use crate::record::Stats;
@@ -366,13 +368,14 @@ const BUS_COLUMNS: usize = 7;
 /// One frame as one line, without a trailing newline.
 pub fn frame_line(f: &Frame, layout: &Layout) -> String {
     let mut s = String::with_capacity(128);
-    write_frame_line(&mut s, f, layout);
+    write_frame_line(&mut s, f, layout, &mut EscapeMemo::default());
     s
 }
 
 /// Appends one frame line to `s` (no newline); the frame log reuses one
 /// buffer for every line, so this allocates nothing in the common case.
-pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout) {
+/// `files` keeps the escaped script file name between lines.
+pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout, files: &mut EscapeMemo) {
     let p = Palette::of(layout.colour);
     let start = s.len();
     let mut codes = write_fields(s, f, p, usize::MAX);
@@ -398,7 +401,7 @@ pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout) {
             keep -= 1;
         }
     }
-    push_source(s, start, codes, f, layout, p);
+    push_source(s, start, codes, f, layout, p, files);
 }
 
 /// Writes every field but the script line; returns the bytes of colour
@@ -486,7 +489,15 @@ fn source_columns(f: &Frame, layout: &Layout) -> Option<usize> {
 
 /// The script line, last: in full with no width; fitted, the run's own
 /// script by line number alone, and nothing when it does not fit.
-fn push_source(s: &mut String, start: usize, codes: usize, f: &Frame, layout: &Layout, p: &Palette) {
+fn push_source(
+    s: &mut String,
+    start: usize,
+    codes: usize,
+    f: &Frame,
+    layout: &Layout,
+    p: &Palette,
+    files: &mut EscapeMemo,
+) {
     let Some(o) = &f.origin else { return };
     if let Some(width) = layout.width
         && columns(s, start, codes) + source_columns(f, layout).unwrap_or(0) > width
@@ -496,7 +507,7 @@ fn push_source(s: &mut String, start: usize, codes: usize, f: &Frame, layout: &L
     s.push_str("  ");
     s.push_str(p.dim);
     if !line_only(o, layout) {
-        push_escaped(s, &o.file);
+        s.push_str(files.get(&o.file, |f, out| push_escaped(out, f)));
     }
     s.push(':');
     push_uint(s, o.line as u64, 1);

@@ -2,6 +2,7 @@
 
 use std::io::{self, Write};
 
+use crate::ascii::EscapeMemo;
 use crate::record::Level;
 use crate::record::{Record, Sink};
 
@@ -14,6 +15,8 @@ pub struct PlainLog<W: Write> {
     layout: Layout,
     /// Print only log lines and steps, not frames (`--quiet`).
     frames: bool,
+    /// The script file name as last escaped.
+    files: EscapeMemo,
 }
 
 impl<W: Write> PlainLog<W> {
@@ -23,7 +26,7 @@ impl<W: Write> PlainLog<W> {
     }
 
     pub fn with_layout(out: W, layout: Layout, frames: bool) -> Self {
-        PlainLog { out, line: String::with_capacity(256), layout, frames }
+        PlainLog { out, line: String::with_capacity(256), layout, frames, files: EscapeMemo::default() }
     }
 }
 
@@ -32,7 +35,7 @@ impl<W: Write> Sink for PlainLog<W> {
         match r {
             Record::Frame(f) if self.frames => {
                 self.line.clear();
-                write_frame_line(&mut self.line, f, &self.layout);
+                write_frame_line(&mut self.line, f, &self.layout, &mut self.files);
                 self.line.push('\n');
                 self.out.write_all(self.line.as_bytes())
             }
