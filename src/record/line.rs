@@ -10,7 +10,8 @@
 //! of the recording path together. Every other record, and the rare parts
 //! of a frame (a fault, a PEC mark), go through serde_json itself, so the
 //! two cannot drift where it matters least to be fast. The property test
-//! below checks the whole frame against serde_json byte for byte.
+//! `frame_lines_are_the_bytes_serde_writes` (tests/traces.rs) checks whole
+//! frames against serde_json byte for byte.
 
 use crate::ascii::EscapeMemo;
 use crate::bus::{OpOutcome, Operation};
@@ -211,14 +212,10 @@ fn push_string(s: &str, out: &mut String) {
 
 #[cfg(test)]
 mod tests {
-    use std::sync::Arc;
     use std::time::Duration;
 
-    use proptest::prelude::*;
-
     use super::*;
-    use crate::bus::{Address, Direction, Fault, LineFault, Outcome};
-    use crate::record::{Level, PecMark, Purpose, Stats};
+    use crate::record::{Level, Stats};
 
     fn serde_line(r: &Record) -> Vec<u8> {
         let mut v = serde_json::to_vec(r).unwrap();
@@ -226,125 +223,8 @@ mod tests {
         v
     }
 
-    fn ours(r: &Record) -> Vec<u8> {
-        let mut v = Vec::new();
-        write_line(r, &mut v);
-        v
-    }
-
-    fn any_text() -> impl Strategy<Value = String> {
-        // Every control character, quotes, backslashes, DEL, non-ASCII.
-        prop_oneof![
-            proptest::collection::vec(any::<char>(), 0..12).prop_map(|c| c.into_iter().collect()),
-            proptest::collection::vec(0u8..0x80, 0..12).prop_map(|b| b.into_iter().map(char::from).collect()),
-            Just(String::new()),
-        ]
-    }
-
-    fn any_address() -> impl Strategy<Value = Address> {
-        prop_oneof![(0u8..=0x7F).prop_map(Address::Seven), (0u16..=0x3FF).prop_map(Address::Ten)]
-    }
-
-    fn any_op() -> impl Strategy<Value = Operation> {
-        prop_oneof![
-            proptest::collection::vec(any::<u8>(), 0..6).prop_map(Operation::Write),
-            (0usize..300).prop_map(Operation::Read),
-            (0usize..256, 0usize..3).prop_map(|(max, trailer)| Operation::ReadCounted { max, trailer }),
-        ]
-    }
-
-    fn any_op_outcome() -> impl Strategy<Value = OpOutcome> {
-        (proptest::collection::vec(any::<bool>(), 0..4), proptest::collection::vec(any::<u8>(), 0..4))
-            .prop_map(|(acks, data)| OpOutcome { acks, data })
-    }
-
-    fn any_fault() -> impl Strategy<Value = Fault> {
-        prop_oneof![
-            (0usize..4).prop_map(|op| Fault::AddressNack { op, direction: Direction::Read }),
-            (0usize..4, 0usize..9).prop_map(|(op, index)| Fault::DataNack { op, index }),
-            Just(Fault::ArbitrationLost),
-            Just(Fault::Bus { line: LineFault::SdaStuckLow }),
-            any::<u64>().prop_map(|waited_us| Fault::StretchTimeout { waited_us }),
-            any_text().prop_map(|detail| Fault::Adapter { detail }),
-        ]
-    }
-
-    fn any_purpose() -> impl Strategy<Value = Purpose> {
-        prop_oneof![
-            Just(Purpose::Scan),
-            Just(Purpose::AckPoll),
-            Just(Purpose::Poll),
-            Just(Purpose::Batch),
-            any_text().prop_map(|t| Purpose::from_name(&t)),
-        ]
-    }
-
-    prop_compose! {
-        fn any_frame()(
-            seq in any::<u64>(),
-            t in any::<u64>(),
-            address in any_address(),
-            ops in proptest::collection::vec(any_op(), 0..4),
-            outcomes in proptest::collection::vec(any_op_outcome(), 0..4),
-            bus in any::<u64>(),
-            measured in proptest::option::of(any::<u64>()),
-            fault in proptest::option::of(any_fault()),
-            attempt in any::<u32>(),
-            attempts in any::<u32>(),
-            purpose in proptest::option::of(any_purpose()),
-            origin in proptest::option::of((any_text(), any::<u32>())),
-            decoded in proptest::option::of(any_text()),
-            pec in proptest::option::of((0usize..3, 0usize..40, any::<u8>(), proptest::option::of(any::<u8>()), any::<bool>())),
-        ) -> Frame {
-            Frame {
-                seq,
-                t: Duration::from_nanos(t),
-                address,
-                ops,
-                outcome: Outcome {
-                    ops: outcomes,
-                    bus_time: Duration::from_nanos(bus),
-                    measured: measured.map(Duration::from_nanos),
-                    fault,
-                },
-                attempt,
-                attempts,
-                purpose,
-                origin: origin.map(|(file, line)| Origin { file: Arc::from(file), line }),
-                decoded,
-                pec: pec.map(|(op, index, expected, received, ok)| PecMark { op, index, expected, received, ok }),
-            }
-        }
-    }
-
-    proptest! {
-        #![proptest_config(ProptestConfig { cases: 2000, ..ProptestConfig::default() })]
-
-        #[test]
-        fn frames_are_the_bytes_serde_writes(f in any_frame()) {
-            let r = Record::Frame(f);
-            prop_assert_eq!(String::from_utf8(ours(&r)).unwrap(), String::from_utf8(serde_line(&r)).unwrap());
-        }
-    }
-
-    proptest! {
-        // One writer, many frames: the memo of the script file name must
-        // follow the frames' files, whatever order they come in.
-        #[test]
-        fn frames_through_one_writer_are_the_bytes_serde_writes(fs in proptest::collection::vec(any_frame(), 1..6), shared in any::<bool>()) {
-            let mut memo = EscapeMemo::default();
-            let same: Arc<str> = Arc::from("a\"b.lua");
-            for mut f in fs {
-                if shared && let Some(o) = &mut f.origin {
-                    o.file = same.clone();
-                }
-                let r = Record::Frame(f);
-                let mut v = Vec::new();
-                write_line_with(&r, &mut v, &mut memo);
-                prop_assert_eq!(String::from_utf8(v).unwrap(), String::from_utf8(serde_line(&r)).unwrap());
-            }
-        }
-    }
+    // The frame encoder against serde, byte for byte, over random frames:
+    // tests/traces.rs (`frame_lines_are_the_bytes_serde_writes`).
 
     #[test]
     fn every_character_below_0x80_escapes_as_serde_does() {
@@ -372,7 +252,9 @@ mod tests {
             Record::End { t: Duration::from_nanos(9), stats: Stats::default(), exit: 3, error: Some("e".into()) },
         ];
         for r in &records {
-            assert_eq!(ours(r), serde_line(r));
+            let mut v = Vec::new();
+            write_line(r, &mut v);
+            assert_eq!(v, serde_line(r));
         }
     }
 }
