@@ -58,3 +58,19 @@ fn a_long_value_in_a_bench_error_is_cut() {
     assert!(err.len() < 400, "{} bytes: {}", err.len(), &err[..400.min(err.len())]);
     assert!(err.contains("(100000 characters)"), "{err}");
 }
+
+// A value of the wrong kind is said as the kind the key takes, not as the
+// Rust type that reads it.
+#[test]
+fn a_value_of_the_wrong_kind_names_the_kind_wanted() {
+    for (value, want) in [("-5", "expected a whole number, 0 or more, got `-5`"), ("\"big\"", "got \"big\"")] {
+        let (_d, path) = bench(&format!(
+            "format = \"buscue-bench/1\"\nname = \"t\"\n[[device]]\nname = \"e\"\nmodel = \"eeprom\"\naddress = 0x50\nsize = {value}\n"
+        ));
+        let o = run(&["scan", "--adapter", &format!("sim:{path}")]);
+        assert_eq!(code(&o), 2, "{}", stderr(&o));
+        let err = stderr(&o);
+        assert!(err.contains(&format!("{path}:7: key `size`: ")) && err.contains(want), "{err}");
+        assert!(!err.contains("usize"), "{err}");
+    }
+}

@@ -265,7 +265,39 @@ impl Ctx<'_> {
             }
             _ => key,
         };
-        self.err(device, &key, msg)
+        self.err(device, &key, in_file_terms(&msg))
+    }
+}
+
+/// A serde message said in the terms of the file: serde names the Rust
+/// type it wanted (`expected usize`); a bench or profile author wants the
+/// kind of value (`expected a whole number, 0 or more`).
+fn in_file_terms(msg: &str) -> String {
+    const WANTED: [(&str, &str); 12] = [
+        ("usize", "a whole number, 0 or more"),
+        ("u64", "a whole number, 0 or more"),
+        ("u32", "a whole number from 0 to 4294967295"),
+        ("u16", "a whole number from 0 to 65535"),
+        ("u8", "a whole number from 0 to 255"),
+        ("i64", "a whole number"),
+        ("i32", "a whole number"),
+        ("i16", "a whole number from -32768 to 32767"),
+        ("i8", "a whole number from -128 to 127"),
+        ("f64", "a number"),
+        ("f32", "a number"),
+        ("a boolean", "true or false"),
+    ];
+    let Some((head, wanted)) = msg.rsplit_once(", expected ") else { return msg.to_string() };
+    let wanted = WANTED.iter().find(|(rust, _)| *rust == wanted).map_or(wanted, |(_, said)| said);
+    // `invalid type: string "big"` / `invalid value: integer `-5``: the
+    // value as the file has it.
+    let got = head
+        .strip_prefix("invalid type: ")
+        .or_else(|| head.strip_prefix("invalid value: "))
+        .map(|v| v.replacen("integer ", "", 1).replacen("floating point ", "", 1).replacen("string ", "", 1));
+    match got {
+        Some(v) => format!("expected {wanted}, got {v}"),
+        None => format!("{head}, expected {wanted}"),
     }
 }
 
@@ -562,6 +594,20 @@ mod tests {
         // conversion (lines before the offset) counted as line 2.
         assert_eq!(e.line, Some(3), "{e}");
         assert_eq!(e.key, "");
+    }
+
+    #[test]
+    fn serde_types_are_said_as_kinds_of_value() {
+        assert_eq!(
+            in_file_terms("invalid value: integer `-5`, expected usize"),
+            "expected a whole number, 0 or more, got `-5`"
+        );
+        assert_eq!(
+            in_file_terms("invalid type: string \"big\", expected u8"),
+            "expected a whole number from 0 to 255, got \"big\""
+        );
+        assert_eq!(in_file_terms("invalid type: integer `1`, expected a boolean"), "expected true or false, got `1`");
+        assert_eq!(in_file_terms("missing field `name`"), "missing field `name`");
     }
 
     #[derive(Debug, serde::Deserialize)]
