@@ -40,7 +40,7 @@ fn frame(seq: u64, i: u64, attempt: u32, nack: bool) -> Frame {
     Frame {
         seq,
         t: Duration::from_micros(seq * 400),
-        address: Address::Seven(0x44),
+        address: Address::Seven(0x31),
         ops,
         outcome: Outcome {
             ops: done,

@@ -4,7 +4,7 @@
 //! microcontroller. Here it runs from a PC through buscue's bus handle.
 //!
 //!   cargo run --example climate_driver
-//!   cargo run --example climate_driver -- --address 0x45 --samples 3 --frames
+//!   cargo run --example climate_driver -- --address 0x35 --samples 3 --frames
 //!   cargo run --example climate_driver -- --adapter dialect:stepwise@/dev/pts/3
 
 use embedded_hal::i2c::{Error, ErrorKind, I2c, NoAcknowledgeSource};
@@ -133,7 +133,7 @@ fn run() -> anyhow::Result<()> {
     use buscue::player::Session;
     use buscue::view::plain::PlainLog;
 
-    let (mut adapter, mut address, mut samples, mut frames) = ("sim".to_string(), 0x44u8, 2u32, false);
+    let (mut adapter, mut address, mut samples, mut frames) = ("sim".to_string(), 0x31u8, 2u32, false);
     let mut args = std::env::args().skip(1);
     while let Some(a) = args.next() {
         let mut value = || args.next().with_context(|| format!("{a} needs a value"));
@@ -184,19 +184,19 @@ mod tests {
     fn measures_both_demo_sensors() {
         // The canopy sensor stretches the clock while converting; the
         // outdoor one NACKs its address (src/sim/climate.rs).
-        let mut canopy = ClimateSensor::new(bus(), 0x44).unwrap();
+        let mut canopy = ClimateSensor::new(bus(), 0x31).unwrap();
         let s = canopy.measure(1).unwrap();
         assert!((1500..3500).contains(&s.centi_celsius), "greenhouse air: {s:?}");
         assert!(s.centi_percent_rh <= 10_000);
-        let mut outdoor = ClimateSensor::new(canopy.release(), 0x45).unwrap();
+        let mut outdoor = ClimateSensor::new(canopy.release(), 0x35).unwrap();
         let s = outdoor.measure(0).unwrap();
         assert!(s.centi_celsius < 0, "a winter night reads below zero: {s:?}");
     }
 
     #[test]
     fn a_device_that_is_not_ours_is_refused() {
-        // 0x29 is the light sensor: its ID register reads something else.
-        assert!(matches!(ClimateSensor::new(bus(), 0x29), Err(DriverError::WrongId(_))));
+        // 0x2B is the light sensor: its ID register reads something else.
+        assert!(matches!(ClimateSensor::new(bus(), 0x2B), Err(DriverError::WrongId(_))));
         assert!(matches!(ClimateSensor::new(bus(), 0x13), Err(DriverError::Bus(_))));
     }
 }

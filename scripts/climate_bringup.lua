@@ -3,8 +3,8 @@
 --   buscue run scripts/climate_bringup.lua --set samples=5 --set averaging=3
 
 local map = require("maps.climate")
-local canopy = bus.device(0x44, { width = 16, map = map })
-local outdoor = bus.device(0x45, { width = 16, map = map })
+local canopy = bus.device(0x31, { width = 16, map = map })
+local outdoor = bus.device(0x35, { width = 16, map = map })
 
 step("identify")
 check_eq(canopy:get("ID"), 0x5E11, "canopy sensor ID")
@@ -32,7 +32,7 @@ step("measure outdoor")
 -- The outdoor probe NACKs its address while it converts: ACK polling
 -- tells when the result is ready.
 outdoor:set("CONTROL", 0x0001)
-local waited = bus.wait_ack(0x45, { timeout_ms = 20 })
+local waited = bus.wait_ack(0x35, { timeout_ms = 20 })
 local raw = outdoor:get("TEMPERATURE")
 local t = signed(raw) / 100
 check(t < 0, "a winter night should read below zero")

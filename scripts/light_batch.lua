@@ -3,7 +3,7 @@
 -- block travels as one request; results arrive when the block ends.
 --   buscue run scripts/light_batch.lua --set readings=8
 
-local LIGHT = 0x29          -- little-endian 16-bit registers
+local LIGHT = 0x2B          -- little-endian 16-bit registers
 local n = param("readings", 4)
 
 step("configure and read in one batch")
@@ -25,7 +25,7 @@ end
 step("an identity check per device, batched")
 local ids = bus.batch(function(b)
   b:write_read(LIGHT, 0x00, 2)
-  b:write_read(0x3C, 0x00, 1)                   -- the vent controller NACKs now and then:
+  b:write_read(0x11, 0x00, 1)                   -- the vent controller NACKs now and then:
 end)                                            -- retried on its own after the batch
 check_eq(ids[1], { 0x5A, 0x1C }, "light sensor ID")
 check_eq(ids[2], { 0xA7 }, "vent controller ID")

@@ -3,7 +3,7 @@
 -- a frame in the log.
 
 bus.retry({ attempts = param("attempts", 6), delay_ms = 2, backoff = 2 })
-local vent = bus.device(0x3C)
+local vent = bus.device(0x11)
 
 step("identify")
 check_eq(vent:get(0x00), 0xA7, "vent controller ID")

@@ -159,9 +159,9 @@ mod tests {
         let mut b = bus();
         b.session().add_sink(Box::new(Count(seen.clone())));
         let mut id = [0u8; 2];
-        b.write_read(0x44u8, &[0x00], &mut id).unwrap();
+        b.write_read(0x31u8, &[0x00], &mut id).unwrap();
         assert_eq!(u16::from_be_bytes(id), crate::sim::climate::ID);
-        assert_eq!(*seen.borrow(), vec![(Address::Seven(0x44), vec![Operation::Write(vec![0]), Operation::Read(2)])]);
+        assert_eq!(*seen.borrow(), vec![(Address::Seven(0x31), vec![Operation::Write(vec![0]), Operation::Read(2)])]);
     }
 
     #[test]
@@ -176,7 +176,7 @@ mod tests {
             i2c::Operation::Read(&mut a),
             i2c::Operation::Read(&mut c),
         ];
-        b.transaction(0x44u8, &mut ops).unwrap();
+        b.transaction(0x31u8, &mut ops).unwrap();
         let want = vec![Operation::Write(vec![0]), Operation::Write(vec![]), Operation::Read(1), Operation::Read(1)];
         assert_eq!(seen.borrow()[0].1, want);
         assert_eq!(u16::from_be_bytes([a[0], c[0]]), crate::sim::climate::ID);
@@ -197,10 +197,10 @@ mod tests {
         assert_eq!(e.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address));
         // CONTROL of the climate sensor is writable, ID is not: the data
         // byte after the pointer is NACKed.
-        let e = b.write(0x44u8, &[0x00, 0x12]).unwrap_err();
+        let e = b.write(0x31u8, &[0x00, 0x12]).unwrap_err();
         assert_eq!(e.kind(), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data));
         assert_eq!(b.write(0x80u8, &[0]).unwrap_err().kind(), ErrorKind::Other);
         assert_eq!(b.write(0x00u8, &[0x06]).unwrap_err().kind(), ErrorKind::Other, "general call needs allow_reserved");
-        assert_eq!(b.read(0x44u8, &mut []).unwrap_err().kind(), ErrorKind::Other);
+        assert_eq!(b.read(0x31u8, &mut []).unwrap_err().kind(), ErrorKind::Other);
     }
 }

@@ -25,7 +25,7 @@ fn frame_log_shows_direction_address_bytes_and_script_line() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let out = stdout(&o);
     let first = out.lines().find(|l| l.contains("#1 ")).expect("frame #1");
-    assert!(first.contains("0x44"), "{first}");
+    assert!(first.contains("0x31"), "{first}");
     assert!(first.contains("W 00 | R 5E 11"), "{first}");
     assert!(first.contains(" ok "), "{first}");
     assert!(first.ends_with("scripts/climate_bringup.lua:10"), "{first}");
@@ -48,7 +48,7 @@ fn json_lines_are_records_with_an_end() {
     let recs = records(&o);
     assert!(recs.iter().any(|r| r["kind"] == "step"));
     let f = frames(&o);
-    assert_eq!(f[0]["address"], "0x3C");
+    assert_eq!(f[0]["address"], "0x11");
     assert_eq!(f[0]["ops"][0]["write"], serde_json::json!([0]));
     assert_eq!(f[0]["ops"][1]["read"], 1);
     assert_eq!(f[0]["outcome"]["ops"][1]["data"], serde_json::json!([0xA7]));
@@ -95,7 +95,7 @@ fn scan_lists_the_demo_board_and_skips_reserved() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let out = stdout(&o);
     assert!(out.starts_with("probed 112 addresses at 100 kHz"), "{out}");
-    for a in ["0x0B", "0x29", "0x3C", "0x44", "0x45", "0x50"] {
+    for a in ["0x0B", "0x11", "0x2B", "0x31", "0x35", "0x50"] {
         assert!(out.contains(&format!("  {a} ")), "{a} missing:\n{out}");
     }
     assert!(out.contains("6 answered"), "{out}");
@@ -160,7 +160,7 @@ fn broken_pipe_is_quiet() {
 #[test]
 fn ctrl_c_stops_after_the_current_transaction() {
     use std::process::Stdio;
-    let (_d, path) = script("long.lua", "local d = bus.device(0x44)\nwhile true do d:get(0) sleep_ms(20) end\n");
+    let (_d, path) = script("long.lua", "local d = bus.device(0x31)\nwhile true do d:get(0) sleep_ms(20) end\n");
     let mut child = buscue()
         .args(["run", path.to_str().unwrap(), "--realtime", "--json"])
         .stdout(Stdio::piped())
@@ -247,7 +247,7 @@ fn an_error_is_said_once() {
 fn bus_stats_counts_probe_nacks_apart() {
     let o = run_script(
         "local found = bus.scan()\n\
-         bus.wait_ack(0x45, {timeout_ms = 50})\n\
+         bus.wait_ack(0x35, {timeout_ms = 50})\n\
          pcall(bus.read, 0x33, 1, {retry = 2})\n\
          local s = bus.stats()\n\
          check_eq(#found, 6, 'answering devices')\n\

@@ -215,7 +215,7 @@ stretch_timeout_ms = 1
 [[device]]
 name = "slow-climate"
 model = "climate-sensor"
-address = 0x44
+address = 0x31
 busy = "stretch"
 temperature_c = { base = 20.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 1 }
 humidity_pct = { base = 50.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 2 }
@@ -223,7 +223,7 @@ humidity_pct = { base = 50.0, swing = 0.0, period_s = 60, noise = 0.0, seed = 2 
     )
     .expect("write bench");
     let script = dir.path().join("stretch.lua");
-    std::fs::write(&script, "local s = bus.device(0x44, { width = 16 })\ns:set(0x01, 0x0007)\ns:get(0x03)\n")
+    std::fs::write(&script, "local s = bus.device(0x31, { width = 16 })\ns:set(0x01, 0x0007)\ns:get(0x03)\n")
         .expect("write script");
     let script = script.to_string_lossy().into_owned();
     let bench_arg = bench.to_string_lossy().into_owned();

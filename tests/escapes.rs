@@ -23,7 +23,7 @@ const SHOWN: &str = "\\x1B]0;x\\x07\\x1B[2J\\r\\u{009B}";
 const SCRIPT: &str = r#"
 log("\27]0;x\7\27[2J\r\u{9B}")
 step("step\27[2J")
-local s = bus.device(0x44, { width = 16, map = { ["ID\27[2J"] = { at = 0x00 } } })
+local s = bus.device(0x31, { width = 16, map = { ["ID\27[2J"] = { at = 0x00 } } })
 s:get("ID\27[2J")
 error("boom \27]0;x\7\27[2J\r\u{9B}")
 "#;

@@ -49,7 +49,7 @@ fn bench() -> SimAdapter {
              temperature_c = {{ base = 21.5 }}\nhumidity_pct = {{ base = 40.0 }}\n"
         )
     };
-    let text = format!("{BENCH}{}{}", climate("stretchy", 0x44, "stretch"), climate("nacky", 0x45, "nack"));
+    let text = format!("{BENCH}{}{}", climate("stretchy", 0x31, "stretch"), climate("nacky", 0x35, "nack"));
     SimAdapter::new(Bench::from_str(&text, "fidelity.toml").expect("the test bench is valid"), false)
 }
 
@@ -119,8 +119,8 @@ fn probe_at(a: &mut SimAdapter, address: u8, at: Duration) -> bool {
 // - register read: 1.25 + 4 × 22.5 + 3.8 + 3.85 = 98.9 µs.
 #[test]
 fn bus_time_at_100k_and_400k_matches_a_phase_by_phase_count() {
-    let write1 = tx(seven(0x44), vec![Operation::Write(vec![0x00])]);
-    let reg_read = tx(seven(0x44), vec![Operation::Write(vec![0x00]), Operation::Read(1)]);
+    let write1 = tx(seven(0x31), vec![Operation::Write(vec![0x00])]);
+    let reg_read = tx(seven(0x31), vec![Operation::Write(vec![0x00]), Operation::Read(1)]);
 
     let b = breakdown(&write1, BusSpeed::STANDARD);
     assert_eq!((b.conditions_ns, b.address_ns, b.data_ns), (20_000, 90_000, 90_000));
@@ -199,8 +199,8 @@ fn conversion_started(address: u8) -> SimAdapter {
 // s = 4269 is seen at 4364 µs (busy); s = 4270 at 4365 µs (ready).
 #[test]
 fn a_conversion_starts_when_its_control_write_arrives() {
-    assert!(!probe_at(&mut conversion_started(0x45), 0x45, us(4_269)));
-    assert!(probe_at(&mut conversion_started(0x45), 0x45, us(4_270)));
+    assert!(!probe_at(&mut conversion_started(0x35), 0x35, us(4_269)));
+    assert!(probe_at(&mut conversion_started(0x35), 0x35, us(4_270)));
 }
 
 // The stretching sensor read at once, W 03 | R 2 from 380 µs: START 5
@@ -212,8 +212,8 @@ fn a_conversion_starts_when_its_control_write_arrives() {
 // TEMPERATURE reads 21.50 °C as 2150 = 0x0866 (0.01 °C per count).
 #[test]
 fn a_stretched_read_ends_its_remaining_bytes_after_ready() {
-    let mut a = conversion_started(0x44);
-    let o = a.execute(&tx(seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)]));
+    let mut a = conversion_started(0x31);
+    let o = a.execute(&tx(seven(0x31), vec![Operation::Write(vec![0x03]), Operation::Read(2)]));
     assert!(o.is_ok(), "{:?}", o.fault);
     assert_eq!(o.bus_time, us(4_180));
     assert_eq!(a.now(), us(4_560));
@@ -274,15 +274,15 @@ fn a_write_to_the_ten_bit_prefix_is_a_ten_bit_write_on_the_wire() {
 // the simulator accounted as it went. By hand, at 100 kHz: an address
 // NACK of a 2-byte write is START 5 + 90 + STOP 15 = 110 µs (not the
 // 285 µs of every byte); a data NACK at byte 1 of W 00 01 02 to the
-// read-only ID of 0x44 is 5 + 3 × 90 + 15 = 290 µs.
+// read-only ID of 0x31 is 5 + 3 × 90 + 15 = 290 µs.
 #[test]
 fn time_of_what_crossed_matches_the_simulator() {
     let mut a = bench();
     let cases = [
         (tx(seven(0x13), vec![Operation::Write(vec![1, 2])]), Some(110)),
-        (tx(seven(0x44), vec![Operation::Write(vec![0x00, 0x01, 0x02])]), Some(290)),
+        (tx(seven(0x31), vec![Operation::Write(vec![0x00, 0x01, 0x02])]), Some(290)),
         (tx(seven(0x13), vec![Operation::Write(vec![0x03]), Operation::Read(2)]), None),
-        (tx(seven(0x44), vec![Operation::Write(vec![0x00]), Operation::Read(2)]), None),
+        (tx(seven(0x31), vec![Operation::Write(vec![0x00]), Operation::Read(2)]), None),
         (tx(seven(0x50), vec![Operation::Read(3)]), None),
     ];
     for (t, by_hand) in cases {

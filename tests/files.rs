@@ -19,7 +19,7 @@ fn write_trace(dir: &std::path::Path) -> std::path::PathBuf {
 
 #[test]
 fn no_output_over_an_input() {
-    let (dir, s) = script("victim.lua", "bus.write(0x44, {0x00})\n");
+    let (dir, s) = script("victim.lua", "bus.write(0x31, {0x00})\n");
     let before = std::fs::read(&s).unwrap();
     for force in [false, true] {
         let mut args = vec!["run", s.to_str().unwrap(), "--trace", s.to_str().unwrap()];
@@ -119,7 +119,7 @@ fn a_trace_that_stops_being_written_fails_the_run() {
     let fifo = dir.path().join("t.jsonl");
     let made = std::process::Command::new("mkfifo").arg(&fifo).status().unwrap();
     assert!(made.success());
-    let (_d, s) = script("loop.lua", "local d = bus.device(0x44)\nfor i = 1, 100000 do d:get(0) end\n");
+    let (_d, s) = script("loop.lua", "local d = bus.device(0x31)\nfor i = 1, 100000 do d:get(0) end\n");
     let child = buscue()
         .args(["run", s.to_str().unwrap(), "--json", "--trace", fifo.to_str().unwrap(), "--force"])
         .stdout(Stdio::piped())
@@ -141,7 +141,7 @@ fn a_trace_that_stops_being_written_fails_the_run() {
 
 #[test]
 fn a_trace_that_reaches_its_limit_stops_the_run() {
-    let (dir, s) = script("loop.lua", "local d = bus.device(0x44)\nfor i = 1, 100000 do d:get(0) end\n");
+    let (dir, s) = script("loop.lua", "local d = bus.device(0x31)\nfor i = 1, 100000 do d:get(0) end\n");
     let t = dir.path().join("t.jsonl");
     let o = run(&["run", s.to_str().unwrap(), "-q", "--trace", t.to_str().unwrap(), "--trace-limit", "64K"]);
     assert_eq!(code(&o), 6, "the trace-failure code: {}", stderr(&o));

@@ -52,7 +52,7 @@ fn a_day_long_ack_poll_stops_at_the_limit() {
 fn a_day_long_register_wait_stops_at_the_limit() {
     // The climate sensor's ID register (0x00) never reads 0x0000.
     stops_at_the_limit(
-        "local d = bus.device(0x44, { width = 16 })\n\
+        "local d = bus.device(0x31, { width = 16 })\n\
          d:wait(0x00, 0xFFFF, 0x0000, { timeout_ms = 86400000, interval_ms = 0 })\n",
         &[],
     );
@@ -115,7 +115,7 @@ fn ctrl_c_stops_a_script_stuck_where_the_hook_cannot_see() {
 fn replay_honours_its_time_limit_in_a_long_recorded_gap() {
     // A recording with a ten-minute gap (instant on the virtual clock),
     // replayed in real time under a one-second limit.
-    let (dir, path) = script("gap.lua", "bus.write(0x44, {0x00})\nsleep_ms(600000)\nbus.write(0x44, {0x00})\n");
+    let (dir, path) = script("gap.lua", "bus.write(0x31, {0x00})\nsleep_ms(600000)\nbus.write(0x31, {0x00})\n");
     let t = dir.path().join("gap.jsonl");
     let o = buscue().args(["run", path.to_str().unwrap(), "--trace", t.to_str().unwrap()]).output().unwrap();
     assert_eq!(code(&o), 0, "{}", stderr(&o));
@@ -126,7 +126,7 @@ fn replay_honours_its_time_limit_in_a_long_recorded_gap() {
 
 #[test]
 fn replay_refuses_a_frame_centuries_after_the_start() {
-    let (dir, path) = script("two.lua", "bus.write(0x44, {0x00})\nbus.write(0x44, {0x00})\n");
+    let (dir, path) = script("two.lua", "bus.write(0x31, {0x00})\nbus.write(0x31, {0x00})\n");
     let t = dir.path().join("two.jsonl");
     let o = buscue().args(["run", path.to_str().unwrap(), "--trace", t.to_str().unwrap()]).output().unwrap();
     assert_eq!(code(&o), 0, "{}", stderr(&o));

@@ -17,7 +17,7 @@ fn fails(text: &str, extra: &[&str]) -> (i32, String) {
 #[test]
 fn register_helper_reads_writes_and_modifies() {
     let out = ok(r#"
-        local light = bus.device(0x29, { width = 16, order = "little" })
+        local light = bus.device(0x2B, { width = 16, order = "little" })
         check_eq(light:get(0x00), 0x1C5A, "little-endian ID")
         light:set(0x01, 0x0103)
         check_eq(light:update(0x01, 0x00F0, 0x0050), 0x0153, "read-modify-write result")
@@ -30,7 +30,7 @@ fn register_helper_reads_writes_and_modifies() {
 
 #[test]
 fn write_then_read_uses_one_transaction_with_repeated_start() {
-    let o = run_script("local id = bus.write_read(0x44, {0x00}, 2) check_eq(id, {0x5E, 0x11})", &["--json"]);
+    let o = run_script("local id = bus.write_read(0x31, {0x00}, 2) check_eq(id, {0x5E, 0x11})", &["--json"]);
     let f = frames(&o);
     assert_eq!(f.len(), 1);
     assert_eq!(f[0]["ops"], serde_json::json!([{"write": [0]}, {"read": 2}]));
@@ -132,7 +132,7 @@ fn retry_policy_per_call_and_backoff_delays() {
 
 #[test]
 fn checks_report_expected_and_actual_in_hex_with_the_line() {
-    let (c, err) = fails("\ncheck_eq(bus.device(0x44, {width = 16}):get(0), 0x5E12, 'ID')\n", &[]);
+    let (c, err) = fails("\ncheck_eq(bus.device(0x31, {width = 16}):get(0), 0x5E12, 'ID')\n", &[]);
     assert_eq!(c, 1);
     assert!(err.contains("t.lua:2: check failed: ID: expected 0x5E12, got 0x5E11"), "{err}");
     let (c, err) = fails("check_range(3, 4, 5, 'volts')", &[]);
@@ -152,7 +152,7 @@ fn bad_values_are_refused_not_truncated() {
         ("bus.read(0x50, 1e9)", "read count must be 1-65535"),
         ("bus.read(0x50, 300)", "at most 256 are allowed"),
         ("bus.write(0x00, {6})", "reserved (general call"),
-        ("bus.device(0x44):set(0, 256)", "does not fit a 8-bit register"),
+        ("bus.device(0x31):set(0, 256)", "does not fit a 8-bit register"),
         ("bus.read(0x50, 1, { retyr = 3 })", "unknown option `retyr`"),
         ("bus.ten(0x400)", "not a 10-bit address"),
         ("bus.retry({ attempts = 0 })", "retry attempts must be 1-1000"),
@@ -184,7 +184,7 @@ fn register_maps_name_registers_and_fields() {
     let o = run_script(
         r#"
         local map = require("maps.climate")
-        local s = bus.device(0x44, { width = 16, map = map })
+        local s = bus.device(0x31, { width = 16, map = map })
         s:set_field("CONTROL.AVG", 3)
         check_eq(s:get("CONTROL"), 0x0006, "AVG lands in bits 2:1")
         check_eq(s:field("CONTROL.AVG"), 3)
@@ -194,11 +194,11 @@ fn register_maps_name_registers_and_fields() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     assert_eq!(frames(&o)[0]["decoded"], "CONTROL.AVG");
     let (c, err) =
-        fails("local s = bus.device(0x44, { map = { R = { at = 1, fields = { F = { lsb = 6, width = 4 } } } } })", &[]);
+        fails("local s = bus.device(0x31, { map = { R = { at = 1, fields = { F = { lsb = 6, width = 4 } } } } })", &[]);
     assert_eq!(c, 2);
     assert!(err.contains("R.F"), "{err}");
     let (c, err) =
-        fails("bus.device(0x44, { width = 16, map = require('maps.climate') }):set_field('CONTROL.AVG', 4)", &[]);
+        fails("bus.device(0x31, { width = 16, map = require('maps.climate') }):set_field('CONTROL.AVG', 4)", &[]);
     assert_eq!(c, 2);
     assert!(err.contains("2 bits wide; 4 does not fit"), "{err}");
 }
@@ -206,15 +206,15 @@ fn register_maps_name_registers_and_fields() {
 #[test]
 fn guarded_registers_need_an_unlock() {
     let map = "{ CHARGE_LIMIT = { at = 1, guard = true } }";
-    let (c, err) = fails(&format!("bus.device(0x29, {{ map = {map} }}):set('CHARGE_LIMIT', 5)"), &[]);
+    let (c, err) = fails(&format!("bus.device(0x2B, {{ map = {map} }}):set('CHARGE_LIMIT', 5)"), &[]);
     assert_eq!(c, 2);
     assert!(err.contains("is guarded; pass {unlock = true}"), "{err}");
-    ok(&format!("bus.device(0x29, {{ map = {map} }}):set('CHARGE_LIMIT', 5, {{ unlock = true }})"));
+    ok(&format!("bus.device(0x2B, {{ map = {map} }}):set('CHARGE_LIMIT', 5, {{ unlock = true }})"));
 }
 
 #[test]
 fn wait_polls_until_value_or_timeout() {
-    let (c, err) = fails("bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 5 })", &[]);
+    let (c, err) = fails("bus.device(0x31, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 5 })", &[]);
     assert_eq!(c, 3, "a device that never becomes ready is a bus failure: {err}");
     assert!(err.contains("register 0x02: value & 0x1 never became 0x1 within 5.000 ms"), "{err}");
 }
@@ -225,7 +225,7 @@ fn ten_bit_devices_and_scan_from_lua() {
         local found = bus.scan({ ten_bit = true })
         local seen = {}
         for _, a in ipairs(found) do seen[tostring(a)] = true end
-        check(seen["68"] and seen["10:0x2A5"], "7-bit as numbers, 10-bit as strings")
+        check(seen["49"] and seen["10:0x2A5"], "7-bit as numbers, 10-bit as strings") -- 49 = 0x31
         check_eq(bus.device(bus.ten(0x2A5)):get(0x02), 0xFF, "expander direction reset value")
     "#);
     assert!(out.contains("10:0x2A5"));
@@ -233,17 +233,17 @@ fn ten_bit_devices_and_scan_from_lua() {
 
 #[test]
 fn clock_stretching_shows_in_bus_time_and_can_time_out() {
-    let o = run_script("local s = bus.device(0x44, { width = 16 }) s:set(0x01, 0x0007) s:get(0x03)", &["--json"]);
+    let o = run_script("local s = bus.device(0x31, { width = 16 }) s:set(0x01, 0x0007) s:get(0x03)", &["--json"]);
     let f = frames(&o);
     let stretched = f[1]["outcome"]["bus_ns"].as_u64().unwrap();
     assert!(stretched > 15_000_000, "16 ms conversion stretches the read: {stretched} ns");
     let (_d, bench) = script(
         "b.toml",
-        "format = \"buscue-bench/1\"\nname = \"x\"\nstretch_timeout_ms = 5\n[[device]]\nname = \"c\"\nmodel = \"climate-sensor\"\naddress = 0x44\ntemperature_c = { base = 20 }\nhumidity_pct = { base = 50 }\n",
+        "format = \"buscue-bench/1\"\nname = \"x\"\nstretch_timeout_ms = 5\n[[device]]\nname = \"c\"\nmodel = \"climate-sensor\"\naddress = 0x31\ntemperature_c = { base = 20 }\nhumidity_pct = { base = 50 }\n",
     );
     let spec = format!("sim:{}", bench.display());
     let (c, err) =
-        fails("local s = bus.device(0x44, { width = 16 }) s:set(0x01, 0x0007) s:get(0x03)", &["--adapter", &spec]);
+        fails("local s = bus.device(0x31, { width = 16 }) s:set(0x01, 0x0007) s:get(0x03)", &["--adapter", &spec]);
     assert_eq!(c, 3);
     assert!(err.contains("clock-stretch timeout after 5000 us"), "{err}");
 }
@@ -440,7 +440,7 @@ fn errors_lua_raises_without_a_position_still_name_the_script() {
     assert!(err.contains("main.lua:2: ") && err.contains("deep.lua: C stack overflow"), "{err}");
     assert!(!err.contains("stack traceback"), "{err}");
     // Errors raised with no position of their own get the raising line.
-    for text in ["local a = 1\nerror('plain', 0)\n", "local a = 1\nerror({})\n", "local a = 1\nbus.wait_ack(0x44, 5)\n"]
+    for text in ["local a = 1\nerror('plain', 0)\n", "local a = 1\nerror({})\n", "local a = 1\nbus.wait_ack(0x31, 5)\n"]
     {
         let (c, err) = fails(text, &[]);
         assert_eq!(c, 2, "{text}: {err}");
@@ -451,18 +451,18 @@ fn errors_lua_raises_without_a_position_still_name_the_script() {
 #[test]
 fn register_wait_that_times_out_is_a_bus_failure_at_the_script_line() {
     let text = r#"
-        local s = bus.device(0x44, { width = 16, map = require("maps.climate") })
+        local s = bus.device(0x31, { width = 16, map = require("maps.climate") })
         s:wait("STATUS", 0x0001, 0x0001, { timeout_ms = 3, interval_ms = 1 })
     "#;
     let (c, err) = fails(text, &[]);
     assert_eq!(c, 3, "exit 3 like bus.wait_ack: {err}");
     assert!(
-        err.contains("t.lua:3: 0x44 register 0x02 (STATUS): value & 0x1 never became 0x1 within 3.000 ms"),
+        err.contains("t.lua:3: 0x31 register 0x02 (STATUS): value & 0x1 never became 0x1 within 3.000 ms"),
         "{err}"
     );
     // Still an error a script can catch.
     ok(r#"
-        local ok, err = pcall(function() bus.device(0x44, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 2 }) end)
+        local ok, err = pcall(function() bus.device(0x31, { width = 16 }):wait(0x02, 0x1, 0x1, { timeout_ms = 2 }) end)
         check(not ok and tostring(err):find("never became 0x1"), "pcall catches the timeout")
     "#);
 }
@@ -525,7 +525,7 @@ fn huge_error_texts_step_names_and_check_messages_are_cut_the_same_way() {
 
 #[test]
 fn byte_strings_longer_than_an_operation_are_refused_before_they_are_copied() {
-    for call in ["bus.write(0x44, string.rep(\"x\", 70000))", "hex(string.rep(\"x\", 70000))"] {
+    for call in ["bus.write(0x31, string.rep(\"x\", 70000))", "hex(string.rep(\"x\", 70000))"] {
         let (c, err) = fails(call, &[]);
         assert_eq!(c, 2, "{call}: {err}");
         assert!(err.contains("has 70000 bytes; at most 65535 fit one operation"), "{call}: {err}");

@@ -146,7 +146,7 @@ fn lossy_link_executes_every_transaction_exactly_once() {
     let (path, stop, h) = serve_in_process(faults);
     let settings = NativeSettings { timeout: Duration::from_millis(20), batch: Some(1), ..NativeSettings::default() };
     let mut a = NativeAdapter::open(&path, settings).expect("handshake through a lossy link");
-    let light = Address::Seven(0x29);
+    let light = Address::Seven(0x2B);
     let mut done = 0u64;
     for chunk in 0..10u32 {
         let mut txs = Vec::new();
@@ -277,7 +277,7 @@ fn control_requests_reach_the_served_board() {
     assert!(levels.sda && levels.scl, "an idle bus reads high");
     assert_eq!(a.recover().unwrap().pulses, 0, "a free bus needs no pulses");
     let txs: Vec<Transaction> = (0..40)
-        .map(|_| Transaction::new(Address::Seven(0x29), vec![Operation::Write(vec![0x00]), Operation::Read(2)]))
+        .map(|_| Transaction::new(Address::Seven(0x2B), vec![Operation::Write(vec![0x00]), Operation::Read(2)]))
         .collect();
     let before = a.stats.requests;
     assert!(a.execute_batch(&txs).iter().all(|o| o.read_bytes() == [0x5A, 0x1C]));
@@ -298,13 +298,13 @@ fn script(text: &str) -> tempfile::NamedTempFile {
 
 #[test]
 fn a_failing_batch_block_sends_nothing_and_a_stale_queue_is_refused() {
-    let f = script("bus.batch(function(b) b:write(0x29, {1, 2, 3}); error('changed my mind') end)\n");
+    let f = script("bus.batch(function(b) b:write(0x2B, {1, 2, 3}); error('changed my mind') end)\n");
     let out = run(f.path().to_str().unwrap(), "sim", &[]);
     assert_eq!(out.status.code(), Some(2));
     assert!(!records(&out.stdout).iter().any(|r| r["kind"] == "frame"), "nothing reached the bus");
     assert!(String::from_utf8_lossy(&out.stderr).contains("changed my mind"));
 
-    let f = script("local q\nbus.batch(function(b) q = b end)\nq:write(0x29, {1})\n");
+    let f = script("local q\nbus.batch(function(b) q = b end)\nq:write(0x2B, {1})\n");
     let out = run(f.path().to_str().unwrap(), "sim", &[]);
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(2));

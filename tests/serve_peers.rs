@@ -61,7 +61,7 @@ fn the_next_peer_is_served_and_finds_the_bench_as_the_last_left_it() {
 #[test]
 fn once_ends_with_the_first_peer() {
     let (mut child, path) = serve(&["--once"]);
-    let o = run_script("bus.read(0x29, 1)\n", &["--adapter", &format!("serial:{path}"), "--no-trace", "-q"]);
+    let o = run_script("bus.read(0x2B, 1)\n", &["--adapter", &format!("serial:{path}"), "--no-trace", "-q"]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let mut err = BufReader::new(child.stderr.take().unwrap());
     let said = until(&mut err, "serving ended");

@@ -264,17 +264,17 @@ fn replay_finds_a_changed_register_and_masks_hide_it() {
     let divs: Vec<&str> = out.lines().filter(|l| l.starts_with("diverged:")).collect();
     assert_eq!(
         divs,
-        vec!["diverged: frame #1 (0x3C) op 1 byte 0: data expected 0xA7, got 0xA8  at scripts/vent_retry.lua:9"],
+        vec!["diverged: frame #1 (0x11) op 1 byte 0: data expected 0xA7, got 0xA8  at scripts/vent_retry.lua:9"],
         "{err}"
     );
 
-    for mask in ["0x3C,reg=0x00", "0x3C,bytes=0"] {
+    for mask in ["0x11,reg=0x00", "0x11,bytes=0"] {
         let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", mask]);
         let (out, err) = text(&o);
         assert_eq!(o.status.code(), Some(0), "{mask}: {out}{err}");
         assert!(err.contains("0 divergences in 0 frames, 1 hidden by masks"), "{mask}: {err}");
     }
-    let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", "0x3C,reg=0x01"]);
+    let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", "0x11,reg=0x01"]);
     assert_eq!(o.status.code(), Some(5), "a mask on another register hides nothing");
 }
 
@@ -439,11 +439,11 @@ fn diff_masks_sensor_readings() {
         b.to_str().unwrap(),
         "-q",
         "--mask",
-        "0x44,reg=TEMPERATURE",
+        "0x31,reg=TEMPERATURE",
         "--mask",
-        "0x44,reg=HUMIDITY",
+        "0x31,reg=HUMIDITY",
         "--mask",
-        "0x45,reg=TEMPERATURE",
+        "0x35,reg=TEMPERATURE",
     ]);
     assert_eq!(masked.status.code(), Some(0), "{}", text(&masked).0);
 }
@@ -455,7 +455,7 @@ fn diff_masks_sensor_readings() {
 fn diff_groups_the_addresses_a_scan_only_probed() {
     let dir = tempfile::tempdir().unwrap();
     let script = dir.path().join("survey.lua");
-    std::fs::write(&script, "bus.scan()\nbus.write_read(0x44, {0x00}, 2)\nbus.wait_ack(0x45, {timeout_ms = 50})\n")
+    std::fs::write(&script, "bus.scan()\nbus.write_read(0x31, {0x00}, 2)\nbus.wait_ack(0x35, {timeout_ms = 50})\n")
         .unwrap();
     let (a, b) = (dir.path().join("a.jsonl"), dir.path().join("b.jsonl"));
     for t in [&a, &b] {
@@ -473,9 +473,9 @@ fn diff_groups_the_addresses_a_scan_only_probed() {
     assert!(out.lines().all(|l| l.chars().count() <= 80), "{out}");
     let header = out.lines().find(|l| l.starts_with("address")).unwrap();
     assert!(header.contains(" NACKs probes NACKed ") && header.ends_with(" bus time us"), "{header}");
-    // 0x45 was probed by the scan and polled (a sensor that answers at
+    // 0x35 was probed by the scan and polled (a sensor that answers at
     // once): two probes, no NACK outside them.
-    let row = rows.iter().find(|l| l.starts_with("0x45")).unwrap();
+    let row = rows.iter().find(|l| l.starts_with("0x35")).unwrap();
     let n: Vec<&str> = row.split_whitespace().collect();
     assert_eq!(&n[1..7], ["A", "2", "0", "0", "2", "0"], "{row}");
     // Colour on demand: the verdict in green.
@@ -555,7 +555,7 @@ fn a_failing_run_converts_to_a_script_that_fails_the_same_way() {
 fn sigkill_mid_run_loses_no_completed_frame() {
     let dir = tempfile::tempdir().unwrap();
     let script = dir.path().join("forever.lua");
-    std::fs::write(&script, "for i = 1, 1000000 do\n  bus.write_read(0x29, { 0x00 }, 2)\n  sleep_ms(2)\nend\n")
+    std::fs::write(&script, "for i = 1, 1000000 do\n  bus.write_read(0x2B, { 0x00 }, 2)\n  sleep_ms(2)\nend\n")
         .unwrap();
     // Read frame lines from the log until a few dozen went by, then kill.
     kill_once(dir.path(), &script, &["--realtime"], 0, 40);
@@ -575,7 +575,7 @@ fn sigkill_at_random_points_leaves_every_completed_record() {
     let script = dir.path().join("forever.lua");
     std::fs::write(
         &script,
-        "for i = 1, 100000000 do\n  bus.write_read(0x29, { 0x00 }, 2)\n  if i % 97 == 0 then log('tick ' .. i) end\nend\n",
+        "for i = 1, 100000000 do\n  bus.write_read(0x2B, { 0x00 }, 2)\n  if i % 97 == 0 then log('tick ' .. i) end\nend\n",
     )
     .unwrap();
     let dir = dir.path();

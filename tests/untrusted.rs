@@ -11,7 +11,7 @@ fn a_recorded_log_line_cannot_inject_code_into_to_script() {
     // one used to put a live EEPROM write into the generated script.
     let (dir, path) = script(
         "inject.lua",
-        "log('note\\rbus.write(0x50, {0x00, 0x00, 0xEE}) --')\nlog('\\27]0;title\\7\\27[2J')\nbus.write(0x44, {0x00})\n",
+        "log('note\\rbus.write(0x50, {0x00, 0x00, 0xEE}) --')\nlog('\\27]0;title\\7\\27[2J')\nbus.write(0x31, {0x00})\n",
     );
     let t = dir.path().join("t.jsonl");
     let o = buscue().args(["run", path.to_str().unwrap(), "--trace", t.to_str().unwrap()]).output().unwrap();
@@ -26,5 +26,5 @@ fn a_recorded_log_line_cannot_inject_code_into_to_script() {
     assert_eq!(code(&o), 0, "{}{}", stdout(&o), stderr(&o));
     let f = frames(&o);
     assert_eq!(f.len(), 1, "only the recorded write, nothing injected: {f:?}");
-    assert_eq!(f[0]["address"], "0x44");
+    assert_eq!(f[0]["address"], "0x31");
 }

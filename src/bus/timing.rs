@@ -232,7 +232,7 @@ mod tests {
     use crate::bus::{Address, Operation};
 
     fn reg_read() -> Transaction {
-        Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(1)])
+        Transaction::new(Address::Seven(0x31), vec![Operation::Write(vec![0x03]), Operation::Read(1)])
     }
 
     // Table 10 minimums (from memory, see `minimum_times`): a clock at each
@@ -283,7 +283,7 @@ mod tests {
     // table. START 1.25; STOP = low 1.3 + tSU;STO 1.25 + tBUF 1.3.
     #[test]
     fn fast_mode_uses_table_minimum_when_larger() {
-        let tx = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![])]);
+        let tx = Transaction::new(Address::Seven(0x31), vec![Operation::Write(vec![])]);
         let b = breakdown(&tx, BusSpeed::FAST);
         assert_eq!(b.conditions_ns, 1_250 + 1_300 + 1_250 + 1_300);
         assert_eq!(b.efficiency(), 0.0);
@@ -295,7 +295,7 @@ mod tests {
     #[test]
     fn targets_see_events_where_they_happen_on_the_wire() {
         let t = EventTimes::new(BusSpeed::STANDARD);
-        assert_eq!(t.seen_ns(&Event::AddressByte(0x88)), 90_000);
+        assert_eq!(t.seen_ns(&Event::AddressByte(0x62)), 90_000);
         assert_eq!(t.seen_ns(&Event::WriteByte { op: 0, index: 0, byte: 1 }), 90_000);
         assert_eq!(t.seen_ns(&Event::ReadByte { op: 0, index: 0, ack: false }), 0);
         assert_eq!((t.seen_ns(&Event::Stop), t.event_ns(&Event::Stop)), (10_000, 15_000));

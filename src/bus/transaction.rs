@@ -379,18 +379,19 @@ mod tests {
     }
 
     // UM10204 §3.1.10 Figure 13 (combined format): S, addr+W, data, Sr,
-    // addr+R, data, controller NACKs the last byte, P.
+    // addr+R, data, controller NACKs the last byte, P. Address bytes by hand:
+    // 0x31 << 1 = 0x62 (write), 0x62 | 1 = 0x63 (read).
     #[test]
     fn write_then_read_uses_repeated_start() {
-        let t = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)]);
+        let t = Transaction::new(Address::Seven(0x31), vec![Operation::Write(vec![0x03]), Operation::Read(2)]);
         assert_eq!(
             t.events(),
             vec![
                 Start,
-                AddressByte(0x88),
+                AddressByte(0x62),
                 wb(0, 0, 0x03),
                 RepeatedStart,
-                AddressByte(0x89),
+                AddressByte(0x63),
                 rb(1, 0, true),
                 rb(1, 1, false),
                 Stop
@@ -529,13 +530,13 @@ mod tests {
     #[test]
     fn events_crossed_end_at_the_refused_byte() {
         let failed = |fault| Outcome { ops: vec![], bus_time: std::time::Duration::ZERO, measured: None, fault };
-        let t = Transaction::new(Address::Seven(0x44), vec![Operation::Write(vec![0x03, 0x04]), Operation::Read(2)]);
+        let t = Transaction::new(Address::Seven(0x31), vec![Operation::Write(vec![0x03, 0x04]), Operation::Read(2)]);
         let data = failed(Some(Fault::DataNack { op: 0, index: 0 }));
-        assert_eq!(t.events_crossed(&data), vec![Start, AddressByte(0x88), wb(0, 0, 0x03), Stop]);
+        assert_eq!(t.events_crossed(&data), vec![Start, AddressByte(0x62), wb(0, 0, 0x03), Stop]);
         let read_phase = failed(Some(Fault::AddressNack { op: 1, direction: Direction::Read }));
         assert_eq!(
             t.events_crossed(&read_phase),
-            vec![Start, AddressByte(0x88), wb(0, 0, 0x03), wb(0, 1, 0x04), RepeatedStart, AddressByte(0x89), Stop]
+            vec![Start, AddressByte(0x62), wb(0, 0, 0x03), wb(0, 1, 0x04), RepeatedStart, AddressByte(0x63), Stop]
         );
         // 10-bit: the fault does not say which address byte was refused;
         // the whole phase of the operation is counted.

@@ -3,9 +3,9 @@
 //!
 //! ```lua
 //! local r = bus.batch(function(b)
-//!   b:write(0x29, {0x01, 0x10, 0x00})      -- result 1: true
-//!   local vis = b:write_read(0x29, 0x02, 2) -- result 2: the bytes read
-//!   b:read(0x44, 2)                         -- result 3
+//!   b:write(0x2B, {0x01, 0x10, 0x00})      -- result 1: true
+//!   local vis = b:write_read(0x2B, 0x02, 2) -- result 2: the bytes read
+//!   b:read(0x31, 2)                         -- result 3
 //! end)
 //! ```
 //!

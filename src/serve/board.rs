@@ -150,7 +150,7 @@ mod tests {
     fn embedded_hal_calls_reach_the_bench() {
         let mut b = board();
         let mut id = [0u8; 2];
-        I2c::<SevenBitAddress>::write_read(&mut b, 0x29, &[0x00], &mut id).unwrap();
+        I2c::<SevenBitAddress>::write_read(&mut b, 0x2B, &[0x00], &mut id).unwrap();
         assert_eq!(id, [0x5A, 0x1C]);
         let r = b.last_report().unwrap();
         assert_eq!(r.status, Status::Ok);
@@ -168,7 +168,7 @@ mod tests {
     fn data_nack_reports_operation_and_byte() {
         let mut b = board();
         // ID (0x00) of the light sensor is read-only: its data bytes are NACKed.
-        let e = I2c::<SevenBitAddress>::write(&mut b, 0x29, &[0x00, 0x12, 0x34]).unwrap_err();
+        let e = I2c::<SevenBitAddress>::write(&mut b, 0x2B, &[0x00, 0x12, 0x34]).unwrap_err();
         assert_eq!(i2c::Error::kind(&e), ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data));
         let r = b.last_report().unwrap();
         assert_eq!((r.status, r.op, r.index), (Status::DataNack, 0, 1));

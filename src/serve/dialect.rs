@@ -353,7 +353,7 @@ mod tests {
     // sensor's ID register (0x5E11) read a primitive at a time.
     #[test]
     fn stepwise_register_read_as_documented() {
-        let got = transcript("stepwise", &["OPEN", "ADDR 88", "PUT 00", "REOPEN", "ADDR 89", "TAKE+", "TAKE-", "HALT"]);
+        let got = transcript("stepwise", &["OPEN", "ADDR 62", "PUT 00", "REOPEN", "ADDR 63", "TAKE+", "TAKE-", "HALT"]);
         assert_eq!(got, ["K", "A", "A", "K", "A", "= 5E", "= 11", "K"]);
     }
 
@@ -368,7 +368,7 @@ mod tests {
 
     #[test]
     fn one_line_replies() {
-        let got = transcript("oneline", &["X 44 W00 R2", "X 13 W00", "X 44 W00 12", "X 44 W0012", "RATE 400"]);
+        let got = transcript("oneline", &["X 31 W00 R2", "X 13 W00", "X 31 W00 12", "X 31 W0012", "RATE 400"]);
         // 100 kHz: START 5 + 5 bytes × 90 + Sr 15 + STOP 15 us (the model
         // in bus::timing, worked in the README).
         assert_eq!(got[0], "OK 5E11 T485", "485 us at 100 kHz, as adapters/DIALECTS.md shows");
@@ -388,7 +388,7 @@ mod tests {
         let p = Profile::load("oneline").unwrap();
         let Style::OneLine(o) = &p.style else { panic!("oneline is a one-line profile") };
         let cases = [
-            (Address::Seven(0x44), vec![Operation::Write(vec![0x03]), Operation::Read(2)], "X 44 W03 R2"),
+            (Address::Seven(0x31), vec![Operation::Write(vec![0x03]), Operation::Read(2)], "X 31 W03 R2"),
             (Address::Seven(0x50), vec![Operation::Write(vec![])], "X 50 W"),
             (Address::Ten(0x2A5), vec![Operation::Write(vec![0x00, 0xFF]), Operation::Read(1)], "Y 2A5 W00FF R1"),
         ];
@@ -397,7 +397,7 @@ mod tests {
             assert_eq!(DialectAdapter::render_one_line(o, &tx).as_deref(), Some(line));
             assert_eq!(parse_transaction(o, line), Ok(tx), "{line}");
         }
-        assert!(parse_transaction(o, "X 44 Q7").unwrap_err().contains("neither a write nor a read"));
+        assert!(parse_transaction(o, "X 31 Q7").unwrap_err().contains("neither a write nor a read"));
         assert!(parse_transaction(o, "X 80 R1").is_err(), "0x80 is not a 7-bit address");
     }
 }

@@ -206,7 +206,7 @@ mod tests {
 
     fn sensor(busy: Busy, base: f64) -> ClimateSensor {
         let flat = |b| Signal::new(SignalSpec { base: b, swing: 0.0, period_s: 1.0, noise: 0.0, seed: 0 });
-        ClimateSensor::new("c".into(), Address::Seven(0x44), busy, flat(base), flat(55.5))
+        ClimateSensor::new("c".into(), Address::Seven(0x31), busy, flat(base), flat(55.5))
     }
 
     fn read_reg(s: &mut ClimateSensor, reg: u8, now: Duration) -> (Answer, u16) {

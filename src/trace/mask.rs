@@ -2,13 +2,13 @@
 //! from run to run (counters, sensor readings).
 //!
 //! Syntax (docs/traces.md, "Masks"): `ADDRESS[,reg=REG][,bytes=A-B]`
-//! - `0x44` hides every byte read from 0x44;
-//! - `0x44,reg=0x03` or `0x44,reg=TEMPERATURE` hides the reads of
+//! - `0x31` hides every byte read from 0x31;
+//! - `0x31,reg=0x03` or `0x31,reg=TEMPERATURE` hides the reads of
 //!   transactions that address register 0x03 (the first write's leading
 //!   pointer byte, or its two leading bytes big-endian for a 16-bit
 //!   pointer) or whose decoded name is TEMPERATURE (or TEMPERATURE.FIELD);
-//! - `0x29,bytes=0-1` hides read bytes 0 and 1 of every transaction to
-//!   0x29, counting across the transaction's read operations from 0.
+//! - `0x2B,bytes=0-1` hides read bytes 0 and 1 of every transaction to
+//!   0x2B, counting across the transaction's read operations from 0.
 //!
 //! Masks hide read data only: ACK/NACK and results are always compared.
 
@@ -23,7 +23,7 @@ use crate::bus::{Address, Operation};
 use crate::record::Frame;
 
 #[derive(Debug, Clone, PartialEq, Eq, Error)]
-#[error("mask `{text}`: {reason}; write ADDRESS[,reg=REG][,bytes=A-B], as in 0x44,reg=0x03 or 0x29,bytes=0-1")]
+#[error("mask `{text}`: {reason}; write ADDRESS[,reg=REG][,bytes=A-B], as in 0x31,reg=0x03 or 0x2B,bytes=0-1")]
 pub struct MaskError {
     pub text: String,
     pub reason: String,
@@ -176,13 +176,13 @@ mod tests {
 
     #[test]
     fn parses_and_matches() {
-        let m: Mask = "0x44,reg=0x03".parse().unwrap();
-        let temp = frame(Address::Seven(0x44), vec![Operation::Write(vec![3]), Operation::Read(2)], None);
-        let other = frame(Address::Seven(0x44), vec![Operation::Write(vec![4]), Operation::Read(2)], None);
+        let m: Mask = "0x31,reg=0x03".parse().unwrap();
+        let temp = frame(Address::Seven(0x31), vec![Operation::Write(vec![3]), Operation::Read(2)], None);
+        let other = frame(Address::Seven(0x31), vec![Operation::Write(vec![4]), Operation::Read(2)], None);
         assert!(m.applies(&temp) && !m.applies(&other));
-        let by_name: Mask = "0x44,reg=CONTROL".parse().unwrap();
-        assert!(by_name.applies(&frame(Address::Seven(0x44), vec![Operation::Read(1)], Some("CONTROL.AVG"))));
-        assert!(!by_name.applies(&frame(Address::Seven(0x44), vec![Operation::Read(1)], Some("CONTROLS"))));
+        let by_name: Mask = "0x31,reg=CONTROL".parse().unwrap();
+        assert!(by_name.applies(&frame(Address::Seven(0x31), vec![Operation::Read(1)], Some("CONTROL.AVG"))));
+        assert!(!by_name.applies(&frame(Address::Seven(0x31), vec![Operation::Read(1)], Some("CONTROLS"))));
         let wide: Mask = "0x50,reg=0x0130".parse().unwrap();
         assert!(wide.applies(&frame(Address::Seven(0x50), vec![Operation::Write(vec![1, 0x30])], None)));
         let ten: Mask = "10:0x2A5,bytes=1-2".parse().unwrap();
@@ -194,7 +194,7 @@ mod tests {
 
     #[test]
     fn refuses_bad_masks() {
-        for bad in ["", "0x44,reg", "0x44,bytes=3-1", "0x44,reg=1,reg=2", "0x44,colour=red", "0x200", "0x44,bytes=x"] {
+        for bad in ["", "0x31,reg", "0x31,bytes=3-1", "0x31,reg=1,reg=2", "0x31,colour=red", "0x200", "0x31,bytes=x"] {
             let e = bad.parse::<Mask>().unwrap_err();
             assert!(e.to_string().starts_with(&format!("mask `{bad}`")), "{e}");
         }

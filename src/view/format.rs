@@ -5,7 +5,7 @@
 //! Frame line layout (ours):
 //!
 //! ```text
-//! 0.008400 #13   0x44 W 03 | R 09 2D ok        475.0us [TEMPERATURE]  scripts/climate_bringup.lua:23
+//! 0.008400 #13   0x31 W 03 | R 09 2D ok        475.0us [TEMPERATURE]  scripts/climate_bringup.lua:23
 //! ```
 //!
 //! time on the adapter clock (seconds, rounded to the microsecond),
@@ -646,7 +646,7 @@ mod tests {
         );
         (f.seq, f.attempt, f.attempts) = (13, 1, 1);
         f.t = Duration::from_nanos(8_400_000);
-        f.address = Address::Seven(0x44);
+        f.address = Address::Seven(0x31);
         f.outcome.bus_time = Duration::from_nanos(475_000);
         f.purpose = Some(Purpose::Poll);
         f.decoded = Some("TEMPERATURE".into());
@@ -671,7 +671,7 @@ mod tests {
     }
 
     // The 80-column line of a two-byte register read (hand count): the
-    // time `0.008400` 8, ` #13   ` 7 (the number padded to 4), `0x44 ` 5,
+    // time `0.008400` 8, ` #13   ` 7 (the number padded to 4), `0x31 ` 5,
     // `W 03 | R 09 2D ` 15 (operations padded to 14), result and bus time
     // `ok        475.0us` 17 (52 so far), ` (poll)` 7, ` [TEMPERATURE]` 14,
     // and the script line by its number alone, `  :123` 6: 79 columns.
@@ -679,16 +679,16 @@ mod tests {
     fn a_two_byte_register_read_fits_80_columns() {
         let f = register_read();
         let line = frame_line(&f, &fitted(80, "scripts/climate_bringup.lua"));
-        assert_eq!(line, "0.008400 #13   0x44 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]  :123");
+        assert_eq!(line, "0.008400 #13   0x31 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]  :123");
         assert_eq!(line.len(), 8 + 7 + 5 + 15 + 17 + 7 + 14 + 6, "{line}");
         // A column short: the script line gives way, nothing else does.
         let line = frame_line(&f, &fitted(78, "scripts/climate_bringup.lua"));
-        assert_eq!(line, "0.008400 #13   0x44 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]");
+        assert_eq!(line, "0.008400 #13   0x31 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]");
         // Wide (a file, a pipe, --wide): the whole script path.
         let line = frame_line(&f, &wide());
         assert_eq!(
             line,
-            "0.008400 #13   0x44 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]  scripts/climate_bringup.lua:123"
+            "0.008400 #13   0x31 W 03 | R 09 2D ok        475.0us (poll) [TEMPERATURE]  scripts/climate_bringup.lua:123"
         );
         // A script other than the run's own is named in full where it fits.
         let line = frame_line(&f, &fitted(120, "scripts/other.lua"));

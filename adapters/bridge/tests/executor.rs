@@ -10,7 +10,7 @@ use buscue_bridge::{Bridge, Link, Target};
 use embedded_hal::i2c::{self, ErrorKind, I2c, NoAcknowledgeSource, Operation, SevenBitAddress, TenBitAddress};
 use proptest::prelude::*;
 
-/// A bus with one target at 0x29 that reads back 0xA5 and counts
+/// A bus with one target at 0x2B that reads back 0xA5 and counts
 /// transactions; every other address NACKs.
 #[derive(Default)]
 struct FakeBus {
@@ -33,7 +33,7 @@ impl i2c::ErrorType for FakeBus {
 impl I2c<SevenBitAddress> for FakeBus {
     fn transaction(&mut self, address: u8, ops: &mut [Operation<'_>]) -> Result<(), FakeError> {
         self.transactions += 1;
-        if address != 0x29 {
+        if address != 0x2B {
             return Err(FakeError(ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address)));
         }
         for op in ops {
@@ -176,14 +176,14 @@ fn handshake_reports_the_capabilities() {
 fn a_repeated_request_is_answered_from_the_cache_not_the_bus() {
     let mut rig = Rig::new();
     rig.hello(7);
-    let first = rig.ask(req(kind::RUN, 8), &write_read(0x29, 3));
+    let first = rig.ask(req(kind::RUN, 8), &write_read(0x2B, 3));
     assert_eq!(rig.board.bus.transactions, 1);
     let mut r = Reader::new(&first[0].1);
     r.u64().unwrap();
     let rep = TxReport::read(&mut r).unwrap();
     assert_eq!(rep.status, Status::Ok);
     assert_eq!(r.bytes(3).unwrap(), &[0xA5; 3]);
-    let again = rig.ask(req(kind::RUN, 8), &write_read(0x29, 3));
+    let again = rig.ask(req(kind::RUN, 8), &write_read(0x2B, 3));
     assert_eq!(again, first, "the same reply, byte for byte");
     assert_eq!(rig.board.bus.transactions, 1, "executed exactly once");
     assert_eq!(rig.bridge.stats().executed, 1);
@@ -194,27 +194,27 @@ fn a_request_from_ahead_is_dropped_with_a_gap_notice() {
     let mut rig = Rig::new();
     rig.hello(0xFFFE);
     // Expected is 0xFFFF; 0x0001 (after wrapping) is two ahead.
-    let r = rig.ask(req(kind::RUN, 0x0001), &write_read(0x29, 1));
+    let r = rig.ask(req(kind::RUN, 0x0001), &write_read(0x2B, 1));
     assert_eq!(r[0].0.kind, kind::GAP);
     assert_eq!(r[0].0.seq, 0xFFFF, "names the number expected");
     assert_eq!(r[0].1, 0x0001u16.to_le_bytes(), "and the request that was dropped");
     assert_eq!(rig.board.bus.transactions, 0);
-    rig.ask(req(kind::RUN, 0xFFFF), &write_read(0x29, 1));
-    rig.ask(req(kind::RUN, 0x0000), &write_read(0x29, 1));
+    rig.ask(req(kind::RUN, 0xFFFF), &write_read(0x2B, 1));
+    rig.ask(req(kind::RUN, 0x0000), &write_read(0x2B, 1));
     assert_eq!(rig.board.bus.transactions, 2, "in order across the wrap");
 }
 
 #[test]
 fn refusals_name_the_reason() {
     let mut rig = Rig::new();
-    let r = rig.ask(req(kind::RUN, 1), &write_read(0x29, 1));
+    let r = rig.ask(req(kind::RUN, 1), &write_read(0x2B, 1));
     assert_eq!((r[0].0.kind, r[0].1[0]), (kind::REFUSED, refusal::SESSION), "no HELLO yet");
     rig.hello(1);
     let r = rig.ask(Header { version: 9, ..req(kind::RUN, 2) }, &[]);
     assert_eq!(r[0].1, [refusal::VERSION, VERSION]);
     let r = rig.ask(Header { session: 0x1111, ..req(kind::RUN, 2) }, &[]);
     assert_eq!(r[0].1[0], refusal::SESSION);
-    let r = rig.ask(req(kind::RUN, 2), &[1, 0x29]);
+    let r = rig.ask(req(kind::RUN, 2), &[1, 0x2B]);
     assert_eq!(r[0].1[0], refusal::MALFORMED, "a truncated body");
     let r = rig.ask(req(0x3F, 3), &[]);
     assert_eq!(r[0].1[0], refusal::UNKNOWN_KIND);
@@ -234,7 +234,7 @@ fn embedded_hal_errors_become_statuses() {
     assert_eq!((rep.status, rep.op), (Status::AddressNack, UNKNOWN_OP));
     assert_eq!(rd.remaining(), 0, "no read data for a failed read");
     // Too long for max_bytes_per_op = 64: refused, not sent.
-    let r = rig.ask(req(kind::RUN, 2), &write_read(0x29, 65));
+    let r = rig.ask(req(kind::RUN, 2), &write_read(0x2B, 65));
     let mut rd = Reader::new(&r[0].1);
     rd.u64().unwrap();
     assert_eq!(TxReport::read(&mut rd).unwrap().status, Status::Refused);
@@ -294,7 +294,7 @@ impl I2c<SevenBitAddress> for SevenOnlyHal {
 #[test]
 fn seven_bit_only_hals_refuse_ten_bit_transactions() {
     let mut bus = buscue_bridge::SevenBitOnly(SevenOnlyHal(0));
-    I2c::<SevenBitAddress>::write(&mut bus, 0x29, &[1]).unwrap();
+    I2c::<SevenBitAddress>::write(&mut bus, 0x2B, &[1]).unwrap();
     let e = I2c::<TenBitAddress>::write(&mut bus, 0x2A5, &[1]).unwrap_err();
     assert_eq!(i2c::Error::kind(&e), ErrorKind::Other);
     assert_eq!(bus.0.0, 1, "the 10-bit call never reached the HAL");
@@ -346,19 +346,19 @@ fn counts_and_lengths_at_their_extremes_are_refused_not_wrapped() {
     assert_eq!(refused_with(&rig.ask(req(kind::RUN, 1), &[0])), refusal::TOO_LARGE);
     assert_eq!(refused_with(&rig.ask(req(kind::RUN, 2), &[255])), refusal::TOO_LARGE);
     // 240 reads of 0x7FFF bytes each: far more reply than a frame holds.
-    let mut b = vec![1, 0x29, 0x00, 240];
+    let mut b = vec![1, 0x2B, 0x00, 240];
     for _ in 0..240 {
         b.extend_from_slice(&(0x7FFF | READ_FLAG).to_le_bytes());
     }
     assert_eq!(refused_with(&rig.ask(req(kind::RUN, 3), &b)), refusal::TOO_LARGE);
     // A write that claims 0x7FFF bytes and carries three.
-    let mut b = vec![1, 0x29, 0x00, 1];
+    let mut b = vec![1, 0x2B, 0x00, 1];
     b.extend_from_slice(&0x7FFFu16.to_le_bytes());
     b.extend_from_slice(&[1, 2, 3]);
     assert_eq!(refused_with(&rig.ask(req(kind::RUN, 4), &b)), refusal::MALFORMED);
     // 240 operations (max_ops_per_tx = 8) and the largest address field:
     // the transaction is refused by status, nothing reaches the bus.
-    let mut b = vec![1, 0x29, 0x00, 240];
+    let mut b = vec![1, 0x2B, 0x00, 240];
     b.extend(std::iter::repeat_n(0u8, 480));
     assert_eq!(first_status(&rig.ask(req(kind::RUN, 5), &b)), Status::Refused);
     let mut b = vec![1, 0xFF, 0xFF, 1];
