@@ -19,6 +19,7 @@ use super::outputs;
 use super::watchdog::{self, Watchdog};
 use super::{
     BusArgs, ShowArgs, error_line, interrupt_flag, parse_assignment, parse_duration, parse_size, shown, warning_line,
+    whole_in,
 };
 
 #[derive(Args, Debug)]
@@ -30,13 +31,14 @@ pub struct RunArgs {
     #[command(flatten)]
     pub show: ShowArgs,
     /// Script parameter, read by `param("name", default)`; repeatable.
-    #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment)]
+    #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
     /// Wall-clock limit for the script (30, 30s, 500ms, 2m; 0 = none).
-    #[arg(long, default_value = "10m", value_parser = parse_duration)]
+    #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: Duration,
     /// Memory limit for the script, in MiB.
-    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
+    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB,
+          value_parser = whole_in(1u32, 16384), allow_negative_numbers = true)]
     pub memory_limit: u32,
     /// Let the script use io, os and the stock require (file and process
     /// access). Only for scripts you trust.
@@ -63,7 +65,8 @@ pub struct RunArgs {
     pub force: bool,
     /// Stop the run when its trace would pass this size (100M, 1G; K, M, G
     /// are 1024-based; 0 = no limit). Exit code 6.
-    #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace")]
+    #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace",
+          allow_hyphen_values = true)]
     pub trace_limit: u64,
 }
 

@@ -11,7 +11,7 @@ use crate::player::{Probe, scan_range};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, ShowArgs, error_line, interrupt_flag};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag, whole_in};
 
 /// The probes of `--probe`. Described in the option's own help, not per
 /// value: value descriptions would give `scan --help` a layout of its own.
@@ -54,7 +54,7 @@ pub struct ScanArgs {
     #[arg(long)]
     pub ten_bit: bool,
     /// Tries per address, for devices that NACK now and then.
-    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..=100))]
+    #[arg(long, default_value_t = 1, value_parser = whole_in(1u32, 100), allow_negative_numbers = true)]
     pub attempts: u32,
     /// Show every probe frame, not only the answers.
     #[arg(long)]

@@ -21,13 +21,18 @@ use crate::view::format::{Layout, TimeUnit, Tone, cell_diff, frame_line, in_unit
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, ShowArgs, error_line, interrupt_flag, outputs, parse_duration, shown, warning_line};
+use super::{
+    BusArgs, ShowArgs, error_line, interrupt_flag, negative, outputs, parse_duration, shown, warning_line, whole,
+};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
 }
 
 fn parse_scale(s: &str) -> Result<f64, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: give a factor from 0 to 1000 (0.5 = twice as fast)"));
+    }
     check_scale(s.parse().map_err(|_| format!("`{s}` is not a number"))?)
 }
 
@@ -43,7 +48,8 @@ pub struct ReplayArgs {
     #[command(flatten)]
     pub show: ShowArgs,
     /// Multiply the recorded gaps between frames by this (0.5 = twice as fast).
-    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
+    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays",
+          allow_negative_numbers = true)]
     pub time_scale: f64,
     /// Send the frames back to back, without the recorded gaps.
     #[arg(long)]
@@ -68,7 +74,7 @@ pub struct ReplayArgs {
     pub force: bool,
     /// Wall-clock limit for the replay, recorded gaps included (30s, 2m,
     /// 1h; 0 = none, the default: a recording may be long).
-    #[arg(long, default_value = "0", value_parser = parse_duration)]
+    #[arg(long, default_value = "0", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: std::time::Duration,
 }
 
@@ -199,7 +205,7 @@ pub struct DiffArgs {
     #[arg(long, value_name = "MASK", value_parser = parse_mask)]
     pub mask: Vec<Mask>,
     /// Show at most this many differences in full (all are counted).
-    #[arg(long = "show", value_name = "N", default_value_t = 20)]
+    #[arg(long = "show", value_name = "N", default_value_t = 20, value_parser = whole::<usize>, allow_negative_numbers = true)]
     pub show_n: usize,
     /// Print only the summaries.
     #[arg(long, short = 'q')]
