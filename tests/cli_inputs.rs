@@ -97,3 +97,28 @@ fn a_negative_parameter_value_reaches_the_script() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     assert!(stdout(&o).contains("note   -5"), "{}", stdout(&o));
 }
+
+// ---- --realtime with a serial adapter ----
+
+#[test]
+fn realtime_with_a_serial_adapter_is_a_usage_error_before_the_port_is_touched() {
+    let dir = tempfile::tempdir().unwrap();
+    let missing = dir.path().join("no-such-port");
+    let native = format!("serial:{}", missing.display());
+    let dialect = format!("dialect:stepwise@{}", missing.display());
+    for spec in [native.as_str(), dialect.as_str()] {
+        let o = run(&["scan", "--adapter", spec, "--realtime"]);
+        let err = stderr(&o);
+        assert_eq!(code(&o), 2, "{spec}: {err}");
+        assert!(err.contains("--realtime paces the simulated bench only"), "{spec}: {err}");
+        // The port was never opened: opening it would have failed (exit 4).
+        assert!(!err.contains("cannot open"), "{spec}: {err}");
+        // Without the flag the same spec gets as far as the port.
+        let o = run(&["scan", "--adapter", spec]);
+        assert_eq!(code(&o), 4, "{spec}: {}", stderr(&o));
+    }
+    // The simulated bench takes it.
+    let spec = bench(dir.path(), "b", true, "");
+    let o = run(&["scan", "--adapter", &spec, "--realtime"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+}

@@ -154,7 +154,19 @@ impl Colour {
 }
 
 impl BusArgs {
+    /// Opens the adapter at the requested speed. `--realtime` with a serial
+    /// adapter is refused before the port is touched: it paces the
+    /// simulated bench's clock, and a serial adapter's bus has no other
+    /// clock than the wall clock, so the flag could never change anything.
     pub fn open(&self) -> Result<Box<dyn adapter::Adapter>> {
+        if self.realtime
+            && let AdapterSpec::Native { .. } | AdapterSpec::Dialect { .. } = self.adapter
+        {
+            bail!(
+                "--realtime paces the simulated bench only; a serial adapter's bus already runs in real time \
+                 (drop --realtime)"
+            );
+        }
         let mut a = compose::open(&self.adapter, &OpenOptions { realtime: self.realtime })?;
         if let Some(s) = self.speed {
             a.set_speed(s)?;
