@@ -122,3 +122,38 @@ fn realtime_with_a_serial_adapter_is_a_usage_error_before_the_port_is_touched() 
     let o = run(&["scan", "--adapter", &spec, "--realtime"]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
 }
+
+// ---- scan --ten-bit on an adapter without 10-bit support ----
+
+#[test]
+fn scan_ten_bit_without_support_reports_the_seven_bit_results_and_says_what_was_skipped() {
+    let dir = tempfile::tempdir().unwrap();
+    let seven = bench(dir.path(), "seven", false, "");
+    let o = run(&["scan", "--adapter", &seven, "--ten-bit"]);
+    let (out, err) = (stdout(&o), stderr(&o));
+    // Exit 4, as any request the adapter cannot do, after the results.
+    assert_eq!(code(&o), 4, "{out}{err}");
+    // 0x08-0x77: the 128 7-bit addresses less the 16 reserved ones
+    // (UM10204 §3.1.12, Table 4: 0000 XXX and 1111 XXX): 112.
+    assert!(out.starts_with("probed 112 addresses"), "{out}");
+    assert!(out.contains("0x20") && out.contains("answers") && out.ends_with("1 answered\n"), "{out}");
+    assert_eq!(err.matches("10-bit addresses were not probed: this adapter has no 10-bit support").count(), 1, "{err}");
+    let o = run(&["scan", "--adapter", &seven, "--ten-bit", "--json"]);
+    assert_eq!(code(&o), 4);
+    let v: serde_json::Value = serde_json::from_str(&stdout(&o)).unwrap();
+    assert_eq!(v["probed"], 112);
+    assert_eq!(v["found"], serde_json::json!(["0x20"]));
+    assert_eq!(v["ten_bit_skipped"], true);
+    // With support the 1024 10-bit addresses are probed too: 112 + 1024.
+    let both = bench(dir.path(), "both", true, "");
+    let o = run(&["scan", "--adapter", &both, "--ten-bit", "--json"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let v: serde_json::Value = serde_json::from_str(&stdout(&o)).unwrap();
+    assert_eq!(v["probed"], 1136);
+    assert_eq!(v["found"], serde_json::json!(["0x20", "10:0x2A5"]));
+    assert_eq!(v["ten_bit_skipped"], false);
+    // Not asked for 10-bit: nothing skipped, exit 0.
+    let o = run(&["scan", "--adapter", &seven]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stderr(&o).is_empty(), "{}", stderr(&o));
+}
