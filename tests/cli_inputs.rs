@@ -9,7 +9,7 @@
 mod common;
 use common::*;
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// A bench with a register device at 0x20 (register 0x01 resets to 0x11)
 /// and, unless `ten_bit` is off, a register device at the 10-bit address
@@ -156,4 +156,152 @@ fn scan_ten_bit_without_support_reports_the_seven_bit_results_and_says_what_was_
     let o = run(&["scan", "--adapter", &seven]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     assert!(stderr(&o).is_empty(), "{}", stderr(&o));
+}
+
+// ---- replay: the trace and the masks checked before anything is sent ----
+
+/// The script recorded for the replay tests: names from a register map,
+/// a 17-byte write and a 10-bit write.
+const RECORDED: &str = r#"
+local d = bus.device(0x20, { map = { CONFIG = { at = 0x01 }, LEVEL = { at = 0x02, fields = { LOW = { bit = 0 } } } } })
+d:get("CONFIG")
+d:set("LEVEL", 3)
+d:field("LEVEL.LOW")
+bus.write(0x20, { 0x05, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15, 16 })
+bus.write(bus.ten(0x2A5), { 0x00, 0x42 })
+"#;
+
+/// Records [`RECORDED`] on a bench in `dir`; returns the trace and its lines.
+fn recorded(dir: &Path) -> (PathBuf, Vec<String>, String) {
+    let spec = bench(dir, "rec", true, "");
+    let script = dir.join("rec.lua");
+    std::fs::write(&script, RECORDED).unwrap();
+    let trace = dir.join("t.jsonl");
+    let o = run(&["run", script.to_str().unwrap(), "-q", "--adapter", &spec, "--trace", trace.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let lines: Vec<String> = std::fs::read_to_string(&trace).unwrap().lines().map(str::to_string).collect();
+    (trace, lines, spec)
+}
+
+/// The line number (from 1) of the frame with sequence number `seq`.
+fn line_of(lines: &[String], seq: u64) -> usize {
+    lines
+        .iter()
+        .position(|l| {
+            let v: serde_json::Value = serde_json::from_str(l).unwrap();
+            v["kind"] == "frame" && v["seq"] == seq
+        })
+        .unwrap()
+        + 1
+}
+
+/// Replays `trace` with `--json --trace-out` and checks nothing was sent:
+/// no record on standard output, no replay trace started. Returns the exit
+/// code and standard error.
+fn replay_refused(trace: &Path, extra: &[&str]) -> (i32, String) {
+    let out = trace.with_extension("replayed.jsonl");
+    let mut args = vec!["replay", trace.to_str().unwrap(), "--json", "--trace-out", out.to_str().unwrap()];
+    args.extend_from_slice(extra);
+    let o = run(&args);
+    let err = stderr(&o);
+    assert!(stdout(&o).is_empty(), "nothing replayed: {}", stdout(&o));
+    assert!(!out.exists(), "no replay trace started");
+    assert!(!err.contains("matches the recording") && !err.contains("replayed "), "the error only: {err}");
+    assert_eq!(err.matches("error:").count(), 1, "said once: {err}");
+    (code(&o), err)
+}
+
+#[test]
+fn a_frame_no_adapter_can_send_refuses_the_replay_naming_its_line() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_, lines, _) = recorded(dir.path());
+    let n = line_of(&lines, 2);
+    for (ops, says) in [
+        (serde_json::json!([]), "a transaction needs at least one operation"),
+        (serde_json::json!([{ "read": 0 }]), "operation 0 reads 0 bytes"),
+    ] {
+        let mut edited = lines.clone();
+        let mut frame: serde_json::Value = serde_json::from_str(&edited[n - 1]).unwrap();
+        frame["ops"] = ops;
+        edited[n - 1] = frame.to_string();
+        let bad = dir.path().join("bad.jsonl");
+        std::fs::write(&bad, edited.join("\n") + "\n").unwrap();
+        let (exit, err) = replay_refused(&bad, &[]);
+        assert_eq!(exit, 2, "{err}");
+        let named = format!("{}:{n}: frame 2 cannot be replayed: {says}", bad.display());
+        assert!(err.contains(&named) && err.contains("(nothing was replayed)"), "{err}");
+    }
+}
+
+#[test]
+fn a_trace_the_adapter_cannot_play_whole_is_refused_before_the_first_frame() {
+    let dir = tempfile::tempdir().unwrap();
+    let (trace, lines, spec) = recorded(dir.path());
+    // The recording plays back on its own bench.
+    let o = run(&["replay", trace.to_str().unwrap(), "--adapter", &spec]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stderr(&o).contains("replayed 5 frames") && stderr(&o).contains("matches the recording"));
+    // Frame 4 writes 17 bytes (pointer and 16 data) in operation 0.
+    let small = bench(dir.path(), "small", true, "max_bytes_per_op = 8");
+    let (exit, err) = replay_refused(&trace, &["--adapter", &small]);
+    assert_eq!(exit, 2, "{err}");
+    let line = line_of(&lines, 4);
+    let named =
+        format!("t.jsonl:{line}: frame 4 operation 0 moves 17 bytes; this adapter moves at most 8 per operation");
+    assert!(err.contains(&named), "{err}");
+    // Frame 5 is to 10-bit 0x2A5: exit 4, as an unsupported request is.
+    let seven = bench(dir.path(), "seven", false, "");
+    let (exit, err) = replay_refused(&trace, &["--adapter", &seven]);
+    assert_eq!(exit, 4, "{err}");
+    let line = line_of(&lines, 5);
+    assert!(
+        err.contains(&format!("t.jsonl:{line}: frame 5 is to a 10-bit address and this adapter has no 10-bit support")),
+        "{err}"
+    );
+}
+
+#[test]
+fn a_mask_naming_a_register_the_recording_never_names_is_refused_with_the_names() {
+    let dir = tempfile::tempdir().unwrap();
+    let (trace, _, spec) = recorded(dir.path());
+    let (exit, err) = replay_refused(&trace, &["--adapter", &spec, "--mask", "0x20,reg=NOPE"]);
+    assert_eq!(exit, 2, "{err}");
+    // LEVEL.LOW is a field of LEVEL: the register is LEVEL.
+    assert!(
+        err.contains("mask `0x20,reg=NOPE`: ")
+            && err.contains("names no register NOPE at 0x20; the names it has there: CONFIG, LEVEL"),
+        "{err}"
+    );
+    let (_, err) = replay_refused(&trace, &["--adapter", &spec, "--mask", "0x21,reg=CONFIG"]);
+    assert!(err.contains("names no register CONFIG at 0x21; it has no frames to that address"), "{err}");
+    let (_, err) = replay_refused(&trace, &["--adapter", &spec, "--mask", "10:0x2A5,reg=CONFIG"]);
+    assert!(err.contains("at 10:0x2A5; its frames there carry no register names"), "{err}");
+    // Names it has, and register numbers, are taken.
+    for mask in ["0x20,reg=LEVEL", "0x20,reg=CONFIG,bytes=0", "0x20,reg=0x33"] {
+        let o = run(&["replay", trace.to_str().unwrap(), "--adapter", &spec, "--mask", mask]);
+        assert_eq!(code(&o), 0, "{mask}: {}", stderr(&o));
+    }
+}
+
+#[test]
+fn a_replay_stopped_before_the_end_does_not_claim_to_match() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_, lines, spec) = recorded(dir.path());
+    // Frames 3 to 5 an hour later: paced in real time, the replay meets its
+    // one-second limit in the gap, after frames 1 and 2 matched.
+    let mut edited = lines.clone();
+    for seq in 3..=5 {
+        let n = line_of(&lines, seq);
+        let mut frame: serde_json::Value = serde_json::from_str(&edited[n - 1]).unwrap();
+        frame["t_ns"] = serde_json::json!(frame["t_ns"].as_u64().unwrap() + 3_600_000_000_000);
+        edited[n - 1] = frame.to_string();
+    }
+    let gap = dir.path().join("gap.jsonl");
+    std::fs::write(&gap, edited.join("\n") + "\n").unwrap();
+    let o = run(&["replay", gap.to_str().unwrap(), "--adapter", &spec, "--realtime", "--timeout", "1s"]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 2, "a time limit is exit 2: {err}");
+    assert!(!err.contains("matches the recording"), "{err}");
+    assert!(err.contains("replayed 2 frames of") && err.contains("no divergence before it stopped"), "{err}");
+    assert_eq!(err.matches("error: replay stopped: ran past its time limit of 1 s").count(), 1, "{err}");
 }
