@@ -9,7 +9,9 @@
 mod common;
 use common::*;
 
+use std::io::Write;
 use std::path::{Path, PathBuf};
+use std::process::{Output, Stdio};
 
 /// A bench with a register device at 0x20 (register 0x01 resets to 0x11)
 /// and, unless `ten_bit` is off, a register device at the 10-bit address
@@ -26,6 +28,26 @@ fn bench(dir: &Path, name: &str, ten_bit: bool, extra: &str) -> String {
     let path = dir.join(format!("{name}.toml"));
     std::fs::write(&path, text).unwrap();
     format!("sim:{}", path.display())
+}
+
+/// Runs `buscue ARGS` in `cwd` with `input` on standard input.
+fn run_with_stdin(cwd: &Path, args: &[&str], input: Vec<u8>) -> Output {
+    let mut child = buscue()
+        .current_dir(cwd)
+        .args(args)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("buscue starts");
+    let mut stdin = child.stdin.take().unwrap();
+    // A refused script stops reading: the rest of the input meets a closed pipe.
+    let writer = std::thread::spawn(move || {
+        let _ = stdin.write_all(&input);
+    });
+    let out = child.wait_with_output().unwrap();
+    writer.join().unwrap();
+    out
 }
 
 // ---- values that look like negative numbers ----
@@ -304,4 +326,115 @@ fn a_replay_stopped_before_the_end_does_not_claim_to_match() {
     assert!(!err.contains("matches the recording"), "{err}");
     assert!(err.contains("replayed 2 frames of") && err.contains("no divergence before it stopped"), "{err}");
     assert_eq!(err.matches("error: replay stopped: ran past its time limit of 1 s").count(), 1, "{err}");
+}
+
+// ---- run - ----
+
+#[test]
+fn run_dash_reads_the_script_from_standard_input() {
+    let dir = tempfile::tempdir().unwrap();
+    let spec = bench(dir.path(), "b", true, "");
+    let text = "log(\"from a pipe\")\nbus.write(0x20, {0x01, 0x22})\nerror(\"stop here\")\n";
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--json", "--trace", "t.jsonl"], text.into());
+    let err = stderr(&o);
+    assert_eq!(code(&o), 2, "{err}");
+    let frames = frames(&o);
+    assert_eq!(frames.len(), 1);
+    assert_eq!(frames[0]["origin"], serde_json::json!({ "file": "<stdin>", "line": 2 }));
+    assert!(err.contains("error: <stdin>:3: stop here") && err.contains("  at <stdin>:3"), "{err}");
+    let header: serde_json::Value =
+        serde_json::from_str(std::fs::read_to_string(dir.path().join("t.jsonl")).unwrap().lines().next().unwrap())
+            .unwrap();
+    assert_eq!(header["script"]["path"], "<stdin>");
+    // The frame log names the script the same way.
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--no-trace"], "bus.write(0x20, {1})".into());
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stdout(&o).trim_end().ends_with("<stdin>:1"), "{}", stdout(&o));
+}
+
+#[test]
+fn the_trace_names_a_piped_script_with_the_hash_of_its_text() {
+    let dir = tempfile::tempdir().unwrap();
+    let spec = bench(dir.path(), "b", true, "");
+    // "abc" is not Lua, but the header is written before the script runs.
+    // SHA-256("abc") from FIPS 180-2, Appendix B.1.
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--trace", "t.jsonl"], b"abc".to_vec());
+    assert_eq!(code(&o), 2, "a syntax error: {}", stderr(&o));
+    assert!(stderr(&o).contains("<stdin>:1:"), "{}", stderr(&o));
+    let header: serde_json::Value =
+        serde_json::from_str(std::fs::read_to_string(dir.path().join("t.jsonl")).unwrap().lines().next().unwrap())
+            .unwrap();
+    assert_eq!(header["script"]["sha256"], "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+    // The default trace is named after `stdin`.
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec], b"log(1)".to_vec());
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let names: Vec<String> = std::fs::read_dir(dir.path().join("traces"))
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert!(names.len() == 1 && names[0].starts_with("stdin-") && names[0].ends_with(".jsonl"), "{names:?}");
+}
+
+#[test]
+fn a_piped_script_requires_from_the_working_folder_and_scripts() {
+    let dir = tempfile::tempdir().unwrap();
+    let spec = bench(dir.path(), "b", true, "");
+    std::fs::write(dir.path().join("here.lua"), "return { x = 'from .' }").unwrap();
+    std::fs::create_dir(dir.path().join("scripts")).unwrap();
+    std::fs::write(dir.path().join("scripts/there.lua"), "return { y = 'from scripts/' }").unwrap();
+    let text = "log(require('here').x .. ', ' .. require('there').y)";
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--no-trace"], text.into());
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stdout(&o).contains("from ., from scripts/"), "{}", stdout(&o));
+}
+
+#[test]
+fn standard_input_is_read_up_to_sixteen_mebibytes() {
+    let dir = tempfile::tempdir().unwrap();
+    let spec = bench(dir.path(), "b", true, "");
+    const LIMIT: usize = 16 << 20;
+    // A comment line of exactly the limit, newline included, runs.
+    let mut at_limit = b"--".to_vec();
+    at_limit.resize(LIMIT - 1, b'x');
+    at_limit.push(b'\n');
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--no-trace"], at_limit.clone());
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    // One byte more is refused before the adapter is opened.
+    at_limit.push(b'\n');
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--no-trace"], at_limit);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("the script on standard input is longer than 16 MiB"), "{}", stderr(&o));
+    assert!(stdout(&o).is_empty());
+    // Text that is not UTF-8 is refused, at its first bad byte.
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--no-trace"], vec![b'l', b'o', 0xFF]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("not UTF-8 text (byte 2)"), "{}", stderr(&o));
+}
+
+#[test]
+fn outputs_are_never_named_dash_nor_the_file_standard_input_comes_from() {
+    let dir = tempfile::tempdir().unwrap();
+    let spec = bench(dir.path(), "b", true, "");
+    let o = run_with_stdin(dir.path(), &["run", "-", "--adapter", &spec, "--trace", "-"], b"log(1)".to_vec());
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("`-` is not a file name for the trace"), "{}", stderr(&o));
+    assert!(!dir.path().join("-").exists());
+    let o = run(&["to-script", "t.jsonl", "-o", "-"]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("`-` is not a file name for the script"), "{}", stderr(&o));
+    // `run - < s.lua --trace s.lua --force` would overwrite the script it runs.
+    #[cfg(unix)]
+    {
+        let script = dir.path().join("s.lua");
+        std::fs::write(&script, "log(1)").unwrap();
+        let o = buscue()
+            .current_dir(dir.path())
+            .args(["run", "-", "--adapter", &spec, "--trace", "s.lua", "--force"])
+            .stdin(std::fs::File::open(&script).unwrap())
+            .output()
+            .unwrap();
+        assert_eq!(code(&o), 2, "{}", stderr(&o));
+        assert!(stderr(&o).contains("refusing to write the trace over s.lua (it is the script"), "{}", stderr(&o));
+        assert_eq!(std::fs::read_to_string(&script).unwrap(), "log(1)");
+    }
 }
