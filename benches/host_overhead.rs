@@ -85,6 +85,7 @@ fn measure(label: &str, make: impl Fn(&std::path::Path, std::fs::File, &SimAdapt
     }
     let cfg = RunConfig {
         script,
+        text: None,
         params: Default::default(),
         timeout: None,
         memory_limit: DEFAULT_MEMORY_LIMIT,

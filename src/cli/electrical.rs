@@ -15,7 +15,7 @@ use std::io::Write as _;
 use anyhow::Result;
 
 use crate::bus::BusSpeed;
-use crate::cli::{exit, out};
+use crate::cli::{exit, out, whole};
 use crate::electrical::limits::Sink;
 use crate::electrical::options::{self, BusTimeOptions, PullupOptions};
 use crate::electrical::tables::{bus_time_table, pullup_table};
@@ -29,19 +29,20 @@ pub struct PullupArgs {
     #[arg(long, value_name = "VOLTS", value_parser = units::volts, allow_hyphen_values = true)]
     pub vdd: f64,
     /// Speed to meet: standard, fast, fast-plus, or a clock such as 400k.
-    #[arg(long, value_name = "MODE|CLOCK", value_parser = options::speed_target, default_value = "standard")]
+    #[arg(long, value_name = "MODE|CLOCK", value_parser = options::speed_target, default_value = "standard",
+          allow_hyphen_values = true)]
     pub speed: SpeedTarget,
     /// Sink rating of the weakest device (UM10204 Table 9): 3mA (at VOL 0.4 V),
     /// 6mA (at VOL 0.6 V, Fast-mode) or 20mA (at VOL 0.4 V, Fast-mode Plus)
     /// [default: each mode's own].
-    #[arg(long, value_name = "RATING", value_parser = options::sink_rating)]
+    #[arg(long, value_name = "RATING", value_parser = options::sink_rating, allow_hyphen_values = true)]
     pub sink: Option<Sink>,
     /// Measured bus capacitance, e.g. 150p, 0.2n.
     #[arg(long, value_name = "CAP", value_parser = units::picofarads, allow_hyphen_values = true,
           conflicts_with_all = ["devices", "wire_length", "wire_cap"])]
     pub bus_cap: Option<f64>,
     /// To estimate the bus capacitance: the number of devices on the bus.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = whole::<u32>, allow_negative_numbers = true)]
     pub devices: Option<u32>,
     /// Capacitance of one device pin [default: 10p].
     #[arg(long, value_name = "CAP", value_parser = units::picofarads, allow_hyphen_values = true)]
@@ -100,19 +101,20 @@ pub fn run(args: &PullupArgs) -> Result<u8> {
 #[derive(clap::Args, Debug)]
 pub struct BusTimeArgs {
     /// SCL clock, e.g. 100k, 400k, 1M.
-    #[arg(long, value_name = "CLOCK", value_parser = options::bus_clock, default_value = "100k")]
+    #[arg(long, value_name = "CLOCK", value_parser = options::bus_clock, default_value = "100k", allow_hyphen_values = true)]
     pub speed: BusSpeed,
     /// Bytes written (the first operation).
-    #[arg(long, value_name = "N", conflicts_with = "ops")]
+    #[arg(long, value_name = "N", conflicts_with = "ops", value_parser = whole::<usize>, allow_negative_numbers = true)]
     pub write: Option<usize>,
     /// Bytes read (after the write, with a repeated START).
-    #[arg(long, value_name = "N", conflicts_with = "ops")]
+    #[arg(long, value_name = "N", conflicts_with = "ops", value_parser = whole::<usize>, allow_negative_numbers = true)]
     pub read: Option<usize>,
     /// The operations in order instead: w = bytes written, r = bytes read, e.g. w2,r6 or w1,w4.
     #[arg(long, value_name = "LIST")]
     pub ops: Option<String>,
     /// Address kind: 7 or 10 bits.
-    #[arg(long, value_name = "BITS", default_value_t = 7, value_parser = options::address_bits)]
+    #[arg(long, value_name = "BITS", default_value_t = 7, value_parser = options::address_bits,
+          allow_negative_numbers = true)]
     pub address_bits: u8,
     /// Print the report as JSON.
     #[arg(long)]

@@ -83,9 +83,10 @@ pub struct BusArgs {
     #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
     pub adapter: AdapterSpec,
     /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
-    #[arg(long, value_parser = parse_speed)]
+    #[arg(long, value_parser = parse_speed, allow_hyphen_values = true)]
     pub speed: Option<BusSpeed>,
-    /// Pace the simulated bench in real time instead of virtual time.
+    /// Pace the simulated bench in real time instead of virtual time
+    /// (simulated adapters only: a serial adapter's bus runs in real time).
     #[arg(long)]
     pub realtime: bool,
 }
@@ -103,7 +104,7 @@ pub struct ShowArgs {
     pub wide: bool,
     /// Fit frame lines to this many columns (default: the terminal's
     /// width; off a terminal nothing is fitted).
-    #[arg(long, value_name = "COLUMNS", value_parser = clap::value_parser!(u16).range(20..))]
+    #[arg(long, value_name = "COLUMNS", value_parser = whole_in(20u16, u16::MAX), allow_negative_numbers = true)]
     pub width: Option<u16>,
 }
 
@@ -153,7 +154,19 @@ impl Colour {
 }
 
 impl BusArgs {
+    /// Opens the adapter at the requested speed. `--realtime` with a serial
+    /// adapter is refused before the port is touched: it paces the
+    /// simulated bench's clock, and a serial adapter's bus has no other
+    /// clock than the wall clock, so the flag could never change anything.
     pub fn open(&self) -> Result<Box<dyn adapter::Adapter>> {
+        if self.realtime
+            && let AdapterSpec::Native { .. } | AdapterSpec::Dialect { .. } = self.adapter
+        {
+            bail!(
+                "--realtime paces the simulated bench only; a serial adapter's bus already runs in real time \
+                 (drop --realtime)"
+            );
+        }
         let mut a = compose::open(&self.adapter, &OpenOptions { realtime: self.realtime })?;
         if let Some(s) = self.speed {
             a.set_speed(s)?;
@@ -167,11 +180,58 @@ fn parse_adapter(s: &str) -> Result<AdapterSpec, String> {
 }
 
 fn parse_speed(s: &str) -> Result<BusSpeed, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: a bus clock is a frequency such as 100k, 400k or 1M"));
+    }
     s.parse().map_err(|e: crate::bus::speed::SpeedError| e.to_string())
+}
+
+/// Whether an option's value is written as a negative number (`-5`,
+/// `-0.1`, `-100k`). Options whose values may look like that take them as
+/// values (`allow_hyphen_values`, `allow_negative_numbers`), so their
+/// parsers can refuse them by what they are instead of clap taking them
+/// for unknown options.
+pub fn negative(s: &str) -> bool {
+    s.trim_start().strip_prefix('-').is_some_and(|rest| rest.starts_with(|c: char| c.is_ascii_digit() || c == '.'))
+}
+
+/// The value parser of a whole-number option from `lo` to `hi`: a
+/// negative value, text, or a number outside the range is refused by what
+/// it is (clap puts the option's name before the message).
+pub fn whole_in<N>(lo: N, hi: N) -> impl Fn(&str) -> Result<N, String> + Clone + Send + Sync + 'static
+where
+    N: std::str::FromStr + PartialOrd + std::fmt::Display + Copy + Send + Sync + 'static,
+{
+    move |s: &str| {
+        let range = format!("a whole number from {lo} to {hi}");
+        if negative(s) {
+            return Err(format!("`{s}` is negative: give {range}"));
+        }
+        let n: N = s.trim().parse().map_err(|_| format!("`{s}` is not {range}"))?;
+        if n < lo || n > hi {
+            return Err(format!("{n} is out of range: give {range}"));
+        }
+        Ok(n)
+    }
+}
+
+/// The value parser of a whole-number option that takes any value from
+/// 0 up (counts, milliseconds, seeds).
+pub fn whole<N>(s: &str) -> Result<N, String>
+where
+    N: std::str::FromStr,
+{
+    if negative(s) {
+        return Err(format!("`{s}` is negative: give a whole number, 0 or more"));
+    }
+    s.trim().parse().map_err(|_| format!("`{s}` is not a whole number (0 or more)"))
 }
 
 /// Parses `30`, `30s`, `500ms`, `2m`, `1h`; `0` means no limit.
 pub fn parse_duration(s: &str) -> Result<Duration, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: give a time such as 30s, 500ms or 2m, or 0 for no limit"));
+    }
     let t = s.trim();
     let (num, unit) = match t.find(|c: char| !(c.is_ascii_digit() || c == '.')) {
         Some(i) => t.split_at(i),
@@ -195,6 +255,9 @@ pub fn parse_duration(s: &str) -> Result<Duration, String> {
 /// Parses a size for `--trace-limit`: bytes, or a whole number with K, M,
 /// G or T (1024-based; `KiB`, `MB` and the like are read the same way).
 pub fn parse_size(s: &str) -> Result<u64, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: give a size such as 100M or 1G, or 0 for no limit"));
+    }
     let t = s.trim();
     let (num, unit) = t.split_at(t.find(|c: char| !c.is_ascii_digit()).unwrap_or(t.len()));
     let bad = || format!("`{s}` is not a size: write 0, 65536, 100M or 1G");
@@ -336,6 +399,26 @@ mod tests {
         assert_eq!(parse_assignment("msg=a=b"), Ok(("msg".into(), "a=b".into())));
         assert!(parse_assignment("novalue").is_err());
         assert!(parse_assignment("bad name=1").is_err());
+    }
+
+    #[test]
+    fn negative_values_are_told_apart() {
+        for s in ["-5", "-0.1", "-.5", "-100k", " -3"] {
+            assert!(negative(s), "{s}");
+        }
+        for s in ["5", "0", "--realtime", "-x", "-", "k-1"] {
+            assert!(!negative(s), "{s}");
+        }
+        let attempts = whole_in(1u32, 100);
+        assert_eq!(attempts("7"), Ok(7));
+        assert_eq!(attempts("-1"), Err("`-1` is negative: give a whole number from 1 to 100".into()));
+        assert_eq!(attempts("101"), Err("101 is out of range: give a whole number from 1 to 100".into()));
+        assert_eq!(attempts("many"), Err("`many` is not a whole number from 1 to 100".into()));
+        assert_eq!(whole::<u64>("0"), Ok(0));
+        assert_eq!(whole::<u64>("-2"), Err("`-2` is negative: give a whole number, 0 or more".into()));
+        assert!(parse_duration("-1s").unwrap_err().contains("is negative"));
+        assert!(parse_size("-1G").unwrap_err().contains("is negative"));
+        assert!(parse_speed("-100k").unwrap_err().contains("is negative"));
     }
 
     #[test]

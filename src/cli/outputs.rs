@@ -8,6 +8,8 @@
 //! [`create`] opens the output with create-new semantics unless forced,
 //! so a file that appears between the check and the write is not
 //! truncated either. Default trace paths are always new and need neither.
+//! An output named `-` is refused: on a command line `-` stands for
+//! standard input or output, never for a file of that name (`./-` is one).
 
 use std::fs::File;
 use std::io;
@@ -19,6 +21,8 @@ use thiserror::Error;
 pub enum OutputError {
     #[error("refusing to write {what} over {} (it is {role} of this command)", .path.display())]
     IsInput { what: &'static str, path: PathBuf, role: &'static str },
+    #[error("`-` is not a file name for {what}: {what} goes to a file (write ./- for a file named -)")]
+    Dash { what: &'static str },
     #[error("{} exists; add --force to replace it", .0.display())]
     Exists(PathBuf),
     #[error("cannot write {}: {detail}", .path.display())]
@@ -42,6 +46,9 @@ fn same_file(a: &Path, b: &Path) -> bool {
 /// Refuses `out` when it is one of `inputs` (each with the role it plays,
 /// "the script", "the trace"); `what` names what would be written.
 pub fn check(out: &Path, what: &'static str, inputs: &[(&Path, &'static str)]) -> Result<(), OutputError> {
+    if out.as_os_str() == "-" {
+        return Err(OutputError::Dash { what });
+    }
     for (input, role) in inputs {
         if same_file(out, input) {
             return Err(OutputError::IsInput { what, path: out.to_path_buf(), role });

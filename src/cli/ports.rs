@@ -11,7 +11,7 @@ use serialport::SerialPortType;
 use crate::adapter::NativeSettings;
 use crate::adapter::native::probe;
 
-use super::shown;
+use super::{shown, whole};
 
 #[derive(Args, Debug)]
 pub struct PortsArgs {
@@ -19,7 +19,7 @@ pub struct PortsArgs {
     #[arg(long)]
     pub probe: bool,
     /// Baud rate for --probe.
-    #[arg(long, default_value_t = 115_200)]
+    #[arg(long, default_value_t = 115_200, value_parser = whole::<u32>, allow_negative_numbers = true)]
     pub baud: u32,
     /// Only these ports: list them and, with --probe, touch no other
     /// (pseudo-terminals are not listed by the system; name them here).

@@ -1,7 +1,7 @@
 //! `buscue run`: play a script.
 
-use std::io::Write;
-use std::path::PathBuf;
+use std::io::{IsTerminal, Read, Write};
+use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 
 use anyhow::{Context, Result};
@@ -10,6 +10,7 @@ use clap::Args;
 use crate::cli::{exit, out};
 use crate::player::RunError;
 use crate::script::{self, RunConfig, Session};
+use crate::trace::file::size_text;
 use crate::trace::{Header, TraceWriter};
 use crate::view::format::{link_summary, summary};
 use crate::view::json::JsonLines;
@@ -19,24 +20,35 @@ use super::outputs;
 use super::watchdog::{self, Watchdog};
 use super::{
     BusArgs, ShowArgs, error_line, interrupt_flag, parse_assignment, parse_duration, parse_size, shown, warning_line,
+    whole_in,
 };
+
+/// The most script `run -` reads from standard input: far more than any
+/// bus sequence needs, and a bound on what a stream that never ends (or
+/// the wrong file piped in) can make the command hold.
+pub const STDIN_SCRIPT_LIMIT: usize = 16 << 20;
+
+/// The name a script read from standard input goes by: in errors, frame
+/// origins and the trace header.
+pub const STDIN_NAME: &str = "<stdin>";
 
 #[derive(Args, Debug)]
 pub struct RunArgs {
-    /// The Lua script to play.
+    /// The Lua script to play; `-` reads it from standard input.
     pub script: PathBuf,
     #[command(flatten)]
     pub bus: BusArgs,
     #[command(flatten)]
     pub show: ShowArgs,
     /// Script parameter, read by `param("name", default)`; repeatable.
-    #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment)]
+    #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
     /// Wall-clock limit for the script (30, 30s, 500ms, 2m; 0 = none).
-    #[arg(long, default_value = "10m", value_parser = parse_duration)]
+    #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: Duration,
     /// Memory limit for the script, in MiB.
-    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB, value_parser = clap::value_parser!(u32).range(1..=16384))]
+    #[arg(long, value_name = "MIB", default_value_t = script::DEFAULT_MEMORY_LIMIT_MIB,
+          value_parser = whole_in(1u32, 16384), allow_negative_numbers = true)]
     pub memory_limit: u32,
     /// Let the script use io, os and the stock require (file and process
     /// access). Only for scripts you trust.
@@ -63,14 +75,68 @@ pub struct RunArgs {
     pub force: bool,
     /// Stop the run when its trace would pass this size (100M, 1G; K, M, G
     /// are 1024-based; 0 = no limit). Exit code 6.
-    #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace")]
+    #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace",
+          allow_hyphen_values = true)]
     pub trace_limit: u64,
 }
 
-pub fn run(a: RunArgs) -> Result<u8> {
-    if !a.script.is_file() {
-        anyhow::bail!("script {} does not exist or is not a file", a.script.display());
+/// The script to play, read once: what runs is what the trace's header
+/// hashes.
+struct Script {
+    /// The file, or [`STDIN_NAME`].
+    name: PathBuf,
+    text: String,
+    /// Read from standard input (`run -`).
+    stdin: bool,
+}
+
+impl Script {
+    fn read(path: &Path) -> Result<Script> {
+        if path.as_os_str() != "-" {
+            if !path.is_file() {
+                anyhow::bail!("script {} does not exist or is not a file", path.display());
+            }
+            let text =
+                std::fs::read_to_string(path).with_context(|| format!("cannot read script {}", path.display()))?;
+            return Ok(Script { name: path.to_path_buf(), text, stdin: false });
+        }
+        let stdin = std::io::stdin();
+        if stdin.is_terminal() {
+            eprintln!("reading the script from standard input; end it with Ctrl-D");
+        }
+        let mut bytes = Vec::new();
+        stdin
+            .lock()
+            .take(STDIN_SCRIPT_LIMIT as u64 + 1)
+            .read_to_end(&mut bytes)
+            .context("cannot read the script from standard input")?;
+        if bytes.len() > STDIN_SCRIPT_LIMIT {
+            anyhow::bail!(
+                "the script on standard input is longer than {} (the most `run -` reads); run it from a file",
+                size_text(STDIN_SCRIPT_LIMIT as u64)
+            );
+        }
+        let text = String::from_utf8(bytes).map_err(|e| {
+            anyhow::anyhow!("the script on standard input is not UTF-8 text (byte {})", e.utf8_error().valid_up_to())
+        })?;
+        Ok(Script { name: STDIN_NAME.into(), text, stdin: true })
     }
+
+    /// The script as an input `--trace` must not be written over: its file,
+    /// or the file standard input comes from, where the system names it.
+    fn input_path(&self) -> &Path {
+        if self.stdin { Path::new("/dev/stdin") } else { &self.name }
+    }
+
+    /// The script path the default trace is named after.
+    fn stem_path(&self) -> &Path {
+        if self.stdin { Path::new("stdin") } else { &self.name }
+    }
+}
+
+pub fn run(a: RunArgs) -> Result<u8> {
+    let script = Script::read(&a.script)?;
+    let name = script.name.display().to_string();
     let interrupt = interrupt_flag()?;
     let adapter = a.bus.open()?;
     let mut session = Session::new(adapter, interrupt.clone());
@@ -84,20 +150,19 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let trace_path = if a.no_trace {
         None
     } else {
-        let text = std::fs::read(&a.script).with_context(|| format!("cannot read script {}", a.script.display()))?;
         let header = Header::new("run", session.adapter_ref().snapshot()).with_script(
-            &a.script.display().to_string(),
-            &text,
+            &name,
+            script.text.as_bytes(),
             params.clone(),
         );
         let mut w = match &a.trace {
             Some(path) => {
-                outputs::check(path, "the trace", &[(&a.script, "the script")])?;
+                outputs::check(path, "the trace", &[(script.input_path(), "the script")])?;
                 let w =
                     if a.force { TraceWriter::create(path, &header) } else { TraceWriter::create_new(path, &header) };
                 w.map_err(|e| outputs::trace_error(path, e))?
             }
-            None => TraceWriter::create_default(&a.script, std::time::SystemTime::now(), &header)
+            None => TraceWriter::create_default(script.stem_path(), std::time::SystemTime::now(), &header)
                 .context("cannot create a trace file in traces/")?,
         };
         let limit = (a.trace_limit > 0).then_some(a.trace_limit);
@@ -116,11 +181,12 @@ pub fn run(a: RunArgs) -> Result<u8> {
         let log = out::frame_log();
         log_flush = Some(log.flusher());
         // Frames name the script as the Lua chunk does: by the path given.
-        let layout = a.show.layout(Some(a.script.display().to_string().into()));
+        let layout = a.show.layout(Some(name.as_str().into()));
         session.add_sink(Box::new(PlainLog::with_layout(log, layout, !a.quiet)));
     }
     let cfg = RunConfig {
-        script: a.script.clone(),
+        script: script.name,
+        text: Some(script.text),
         params,
         timeout,
         memory_limit: script::memory_limit_bytes(a.memory_limit),

@@ -5,13 +5,14 @@ use std::io::Write;
 use anyhow::Result;
 use clap::{Args, ValueEnum};
 
+use crate::adapter::AdapterError;
 use crate::cli::{exit, out};
 use crate::player::RetryPolicy;
 use crate::player::{Probe, scan_range};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, ShowArgs, error_line, interrupt_flag};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag, whole_in};
 
 /// The probes of `--probe`. Described in the option's own help, not per
 /// value: value descriptions would give `scan --help` a layout of its own.
@@ -54,7 +55,7 @@ pub struct ScanArgs {
     #[arg(long)]
     pub ten_bit: bool,
     /// Tries per address, for devices that NACK now and then.
-    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..=100))]
+    #[arg(long, default_value_t = 1, value_parser = whole_in(1u32, 100), allow_negative_numbers = true)]
     pub attempts: u32,
     /// Show every probe frame, not only the answers.
     #[arg(long)]
@@ -76,14 +77,26 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
         ProbeArg::Address => Probe::AddressOnly,
         ProbeArg::Read => Probe::ReadByte,
     };
-    let range = scan_range(a.include_reserved, a.ten_bit);
+    // An adapter without 10-bit support still gets the 7-bit scan; the
+    // part it cannot do is said after the results, and the exit code is
+    // the adapter code an unsupported request has everywhere, so a station
+    // that asked for 10-bit addresses never takes "none found" for an answer.
+    let skipped = (a.ten_bit && !session.adapter_ref().capabilities().ten_bit).then(|| {
+        AdapterError::Unsupported(
+            "10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)"
+                .into(),
+        )
+    });
+    let range = scan_range(a.include_reserved, a.ten_bit && skipped.is_none());
     let policy = RetryPolicy::new(a.attempts as i64, 1.0, 1.0)?;
     let result = session.scan(&range, probe, policy, None);
-    let code = match &result {
-        Ok(_) => exit::OK,
-        Err(e) => exit::of_run_error(e),
+    let code = match (&result, &skipped) {
+        (Err(e), _) => exit::of_run_error(e),
+        (Ok(_), Some(e)) => exit::of_adapter_error(e),
+        (Ok(_), None) => exit::OK,
     };
-    let _ = session.finish(code, result.as_ref().err().map(|e| e.to_string()));
+    let error = result.as_ref().err().map(|e| e.to_string()).or_else(|| skipped.as_ref().map(|e| e.to_string()));
+    let _ = session.finish(code, error);
     let mut stdout = out::locked();
     let found = match result {
         Ok(f) => f,
@@ -103,6 +116,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
                 "speed_hz": speed.hz(),
                 "probe": format!("{:?}", a.probe).to_lowercase(),
                 "found": found.iter().map(|x| x.to_string()).collect::<Vec<_>>(),
+                "ten_bit_skipped": skipped.is_some(),
             });
             writeln!(out, "{v}")
         } else {
@@ -117,5 +131,9 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
         }
     };
     write(&mut stdout)?;
+    drop(stdout);
+    if let Some(e) = &skipped {
+        eprintln!("{}", error_line(e, a.show.colour.resolve_stderr()));
+    }
     Ok(code)
 }

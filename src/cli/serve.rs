@@ -15,7 +15,7 @@ use crate::adapter::{Adapter as _, AdapterSpec, OpenOptions};
 use crate::serve::dialect::DialectServer;
 use crate::serve::{LinkFaults, Peers, ServeEnd, pty, serve as serve_loop, serve_native};
 
-use super::{interrupt_flag, parse_adapter, shown};
+use super::{interrupt_flag, negative, parse_adapter, shown, whole};
 
 /// The protocol the served adapter speaks.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -55,24 +55,24 @@ pub struct ServeArgs {
     #[arg(long)]
     pub realtime: bool,
     /// Link fault: probability that a byte is lost (each direction).
-    #[arg(long, default_value_t = 0.0, value_parser = probability)]
+    #[arg(long, default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
     pub drop_bytes: f64,
     /// Link fault: probability that a byte has one bit inverted.
-    #[arg(long, default_value_t = 0.0, value_parser = probability)]
+    #[arg(long, default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
     pub flip_bits: f64,
     /// Link fault: milliseconds added before every answer.
-    #[arg(long, default_value_t = 0)]
+    #[arg(long, default_value_t = 0, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub latency_ms: u64,
     /// Link fault: reset the adapter in the middle of the frame (dialect:
     /// command line) after N of them.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub reset_after: Option<u64>,
     /// Link fault: hang up (close the port) after answering N frames
     /// (dialect: command lines), as if unplugged.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub hang_up_after: Option<u64>,
     /// Seed of the link faults.
-    #[arg(long, default_value_t = 1)]
+    #[arg(long, default_value_t = 1, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub seed: u64,
     /// End when the first peer closes the port, instead of waiting for
     /// the next one.
@@ -81,6 +81,9 @@ pub struct ServeArgs {
 }
 
 fn probability(s: &str) -> Result<f64, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: a probability is a number from 0 to 1"));
+    }
     let p: f64 = s.parse().map_err(|_| format!("`{s}` is not a probability: write a number from 0 to 1"))?;
     if !(0.0..=1.0).contains(&p) {
         return Err(format!("`{s}` is not a probability: it must be from 0 to 1"));

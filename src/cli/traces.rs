@@ -21,13 +21,18 @@ use crate::view::format::{Layout, TimeUnit, Tone, cell_diff, frame_line, in_unit
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, ShowArgs, error_line, interrupt_flag, outputs, parse_duration, shown, warning_line};
+use super::{
+    BusArgs, ShowArgs, error_line, interrupt_flag, negative, outputs, parse_duration, shown, warning_line, whole,
+};
 
 fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
 }
 
 fn parse_scale(s: &str) -> Result<f64, String> {
+    if negative(s) {
+        return Err(format!("`{s}` is negative: give a factor from 0 to 1000 (0.5 = twice as fast)"));
+    }
     check_scale(s.parse().map_err(|_| format!("`{s}` is not a number"))?)
 }
 
@@ -43,7 +48,8 @@ pub struct ReplayArgs {
     #[command(flatten)]
     pub show: ShowArgs,
     /// Multiply the recorded gaps between frames by this (0.5 = twice as fast).
-    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays")]
+    #[arg(long, value_name = "FACTOR", default_value = "1", value_parser = parse_scale, conflicts_with = "no_delays",
+          allow_negative_numbers = true)]
     pub time_scale: f64,
     /// Send the frames back to back, without the recorded gaps.
     #[arg(long)]
@@ -68,7 +74,7 @@ pub struct ReplayArgs {
     pub force: bool,
     /// Wall-clock limit for the replay, recorded gaps included (30s, 2m,
     /// 1h; 0 = none, the default: a recording may be long).
-    #[arg(long, default_value = "0", value_parser = parse_duration)]
+    #[arg(long, default_value = "0", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: std::time::Duration,
 }
 
@@ -76,17 +82,32 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     let time_scale = (!a.no_delays).then_some(a.time_scale);
     // The whole trace is read and checked before the adapter is opened:
     // a damaged line refuses the replay, not a part of it.
-    let mut checked = TraceReader::open(&a.trace)?;
-    let check = check_trace(&mut checked, time_scale);
-    let trace_warnings = checked.warnings().to_vec();
+    let mut first_pass = TraceReader::open(&a.trace)?;
+    let check = check_trace(&mut first_pass, time_scale);
+    let trace_warnings = first_pass.warnings().to_vec();
+    let file = first_pass.file().to_string();
     let colour = a.show.colour.resolve_stderr();
-    if let Err(e) = check {
+    // The trace's warnings, before an error that refuses the replay.
+    let warn_first = || {
         let mut err = std::io::stderr().lock();
         for w in &trace_warnings {
             let _ = writeln!(err, "{}", warning_line(w, colour));
         }
-        anyhow::bail!("{e} (nothing was replayed)");
-    }
+    };
+    let masks = Masks(a.mask.clone());
+    // A mask naming a register the recording never names would hide
+    // nothing: as much a mistake as a damaged line.
+    let check = check.map_err(anyhow::Error::new).and_then(|c| {
+        c.names.check(&masks, &file)?;
+        Ok(c)
+    });
+    let checked = match check {
+        Ok(c) => c,
+        Err(e) => {
+            warn_first();
+            anyhow::bail!("{e} (nothing was replayed)");
+        }
+    };
     let mut reader = TraceReader::open(&a.trace)?;
     let interrupt = interrupt_flag()?;
     let mut adapter = a.bus.open()?;
@@ -95,6 +116,13 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         let speed = crate::bus::BusSpeed::from_hz(hz as u64)
             .with_context(|| format!("{}: header speed_hz {hz}", a.trace.display()))?;
         adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
+    }
+    // What this adapter cannot do is known before the first frame: refused
+    // whole, with the exit code the adapter error has everywhere.
+    if let Err(e) = checked.fits(adapter.capabilities(), &file) {
+        warn_first();
+        eprintln!("{}", error_line(format_args!("{e} (nothing was replayed)"), colour));
+        return Ok(exit::of_adapter_error(&e));
     }
     let mut session = Session::new(adapter, interrupt);
     session.set_time_limit((!a.timeout.is_zero()).then_some(a.timeout));
@@ -112,7 +140,7 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         let script = reader.header().script.as_ref().map(|s| s.path.as_str().into());
         session.add_sink(Box::new(PlainLog::with_layout(out::stdout(), a.show.layout(script), true)));
     }
-    let opts = ReplayOptions { time_scale, keep_going: a.no_stop, masks: Masks(a.mask.clone()) };
+    let opts = ReplayOptions { time_scale, keep_going: a.no_stop, masks };
     let report = play(&mut session, &mut reader, &opts);
     let (code, error) = match &report.stopped {
         Some(Stop::Trace(e)) => (exit::INPUT, Some(e.to_string())),
@@ -153,10 +181,11 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
             }
         }
     }
-    let verdict = if report.divergences.is_empty() {
-        paint("matches the recording", Tone::Ok, colour)
-    } else {
-        paint("DIVERGES from the recording", Tone::Bad, colour)
+    // "Matches" only for a replay that reached the end of the recording.
+    let verdict = match (report.divergences.is_empty(), &error) {
+        (true, None) => paint("matches the recording", Tone::Ok, colour),
+        (true, Some(_)) => paint("no divergence before it stopped", Tone::Warn, colour),
+        (false, _) => paint("DIVERGES from the recording", Tone::Bad, colour),
     };
     let _ = writeln!(
         err,
@@ -199,7 +228,7 @@ pub struct DiffArgs {
     #[arg(long, value_name = "MASK", value_parser = parse_mask)]
     pub mask: Vec<Mask>,
     /// Show at most this many differences in full (all are counted).
-    #[arg(long = "show", value_name = "N", default_value_t = 20)]
+    #[arg(long = "show", value_name = "N", default_value_t = 20, value_parser = whole::<usize>, allow_negative_numbers = true)]
     pub show_n: usize,
     /// Print only the summaries.
     #[arg(long, short = 'q')]

@@ -85,7 +85,12 @@ impl Params {
 /// What a script run needs besides the session.
 #[derive(Debug, Clone)]
 pub struct RunConfig {
+    /// The script file; with `text`, the name the script goes by in
+    /// errors and frame origins (`<stdin>`), `require` searching its folder.
     pub script: PathBuf,
+    /// The script's text, when the caller has read it (from standard
+    /// input, or to hash what it runs); `None`: read from `script`.
+    pub text: Option<String>,
     pub params: BTreeMap<String, String>,
     /// Wall-clock limit on the script; `None` for none.
     pub timeout: Option<Duration>,
@@ -320,8 +325,11 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
 
 fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
     let script_err = |m: String| Abort::Script { message: m, origin: None };
-    let text = std::fs::read_to_string(&cfg.script)
-        .map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?;
+    let text = match &cfg.text {
+        Some(t) => t.clone(),
+        None => std::fs::read_to_string(&cfg.script)
+            .map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?,
+    };
     let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
     let search = search_dirs(&cfg.script);
     // The stock `xpcall`, for the run itself: the script's own is wrapped.

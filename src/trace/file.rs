@@ -56,6 +56,10 @@ pub enum TraceError {
     UnknownMajor { file: String, version: String, tool: String },
     #[error("{file}:{line}: unreadable record: {detail}")]
     Corrupt { file: String, line: u64, detail: String },
+    /// A frame that reads well but that no adapter could send as recorded
+    /// (found by `replay::check`).
+    #[error("{file}:{line}: frame {seq} cannot be replayed: {detail}")]
+    Unplayable { file: String, line: u64, seq: u64, detail: String },
 }
 
 /// A run's trace reached the size limit it was given: the record that

@@ -11,7 +11,13 @@
 //!   0x2B, counting across the transaction's read operations from 0.
 //!
 //! Masks hide read data only: ACK/NACK and results are always compared.
+//!
+//! A register name is the name a register map gave the frames when they
+//! were recorded (their `decoded` field): [`RegisterNames`] collects the
+//! names a trace has per address, so a name no map gave there is refused
+//! rather than silently hiding nothing.
 
+use std::collections::{BTreeMap, BTreeSet};
 use std::fmt;
 use std::str::FromStr;
 
@@ -67,9 +73,7 @@ impl FromStr for Mask {
                     register = Some(match parse_int(v) {
                         Some(n) if (0..=0xFFFF).contains(&n) => RegisterSel::Number(n as u32),
                         Some(n) => return Err(err(format!("register {n} is outside 0-0xFFFF"))),
-                        None if !v.is_empty() && v.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') => {
-                            RegisterSel::Name(v.to_string())
-                        }
+                        None if is_register_name(v) => RegisterSel::Name(v.to_string()),
                         None => return Err(err(format!("`{v}` is not a register number or name"))),
                     });
                 }
@@ -97,6 +101,18 @@ impl FromStr for Mask {
     }
 }
 
+/// Whether `v` can be written as a mask's register name: letters, digits
+/// and `_`, and not a number.
+fn is_register_name(v: &str) -> bool {
+    !v.is_empty() && v.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') && parse_int(v).is_none()
+}
+
+/// The register a frame's decoded name names: `TEMPERATURE` of
+/// `TEMPERATURE` and of `TEMPERATURE.FIELD`.
+fn register_of(decoded: &str) -> &str {
+    decoded.split_once('.').map_or(decoded, |(reg, _)| reg)
+}
+
 impl Mask {
     /// Whether the mask covers this frame at all.
     pub fn applies(&self, f: &Frame) -> bool {
@@ -112,9 +128,7 @@ impl Mask {
                 }
                 _ => false,
             },
-            Some(RegisterSel::Name(n)) => {
-                f.decoded.as_deref().is_some_and(|d| d == n || d.split_once('.').is_some_and(|(reg, _)| reg == n))
-            }
+            Some(RegisterSel::Name(n)) => f.decoded.as_deref().is_some_and(|d| register_of(d) == n),
         }
     }
 
@@ -135,6 +149,77 @@ impl Masks {
     /// The masks that apply to a frame, to ask [`FrameMask::hides`] per byte.
     pub fn for_frame<'a>(&'a self, f: &Frame) -> FrameMask<'a> {
         FrameMask(self.0.iter().filter(|m| m.applies(f)).collect())
+    }
+}
+
+/// A mask naming a register the recording never named at its address.
+#[derive(Debug, Clone, PartialEq, Eq, Error)]
+#[error("mask `{mask}`: {file} names no register {name} at {address}; {known}")]
+pub struct UnknownRegister {
+    pub mask: String,
+    pub file: String,
+    pub name: String,
+    pub address: Address,
+    /// What the recording does name there, as a sentence.
+    known: String,
+}
+
+/// The register names a trace's frames carry, per address (see the
+/// module doc): what a mask's `reg=NAME` can match.
+#[derive(Debug, Clone, Default)]
+pub struct RegisterNames(BTreeMap<Address, BTreeSet<String>>);
+
+/// Names listed in an [`UnknownRegister`] message at most; longer names
+/// than [`LISTED_NAME`] characters are counted, not shown (a damaged or
+/// hostile trace may carry anything a mask could spell).
+const LISTED_NAMES: usize = 24;
+const LISTED_NAME: usize = 64;
+
+impl RegisterNames {
+    /// Notes the register name of a recorded frame, if it has one a mask
+    /// could write.
+    pub fn add(&mut self, f: &Frame) {
+        let names = self.0.entry(f.address).or_default();
+        let Some(reg) = f.decoded.as_deref().map(register_of).filter(|r| is_register_name(r)) else { return };
+        if !names.contains(reg) {
+            names.insert(reg.to_string());
+        }
+    }
+
+    /// Refuses the first mask whose register name `file` never names at
+    /// the mask's address, saying which names it has there.
+    pub fn check(&self, masks: &Masks, file: &str) -> Result<(), UnknownRegister> {
+        for m in &masks.0 {
+            let Some(RegisterSel::Name(name)) = &m.register else { continue };
+            let known = match self.0.get(&m.address) {
+                Some(names) if names.contains(name) => continue,
+                None => "it has no frames to that address".to_string(),
+                Some(names) if names.is_empty() => {
+                    format!("its frames there carry no register names (use a number, as in {},reg=0x03)", m.address)
+                }
+                Some(names) => {
+                    let listed: Vec<&str> = names
+                        .iter()
+                        .map(String::as_str)
+                        .filter(|n| n.len() <= LISTED_NAME)
+                        .take(LISTED_NAMES)
+                        .collect();
+                    let more = match names.len() - listed.len() {
+                        0 => String::new(),
+                        n => format!(", and {n} more"),
+                    };
+                    format!("the names it has there: {}{more}", listed.join(", "))
+                }
+            };
+            return Err(UnknownRegister {
+                mask: m.text.clone(),
+                file: file.to_string(),
+                name: name.clone(),
+                address: m.address,
+                known,
+            });
+        }
+        Ok(())
     }
 }
 
@@ -190,6 +275,33 @@ mod tests {
         let set = Masks(vec![ten]);
         let fm = set.for_frame(&frame(Address::Ten(0x2A5), vec![Operation::Read(4)], None));
         assert_eq!((0..4).map(|i| fm.hides(i)).collect::<Vec<_>>(), vec![false, true, true, false]);
+    }
+
+    #[test]
+    fn names_are_the_registers_of_decoded_frames_at_each_address() {
+        let at = |a: u8, d: &str| frame(Address::Seven(a), vec![Operation::Read(1)], Some(d));
+        let mut names = RegisterNames::default();
+        for f in [at(0x20, "CONFIG"), at(0x20, "LEVEL.LOW"), at(0x21, "OTHER"), at(0x20, "Read Word 0x01")] {
+            names.add(&f);
+        }
+        let masks = |m: &str| Masks(vec![m.parse().unwrap()]);
+        assert!(names.check(&masks("0x20,reg=LEVEL"), "t").is_ok(), "a field's register");
+        assert!(names.check(&masks("0x20,reg=0x07"), "t").is_ok(), "numbers are not checked");
+        // SMBus command names have spaces: no mask can write them, none is listed.
+        let e = names.check(&masks("0x20,reg=OTHER"), "t.jsonl").unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "mask `0x20,reg=OTHER`: t.jsonl names no register OTHER at 0x20; the names it has there: CONFIG, LEVEL"
+        );
+        // A trace with very many or very long names lists a few.
+        let mut many = RegisterNames::default();
+        for i in 0..30 {
+            many.add(&at(0x20, &format!("R{i:02}")));
+        }
+        many.add(&at(0x20, &"Z".repeat(100)));
+        let e = many.check(&masks("0x20,reg=NOPE"), "t").unwrap_err().to_string();
+        // 31 names, the long one not shown: 24 listed, 7 counted.
+        assert!(e.ends_with("R00, R01, R02, R03, R04, R05, R06, R07, R08, R09, R10, R11, R12, R13, R14, R15, R16, R17, R18, R19, R20, R21, R22, R23, and 7 more"), "{e}");
     }
 
     #[test]

@@ -16,7 +16,11 @@
 //! - The replay stops after the first frame that diverges unless told to
 //!   go on; it stops at once on an adapter failure or an interrupt.
 //! - A damaged trace is refused whole: [`check`] reads it through first
-//!   (streaming), so no frame of it reaches the adapter.
+//!   (streaming), so no frame of it reaches the adapter. A frame no adapter
+//!   could send (no operation, an empty read, a count over 255) is damage
+//!   too, named by its line; [`Checked::fits`] then refuses, once the
+//!   adapter is open and before anything is sent, a trace it cannot play
+//!   whole (an operation longer than it moves, 10-bit addresses it lacks).
 
 use std::cell::RefCell;
 use std::fmt;
@@ -24,10 +28,12 @@ use std::io::BufRead;
 use std::rc::Rc;
 use std::time::Duration;
 
+use crate::adapter::{AdapterError, Capabilities};
+use crate::bus::transaction::MAX_OPERATION_BYTES;
 use crate::bus::{Fault, FaultClass, Operation, Outcome, Transaction};
 use crate::player::{Request, RetryPolicy, RunError, Session};
 
-use super::mask::Masks;
+use super::mask::{Masks, RegisterNames};
 use super::{TraceError, TraceReader};
 use crate::record::{Frame, Origin, Record, Sink};
 
@@ -332,24 +338,96 @@ fn offset<R: BufRead>(
     }))
 }
 
-/// Reads the rest of `trace` and checks it as [`replay`] would on its
-/// way: every line is a readable record (a cut last line is a warning,
-/// as ever) and no frame starts beyond [`MAX_OFFSET`] at this
-/// `time_scale`. A first pass over a fresh reader before the replay, so a
-/// damaged trace sends nothing to the board: one record in memory at a
-/// time, the cost of parsing the file once more. Returns the frames.
-pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) -> Result<u64, TraceError> {
-    let clock0 = trace.header().clock;
-    let mut frames = 0;
-    while let Some(record) = trace.next_record()? {
-        if let Record::Frame(f) = record {
-            if let Some(Err(e)) = offset(trace, &f, clock0, time_scale) {
-                return Err(e);
+/// Where a frame is in a trace file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+struct Place {
+    line: u64,
+    seq: u64,
+}
+
+/// What [`check`] learned of a trace besides that it is sound: what an
+/// adapter must be able to do to play it whole, and the register names
+/// its frames carry (for masks).
+#[derive(Debug, Clone, Default)]
+pub struct Checked {
+    pub frames: u64,
+    /// The longest operation: its bytes, operation index and frame.
+    longest: Option<(usize, usize, Place)>,
+    /// The first frame to a 10-bit address.
+    first_ten_bit: Option<Place>,
+    pub names: RegisterNames,
+}
+
+impl Checked {
+    fn note(&mut self, f: &Frame, line: u64) {
+        let place = Place { line, seq: f.seq };
+        self.frames += 1;
+        for (i, op) in f.ops.iter().enumerate() {
+            if self.longest.is_none_or(|(len, _, _)| op.len() > len) {
+                self.longest = Some((op.len(), i, place));
             }
-            frames += 1;
+        }
+        if f.address.is_ten_bit() && self.first_ten_bit.is_none() {
+            self.first_ten_bit = Some(place);
+        }
+        self.names.add(f);
+    }
+
+    /// Refuses a replay of the checked trace (`file`) that the adapter
+    /// with `caps` could not play to its end: the first frame it would
+    /// stop at is named by its line. An operation longer than the adapter
+    /// moves is the request's fault ([`AdapterError::Input`]), as a speed
+    /// outside its range is; 10-bit addresses on an adapter without them
+    /// are [`AdapterError::Unsupported`], as they are from a script.
+    pub fn fits(&self, caps: &Capabilities, file: &str) -> Result<(), AdapterError> {
+        if let Some(p) = self.first_ten_bit
+            && !caps.ten_bit
+        {
+            return Err(AdapterError::Unsupported(format!(
+                "{file}:{}: frame {} is to a 10-bit address and this adapter has no 10-bit support",
+                p.line, p.seq
+            )));
+        }
+        let max = caps.max_bytes_per_op.min(MAX_OPERATION_BYTES);
+        match self.longest {
+            Some((len, op, p)) if len > max => Err(AdapterError::Input(format!(
+                "{file}:{}: frame {} operation {op} moves {len} bytes; this adapter moves at most {max} per operation",
+                p.line, p.seq
+            ))),
+            _ => Ok(()),
         }
     }
-    Ok(frames)
+}
+
+/// Reads the rest of `trace` and checks it as [`replay`] would on its
+/// way: every line is a readable record (a cut last line is a warning,
+/// as ever), every frame has a shape some adapter could send, and no
+/// frame starts beyond [`MAX_OFFSET`] at this `time_scale`. A first pass
+/// over a fresh reader before the replay, so a damaged trace sends
+/// nothing to the board: one record in memory at a time, the cost of
+/// parsing the file once more.
+pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) -> Result<Checked, TraceError> {
+    let clock0 = trace.header().clock;
+    let mut checked = Checked::default();
+    while let Some(located) = trace.next_located()? {
+        let Record::Frame(f) = located.record else { continue };
+        if let Some(Err(e)) = offset(trace, &f, clock0, time_scale) {
+            return Err(e);
+        }
+        checked.note(&f, located.line);
+        let seq = f.seq;
+        // The shape whatever the adapter (reserved addresses are replayed
+        // as recorded); the adapter's own limits are `Checked::fits`'s.
+        if let Err(e) = Transaction::new(f.address, f.ops).validate(MAX_OPERATION_BYTES, true) {
+            return Err(TraceError::Unplayable {
+                file: trace.file().to_string(),
+                line: located.line,
+                seq,
+                detail: e.to_string(),
+            });
+        }
+    }
+    Ok(checked)
 }
 
 /// Replays the rest of `trace` through `session`; see the module contract.
