@@ -120,7 +120,7 @@ fn main() {
     let rate = FRAMES as f64 / wa.as_secs_f64();
     let size = std::fs::metadata(&a).map(|m| m.len()).unwrap_or(0);
     println!(
-        "write: {FRAMES} records in {:.3} s = {:.0} records/s, one write(2) per record ({:.0} B/record); variant {:.3} s",
+        "write: {FRAMES} records in {:.3} s = {:.0} records/s, through the trace writer ({:.0} B/record); variant {:.3} s",
         wa.as_secs_f64(),
         rate,
         size as f64 / FRAMES as f64,
