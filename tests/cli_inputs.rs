@@ -156,7 +156,7 @@ fn scan_ten_bit_without_support_reports_the_seven_bit_results_and_says_what_was_
     // Exit 4, as any request the adapter cannot do, after the results.
     assert_eq!(code(&o), 4, "{out}{err}");
     // 0x08-0x77: the 128 7-bit addresses less the 16 reserved ones
-    // (UM10204 §3.1.12, Table 4: 0000 XXX and 1111 XXX): 112.
+    // (UM10204 §3.1.12, Table 3: 0000 XXX and 1111 XXX): 112.
     assert!(out.starts_with("probed 112 addresses"), "{out}");
     assert!(out.contains("0x20") && out.contains("answers") && out.ends_with("1 answered\n"), "{out}");
     assert_eq!(err.matches("10-bit addresses were not probed: this adapter has no 10-bit support").count(), 1, "{err}");
@@ -437,4 +437,24 @@ fn outputs_are_never_named_dash_nor_the_file_standard_input_comes_from() {
         assert!(stderr(&o).contains("refusing to write the trace over s.lua (it is the script"), "{}", stderr(&o));
         assert_eq!(std::fs::read_to_string(&script).unwrap(), "log(1)");
     }
+}
+
+// The same from a script: the 7-bit results come back, and a warning line
+// says what was not probed.
+#[test]
+fn bus_scan_ten_bit_without_support_returns_the_seven_bit_results_with_a_warning() {
+    let dir = tempfile::tempdir().unwrap();
+    let seven = bench(dir.path(), "seven", false, "");
+    let script = dir.path().join("s.lua");
+    std::fs::write(
+        &script,
+        "local found = bus.scan{ ten_bit = true }\ncheck_eq(#found, 1)\ncheck_eq(found[1], 0x20)\n",
+    )
+    .unwrap();
+    let o = run(&["run", script.to_str().unwrap(), "--adapter", &seven, "--no-trace"]);
+    assert_eq!(code(&o), 0, "{}{}", stdout(&o), stderr(&o));
+    let out = stdout(&o);
+    assert_eq!(out.matches("10-bit addresses were not probed").count(), 1, "{out}");
+    // 112 probes of the 7-bit range, none of the 10-bit one.
+    assert_eq!(out.lines().filter(|l| l.contains("(scan)")).count(), 112, "{out}");
 }

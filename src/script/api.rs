@@ -173,7 +173,15 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
             Some(_) => return Err(bad("scan probe must be \"address\" or \"read\"")),
         };
         let policy = c.session.borrow().default_retry;
-        let found = c.session.borrow_mut().scan(&scan_range(reserved, ten), probe, policy, origin(lua));
+        // An adapter without 10-bit support still gets the 7-bit scan, and
+        // the script is told (a warning line where the scan ran) what was
+        // left out, rather than losing the 7-bit results to an error.
+        let ten_ok = c.session.borrow().adapter_ref().capabilities().ten_bit;
+        if ten && !ten_ok {
+            let warning = "bus.scan: 10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)";
+            c.session.borrow_mut().log(Level::Warn, warning.into(), origin(lua));
+        }
+        let found = c.session.borrow_mut().scan(&scan_range(reserved, ten && ten_ok), probe, policy, origin(lua));
         let found = found.map_err(|e| run_error(lua, e))?;
         let t = lua.create_table()?;
         for (i, a) in found.iter().enumerate() {
