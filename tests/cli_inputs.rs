@@ -303,6 +303,17 @@ fn a_mask_naming_a_register_the_recording_never_names_is_refused_with_the_names(
         let o = run(&["replay", trace.to_str().unwrap(), "--adapter", &spec, "--mask", mask]);
         assert_eq!(code(&o), 0, "{mask}: {}", stderr(&o));
     }
+    // diff holds masks to the names either recording carries.
+    let t = trace.to_str().unwrap();
+    let o = run(&["diff", t, t, "--mask", "0x20,reg=NOPE"]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains(&format!("mask `0x20,reg=NOPE`: {t} or {t} names no register NOPE at 0x20")),
+        "{}",
+        stderr(&o)
+    );
+    let o = run(&["diff", t, t, "--mask", "0x20,reg=LEVEL"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
 }
 
 #[test]

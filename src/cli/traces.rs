@@ -285,6 +285,12 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
     for w in ka.warnings.iter().chain(&kb.warnings) {
         let _ = writeln!(err, "{}", warning_line(w, err_colour));
     }
+    // A mask naming a register neither recording names would hide
+    // nothing, as with replay; a name either one carries is fine (the
+    // runs may come from different scripts).
+    let mut names = ka.names.clone();
+    names.merge(&kb.names);
+    names.check(&masks, &format!("{} or {}", shown(a.a.display().to_string()), shown(a.b.display().to_string())))?;
     let hunks = align(&ka.keys, &kb.keys);
     let colour = a.show.colour.resolve();
     // Frame lines are indented by `  A `, and keep every byte: they are

@@ -29,7 +29,7 @@ use serde::Deserialize;
 
 use crate::bus::{Address, Fault, Operation, Outcome};
 
-use super::mask::Masks;
+use super::mask::{Masks, RegisterNames};
 use super::{Header, TraceError, TraceReader};
 use crate::record::{Frame, Purpose, Stats};
 
@@ -44,6 +44,8 @@ pub struct Keyed {
     pub places: Vec<(u64, u64)>,
     /// Per-address counters, as a run's end record counts them.
     pub summary: BTreeMap<Address, Stats>,
+    /// The register names the frames carry, for checking masks.
+    pub names: RegisterNames,
     pub warnings: Vec<String>,
 }
 
@@ -136,6 +138,7 @@ pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Ke
         keys: Vec::new(),
         places: Vec::new(),
         summary: BTreeMap::new(),
+        names: RegisterNames::default(),
         warnings: Vec::new(),
     };
     let parse = |line: &[u8]| serde_json::from_slice::<FrameLine>(line).map(FrameLine::into_frame);
@@ -144,6 +147,7 @@ pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Ke
         keyed.keys.push(frame_key(&f, masks));
         keyed.places.push((offset, line));
         keyed.summary.entry(f.address).or_default().add_frame(&f);
+        keyed.names.add(&f);
     }
     keyed.warnings = r.warnings().to_vec();
     Ok(keyed)

@@ -186,6 +186,14 @@ impl RegisterNames {
         }
     }
 
+    /// Adds the names `other` has: for masks that compare two recordings,
+    /// a name is known when either names it.
+    pub fn merge(&mut self, other: &RegisterNames) {
+        for (address, names) in &other.0 {
+            self.0.entry(*address).or_default().extend(names.iter().cloned());
+        }
+    }
+
     /// Refuses the first mask whose register name `file` never names at
     /// the mask's address, saying which names it has there.
     pub fn check(&self, masks: &Masks, file: &str) -> Result<(), UnknownRegister> {
