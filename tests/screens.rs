@@ -156,8 +156,8 @@ fn next_line_layout(help: &str) -> bool {
 }
 
 #[test]
-fn help_wraps_to_the_terminal_and_scan_looks_like_the_others() {
-    for cmd in ["run", "scan", "replay", "diff"] {
+fn help_wraps_to_the_terminal_and_every_command_has_one_layout() {
+    for cmd in ["run", "scan", "replay", "diff", "serve", "ports", "pullup", "bustime", "to-script"] {
         for columns in ["60", "80", "120"] {
             let o = buscue().args([cmd, "--help"]).env("COLUMNS", columns).output().unwrap();
             assert_eq!(code(&o), 0);

@@ -44,24 +44,24 @@ fn parse_speak(s: &str) -> Result<Speak, String> {
 #[derive(Args, Debug)]
 pub struct ServeArgs {
     /// The bench to serve: `sim` (the built-in greenhouse bench) or `sim:PATH`.
-    #[arg(long, default_value = "sim", value_parser = parse_adapter)]
+    #[arg(long, default_value = "sim", value_name = "SIM", value_parser = parse_adapter)]
     pub bench: AdapterSpec,
     /// Protocol on the port: `native`, or `dialect:PROFILE` with a shipped
     /// profile (`stepwise`, `oneline`) or a profile file.
-    #[arg(long, default_value = "native", value_name = "PROTOCOL", value_parser = parse_speak)]
+    #[arg(long, default_value = "native", value_name = "PROTO", value_parser = parse_speak)]
     pub speak: Speak,
     /// Pace the bench in real time instead of virtual time (for a dialect
     /// without `commands.delay`, whose host sleeps on the wall clock).
     #[arg(long)]
     pub realtime: bool,
     /// Link fault: probability that a byte is lost (each direction).
-    #[arg(long, default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
+    #[arg(long, value_name = "P", default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
     pub drop_bytes: f64,
     /// Link fault: probability that a byte has one bit inverted.
-    #[arg(long, default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
+    #[arg(long, value_name = "P", default_value_t = 0.0, value_parser = probability, allow_negative_numbers = true)]
     pub flip_bits: f64,
     /// Link fault: milliseconds added before every answer.
-    #[arg(long, default_value_t = 0, value_parser = whole::<u64>, allow_negative_numbers = true)]
+    #[arg(long, value_name = "MS", default_value_t = 0, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub latency_ms: u64,
     /// Link fault: reset the adapter in the middle of the frame (dialect:
     /// command line) after N of them.
@@ -72,7 +72,7 @@ pub struct ServeArgs {
     #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub hang_up_after: Option<u64>,
     /// Seed of the link faults.
-    #[arg(long, default_value_t = 1, value_parser = whole::<u64>, allow_negative_numbers = true)]
+    #[arg(long, value_name = "N", default_value_t = 1, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub seed: u64,
     /// End when the first peer closes the port, instead of waiting for
     /// the next one.
