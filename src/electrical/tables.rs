@@ -145,8 +145,9 @@ pub fn bus_time_table(r: &BusTimeReport) -> String {
     row(
         "payload",
         format!(
-            "{} bytes, {:.0} bytes/s, {:.1} % of the time on data bits",
+            "{} byte{}, {:.0} bytes/s, {:.1} % of the time on data bits",
             r.payload_bytes,
+            if r.payload_bytes == 1 { "" } else { "s" },
             r.payload_bytes_per_s,
             r.efficiency * 100.0
         ),
