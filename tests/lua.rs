@@ -358,6 +358,9 @@ mod sandbox {
             assert!(err.contains(needle), "{text}: {err}");
         }
         ok("local f = load('return 1 + 1') check_eq(f(), 2)");
+        // Only stock names say they were switched off; others are absent.
+        ok("check(os.nonesuch == nil) check(io.nonesuch == nil) check(debug.nonesuch == nil)
+            check(not pcall(function() return io.open end))");
     }
 
     #[test]

@@ -95,11 +95,18 @@ fn a_reset_does_not_forget_what_was_served() {
 #[test]
 fn ports_with_named_ports_lists_and_probes_only_those() {
     let (mut child, path) = serve(&[]);
-    let o = run(&["ports", "--probe", "--port", &path]);
+    // Named twice, listed (and probed) once.
+    let o = run(&["ports", "--probe", "--port", &path, "--port", "/dev/null", "--port", &path]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let lines: Vec<String> = stdout(&o).lines().map(str::to_string).collect();
-    assert_eq!(lines.len(), 1, "only the port named: {lines:?}");
-    assert!(lines[0].starts_with(&format!("{path}\t")), "{lines:?}");
+    assert_eq!(lines.len(), 2, "only the ports named, each once: {lines:?}");
+    assert!(lines[0].starts_with(&format!("{path}\t")) && lines[0].contains("answers"), "{lines:?}");
+    assert!(lines[1].starts_with("/dev/null\t"), "{lines:?}");
+    // The ports the system lists (where it lists any) are left alone.
+    let listed = stdout(&run(&["ports"]));
+    for system in listed.lines().filter_map(|l| l.split('\t').next()) {
+        assert!(!lines.iter().any(|l| l.starts_with(&format!("{system}\t"))), "{system} was touched: {lines:?}");
+    }
     let _ = child.kill();
     let _ = child.wait();
 }

@@ -242,7 +242,7 @@ fn replay_against_the_demo_bench_matches() {
         let o = buscue(&["replay", t.to_str().unwrap()]);
         let (_, err) = text(&o);
         assert_eq!(o.status.code(), Some(0), "{s}: {err}");
-        assert!(err.contains("matches the recording (0 divergences"), "{err}");
+        assert!(err.contains("matches the recording\n") || err.trim_end().ends_with("matches the recording"), "{err}");
     }
 }
 
@@ -272,7 +272,7 @@ fn replay_finds_a_changed_register_and_masks_hide_it() {
         let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", mask]);
         let (out, err) = text(&o);
         assert_eq!(o.status.code(), Some(0), "{mask}: {out}{err}");
-        assert!(err.contains("0 divergences in 0 frames, 1 hidden by masks"), "{mask}: {err}");
+        assert!(err.contains("matches the recording (1 hidden by masks)"), "{mask}: {err}");
     }
     let o = buscue(&["replay", t.to_str().unwrap(), "--adapter", &adapter, "--mask", "0x11,reg=0x01"]);
     assert_eq!(o.status.code(), Some(5), "a mask on another register hides nothing");

@@ -61,7 +61,9 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
                 (p.clone(), what)
             })
             .collect();
-        list.dedup_by(|x, y| x.0 == y.0);
+        // Named twice is probed once, where first named.
+        let mut seen = std::collections::HashSet::new();
+        list.retain(|(name, _)| seen.insert(name.clone()));
     }
     let mut out = crate::cli::out::locked();
     if list.is_empty() {

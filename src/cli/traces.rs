@@ -187,18 +187,34 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         (true, Some(_)) => paint("no divergence before it stopped", Tone::Warn, colour),
         (false, _) => paint("DIVERGES from the recording", Tone::Bad, colour),
     };
+    // The counts in brackets, where there is something to count.
+    let mut counts = Vec::new();
+    if !report.divergences.is_empty() {
+        counts.push(format!(
+            "{} divergence{} in {} frame{}",
+            report.divergences.len(),
+            if report.divergences.len() == 1 { "" } else { "s" },
+            report.diverged_frames,
+            if report.diverged_frames == 1 { "" } else { "s" },
+        ));
+    }
+    if report.masked_bytes > 0 {
+        counts.push(format!("{} hidden by masks", report.masked_bytes));
+    }
+    let counts = match counts.is_empty() {
+        true => String::new(),
+        false => format!(
+            " ({}{})",
+            counts.join(", "),
+            if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" }
+        ),
+    };
     let _ = writeln!(
         err,
-        "replayed {} frame{} of {}: {verdict} ({} divergence{} in {} frame{}{}{})",
+        "replayed {} frame{} of {}: {verdict}{counts}",
         report.frames,
         if report.frames == 1 { "" } else { "s" },
         shown(a.trace.display()),
-        report.divergences.len(),
-        if report.divergences.len() == 1 { "" } else { "s" },
-        report.diverged_frames,
-        if report.diverged_frames == 1 { "" } else { "s" },
-        if report.masked_bytes > 0 { format!(", {} hidden by masks", report.masked_bytes) } else { String::new() },
-        if report.stopped_at_divergence { "; stopped at the first, --no-stop for all" } else { "" },
     );
     if let Some(e) = error {
         let _ = writeln!(err, "{}", error_line(format_args!("replay stopped: {e}"), colour));

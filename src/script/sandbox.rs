@@ -38,7 +38,7 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
     lua.load(PRELUDE).set_name(format!("{INTERNAL_CHUNK} sandbox")).exec()?;
     let package: Table = g.get("package")?;
     package.set("loadlib", off_function(lua, "package.loadlib", NEVER)?)?;
-    g.set("debug", off_library(lua, "debug", NEVER)?)?;
+    g.set("debug", off_library(lua, "debug", DEBUG_NAMES, NEVER)?)?;
     package.set("cpath", "")?;
     let path = search.iter().map(|d| format!("{}/?.lua", d.display())).collect::<Vec<_>>().join(";");
     if allow_io {
@@ -47,7 +47,7 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
         return Ok(());
     }
     package.set("path", path)?;
-    g.set("io", off_library(lua, "io", HOW_TO_ALLOW)?)?;
+    g.set("io", off_library(lua, "io", IO_NAMES, HOW_TO_ALLOW)?)?;
     g.set("dofile", off_function(lua, "dofile", HOW_TO_ALLOW)?)?;
     g.set("loadfile", off_function(lua, "loadfile", HOW_TO_ALLOW)?)?;
     let os: Table = g.get("os")?;
@@ -55,7 +55,7 @@ pub fn install(lua: &Lua, allow_io: bool, search: &[PathBuf]) -> mlua::Result<()
     for k in ["clock", "date", "difftime", "time"] {
         safe.set(k, os.get::<Value>(k)?)?;
     }
-    safe.set_metatable(Some(off_fields(lua, "os", HOW_TO_ALLOW)?))?;
+    safe.set_metatable(Some(off_fields(lua, "os", OS_NAMES, HOW_TO_ALLOW)?))?;
     g.set("os", safe)?;
     let loaded: Table = package.get("loaded")?;
     for k in ["io", "os"] {
@@ -80,16 +80,46 @@ fn off_function(lua: &Lua, name: &str, why: &'static str) -> mlua::Result<mlua::
     lua.create_function(move |_, _: mlua::MultiValue| Err::<(), _>(mlua::Error::RuntimeError(message.clone())))
 }
 
+/// The names of the stock libraries a script may reach for (Lua 5.4
+/// reference manual, sections 6.8, 6.9 and 6.10): a stand-in says these
+/// were taken away; any other name is simply absent (`nil`), as in stock
+/// Lua.
+const IO_NAMES: &[&str] = &[
+    "close", "flush", "input", "lines", "open", "output", "popen", "read", "tmpfile", "type", "write", "stdin",
+    "stdout", "stderr",
+];
+const OS_NAMES: &[&str] = &["execute", "exit", "getenv", "remove", "rename", "setlocale", "tmpname"];
+const DEBUG_NAMES: &[&str] = &[
+    "debug",
+    "gethook",
+    "getinfo",
+    "getlocal",
+    "getmetatable",
+    "getregistry",
+    "getupvalue",
+    "getuservalue",
+    "sethook",
+    "setlocal",
+    "setmetatable",
+    "setupvalue",
+    "setuservalue",
+    "traceback",
+    "upvalueid",
+    "upvaluejoin",
+    "setcstacklimit",
+];
+
 /// A metatable whose `__index` says that `library.name` was taken away,
-/// for any name the table lacks.
-fn off_fields(lua: &Lua, library: &str, why: &'static str) -> mlua::Result<Table> {
+/// for the stock `names` the table lacks; other names read as `nil`.
+fn off_fields(lua: &Lua, library: &str, names: &'static [&'static str], why: &'static str) -> mlua::Result<Table> {
     let library = library.to_string();
     let index = lua.create_function(move |_, (_, key): (Value, Value)| {
-        let key = match &key {
-            Value::String(s) => s.to_string_lossy(),
-            other => format!("[{}]", other.type_name()),
-        };
-        Err::<(), _>(mlua::Error::RuntimeError(format!("{library}.{key} is {why}")))
+        let Value::String(key) = &key else { return Ok(Value::Nil) };
+        let key = key.to_string_lossy();
+        if !names.contains(&key.as_str()) {
+            return Ok(Value::Nil);
+        }
+        Err(mlua::Error::RuntimeError(format!("{library}.{key} is {why}")))
     })?;
     let mt = lua.create_table()?;
     mt.set("__index", index)?;
@@ -97,10 +127,10 @@ fn off_fields(lua: &Lua, library: &str, why: &'static str) -> mlua::Result<Table
 }
 
 /// A stand-in for a library the sandbox took away: an empty table whose
-/// every field says so.
-fn off_library(lua: &Lua, library: &str, why: &'static str) -> mlua::Result<Table> {
+/// stock fields say so.
+fn off_library(lua: &Lua, library: &str, names: &'static [&'static str], why: &'static str) -> mlua::Result<Table> {
     let t = lua.create_table()?;
-    t.set_metatable(Some(off_fields(lua, library, why)?))?;
+    t.set_metatable(Some(off_fields(lua, library, names, why)?))?;
     Ok(t)
 }
 

@@ -388,13 +388,15 @@ pub fn serve<S: Server>(
             if faults.hang_up_after.is_some() {
                 break ServeEnd::HungUp;
             }
-            // The peer went while we answered: as if it closed the port.
+            // An answer could not be written (the peer went, or stopped
+            // reading). With one peer that is the end; with many, what it
+            // half sent is forgotten, and the peer is said to have left
+            // once, when the reader sees the port closed.
             match &mut peers {
                 Peers::One => break ServeEnd::PeerClosed,
-                Peers::Many(left) => {
+                Peers::Many(_) => {
                     link.inbox.clear();
                     server.peer_left();
-                    left();
                 }
             }
         }
