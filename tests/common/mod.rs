@@ -47,10 +47,16 @@ pub fn run_script(text: &str, extra: &[&str]) -> Output {
     run_path(&path, extra)
 }
 
+/// Runs a script file with extra arguments. Without a trace option of
+/// its own, the run writes no trace: the default one would land in the
+/// checkout's `traces/` folder, one file per test run.
 pub fn run_path(path: &Path, extra: &[&str]) -> Output {
     let p = path.to_str().unwrap();
     let mut args = vec!["run", p];
     args.extend_from_slice(extra);
+    if !extra.iter().any(|a| a.starts_with("--trace") || *a == "--no-trace") {
+        args.push("--no-trace");
+    }
     run(&args)
 }
 
