@@ -28,8 +28,10 @@
 //! the last newline is copied first, and the newline after a compiler
 //! fence: a kill lands on an instruction boundary and the stores before
 //! it, in program order, are in the page cache, so a line that ends in a
-//! newline in the file was copied whole. A cut line has no newline and is
-//! followed by NULs or nothing.
+//! newline in the file was copied whole. A cut line has no newline; some
+//! of its bytes may be stored and others not (in any pattern the copy
+//! left), the unstored ones reading as NULs, and NULs follow it to the
+//! chunk's end. The reader takes such a last line as cut.
 
 use std::fs::File;
 use std::io::{self, Write};

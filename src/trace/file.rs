@@ -575,6 +575,17 @@ mod tests {
             "{:?}",
             t.warnings
         );
+        // A line whose copy the kill stopped part way, with holes where
+        // bytes were not yet stored (a copy does not store front to back).
+        let mut s = text(&[header_line("1.0"), log(1)]).into_bytes();
+        let mut holed = log(2).into_bytes();
+        holed.pop();
+        holed[4..12].fill(0);
+        s.extend_from_slice(&holed);
+        s.extend(std::iter::repeat_n(0u8, 4096));
+        let t = Trace::from_reader(&s[..], "holed.jsonl").unwrap();
+        assert_eq!(t.records.len(), 1);
+        assert!(t.warnings.len() == 1 && t.warnings[0].contains("the last line is cut short"), "{:?}", t.warnings);
     }
 
     #[test]
