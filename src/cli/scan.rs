@@ -8,7 +8,7 @@ use clap::{Args, ValueEnum};
 use crate::adapter::AdapterError;
 use crate::cli::{exit, out};
 use crate::player::RetryPolicy;
-use crate::player::{Probe, scan_range};
+use crate::player::{Probe, TEN_BIT_SKIPPED};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
@@ -81,13 +81,8 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     // part it cannot do is said after the results, and the exit code is
     // the adapter code an unsupported request has everywhere, so a station
     // that asked for 10-bit addresses never takes "none found" for an answer.
-    let skipped = (a.ten_bit && !session.adapter_ref().capabilities().ten_bit).then(|| {
-        AdapterError::Unsupported(
-            "10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)"
-                .into(),
-        )
-    });
-    let range = scan_range(a.include_reserved, a.ten_bit && skipped.is_none());
+    let (range, skipped) = session.scan_plan(a.include_reserved, a.ten_bit);
+    let skipped = skipped.then(|| AdapterError::Unsupported(TEN_BIT_SKIPPED.into()));
     let policy = RetryPolicy::new(a.attempts as i64, 1.0, 1.0)?;
     let result = session.scan(&range, probe, policy, None);
     let code = match (&result, &skipped) {

@@ -477,6 +477,21 @@ pub enum Probe {
     ReadByte,
 }
 
+/// What a scan asked for 10-bit addresses says when the adapter has no
+/// 10-bit support: the 7-bit part runs whole, the rest is said skipped.
+pub const TEN_BIT_SKIPPED: &str =
+    "10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)";
+
+impl Session {
+    /// The addresses a scan covers on this adapter ([`scan_range`]), and
+    /// whether the 10-bit ones asked for were left out because the adapter
+    /// cannot address them ([`TEN_BIT_SKIPPED`]).
+    pub fn scan_plan(&self, include_reserved: bool, ten_bit: bool) -> (Vec<Address>, bool) {
+        let skipped = ten_bit && !self.adapter_ref().capabilities().ten_bit;
+        (scan_range(include_reserved, ten_bit && !skipped), skipped)
+    }
+}
+
 /// The 7-bit addresses a scan covers: all but the reserved ones, unless
 /// `include_reserved`.
 pub fn scan_range(include_reserved: bool, ten_bit: bool) -> Vec<Address> {

@@ -19,7 +19,7 @@ use super::cap::{self, Message, StepName};
 use super::convert::{self, LuaResult, bad, call_options, ms_option};
 use super::device::DeviceHandle;
 use super::{Abort, Ctx, origin};
-use crate::player::{Probe, Request, RunError, scan_range};
+use crate::player::{Probe, Request, RunError, TEN_BIT_SKIPPED};
 
 /// Turns a plain error raised in a callback into an [`Abort`] that carries
 /// the script line; errors that already are one pass through.
@@ -176,12 +176,11 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         // An adapter without 10-bit support still gets the 7-bit scan, and
         // the script is told (a warning line where the scan ran) what was
         // left out, rather than losing the 7-bit results to an error.
-        let ten_ok = c.session.borrow().adapter_ref().capabilities().ten_bit;
-        if ten && !ten_ok {
-            let warning = "bus.scan: 10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)";
-            c.session.borrow_mut().log(Level::Warn, warning.into(), origin(lua));
+        let (range, skipped) = c.session.borrow().scan_plan(reserved, ten);
+        if skipped {
+            c.session.borrow_mut().log(Level::Warn, format!("bus.scan: {TEN_BIT_SKIPPED}"), origin(lua));
         }
-        let found = c.session.borrow_mut().scan(&scan_range(reserved, ten && ten_ok), probe, policy, origin(lua));
+        let found = c.session.borrow_mut().scan(&range, probe, policy, origin(lua));
         let found = found.map_err(|e| run_error(lua, e))?;
         let t = lua.create_table()?;
         for (i, a) in found.iter().enumerate() {

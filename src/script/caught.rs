@@ -46,25 +46,6 @@ pub enum Kind {
 }
 
 impl Kind {
-    pub const ALL: [Kind; 16] = [
-        Kind::AddressNack,
-        Kind::DataNack,
-        Kind::ArbitrationLost,
-        Kind::BusError,
-        Kind::StretchTimeout,
-        Kind::Adapter,
-        Kind::AckPollTimeout,
-        Kind::WaitTimeout,
-        Kind::Protocol,
-        Kind::Shape,
-        Kind::Check,
-        Kind::Script,
-        Kind::Interrupted,
-        Kind::TimeLimit,
-        Kind::Record,
-        Kind::Limit,
-    ];
-
     pub fn as_str(self) -> &'static str {
         match self {
             Kind::AddressNack => "address-nack",

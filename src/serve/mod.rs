@@ -312,7 +312,7 @@ pub fn serve<S: Server>(
                 // No one has the slave side open (the master reads EIO,
                 // or polls as hung up). Said once per peer; then look
                 // again until the next one opens it.
-                Err(e) if e.raw_os_error() == Some(5) || e.kind() == io::ErrorKind::BrokenPipe => {
+                Err(e) if no_peer(&e) => {
                     if open && tx.send(Incoming::Closed).is_err() {
                         break;
                     }
@@ -408,8 +408,16 @@ pub fn serve<S: Server>(
     Ok(end)
 }
 
+/// Whether no one has the slave side open: the master reads EIO, or
+/// polls as hung up (the serial library's `BrokenPipe`).
+fn no_peer(e: &io::Error) -> bool {
+    e.kind() == io::ErrorKind::BrokenPipe || e.raw_os_error() == Some(5)
+}
+
+/// Whether an answer could not reach the peer: it went, or stopped
+/// reading until the write timed out.
 fn is_peer_gone(e: &io::Error) -> bool {
-    matches!(e.kind(), io::ErrorKind::BrokenPipe | io::ErrorKind::TimedOut) || e.raw_os_error() == Some(5)
+    no_peer(e) || e.kind() == io::ErrorKind::TimedOut
 }
 
 /// Opens a pseudo-terminal pair: the master for [`serve`], the slave to
