@@ -198,7 +198,7 @@ impl<P: Read + Write> LineLink<P> {
 /// The words a reply's `{fault}` field may carry (adapters/DIALECTS.md).
 pub fn fault_word(f: &Fault) -> &'static str {
     match f {
-        Fault::AddressNack { .. } | Fault::DataNack { .. } => "nack",
+        Fault::AddressNack { .. } | Fault::DataNack { .. } | Fault::Nack { .. } => "nack",
         Fault::ArbitrationLost => "arbitration",
         Fault::Bus { line: LineFault::SdaStuckLow } => "sda-low",
         Fault::Bus { line: LineFault::SclStuckLow } => "scl-low",

@@ -32,6 +32,9 @@ use thiserror::Error;
 use crate::bus::{BusSpeed, Outcome, Transaction};
 
 pub mod error;
+#[cfg(unix)]
+pub mod kernel;
+pub mod kernel_map;
 pub mod link;
 pub mod native;
 pub mod native_fault;
@@ -139,6 +142,21 @@ pub trait Adapter {
     fn delay(&mut self, d: Duration);
     fn close(&mut self) -> Result<(), AdapterError>;
 
+    /// Why this adapter cannot carry `tx` at all, said before anything is
+    /// sent (a shape an SMBus-only adapter has no protocol for, an address
+    /// a kernel driver owns); `None`: it can try. The session asks before
+    /// every transaction.
+    fn refuses(&self, _tx: &Transaction) -> Option<String> {
+        None
+    }
+
+    /// The kernel driver that owns `address`, for adapters that share
+    /// their bus with the system's drivers (`None`: nobody, or unknown).
+    /// Scans skip owned addresses and show them as owned.
+    fn owner(&self, _address: crate::bus::Address) -> Option<String> {
+        None
+    }
+
     /// Link counters, for drivers with a framed link (`None` otherwise).
     fn link_counters(&self) -> Option<LinkCounters> {
         None
@@ -168,11 +186,16 @@ pub enum AdapterSpec {
     /// `dialect:PROFILE@PORT[,key=value...]`: a line-based adapter firmware
     /// described by a profile (a shipped name or a file), on a serial port.
     Dialect { profile: String, path: std::path::PathBuf, overrides: Vec<(String, String)> },
+    /// `kernel:N`, `kernel:/dev/i2c-N` (`,force` to take addresses a
+    /// kernel driver owns): a bus the Linux kernel drives, through i2c-dev.
+    #[cfg(unix)]
+    Kernel(kernel::KernelSpec),
 }
 
 impl AdapterSpec {
     /// Parses an `--adapter` value: `sim`, `sim:PATH`, `serial:PORT[,k=v...]`
-    /// (or a bare `/dev/` path), `dialect:PROFILE@PORT[,k=v...]`. Parsing only:
+    /// (or a bare `/dev/` path), `dialect:PROFILE@PORT[,k=v...]`,
+    /// `kernel:N[,force]`. Parsing only:
     /// opening is the command line's job (`cli::compose`).
     pub fn parse(text: &str) -> Result<Self> {
         let t = text.trim();
@@ -194,9 +217,14 @@ impl AdapterSpec {
         if let Some(rest) = t.strip_prefix("dialect:") {
             return dialect::parse_spec(rest);
         }
+        #[cfg(unix)]
+        if let Some(rest) = t.strip_prefix("kernel:") {
+            return Ok(AdapterSpec::Kernel(kernel::KernelSpec::parse(rest)?));
+        }
         bail!(
             "`{t}` is not an adapter: use `sim` for the built-in bench, `sim:PATH` for a bench file, \
-             `serial:PORT[,baud=N,...]` for a native serial adapter or `dialect:PROFILE@PORT` for a text-dialect adapter"
+             `serial:PORT[,baud=N,...]` for a native serial adapter, `dialect:PROFILE@PORT` for a text-dialect adapter \
+             or `kernel:N` for a bus the Linux kernel drives (/dev/i2c-N)"
         )
     }
 }
@@ -264,5 +292,13 @@ mod tests {
         assert!(e.contains("window must be 1 to 255"), "{e}");
         assert!(AdapterSpec::parse("serial:").is_err());
         assert!(AdapterSpec::parse("serial:/dev/x,baud").is_err());
+        assert_eq!(
+            AdapterSpec::parse("kernel:2").unwrap(),
+            AdapterSpec::Kernel(kernel::KernelSpec { path: "/dev/i2c-2".into(), force: false })
+        );
+        // A bare /dev/i2c-N path would be taken for a serial port: the
+        // kernel prefix says which.
+        assert!(matches!(AdapterSpec::parse("/dev/i2c-2").unwrap(), AdapterSpec::Native { .. }));
+        assert!(AdapterSpec::parse("kernel:").is_err());
     }
 }

@@ -19,6 +19,10 @@ pub fn failure_of(fault: &Fault) -> Failure {
     match fault {
         Fault::AddressNack { direction, .. } => Failure::AddressNack { read: *direction == Direction::Read },
         Fault::DataNack { .. } => Failure::DataNack,
+        // Only a kernel adapter reports a NACK it cannot place, and a
+        // served board never does: the nearest codes, should one pass.
+        Fault::Nack { address: true } => Failure::AddressNack { read: false },
+        Fault::Nack { address: false } => Failure::DataNack,
         Fault::ArbitrationLost => Failure::ArbitrationLost,
         Fault::Bus { line } => Failure::BusError(match line {
             LineFault::SdaStuckLow => BusLine::SdaStuckLow,

@@ -55,6 +55,17 @@ pub enum Fault {
     /// The target NACKed data byte `index` of write operation `op`.
     #[error("data NACK at operation {op}, byte {index}")]
     DataNack { op: usize, index: usize },
+    /// A NACK the adapter reports without placing it: `address` when it
+    /// says an address byte went unanswered but not in which phase, false
+    /// when it cannot tell an address NACK from a data NACK at all (a
+    /// kernel adapter's driver reports both the same way). Said as such
+    /// rather than guessed.
+    #[error("{}", if *address {
+        "address NACK (the adapter does not say in which address phase)"
+    } else {
+        "NACK (the adapter does not say whether of an address or a data byte)"
+    })]
+    Nack { address: bool },
     #[error("arbitration lost")]
     ArbitrationLost,
     #[error("bus error: {line}")]
@@ -72,7 +83,7 @@ impl Fault {
     /// or absent. Everything else points at wiring, contention or the
     /// adapter and is not retried blindly.
     pub fn is_nack(&self) -> bool {
-        matches!(self, Fault::AddressNack { .. } | Fault::DataNack { .. })
+        matches!(self, Fault::AddressNack { .. } | Fault::DataNack { .. } | Fault::Nack { .. })
     }
 
     /// The nearest embedded-hal 1.0 error kind.
@@ -81,6 +92,8 @@ impl Fault {
         match self {
             Fault::AddressNack { .. } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address),
             Fault::DataNack { .. } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Data),
+            Fault::Nack { address: true } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Address),
+            Fault::Nack { address: false } => ErrorKind::NoAcknowledge(NoAcknowledgeSource::Unknown),
             Fault::ArbitrationLost => ErrorKind::ArbitrationLoss,
             Fault::Bus { .. } => ErrorKind::Bus,
             Fault::StretchTimeout { .. } | Fault::Adapter { .. } => ErrorKind::Other,
@@ -92,6 +105,7 @@ impl Fault {
         match self {
             Fault::AddressNack { .. } => FaultClass::AddressNack,
             Fault::DataNack { index, .. } => FaultClass::DataNack { index: *index },
+            Fault::Nack { address } => FaultClass::Nack { address: *address },
             Fault::ArbitrationLost => FaultClass::ArbitrationLost,
             Fault::Bus { line } => FaultClass::Bus(*line),
             Fault::StretchTimeout { .. } => FaultClass::StretchTimeout,
@@ -115,6 +129,7 @@ impl Fault {
 pub enum FaultClass {
     AddressNack,
     DataNack { index: usize },
+    Nack { address: bool },
     ArbitrationLost,
     Bus(LineFault),
     StretchTimeout,
@@ -127,6 +142,8 @@ impl FaultClass {
         match self {
             FaultClass::AddressNack => "addr-NACK".into(),
             FaultClass::DataNack { index } => format!("data-NACK@{index}"),
+            FaultClass::Nack { address: true } => "addr-NACK?".into(),
+            FaultClass::Nack { address: false } => "NACK?".into(),
             FaultClass::ArbitrationLost => "arb-lost".into(),
             FaultClass::Bus(LineFault::SdaStuckLow) => "SDA-stuck".into(),
             FaultClass::Bus(LineFault::SclStuckLow) => "SCL-stuck".into(),

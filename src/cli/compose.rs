@@ -21,6 +21,14 @@ pub fn open(spec: &AdapterSpec, opts: &OpenOptions) -> Result<Box<dyn Adapter>, 
             Err(e) => Err(OpenError::Link(e.into())),
         },
         AdapterSpec::Dialect { profile, path, overrides } => Ok(Box::new(dialect::open(profile, path, overrides)?)),
+        #[cfg(unix)]
+        AdapterSpec::Kernel(k) => {
+            let a = crate::adapter::kernel::KernelAdapter::open(k).map_err(|e| OpenError::Link(e.into()))?;
+            if let Some(c) = &a.caution {
+                eprintln!("caution: {}", super::shown(c));
+            }
+            Ok(Box::new(a))
+        }
         _ => Ok(Box::new(open_sim(spec, opts).map_err(OpenError::Input)?)),
     }
 }
@@ -36,6 +44,8 @@ pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<SimAdapter> {
         }
         AdapterSpec::Native { path, .. } => bail!("{path} is a serial port, not a simulated bench"),
         AdapterSpec::Dialect { path, .. } => bail!("{} is a serial port, not a simulated bench", path.display()),
+        #[cfg(unix)]
+        AdapterSpec::Kernel(k) => bail!("{} is a kernel bus, not a simulated bench", k.path.display()),
     };
     // Keys a newer bench format has and this build ignored: said once, as the bench opens.
     for w in &bench.warnings {

@@ -78,8 +78,9 @@ pub enum Command {
 pub struct BusArgs {
     /// Adapter: `sim` (the built-in greenhouse bench, the default),
     /// `sim:PATH` for another bench file, `serial:PORT[,baud=N,...]` (or a
-    /// bare /dev/ path) for a native serial adapter, or
-    /// `dialect:PROFILE@PORT` for a text-dialect adapter on a serial port.
+    /// bare /dev/ path) for a native serial adapter,
+    /// `dialect:PROFILE@PORT` for a text-dialect adapter on a serial port,
+    /// or `kernel:N[,force]` for a bus the Linux kernel drives (/dev/i2c-N).
     #[arg(long, short = 'a', default_value = "sim", value_parser = parse_adapter)]
     pub adapter: AdapterSpec,
     /// Bus clock: 100k, 400k, 1M or hertz (default: the adapter's).
@@ -159,11 +160,9 @@ impl BusArgs {
     /// simulated bench's clock, and a serial adapter's bus has no other
     /// clock than the wall clock, so the flag could never change anything.
     pub fn open(&self) -> Result<Box<dyn adapter::Adapter>> {
-        if self.realtime
-            && let AdapterSpec::Native { .. } | AdapterSpec::Dialect { .. } = self.adapter
-        {
+        if self.realtime && !matches!(self.adapter, AdapterSpec::DemoBench | AdapterSpec::Bench(_)) {
             bail!(
-                "--realtime paces the simulated bench only; a serial adapter's bus already runs in real time \
+                "--realtime paces the simulated bench only; a real adapter's bus already runs in real time \
                  (drop --realtime)"
             );
         }

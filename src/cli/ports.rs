@@ -1,5 +1,6 @@
 //! `buscue ports`: the serial ports this machine has, and (with
-//! `--probe`) which of them answer the native handshake.
+//! `--probe`) which of them answer the native handshake; and the I2C buses
+//! the kernel drives (`/dev/i2c-N`), with what each offers.
 
 use std::io::Write;
 use std::time::Duration;
@@ -66,8 +67,21 @@ pub fn ports(a: PortsArgs) -> Result<u8> {
         list.retain(|(name, _)| seen.insert(name.clone()));
     }
     let mut out = crate::cli::out::locked();
-    if list.is_empty() {
+    // Buses the kernel drives (`--adapter kernel:N`), named or all.
+    #[cfg(unix)]
+    let kernel: Vec<(String, String, String)> = crate::adapter::kernel::list_buses()
+        .into_iter()
+        .filter(|(path, _, _)| a.only.is_empty() || a.only.contains(path))
+        .collect();
+    #[cfg(not(unix))]
+    let kernel: Vec<(String, String, String)> = Vec::new();
+    // Kernel buses are not serial ports: never probed, never listed twice.
+    list.retain(|(name, _)| !kernel.iter().any(|(k, _, _)| k == name));
+    if list.is_empty() && kernel.is_empty() {
         writeln!(out, "no serial ports found")?;
+    }
+    for (path, name, offer) in &kernel {
+        writeln!(out, "{}	kernel \"{}\"	{}", shown(path), shown(name), shown(offer))?;
     }
     for (name, what) in &list {
         if a.probe {

@@ -12,7 +12,7 @@ use crate::player::{Probe, TEN_BIT_SKIPPED};
 use crate::script::Session;
 use crate::view::plain::PlainLog;
 
-use super::{BusArgs, ShowArgs, error_line, interrupt_flag, whole_in};
+use super::{BusArgs, ShowArgs, error_line, interrupt_flag, shown, whole_in};
 
 /// The probes of `--probe`. Described in the option's own help, not per
 /// value: value descriptions would give `scan --help` a layout of its own.
@@ -81,8 +81,9 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
     // part it cannot do is said after the results, and the exit code is
     // the adapter code an unsupported request has everywhere, so a station
     // that asked for 10-bit addresses never takes "none found" for an answer.
-    let (range, skipped) = session.scan_plan(a.include_reserved, a.ten_bit);
-    let skipped = skipped.then(|| AdapterError::Unsupported(TEN_BIT_SKIPPED.into()));
+    let plan = session.scan_plan(a.include_reserved, a.ten_bit);
+    let (range, owned) = (plan.addresses, plan.owned);
+    let skipped = plan.ten_bit_skipped.then(|| AdapterError::Unsupported(TEN_BIT_SKIPPED.into()));
     let policy = RetryPolicy::new(a.attempts as i64, 1.0, 1.0)?;
     let result = session.scan(&range, probe, policy, None);
     let code = match (&result, &skipped) {
@@ -111,6 +112,7 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
                 "speed_hz": speed.hz(),
                 "probe": format!("{:?}", a.probe).to_lowercase(),
                 "found": found.iter().map(|x| x.to_string()).collect::<Vec<_>>(),
+                "owned": owned.iter().map(|(x, d)| serde_json::json!({"address": x.to_string(), "driver": d})).collect::<Vec<_>>(),
                 "ten_bit_skipped": skipped.is_some(),
             });
             writeln!(out, "{v}")
@@ -121,6 +123,9 @@ pub fn scan(a: ScanArgs) -> Result<u8> {
                     Some(r) => writeln!(out, "  {f:<9}  answers  (reserved: {})", r.describe())?,
                     None => writeln!(out, "  {f:<9}  answers")?,
                 }
+            }
+            for (x, driver) in &owned {
+                writeln!(out, "  {x:<9}  owned by the kernel driver `{}`: not probed", shown(driver))?;
             }
             writeln!(out, "{} answered", found.len())
         }

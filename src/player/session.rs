@@ -247,6 +247,9 @@ impl Session {
                 tx.address
             ))));
         }
+        if let Some(why) = self.adapter.refuses(tx) {
+            return Err(RunError::Adapter(AdapterError::Unsupported(why)));
+        }
         Ok(())
     }
 
@@ -482,13 +485,34 @@ pub enum Probe {
 pub const TEN_BIT_SKIPPED: &str =
     "10-bit addresses were not probed: this adapter has no 10-bit support (the 7-bit results are complete)";
 
+/// What a scan probes on this adapter, and what it leaves out and why.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ScanPlan {
+    /// The addresses to probe ([`scan_range`], less the owned ones).
+    pub addresses: Vec<Address>,
+    /// Whether the 10-bit addresses asked for were left out because the
+    /// adapter cannot address them ([`TEN_BIT_SKIPPED`]).
+    pub ten_bit_skipped: bool,
+    /// Addresses a kernel driver owns, with the driver: not probed (a
+    /// probe could disturb the driver's conversation with its device).
+    pub owned: Vec<(Address, String)>,
+}
+
 impl Session {
-    /// The addresses a scan covers on this adapter ([`scan_range`]), and
-    /// whether the 10-bit ones asked for were left out because the adapter
-    /// cannot address them ([`TEN_BIT_SKIPPED`]).
-    pub fn scan_plan(&self, include_reserved: bool, ten_bit: bool) -> (Vec<Address>, bool) {
-        let skipped = ten_bit && !self.adapter_ref().capabilities().ten_bit;
-        (scan_range(include_reserved, ten_bit && !skipped), skipped)
+    /// What a scan covers on this adapter.
+    pub fn scan_plan(&self, include_reserved: bool, ten_bit: bool) -> ScanPlan {
+        let adapter = self.adapter_ref();
+        let skipped = ten_bit && !adapter.capabilities().ten_bit;
+        let mut owned = Vec::new();
+        let mut addresses = scan_range(include_reserved, ten_bit && !skipped);
+        addresses.retain(|&a| match adapter.owner(a) {
+            Some(driver) => {
+                owned.push((a, driver));
+                false
+            }
+            None => true,
+        });
+        ScanPlan { addresses, ten_bit_skipped: skipped, owned }
     }
 }
 

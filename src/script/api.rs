@@ -176,11 +176,15 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         // An adapter without 10-bit support still gets the 7-bit scan, and
         // the script is told (a warning line where the scan ran) what was
         // left out, rather than losing the 7-bit results to an error.
-        let (range, skipped) = c.session.borrow().scan_plan(reserved, ten);
-        if skipped {
+        let plan = c.session.borrow().scan_plan(reserved, ten);
+        if plan.ten_bit_skipped {
             c.session.borrow_mut().log(Level::Warn, format!("bus.scan: {TEN_BIT_SKIPPED}"), origin(lua));
         }
-        let found = c.session.borrow_mut().scan(&range, probe, policy, origin(lua));
+        for (a, driver) in &plan.owned {
+            let text = format!("bus.scan: {a} not probed: the kernel driver `{driver}` owns it");
+            c.session.borrow_mut().log(Level::Info, text, origin(lua));
+        }
+        let found = c.session.borrow_mut().scan(&plan.addresses, probe, policy, origin(lua));
         let found = found.map_err(|e| run_error(lua, e))?;
         let t = lua.create_table()?;
         for (i, a) in found.iter().enumerate() {
@@ -252,6 +256,24 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
             t.set("probe_nacks", s.probe_nacks)?;
             t.set("other_nacks", s.other_nacks())?;
         }
+        Ok(t)
+    })?;
+
+    let c = ctx.clone();
+    add(lua, &bus, "bus.adapter", move |lua, ()| {
+        // Who the adapter is and what it can do, for scripts that adapt to
+        // it (an SMBus-only kernel bus carries only the SMBus shapes).
+        let session = c.session.borrow();
+        let a = session.adapter_ref();
+        let (id, caps) = (a.identity(), a.capabilities());
+        let t = lua.create_table()?;
+        t.set("driver", id.driver.as_str())?;
+        t.set("target", id.target.as_str())?;
+        t.set("description", id.description.as_str())?;
+        t.set("speed_hz", a.speed().hz())?;
+        t.set("ten_bit", caps.ten_bit)?;
+        t.set("max_bytes_per_op", caps.max_bytes_per_op)?;
+        t.set("smbus_only", id.driver == crate::adapter::kernel_map::DRIVER_SMBUS)?;
         Ok(t)
     })?;
 

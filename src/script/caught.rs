@@ -29,6 +29,8 @@ pub struct Caught(pub Abort);
 pub enum Kind {
     AddressNack,
     DataNack,
+    /// A NACK the adapter did not place (address or data).
+    Nack,
     ArbitrationLost,
     BusError,
     StretchTimeout,
@@ -50,6 +52,7 @@ impl Kind {
         match self {
             Kind::AddressNack => "address-nack",
             Kind::DataNack => "data-nack",
+            Kind::Nack => "nack",
             Kind::ArbitrationLost => "arbitration-lost",
             Kind::BusError => "bus-error",
             Kind::StretchTimeout => "stretch-timeout",
@@ -78,6 +81,7 @@ impl Caught {
                 RunError::Bus { fault, .. } => match fault {
                     Fault::AddressNack { .. } => Kind::AddressNack,
                     Fault::DataNack { .. } => Kind::DataNack,
+                    Fault::Nack { .. } => Kind::Nack,
                     Fault::ArbitrationLost => Kind::ArbitrationLost,
                     Fault::Bus { .. } => Kind::BusError,
                     Fault::StretchTimeout { .. } => Kind::StretchTimeout,

@@ -5,7 +5,9 @@
 //! [`Transaction`](crate::bus::Transaction) events every adapter puts on
 //! the bus; nothing here talks to hardware.
 
-pub mod pec;
+/// PEC lives with the bus model (an adapter that checks PEC itself
+/// rebuilds the byte it checked); its SMBus meaning is described here.
+pub use crate::bus::pec;
 pub mod protocol;
 
 pub use pec::{Pec, crc8};

@@ -37,7 +37,7 @@ use thiserror::Error;
 
 use crate::bus::{Address, Event, Fault, Operation, Outcome, ShapeError, Transaction};
 
-use super::pec::crc8;
+use crate::bus::pec::crc8;
 
 /// Most data bytes one block may carry.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]

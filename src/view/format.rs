@@ -42,7 +42,7 @@ use std::time::Duration;
 use crate::ascii::{
     EscapeMemo, escape_controls, push_escaped, push_hex_byte as push_hex, push_spaces, push_uint, push_uint_left,
 };
-use crate::bus::{Operation, Outcome};
+use crate::bus::{Fault, Operation, Outcome};
 use crate::record::Frame;
 use crate::record::Stats;
 
@@ -311,7 +311,13 @@ fn ops_text(ops: &[Operation], outcome: &Outcome, out: &mut String, keep: usize)
                     push_bytes(out, &bytes[..sent], keep, |j| !acks[j]);
                 }
                 let unsent = bytes.len() - sent;
-                if unsent > 0 {
+                if unsent > 0 && done.is_none() && matches!(outcome.fault, Some(Fault::Nack { .. })) {
+                    // The adapter did not say where the NACK fell: the
+                    // bytes, and a mark that their ACKs are not known.
+                    out.push(' ');
+                    push_bytes(out, bytes, keep, |_| false);
+                    out.push_str(" ?");
+                } else if unsent > 0 {
                     if done.is_some() || outcome.fault.is_some() {
                         out.push_str(" +");
                         push_uint(out, unsent as u64, 1);
@@ -668,6 +674,16 @@ mod tests {
         assert!(line.ends_with("e.lua:9"), "{line}");
         assert!(!line.contains('\x1b'));
         assert!(frame_line(&f, &Layout { colour: true, ..wide() }).contains("\x1b[33m"));
+    }
+
+    #[test]
+    fn an_unplaced_nack_shows_the_bytes_with_their_acks_unknown() {
+        let f =
+            frame(vec![Operation::Write(vec![0x03]), Operation::Read(2)], vec![], Some(Fault::Nack { address: false }));
+        let line = frame_line(&f, &wide());
+        assert!(line.contains("W 03 ? | R ?x2"), "{line}");
+        assert!(line.contains("NACK?"), "{line}");
+        assert!(!line.contains("unsent"), "{line}");
     }
 
     // The 80-column line of a two-byte register read (hand count): the
