@@ -200,7 +200,11 @@ fn cut_corrupt_and_unknown_major_through_the_cli() {
     assert!(err.contains("bad.jsonl:4: unreadable record"), "{err}");
 
     let v2 = dir.path().join("v2.jsonl");
-    std::fs::write(&v2, full.replacen("\"version\":\"1.0\"", "\"version\":\"2.3\"", 1)).unwrap();
+    std::fs::write(
+        &v2,
+        full.replacen(&format!("\"version\":\"1.{}\"", buscue::trace::header::VERSION_MINOR), "\"version\":\"2.3\"", 1),
+    )
+    .unwrap();
     let o = buscue(&["diff", v2.to_str().unwrap(), t.to_str().unwrap()]);
     let (_, err) = text(&o);
     assert_eq!(o.status.code(), Some(2));
@@ -213,7 +217,10 @@ fn run_writes_a_header_that_names_the_run() {
     let t = record(dir.path(), "scripts/climate_bringup.lua", &["--set", "samples=2"]);
     let trace = Trace::load(&t).unwrap();
     let h = &trace.header;
-    assert_eq!((h.format.as_str(), h.version.as_str(), h.source.as_str()), ("buscue-trace", "1.0", "run"));
+    assert_eq!(
+        (h.format.as_str(), h.version.as_str(), h.source.as_str()),
+        ("buscue-trace", format!("1.{}", buscue::trace::header::VERSION_MINOR).as_str(), "run")
+    );
     assert_eq!(h.bench.as_deref(), Some("adapters/greenhouse.toml"));
     assert_eq!(h.speed_hz, 100_000);
     let script = h.script.as_ref().unwrap();

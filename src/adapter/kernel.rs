@@ -404,6 +404,13 @@ impl Adapter for KernelAdapter {
                 Some(fault) => {
                     Outcome { ops: Vec::new(), bus_time: Duration::ZERO, measured: None, fault: Some(fault) }
                 }
+                // I2C_SLAVE's EBUSY: a driver bound to the address since
+                // sysfs was asked (dev-interface.rst).
+                None if errno == libc::EBUSY && what == "I2C_SLAVE" => Outcome::adapter_failure(format!(
+                    "{} on {} is owned by a kernel driver (I2C_SLAVE: EBUSY); add `,force` to the adapter to take \
+                     it anyway, which can corrupt that driver's state",
+                    tx.address, self.identity.target
+                )),
                 None => Outcome::adapter_failure(format!(
                     "{} on {} ({what}): {}",
                     tx.address,
@@ -489,6 +496,68 @@ mod tests {
         let f = tempfile::NamedTempFile::new().unwrap();
         let e = KernelAdapter::open(&KernelSpec { path: f.path().into(), force: false }).err().unwrap().to_string();
         assert!(e.contains("not an I2C bus device"), "{e}");
+    }
+
+    /// An adapter over a file that is no bus device, with a made-up sysfs:
+    /// what it refuses and what a failed ioctl becomes.
+    fn fake(root: &Path, force: bool) -> KernelAdapter {
+        let file = tempfile::tempfile().unwrap();
+        KernelAdapter {
+            file,
+            bus: Some(3),
+            funcs: Funcs(Funcs::QUICK | Funcs::READ_BYTE_DATA | Funcs::WRITE_BYTE_DATA),
+            force,
+            sysfs: Sysfs { root: root.to_path_buf() },
+            identity: Identity {
+                driver: kernel_map::DRIVER_SMBUS.into(),
+                target: "/dev/i2c-3".into(),
+                description: String::new(),
+            },
+            caps: Capabilities {
+                max_bytes_per_op: 34,
+                ten_bit: false,
+                min_speed_hz: 100_000,
+                max_speed_hz: 100_000,
+                stretch_timeout_us: 0,
+                line_readback: false,
+                recovery: false,
+            },
+            speed: BusSpeed::STANDARD,
+            clock_known: false,
+            client: None,
+            pec: false,
+            owners: Default::default(),
+            opened: Instant::now(),
+            caution: None,
+        }
+    }
+
+    #[test]
+    fn owned_addresses_and_shapes_without_a_protocol_are_refused_before_the_bus() {
+        use crate::bus::Operation;
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path();
+        std::fs::create_dir_all(root.join("bus/i2c/drivers/climate-node")).unwrap();
+        std::fs::create_dir_all(root.join("bus/i2c/devices/3-0031")).unwrap();
+        std::os::unix::fs::symlink("../../drivers/climate-node", root.join("bus/i2c/devices/3-0031/driver")).unwrap();
+        let read = |a: u8| Transaction::new(Address::Seven(a), vec![Operation::Write(vec![0x01]), Operation::Read(1)]);
+        let a = fake(root, false);
+        let why = a.refuses(&read(0x31)).expect("an owned address is refused");
+        assert!(why.contains("kernel driver `climate-node`") && why.contains(",force"), "{why}");
+        assert_eq!(a.owner(Address::Seven(0x31)).as_deref(), Some("climate-node"));
+        assert_eq!(a.refuses(&read(0x35)), None);
+        let odd = Transaction::new(Address::Seven(0x35), vec![Operation::Read(3)]);
+        assert!(a.refuses(&odd).unwrap().contains("read 3 bytes"));
+        // With force the owner no longer stops it; the shape rule still does.
+        let mut forced = fake(root, true);
+        assert_eq!(forced.refuses(&read(0x31)), None);
+        // A failed ioctl (this file is no bus) is the adapter's failure,
+        // named with the call and the kernel's words.
+        let o = forced.execute(&read(0x31));
+        let Some(Fault::Adapter { detail }) = &o.fault else { panic!("{o:?}") };
+        assert!(detail.contains("0x31 on /dev/i2c-3 (I2C_SLAVE)"), "{detail}");
+        // The clock is the kernel's.
+        assert!(forced.set_speed(BusSpeed::FAST).unwrap_err().to_string().contains("the kernel sets"));
     }
 
     #[test]

@@ -318,6 +318,19 @@ fn smbus(tx: &Transaction, f: Funcs) -> Result<SmbusCall, String> {
             x.data[1] = *hi;
             Ok(x)
         }
+        // A command, a count and that many bytes: Block Write, which has
+        // the same bytes on the wire as an I2C block write but is a
+        // protocol of its own to the adapter (and to an emulated target).
+        (Some([c, n, rest @ ..]), None)
+            if f.has(Funcs::WRITE_BLOCK_DATA)
+                && *n as usize == rest.len()
+                && (1..=SMBUS_BLOCK_MAX).contains(&rest.len()) =>
+        {
+            let mut x = call("Block Write", SMBUS_WRITE, *c, SIZE_BLOCK_DATA, false);
+            x.data[0] = *n;
+            x.data[1..=rest.len()].copy_from_slice(rest);
+            Ok(x)
+        }
         (Some([c, rest @ ..]), None) => {
             need(Funcs::WRITE_I2C_BLOCK, "I2C block write for a command and several bytes")?;
             if rest.len() > SMBUS_BLOCK_MAX {
@@ -608,6 +621,7 @@ mod tests {
         assert_eq!(p(vec![Operation::Write(vec![0x02, 0x9A])]), ("Write Byte", 0, 0x02, 2, 0x9A, false));
         assert_eq!(p(vec![Operation::Write(vec![0x02, 0x34, 0x12])]), ("Write Word", 0, 0x02, 3, 0x34, false));
         assert_eq!(p(vec![Operation::Write(vec![0x02, 1, 2, 3])]), ("I2C block write", 0, 0x02, 8, 3, false));
+        assert_eq!(p(vec![Operation::Write(vec![0x02, 3, 7, 8, 9])]), ("Block Write", 0, 0x02, 5, 3, false));
         assert_eq!(p(vec![Operation::Read(1)]), ("Receive Byte", 1, 0, 1, 0, false));
         assert_eq!(p(vec![Operation::Write(vec![0x07]), Operation::Read(1)]), ("Read Byte", 1, 0x07, 2, 0, false));
         assert_eq!(p(vec![Operation::Write(vec![0x07]), Operation::Read(2)]), ("Read Word", 1, 0x07, 3, 0, false));

@@ -115,7 +115,19 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         let hz = reader.header().speed_hz;
         let speed = crate::bus::BusSpeed::from_hz(hz as u64)
             .with_context(|| format!("{}: header speed_hz {hz}", a.trace.display()))?;
-        adapter.set_speed(speed).with_context(|| format!("setting the recorded bus speed {speed}"))?;
+        match adapter.set_speed(speed) {
+            Ok(_) => {}
+            // A bus whose clock is not ours to set (a kernel adapter's):
+            // the same bytes still go out, at the bus's own clock.
+            Err(crate::adapter::AdapterError::Unsupported(m)) => eprintln!(
+                "{}",
+                warning_line(
+                    format_args!("the recording ran at {speed}; {m}: replaying at the bus's own clock"),
+                    colour
+                )
+            ),
+            Err(e) => return Err(e).with_context(|| format!("setting the recorded bus speed {speed}")),
+        }
     }
     // What this adapter cannot do is known before the first frame: refused
     // whole, with the exit code the adapter error has everywhere.

@@ -29,7 +29,7 @@ pub struct Caught(pub Abort);
 pub enum Kind {
     AddressNack,
     DataNack,
-    /// A NACK the adapter did not place (address or data).
+    /// A NACK the adapter cannot place at all (address or data).
     Nack,
     ArbitrationLost,
     BusError,
@@ -79,9 +79,12 @@ impl Caught {
             Abort::Limit(_) => Kind::Limit,
             Abort::Run { error, .. } => match error {
                 RunError::Bus { fault, .. } => match fault {
-                    Fault::AddressNack { .. } => Kind::AddressNack,
+                    // An address NACK the adapter does not place is still
+                    // one (the script's test for an absent device); `op`
+                    // stays unset.
+                    Fault::AddressNack { .. } | Fault::Nack { address: true } => Kind::AddressNack,
                     Fault::DataNack { .. } => Kind::DataNack,
-                    Fault::Nack { .. } => Kind::Nack,
+                    Fault::Nack { address: false } => Kind::Nack,
                     Fault::ArbitrationLost => Kind::ArbitrationLost,
                     Fault::Bus { .. } => Kind::BusError,
                     Fault::StretchTimeout { .. } => Kind::StretchTimeout,

@@ -21,7 +21,8 @@ use crate::bus::outcome::nanos;
 pub const FORMAT: &str = "buscue-trace";
 /// The version this build writes.
 pub const VERSION_MAJOR: u32 = 1;
-pub const VERSION_MINOR: u32 = 0;
+/// 1.1 added the fault kind `nack` (a NACK the adapter does not place).
+pub const VERSION_MINOR: u32 = 1;
 
 /// The adapter a trace was recorded through.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
