@@ -534,3 +534,18 @@ fn byte_strings_longer_than_an_operation_are_refused_before_they_are_copied() {
         assert!(err.contains("has 70000 bytes; at most 65535 fit one operation"), "{call}: {err}");
     }
 }
+
+#[test]
+fn bus_adapter_says_who_the_adapter_is() {
+    // The demo bench: a simulated adapter that carries any transaction;
+    // its clock, as bus.speed reads it.
+    let out = ok(r#"
+        local a = bus.adapter()
+        check_eq(a.driver, "simulated", "driver")
+        check(not a.smbus_only, "the bench carries any shape")
+        check(a.ten_bit, "the demo bench has a 10-bit device")
+        check_eq(a.speed_hz, bus.speed(), "speed as bus.speed says")
+        log("target " .. a.target)
+    "#);
+    assert!(out.contains("target "), "{out}");
+}

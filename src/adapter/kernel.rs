@@ -239,13 +239,23 @@ impl KernelAdapter {
             line_readback: false,
             recovery: false,
         };
-        let caution = looks_like_system_smbus(&name).then(|| {
+        let mut caution = looks_like_system_smbus(&name).then(|| {
             format!(
                 "{shown} ({name}) looks like a computer's own SMBus controller: writes on it can reach memory-module \
                  EEPROMs, hardware monitors or battery controllers and can leave the machine unable to start; \
                  write only to addresses you know"
             )
         });
+        if spec.force {
+            let forced = format!(
+                "{shown}: `force` takes addresses kernel drivers own; a transaction to one can corrupt that driver's \
+                 state (unbind or unload the driver instead where you can)"
+            );
+            caution = Some(match caution {
+                Some(c) => format!("{c}\ncaution: {forced}"),
+                None => forced,
+            });
+        }
         Ok(KernelAdapter {
             file,
             bus,
