@@ -410,6 +410,13 @@ impl Adapter for KernelAdapter {
         let started = Instant::now();
         let mut outcome = match self.run(tx) {
             Ok(o) => o,
+            // ENODEV is i2c-stub's answer for an empty address, and also
+            // what every call returns once a USB bridge is unplugged: the
+            // device node tells the two apart.
+            Err((libc::ENODEV, _)) if !Path::new(&self.identity.target).exists() => Outcome::adapter_failure(format!(
+                "{} is gone (unplugged, or its driver unloaded)",
+                self.identity.target
+            )),
             Err((errno, what)) => match kernel_map::fault_of_errno(errno, tx) {
                 Some(fault) => {
                     Outcome { ops: Vec::new(), bus_time: Duration::ZERO, measured: None, fault: Some(fault) }

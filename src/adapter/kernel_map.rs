@@ -212,12 +212,12 @@ pub fn plan(tx: &Transaction, funcs: Funcs) -> Result<Plan, String> {
         ));
     }
     smbus(tx, funcs).map(Plan::Smbus).map_err(|why| {
-        let kind = if funcs.plain_i2c() {
-            "this shape needs a counted read, which this adapter"
+        let what = if funcs.plain_i2c() {
+            "this adapter cannot read a counted block, and no SMBus protocol it offers carries this"
         } else {
-            "this adapter speaks only SMBus and"
+            "this adapter speaks only SMBus, and no protocol it offers carries this"
         };
-        format!("{} ({}): {kind} cannot carry it ({why}); it offers {}", tx.address, shape(tx), funcs.names())
+        format!("{} ({}): {what} ({why}); it offers {}", tx.address, shape(tx), funcs.names())
     })
 }
 
@@ -405,7 +405,8 @@ fn smbus(tx: &Transaction, f: Funcs) -> Result<SmbusCall, String> {
             x.data[1..=data.len()].copy_from_slice(data);
             Ok(x)
         }
-        (Some(_), Some(Operation::Write(_))) | (None, Some(Operation::Write(_))) => unreachable!("writes merged above"),
+        // (No lone write is left here: every leading write was merged,
+        // so the one operation left reads.)
         _ => Err("no SMBus protocol has these bytes on the wire".into()),
     }
 }
