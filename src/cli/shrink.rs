@@ -42,6 +42,9 @@ pub struct ShrinkArgs {
     /// Wall-clock limit for the search (30s, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub max_time: Duration,
+    /// Skip the cheap passes (the divergence alone, whole steps, reads) and run ddmin on everything.
+    #[arg(long)]
+    pub ddmin_only: bool,
     /// Replace the files -o and --script name if they exist.
     #[arg(long)]
     pub force: bool,
@@ -93,6 +96,7 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
         replay: ReplayOptions { time_scale: Some(1.0), keep_going: false, masks },
         max_trials: a.max_trials.max(1),
         max_time: (!a.max_time.is_zero()).then_some(a.max_time),
+        quick_passes: !a.ddmin_only,
     };
     let tty = std::io::stderr().is_terminal();
     let mut last_shown = 0u64;

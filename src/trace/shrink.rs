@@ -12,7 +12,7 @@
 //!   place is the failure). Masks and delay rules are the replay's: kept
 //!   frames keep their recorded times, so the time between two kept
 //!   transactions is what it was.
-//! - Passes, cheapest first: cut everything after the diverging frame
+//! - Passes (unless `quick_passes` is off), cheapest first: cut everything after the diverging frame
 //!   (free); the diverging frame alone; drop each step whole; drop every
 //!   transaction that only reads; then ddmin ([`super::ddmin`]) over
 //!   what is left.
@@ -39,6 +39,9 @@ pub struct ShrinkOptions {
     pub replay: ReplayOptions,
     pub max_trials: u64,
     pub max_time: Option<Duration>,
+    /// Run the cheap passes before ddmin (the default); off, ddmin alone
+    /// works on everything before the divergence.
+    pub quick_passes: bool,
 }
 
 /// Where the search is, for a progress line.
@@ -262,7 +265,7 @@ pub fn shrink(
     };
     // Pass 2: the diverging frame alone.
     t.pass = "the diverging frame alone";
-    match t.test(&[], last) {
+    match if opts.quick_passes { t.test(&[], last) } else { Some(false) } {
         None => return Ok(done(&t, items, passes, t.cut)),
         Some(true) => {
             passes.push((t.pass, t.trials, 1));
@@ -272,7 +275,7 @@ pub fn shrink(
     }
     // Pass 3: whole steps.
     t.pass = "drop whole steps";
-    let steps = step_groups(trace, &items);
+    let steps = if opts.quick_passes { step_groups(trace, &items) } else { Vec::new() };
     if steps.len() > 1 {
         for g in steps {
             let without: Vec<usize> = items.iter().copied().filter(|i| !g.contains(i)).collect();
@@ -294,7 +297,7 @@ pub fn shrink(
         .copied()
         .filter(|&i| matches!(&trace.records[i], Record::Frame(f) if f.ops.iter().any(|o| o.direction() == crate::bus::Direction::Write && o.len() > 1)))
         .collect();
-    if writes.len() < items.len() {
+    if opts.quick_passes && writes.len() < items.len() {
         match t.test(&writes, last) {
             None => return Ok(done(&t, items, passes, t.cut)),
             Some(true) => items = writes,
