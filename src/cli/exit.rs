@@ -20,6 +20,9 @@ pub const DIVERGED: u8 = 5;
 /// the board did. Its own code, so a station can tell a full disk from a
 /// bad board.
 pub const RECORD_FAILED: u8 = 6;
+/// `shrink`: the recording replays without a divergence, so there is
+/// nothing to shrink (the board on the desk behaves as the customer's did).
+pub const NOT_DIVERGING: u8 = 8;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;
 

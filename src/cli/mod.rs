@@ -8,6 +8,7 @@
 //! Machine output (`--json`, trace files, `to-script`) keeps its own exact
 //! or escaped forms.
 
+pub mod bench_from;
 pub mod compose;
 pub mod electrical;
 pub mod exit;
@@ -20,6 +21,7 @@ mod run;
 mod scan;
 #[cfg(unix)]
 mod serve;
+mod shrink;
 mod traces;
 
 use std::sync::Arc;
@@ -65,6 +67,10 @@ pub enum Command {
     Diff(traces::DiffArgs),
     /// Turn a trace into an editable Lua script.
     ToScript(traces::ToScriptArgs),
+    /// Find the fewest recorded transactions that still diverge the same way when replayed.
+    Shrink(shrink::ShrinkArgs),
+    /// Write a bench file whose devices answer as a recording says (the board as recorded).
+    BenchFrom(bench_from::BenchFromArgs),
     /// Serve a simulated bench as a serial adapter on a pseudo-terminal
     /// (native protocol or a text dialect); prints the device path first.
     #[cfg(unix)]
@@ -376,6 +382,8 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Bustime(a) => electrical::run_bus_time(&a),
         Command::Replay(a) => traces::replay(a),
         Command::Diff(a) => traces::diff(a),
+        Command::Shrink(a) => shrink::shrink(a),
+        Command::BenchFrom(a) => bench_from::bench_from(a),
         Command::ToScript(a) => traces::to_script(a),
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),

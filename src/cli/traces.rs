@@ -25,7 +25,7 @@ use super::{
     BusArgs, ShowArgs, error_line, interrupt_flag, negative, outputs, parse_duration, shown, warning_line, whole,
 };
 
-fn parse_mask(s: &str) -> Result<Mask, String> {
+pub(super) fn parse_mask(s: &str) -> Result<Mask, String> {
     s.parse().map_err(|e: crate::trace::mask::MaskError| e.to_string())
 }
 

@@ -234,7 +234,7 @@ impl Recording {
             Address::Ten(a) => (a, 10),
         };
         let _ = writeln!(s, "[[device]]");
-        let _ = writeln!(s, "name = \"{}\"", name.escape_default());
+        let _ = writeln!(s, "name = {}", toml::Value::String(name.to_string()));
         let _ = writeln!(s, "model = \"recorded\"");
         let _ = writeln!(s, "address = 0x{address:02X}");
         if bits == 10 {

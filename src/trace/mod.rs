@@ -7,15 +7,18 @@
 //! line), [`file`] (writing and reading trace files), [`mask`] (volatile
 //! data to ignore when comparing), [`replay`] (play a trace against an
 //! adapter and compare), [`diff`] (align two traces), [`to_script`]
-//! (turn a trace into an editable Lua script). The format is documented
+//! (turn a trace into an editable Lua script), [`shrink`] (the fewest
+//! recorded transactions that still diverge, through [`ddmin`]). The format is documented
 //! in docs/traces.md.
 
 mod append;
+pub mod ddmin;
 pub mod diff;
 pub mod file;
 pub mod header;
 pub mod mask;
 pub mod replay;
+pub mod shrink;
 pub mod to_script;
 
 pub use file::{LimitReached, Trace, TraceError, TraceReader, TraceRescue, TraceWriter};

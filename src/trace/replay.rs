@@ -313,8 +313,9 @@ pub const MAX_OFFSET: Duration = Duration::from_secs(30 * 86_400);
 /// When frame `f` (just read from `trace`) starts after the replay's
 /// start: `None` with no scale (back to back), an error when it is beyond
 /// [`MAX_OFFSET`].
-fn offset<R: BufRead>(
-    trace: &TraceReader<R>,
+fn offset(
+    file: &str,
+    line: u64,
     f: &Frame,
     clock0: Duration,
     scale: Option<f64>,
@@ -327,8 +328,8 @@ fn offset<R: BufRead>(
     // A frame time far beyond any real recording is damage (or an
     // attack): refuse it rather than wait for centuries.
     Some(Err(TraceError::Corrupt {
-        file: trace.file().to_string(),
-        line: trace.line(),
+        file: file.to_string(),
+        line,
         detail: format!(
             "frame {} would be replayed {offset:.0} s after the start; a recording longer than {} days is taken as \
              damaged",
@@ -411,7 +412,7 @@ pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) ->
     let mut checked = Checked::default();
     while let Some(located) = trace.next_located()? {
         let Record::Frame(f) = located.record else { continue };
-        if let Some(Err(e)) = offset(trace, &f, clock0, time_scale) {
+        if let Some(Err(e)) = offset(trace.file(), trace.line(), &f, clock0, time_scale) {
             return Err(e);
         }
         checked.note(&f, located.line);
@@ -434,13 +435,46 @@ pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) ->
 /// Check the trace with [`check`] first: a line this finds damaged stops
 /// the replay there, after the frames before it were sent.
 pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opts: &ReplayOptions) -> ReplayReport {
+    let clock0 = trace.header().clock;
+    replay_from(session, clock0, opts, || {
+        let r = trace.next_record();
+        (r, trace.file().to_string(), trace.line())
+    })
+}
+
+/// Replays records in memory (already checked), as [`replay`] does a
+/// file; `file` names them in errors, lines counted as in a trace file
+/// whose header is line 1.
+pub fn replay_records<'a>(
+    session: &mut Session,
+    clock0: Duration,
+    file: &str,
+    records: impl IntoIterator<Item = &'a Record>,
+    opts: &ReplayOptions,
+) -> ReplayReport {
+    let mut records = records.into_iter();
+    let mut line = 1;
+    replay_from(session, clock0, opts, || {
+        line += 1;
+        (Ok(records.next().cloned()), file.to_string(), line)
+    })
+}
+
+/// The replay loop over any record source: `next` gives the next record
+/// and where it stands (file, line) for errors.
+fn replay_from(
+    session: &mut Session,
+    clock0: Duration,
+    opts: &ReplayOptions,
+    mut next: impl FnMut() -> (Result<Option<Record>, TraceError>, String, u64),
+) -> ReplayReport {
     let last = Rc::new(RefCell::new(None));
     session.add_sink(Box::new(LastFrame(last.clone())));
-    let clock0 = trace.header().clock;
     let start = session.now();
     let mut report = ReplayReport::default();
     loop {
-        let record = match trace.next_record() {
+        let (record, file, line) = next();
+        let record = match record {
             Ok(Some(r)) => r,
             Ok(None) => break,
             Err(e) => {
@@ -456,7 +490,7 @@ pub fn replay<R: BufRead>(session: &mut Session, trace: &mut TraceReader<R>, opt
             }
             Record::Log { .. } | Record::End { .. } => continue,
         };
-        if let Some(offset) = offset(trace, &f, clock0, opts.time_scale) {
+        if let Some(offset) = offset(&file, line, &f, clock0, opts.time_scale) {
             let offset = match offset {
                 Ok(o) => o,
                 Err(e) => {

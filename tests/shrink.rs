@@ -1,0 +1,228 @@
+//! `shrink` and `bench-from` end to end: planted faults in recordings of
+//! thousands of transactions, limits and Ctrl-C, the board as recorded.
+
+mod common;
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Command, Stdio};
+
+use common::{buscue, code, run, stderr, stdout};
+
+/// The demo bench with one line changed.
+fn bench_with(dir: &Path, name: &str, from: &str, to: &str) -> PathBuf {
+    let demo = std::fs::read_to_string(common::root().join("adapters/greenhouse.toml")).unwrap();
+    assert!(demo.contains(from), "the demo bench has `{from}`");
+    let p = dir.join(name);
+    std::fs::write(&p, demo.replace(from, to)).unwrap();
+    p
+}
+
+fn record(dir: &Path, script: &str, bench: &Path, extra: &[&str]) -> PathBuf {
+    let s = dir.join("customer.lua");
+    std::fs::write(&s, script).unwrap();
+    let t = dir.join("customer.jsonl");
+    let mut args = vec!["run", s.to_str().unwrap(), "--adapter", &format!("sim:{}", bench.display())]
+        .into_iter()
+        .map(String::from)
+        .collect::<Vec<_>>();
+    args.extend(["--trace".into(), t.to_str().unwrap().into(), "-q".into()]);
+    args.extend(extra.iter().map(|s| s.to_string()));
+    let o = buscue().args(&args).output().unwrap();
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    t
+}
+
+/// Noise around a planted fault: reads of another device, ACK polls,
+/// sleeps, reads of the EEPROM elsewhere; `fault` runs at iteration 700.
+fn noisy(n: u32, fault: &str) -> String {
+    format!(
+        r#"
+for i = 1, {n} do
+  bus.write_read(0x2B, {{0x00}}, 2)
+  if i % 50 == 0 then sleep_ms(1) end
+  if i % 61 == 0 then bus.wait_ack(0x2B, {{ timeout_ms = 5 }}) end
+  if i % 97 == 0 then bus.write_read(0x50, {{0x01, 0x00}}, 4) end
+  if i == 700 then
+{fault}
+  end
+end
+"#
+    )
+}
+
+/// Frames of a trace file, as (address, ops) JSON text.
+fn frames(path: &Path) -> Vec<serde_json::Value> {
+    std::fs::read_to_string(path)
+        .unwrap()
+        .lines()
+        .skip(1)
+        .map(|l| serde_json::from_str::<serde_json::Value>(l).unwrap())
+        .filter(|v| v["kind"] == "frame")
+        .collect()
+}
+
+/// A timing fault (a read too soon after a page write, recorded on a
+/// board whose EEPROM has no write cycle) shrinks to the page write and
+/// that read, whatever surrounds them; the results run and diverge again.
+#[test]
+fn a_planted_timing_fault_shrinks_to_the_write_and_the_early_read() {
+    let dir = tempfile::tempdir().unwrap();
+    let fast = bench_with(dir.path(), "fast.toml", "write_cycle_ms = 5.0", "write_cycle_ms = 0.0");
+    let fault =
+        "    bus.write(0x50, {0x00, 0x40, 1, 2, 3, 4})\n    bus.write_read(0x50, {0x00, 0x40}, 4)\n    sleep_ms(10)";
+    let rec = record(dir.path(), &noisy(2000, fault), &fast, &[]);
+    assert!(frames(&rec).len() > 2000);
+    let small = dir.path().join("small.jsonl");
+    let script = dir.path().join("small.lua");
+    let o =
+        run(&["shrink", rec.to_str().unwrap(), "-o", small.to_str().unwrap(), "--script", script.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let kept = frames(&small);
+    assert_eq!(kept.len(), 2, "{kept:?}");
+    assert_eq!(kept[0]["ops"][0]["write"], serde_json::json!([0x00, 0x40, 1, 2, 3, 4]));
+    assert_eq!(kept[1]["ops"][1]["read"], serde_json::json!(4));
+    // The shrunk trace diverges the same way on the demo bench ...
+    let o = run(&["replay", small.to_str().unwrap()]);
+    assert_eq!(code(&o), 5, "{}", stderr(&o));
+    let seq = kept[1]["seq"].as_u64().unwrap();
+    assert!(stdout(&o).contains(&format!("frame #{seq} (0x50)")), "{}", stdout(&o));
+    // ... and the script says what it is and fails there: an address NACK.
+    let text = std::fs::read_to_string(&script).unwrap();
+    assert!(text.starts_with("-- Shrunk from"), "{text}");
+    assert!(text.contains("trials"), "{text}");
+    let o = run(&["run", script.to_str().unwrap(), "--no-trace", "-q"]);
+    assert_eq!(code(&o), 3, "{}", stderr(&o));
+    assert!(stderr(&o).contains("0x50: address NACK"), "{}", stderr(&o));
+}
+
+/// A state fault needs two distant transactions: a page write early (a
+/// board with 64-byte pages keeps it whole, the desk's 32-byte pages wrap
+/// it to the page's start) and a read 1,300 iterations later of the
+/// page's start, which only the wrap changed. Alone the read matches the
+/// recording; both stay, everything between goes.
+#[test]
+fn a_planted_state_fault_keeps_both_distant_transactions() {
+    let dir = tempfile::tempdir().unwrap();
+    let wide = bench_with(dir.path(), "wide.toml", "page_size = 32", "page_size = 64");
+    let script = noisy(2000, "    bus.write(0x50, {0x00, 0x1C, 9, 8, 7, 6, 5, 4, 3, 2})\n    sleep_ms(10)")
+        + "bus.write_read(0x50, {0x00, 0x00}, 4)\n";
+    let rec = record(dir.path(), &script, &wide, &[]);
+    let small = dir.path().join("small.jsonl");
+    let o = run(&["shrink", rec.to_str().unwrap(), "-o", small.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let kept = frames(&small);
+    assert_eq!(kept.len(), 2, "{kept:?}");
+    assert_eq!(kept[0]["ops"][0]["write"][1], serde_json::json!(0x1C));
+    assert_eq!(kept[1]["ops"][0]["write"], serde_json::json!([0x00, 0x00]));
+    let gap = kept[1]["seq"].as_u64().unwrap() - kept[0]["seq"].as_u64().unwrap();
+    assert!(gap > 1000, "the two were {gap} frames apart");
+}
+
+/// Noise that writes (so the cheap passes cannot drop it) leaves ddmin
+/// work to do: a limit of a few trials stops it with a result that still
+/// reproduces.
+#[test]
+fn the_trial_limit_keeps_the_best_result_so_far() {
+    let dir = tempfile::tempdir().unwrap();
+    let fast = bench_with(dir.path(), "fast.toml", "write_cycle_ms = 5.0", "write_cycle_ms = 0.0");
+    let fault = "    bus.write(0x50, {0x00, 0x40, 1, 2})\n    bus.write_read(0x50, {0x00, 0x40}, 2)";
+    let script = noisy(1000, fault).replace("bus.write_read(0x2B, {0x00}, 2)", "bus.write(0x2B, {0x01, 0x00, 0x00})");
+    let rec = record(dir.path(), &script, &fast, &[]);
+    let small = dir.path().join("small.jsonl");
+    let o = run(&["shrink", rec.to_str().unwrap(), "-o", small.to_str().unwrap(), "--max-trials", "8"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stderr(&o).contains("stopped at the trial limit (8)"), "{}", stderr(&o));
+    let kept = frames(&small).len();
+    assert!(kept > 2 && kept < 700, "{kept} frames kept");
+    let o = run(&["replay", small.to_str().unwrap()]);
+    assert_eq!(code(&o), 5, "{}", stderr(&o));
+}
+
+/// Ctrl-C during the search ends it with the best result so far written.
+/// Paced in real time, each trial lasts as long as the recording did.
+#[test]
+fn ctrl_c_keeps_the_best_result_so_far() {
+    let dir = tempfile::tempdir().unwrap();
+    let fast = bench_with(dir.path(), "fast.toml", "write_cycle_ms = 5.0", "write_cycle_ms = 0.0");
+    let fault = "    bus.write(0x50, {0x00, 0x40, 1, 2})\n    bus.write_read(0x50, {0x00, 0x40}, 2)";
+    let script = noisy(800, fault)
+        .replace("if i == 700", "if i == 100 then sleep_ms(300) end\n  if i == 700")
+        .replace("bus.write_read(0x2B, {0x00}, 2)", "bus.write(0x2B, {0x01, 0x00, 0x00})");
+    let rec = record(dir.path(), &script, &fast, &[]);
+    let small = dir.path().join("small.jsonl");
+    let mut child = buscue()
+        .args(["shrink", rec.to_str().unwrap(), "-o", small.to_str().unwrap(), "--realtime"])
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut lines = BufReader::new(child.stderr.take().unwrap()).lines();
+    // The signal goes once the first candidate is being tried.
+    let first = lines.next().unwrap().unwrap();
+    assert!(first.starts_with("shrinking:"), "{first}");
+    let sent = Command::new("kill").args(["-INT", &child.id().to_string()]).status().unwrap();
+    assert!(sent.success());
+    let rest: Vec<String> = lines.map_while(Result::ok).collect();
+    let status = child.wait().unwrap();
+    assert_eq!(status.code(), Some(130), "{rest:?}");
+    assert!(rest.iter().any(|l| l.contains("interrupted; the best result so far")), "{rest:?}");
+    let o = run(&["replay", small.to_str().unwrap(), "--no-delays"]);
+    assert_eq!(code(&o), 5, "{}", stderr(&o));
+}
+
+#[test]
+fn a_recording_that_does_not_diverge_has_its_own_exit_code() {
+    let dir = tempfile::tempdir().unwrap();
+    let demo = common::root().join("adapters/greenhouse.toml");
+    let rec = record(dir.path(), "bus.write_read(0x2B, {0x00}, 2)\n", &demo, &[]);
+    let o = run(&["shrink", rec.to_str().unwrap()]);
+    assert_eq!(code(&o), 8, "{}", stderr(&o));
+    assert!(stderr(&o).contains("replays without a divergence"), "{}", stderr(&o));
+}
+
+/// The board as recorded: a script run against the bench built from its
+/// own trace gives the same trace (`diff` finds nothing); a read the
+/// recording never saw is the documented error.
+#[test]
+fn bench_from_reproduces_its_recording_and_refuses_the_unseen() {
+    let dir = tempfile::tempdir().unwrap();
+    let demo = common::root().join("adapters/greenhouse.toml");
+    let script = r#"
+bus.write(0x50, {0x00, 0x40, 1, 2, 3, 4})
+bus.wait_ack(0x50, { timeout_ms = 10 })
+for i = 1, 5 do bus.write_read(0x2B, {0x02}, 2) end
+bus.write_read(0x50, {0x00, 0x40}, 4)
+bus.write_read(0x31, {0x00}, 2)
+"#;
+    let rec = record(dir.path(), script, &demo, &[]);
+    let board = dir.path().join("board.toml");
+    let o = run(&["bench-from", rec.to_str().unwrap(), "-o", board.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let text = std::fs::read_to_string(&board).unwrap();
+    assert!(text.contains("model = \"recorded\""), "{text}");
+    let again = dir.path().join("again.jsonl");
+    let s = dir.path().join("customer.lua");
+    let o = run(&[
+        "run",
+        s.to_str().unwrap(),
+        "--adapter",
+        &format!("sim:{}", board.display()),
+        "--trace",
+        again.to_str().unwrap(),
+        "-q",
+    ]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let o = run(&["diff", rec.to_str().unwrap(), again.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}{}", stdout(&o), stderr(&o));
+    // The write-cycle NACKs of the ACK poll are part of the recording too.
+    assert_eq!(frames(&rec).len(), frames(&again).len());
+
+    let s2 = dir.path().join("modified.lua");
+    std::fs::write(&s2, "bus.write_read(0x2B, {0x03}, 2)\n").unwrap();
+    let o = run(&["run", s2.to_str().unwrap(), "--adapter", &format!("sim:{}", board.display()), "--no-trace"]);
+    assert_eq!(code(&o), 4, "{}", stderr(&o));
+    assert!(stderr(&o).contains("register 0x03 was never read in the recording"), "{}", stderr(&o));
+    // Writing over the recording itself is refused.
+    let o = run(&["bench-from", rec.to_str().unwrap(), "-o", rec.to_str().unwrap()]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+}
