@@ -20,6 +20,9 @@ pub const DIVERGED: u8 = 5;
 /// the board did. Its own code, so a station can tell a full disk from a
 /// bad board.
 pub const RECORD_FAILED: u8 = 6;
+/// `station`: at least one fixture did not pass (a failed or errored
+/// step, a measurement out of limits, a fixture that could not run).
+pub const STATION_FAILED: u8 = 7;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;
 

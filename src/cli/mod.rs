@@ -20,6 +20,7 @@ mod run;
 mod scan;
 #[cfg(unix)]
 mod serve;
+mod station;
 mod traces;
 
 use std::sync::Arc;
@@ -71,6 +72,9 @@ pub enum Command {
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
+    /// Run one script on several fixtures at once, with a report per
+    /// fixture and a combined one (JUnit XML and JSON).
+    Station(station::StationArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -380,6 +384,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
+        Command::Station(a) => station::station(a),
     }
 }
 
