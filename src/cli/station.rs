@@ -121,6 +121,9 @@ impl Sink for WriteList {
                 if let Operation::Write(bytes) = op {
                     let mut line = format!("#{} {} write ", f.seq, f.address);
                     push_hex_bytes(&mut line, bytes);
+                    if f.attempt > 1 {
+                        line.push_str(&format!(" (attempt {})", f.attempt));
+                    }
                     if let Some(d) = &f.decoded {
                         line.push_str("  ");
                         line.push_str(d);
