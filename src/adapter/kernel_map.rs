@@ -227,15 +227,7 @@ fn rdwr(tx: &Transaction) -> Result<Vec<Msg>, String> {
     for p in phases(tx) {
         let ops = &tx.ops[p.ops.clone()];
         if p.direction == Direction::Write {
-            let buf: Vec<u8> = ops
-                .iter()
-                .flat_map(|o| match o {
-                    Operation::Write(b) => b.as_slice(),
-                    _ => &[],
-                })
-                .copied()
-                .collect();
-            msgs.push(Msg { flags: ten, buf, ops: p.ops });
+            msgs.push(Msg { flags: ten, buf: concat_writes(ops), ops: p.ops });
             continue;
         }
         if let [Operation::ReadCounted { max, trailer }] = ops {
@@ -267,6 +259,19 @@ fn rdwr(tx: &Transaction) -> Result<Vec<Msg>, String> {
     Ok(msgs)
 }
 
+/// The bytes of adjacent write operations as one run: what the wire
+/// carries for them (no START between), so one message or one SMBus
+/// command and data.
+fn concat_writes<'a>(ops: impl IntoIterator<Item = &'a Operation>) -> Vec<u8> {
+    ops.into_iter()
+        .flat_map(|o| match o {
+            Operation::Write(b) => b.as_slice(),
+            _ => &[],
+        })
+        .copied()
+        .collect()
+}
+
 fn call(protocol: &'static str, read_write: u8, command: u8, size: u32, pec: bool) -> SmbusCall {
     SmbusCall { protocol, read_write, command, size, data: [0; SMBUS_BLOCK_MAX + 2], pec }
 }
@@ -280,14 +285,7 @@ fn smbus(tx: &Transaction, f: Funcs) -> Result<SmbusCall, String> {
     let merged: Vec<u8>;
     let first_write = if let Some(Operation::Write(_)) = ops.first() {
         let n = ops.iter().take_while(|o| matches!(o, Operation::Write(_))).count();
-        merged = ops[..n]
-            .iter()
-            .flat_map(|o| match o {
-                Operation::Write(b) => b.as_slice(),
-                _ => &[],
-            })
-            .copied()
-            .collect();
+        merged = concat_writes(ops[..n].iter().copied());
         ops.drain(..n);
         Some(merged.as_slice())
     } else {

@@ -22,6 +22,7 @@ use super::climate::{Busy, ClimateSensor};
 use super::device::Device;
 use super::eeprom::{Eeprom, EepromConfig};
 use super::gauge::{Gauge, GaugeConfig};
+use super::recorded::{Attempt, Follows, RecordedDevice, Recording, Unseen, parse_handshake, parse_hex};
 use super::register::{Access, ByteOrder, Layout, RegisterDevice, RegisterInit};
 use super::rng::SplitMix64;
 use super::signal::{CountRange, RegisterSignal, Signal, SignalSpec};
@@ -485,6 +486,7 @@ fn build_device(
             };
             Box::new(Gauge::new(name, address, cfg))
         }
+        "recorded" => Box::new(RecordedDevice::new(name, recorded_spec(cx, n, address, rest, keys)?)),
         m => {
             return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));
         }
@@ -492,7 +494,106 @@ fn build_device(
 }
 
 /// Device models a bench file can name.
-pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor", "smbus-gauge"];
+pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor", "smbus-gauge", "recorded"];
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RecordedSpec {
+    follows: String,
+    #[serde(default = "one")]
+    pointer_bytes: usize,
+    #[serde(default)]
+    unseen: Option<toml::Value>,
+    #[serde(default)]
+    answers: Vec<String>,
+    #[serde(default)]
+    reads: Vec<String>,
+    #[serde(default)]
+    register: Vec<RecordedRegister>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RecordedRegister {
+    pointer: String,
+    reads: Vec<String>,
+}
+
+fn one() -> usize {
+    1
+}
+
+/// A `recorded` device block (written by `bench-from`, see
+/// [`Recording::to_toml`]), every field checked with its key named.
+fn recorded_spec(
+    cx: &Ctx,
+    n: usize,
+    address: Address,
+    rest: toml::Table,
+    keys: &mut Keys,
+) -> Result<Recording, BenchError> {
+    let s: RecordedSpec = cx.parse_keys(Some(n), "", rest, keys)?;
+    let follows = match s.follows.as_str() {
+        "registers" => Follows::Registers,
+        "order" => Follows::Order,
+        f => return Err(cx.err(Some(n), "follows", format!("must be \"registers\" or \"order\", got \"{f}\""))),
+    };
+    if !(1..=2).contains(&s.pointer_bytes) {
+        return Err(cx.err(Some(n), "pointer_bytes", "must be 1 or 2"));
+    }
+    let unseen = match &s.unseen {
+        None => Unseen::Error,
+        Some(toml::Value::String(t)) if t == "error" => Unseen::Error,
+        Some(toml::Value::Integer(b)) if (0..=255).contains(b) => Unseen::Byte(*b as u8),
+        Some(_) => return Err(cx.err(Some(n), "unseen", "must be \"error\" or a byte, 0-255")),
+    };
+    if follows == Follows::Order && s.reads.len() != s.answers.len() {
+        return Err(cx.err(
+            Some(n),
+            "reads",
+            format!(
+                "holds {} entries for {} answers; in order mode each answer has its reads",
+                s.reads.len(),
+                s.answers.len()
+            ),
+        ));
+    }
+    if follows == Follows::Registers && !s.reads.is_empty() {
+        return Err(cx.err(
+            Some(n),
+            "reads",
+            "belongs to follows = \"order\"; registers keep theirs in [[device.register]]",
+        ));
+    }
+    let mut attempts = Vec::with_capacity(s.answers.len());
+    for (i, a) in s.answers.iter().enumerate() {
+        let handshake = parse_handshake(a).map_err(|m| cx.err(Some(n), &format!("answers[{i}]"), m))?;
+        let reads = match s.reads.get(i) {
+            Some(r) => parse_hex(r).map_err(|m| cx.err(Some(n), &format!("reads[{i}]"), m))?,
+            None => Vec::new(),
+        };
+        attempts.push(Attempt { handshake, reads });
+    }
+    let mut registers = std::collections::BTreeMap::new();
+    for (i, r) in s.register.into_iter().enumerate() {
+        let pointer = parse_hex(&r.pointer).map_err(|m| cx.err(Some(n), &format!("register[{i}].pointer"), m))?;
+        if pointer.len() != s.pointer_bytes {
+            return Err(cx.err(
+                Some(n),
+                &format!("register[{i}].pointer"),
+                format!("has {} byte(s); pointer_bytes is {}", pointer.len(), s.pointer_bytes),
+            ));
+        }
+        let mut values = Vec::with_capacity(r.reads.len());
+        for (j, v) in r.reads.iter().enumerate() {
+            values.push(parse_hex(v).map_err(|m| cx.err(Some(n), &format!("register[{i}].reads[{j}]"), m))?);
+        }
+        if registers.insert(pointer, values).is_some() {
+            return Err(cx.err(Some(n), &format!("register[{i}].pointer"), format!("{} is listed twice", r.pointer)));
+        }
+    }
+    Ok(Recording { address, follows, pointer_bytes: s.pointer_bytes, unseen, attempts, registers })
+}
 
 #[cfg(test)]
 mod tests {

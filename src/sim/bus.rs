@@ -193,7 +193,11 @@ impl SimBus {
         if fault.is_some() {
             ops.truncate(last_op + 1);
         }
+        let target = w.target;
         let bus_time = self.wire_stop(w);
+        if let Some(detail) = target.and_then(|i| self.slots[i].device.take_failure()) {
+            fault = Some(Fault::Adapter { detail });
+        }
         Outcome { ops, bus_time, measured: None, fault }
     }
 

@@ -39,4 +39,10 @@ pub trait Device {
     fn write(&mut self, byte: u8, now: Duration) -> bool;
     fn read(&mut self, now: Duration) -> u8;
     fn stop(&mut self, now: Duration);
+    /// Why the transaction just ended cannot stand as the device's answer
+    /// (a recorded device asked for something its recording never saw);
+    /// the bus turns it into an adapter failure. Most models never fail.
+    fn take_failure(&mut self) -> Option<String> {
+        None
+    }
 }
