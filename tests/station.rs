@@ -250,9 +250,28 @@ fn a_dry_run_opens_nothing_and_lists_every_write() {
     assert!(err.contains("dry run: 8 write(s) would have gone to the board"), "{err}");
     assert!(err.contains("#6 0x11 write 01 19 (attempt 2)"), "{err}");
     assert!(err.contains("0x2B write 01 03 00"), "{err}");
-    let o = run_path(&root().join(LINE), &["--dry-run=trace:x.jsonl"]);
-    assert_eq!(code(&o), 2);
-    assert!(stderr(&o).contains("not available yet"), "{}", stderr(&o));
+}
+
+#[test]
+fn a_dry_run_against_a_recording_answers_as_the_board_did() {
+    let dir = tempfile::tempdir().unwrap();
+    let trace = dir.path().join("board.jsonl");
+    let o = run_path(&root().join(LINE), &["--trace", trace.to_str().unwrap(), "-q"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let stand_in = format!("--dry-run=trace:{}", trace.display());
+    let o = run_path(&root().join(LINE), &["--adapter", "serial:/dev/buscue-no-such-port", &stand_in, "-q"]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 0, "{err}");
+    assert!(err.contains("steps: 3 passed"), "{err}");
+    // The recorded NACK of the vent controller comes back, and its retry.
+    assert!(err.contains("#6 0x11 write 01 19 (attempt 2)"), "{err}");
+    // A script asking for something the recording never saw is told so.
+    let (_d, other) = common::script("o.lua", "step('x', function() bus.write_read(0x2B, {0x07}, 2) end)\n");
+    let o = run_path(&other, &[&stand_in]);
+    assert_ne!(code(&o), 0);
+    assert!(stderr(&o).contains("step x error"), "{}", stderr(&o));
+    let o = run_path(&root().join(LINE), &["--dry-run=trace:/nonexistent/t.jsonl"]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
 }
 
 #[test]

@@ -157,7 +157,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     }
     // A dry run never opens the adapter it names: the stand-in answers.
     let adapter = match &a.dry.dry_run {
-        Some(stand_in) => super::compose::open(stand_in, &crate::adapter::OpenOptions { realtime: false })?,
+        Some(stand_in) => stand_in.open()?,
         None => a.bus.open()?,
     };
     let mut session = Session::new(adapter, interrupt.clone());

@@ -73,19 +73,41 @@ pub struct StationArgs {
 #[derive(Args, Debug, Clone)]
 pub struct DryRunArgs {
     /// Run against a stand-in instead of the adapter, which is not opened:
-    /// `sim` (the demo bench, the default), `sim:PATH` (a bench file).
-    /// Every write that would have gone to the board is listed.
+    /// `sim` (the demo bench, the default), `sim:PATH` (a bench file) or
+    /// `trace:PATH` (the board as a recording says it answered). Every
+    /// write that would have gone to the board is listed.
     #[arg(long, value_name = "STAND-IN", num_args = 0..=1, default_missing_value = "sim", value_parser = parse_stand_in)]
-    pub dry_run: Option<AdapterSpec>,
+    pub dry_run: Option<StandIn>,
 }
 
-fn parse_stand_in(s: &str) -> Result<AdapterSpec, String> {
-    if s.starts_with("trace:") {
-        return Err("a recorded trace as the stand-in (trace:PATH) is not available yet; use sim or sim:PATH".into());
+/// What answers a dry run.
+#[derive(Debug, Clone)]
+pub enum StandIn {
+    /// A simulated bench: `sim` or `sim:PATH`.
+    Bench(AdapterSpec),
+    /// Recorded devices made from a trace ([`compose::open_recorded`]).
+    Trace(PathBuf),
+}
+
+impl StandIn {
+    pub fn open(&self) -> Result<Box<dyn crate::adapter::Adapter>> {
+        Ok(match self {
+            StandIn::Bench(spec) => compose::open(spec, &OpenOptions { realtime: false })?,
+            StandIn::Trace(path) => Box::new(compose::open_recorded(path)?),
+        })
+    }
+}
+
+fn parse_stand_in(s: &str) -> Result<StandIn, String> {
+    if let Some(p) = s.strip_prefix("trace:") {
+        if p.is_empty() {
+            return Err("trace: needs the trace file's path (trace:PATH)".into());
+        }
+        return Ok(StandIn::Trace(PathBuf::from(p)));
     }
     match AdapterSpec::parse(s) {
-        Ok(a @ (AdapterSpec::DemoBench | AdapterSpec::Bench(_))) => Ok(a),
-        Ok(_) => Err(format!("`{s}` is not a stand-in: a dry run takes sim or sim:PATH")),
+        Ok(a @ (AdapterSpec::DemoBench | AdapterSpec::Bench(_))) => Ok(StandIn::Bench(a)),
+        Ok(_) => Err(format!("`{s}` is not a stand-in: a dry run takes sim, sim:PATH or trace:PATH")),
         Err(e) => Err(e.to_string()),
     }
 }
@@ -322,7 +344,7 @@ struct Job {
     timeout: Duration,
     stop_on_fail: bool,
     dir: PathBuf,
-    dry: Option<AdapterSpec>,
+    dry: Option<StandIn>,
     interrupt: Arc<AtomicBool>,
 }
 
@@ -331,10 +353,14 @@ impl Job {
         let name = self.fixture.name.clone();
         let script_name = self.script.display().to_string();
         let started = Instant::now();
-        let spec = self.dry.as_ref().unwrap_or(&self.fixture.spec);
-        let adapter = match compose::open(spec, &OpenOptions { realtime: false }) {
+        let opened = match &self.dry {
+            Some(stand_in) => stand_in.open(),
+            None => compose::open(&self.fixture.spec, &OpenOptions { realtime: false }).map_err(Into::into),
+        };
+        let adapter = match opened {
             Ok(a) => a,
             Err(e) => {
+                let e = super::message(&e);
                 let mut r = failed_fixture(&name, &self.script, &format!("cannot open the adapter: {e}"));
                 r.adapter = self.fixture.written.clone();
                 r.parameters = self.params.clone();
