@@ -81,9 +81,7 @@ fn main() {
     let script = dir.path().join("soak.lua");
     std::fs::write(
         &script,
-        format!(
-            "{demo}\nstep(\"soak\", function()\n  for _ = 1, {reads} do light:get(0x02) end\nend)\n"
-        ),
+        format!("{demo}\nstep(\"soak\", function()\n  for _ = 1, {reads} do light:get(0x02) end\nend)\n"),
     )
     .unwrap();
     let (one, one_cpu) = station(1, &script, dir.path(), reads);

@@ -42,7 +42,8 @@ fn three_fixtures_over_pseudo_terminals_each_get_their_verdict() {
     let dir = tempfile::tempdir().unwrap();
     // The vent controller NACKs half its addresses: the retry policy rides
     // through. The light sensor answers at another address: missing.
-    let flaky = bench_variant(dir.path(), "flaky.toml", "address_nack_probability = 0.35", "address_nack_probability = 0.5");
+    let flaky =
+        bench_variant(dir.path(), "flaky.toml", "address_nack_probability = 0.35", "address_nack_probability = 0.5");
     let missing = bench_variant(dir.path(), "missing.toml", "address = 0x2B", "address = 0x2C");
     let (mut s1, p1) = serve(&["--bench", "sim"]);
     let (mut s2, p2) = serve(&["--bench", &flaky]);
@@ -236,10 +237,7 @@ fn a_failed_check_fails_its_step_and_the_run_goes_on_unless_told_to_stop() {
 
 #[test]
 fn a_dry_run_opens_nothing_and_lists_every_write() {
-    let o = run_path(
-        &root().join(LINE),
-        &["--adapter", "serial:/dev/buscue-no-such-port", "--dry-run", "-q"],
-    );
+    let o = run_path(&root().join(LINE), &["--adapter", "serial:/dev/buscue-no-such-port", "--dry-run", "-q"]);
     let err = stderr(&o);
     assert_eq!(code(&o), 0, "{err}");
     // The demo bench answered every transaction of the script.

@@ -61,9 +61,8 @@ pub fn open_recorded(path: &std::path::Path) -> Result<SimAdapter> {
     use crate::sim::recorded::Recording;
     let trace = crate::trace::file::Trace::load(path)?;
     let frames: Vec<_> = trace.frames().collect();
-    let mut text = String::from(
-        "format = \"buscue-bench/1\"\nname = \"the board as recorded\"\nmax_bytes_per_op = 65535\n\n",
-    );
+    let mut text =
+        String::from("format = \"buscue-bench/1\"\nname = \"the board as recorded\"\nmax_bytes_per_op = 65535\n\n");
     for a in Recording::addresses(frames.iter().map(|f| (f.address, &f.outcome))) {
         let rec = Recording::learn(a, frames.iter().map(|f| (f.address, f.ops.as_slice(), &f.outcome)));
         text.push_str(&rec.to_toml(&format!("recorded-{a}")));

@@ -233,15 +233,8 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let error = report.abort.as_ref().map(|e| e.to_string());
     let closed = report.session.finish(code, error.clone());
     let adapter_text = if a.dry.dry_run.is_some() { "dry run" } else { "adapter" };
-    let run_report = super::station::report_of(
-        &stem,
-        &name,
-        adapter_text,
-        &cfg.params,
-        trace_path.clone(),
-        &mut report,
-        host,
-    );
+    let run_report =
+        super::station::report_of(&stem, &name, adapter_text, &cfg.params, trace_path.clone(), &mut report, host);
     let reported = super::station::write_reports(&a.reports, &[run_report.clone()], &stem, a.force);
     let mut session = report.session;
     let mut err = std::io::stderr().lock();

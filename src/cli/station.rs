@@ -123,8 +123,7 @@ pub struct Fixture {
 
 fn parse_fixture(s: &str) -> Result<Fixture, String> {
     let (name, spec) = s.split_once('=').ok_or_else(|| format!("`{s}`: write --fixture NAME=ADAPTER"))?;
-    if name.is_empty() || name.len() > 64 || !name.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
-    {
+    if name.is_empty() || name.len() > 64 || !name.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_') {
         return Err(format!("`{name}` is not a fixture name: 1 to 64 letters, digits, '-' or '_'"));
     }
     Ok(Fixture { name: name.to_string(), spec: parse_adapter(spec)?, written: spec.to_string() })
