@@ -235,7 +235,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let adapter_text = if a.dry.dry_run.is_some() { "dry run" } else { "adapter" };
     let run_report =
         super::station::report_of(&stem, &name, adapter_text, &cfg.params, trace_path.clone(), &mut report, host);
-    let reported = super::station::write_reports(&a.reports, &[run_report.clone()], &stem, a.force);
+    let reported = super::station::write_reports(&a.reports, std::slice::from_ref(&run_report), &stem, a.force);
     let mut session = report.session;
     let mut err = std::io::stderr().lock();
     let colour = a.show.colour.resolve_stderr();

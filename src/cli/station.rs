@@ -366,7 +366,7 @@ impl Job {
                 let mut book = script::steps::Book::default();
                 book.finish(&script::steps::planned(&self.text), &format!("not run: cannot open the adapter: {e}"));
                 r.steps = book.steps;
-                self.write_own(&[r.clone()]);
+                self.write_own(std::slice::from_ref(&r));
                 return r;
             }
         };
@@ -416,7 +416,7 @@ impl Job {
             let lines = listed.lock().unwrap_or_else(|p| p.into_inner());
             let _ = std::fs::write(self.dir.join(format!("{name}.writes.txt")), lines.join("\n") + "\n");
         }
-        self.write_own(&[r.clone()]);
+        self.write_own(std::slice::from_ref(&r));
         r
     }
 
