@@ -90,6 +90,7 @@ fn measure(label: &str, make: impl Fn(&std::path::Path, std::fs::File, &SimAdapt
         timeout: None,
         memory_limit: DEFAULT_MEMORY_LIMIT,
         allow_io: false,
+        stop_on_fail: false,
     };
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);

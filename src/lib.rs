@@ -11,6 +11,7 @@ pub mod config;
 pub mod adapter;
 pub mod electrical;
 pub mod record;
+pub mod report;
 pub mod smbus;
 
 pub mod sim;

@@ -14,6 +14,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("adapter", &["ascii", "bus", "config"]),
     ("electrical", &["ascii", "bus"]),
     ("record", &["ascii", "bus"]),
+    ("report", &["ascii", "bus", "record"]),
     ("smbus", &["ascii", "bus"]),
     ("sim", &["ascii", "bus", "config", "adapter", "smbus"]),
     ("player", &["ascii", "bus", "adapter", "record"]),
@@ -21,7 +22,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("hal", &["ascii", "bus", "adapter", "record", "player"]),
     ("serve", &["ascii", "bus", "config", "adapter", "sim"]),
     ("trace", &["ascii", "bus", "adapter", "record", "player"]),
-    ("script", &["ascii", "bus", "adapter", "electrical", "record", "smbus", "player", "view"]),
+    ("script", &["ascii", "bus", "adapter", "electrical", "record", "report", "smbus", "player", "view"]),
     (
         "cli",
         &[
@@ -31,6 +32,7 @@ const ROOMS: &[(&str, &[&str])] = &[
             "adapter",
             "electrical",
             "record",
+            "report",
             "smbus",
             "sim",
             "player",

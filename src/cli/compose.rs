@@ -53,3 +53,22 @@ pub fn open_sim(spec: &AdapterSpec, opts: &OpenOptions) -> Result<SimAdapter> {
     }
     Ok(SimAdapter::new(bench, opts.realtime))
 }
+
+/// A bench of recorded devices ([`crate::sim::recorded`]), one per address
+/// the trace at `path` talks to, each answering as the recording says:
+/// the stand-in of `--dry-run trace:PATH`.
+pub fn open_recorded(path: &std::path::Path) -> Result<SimAdapter> {
+    use crate::sim::recorded::Recording;
+    let trace = crate::trace::file::Trace::load(path)?;
+    let frames: Vec<_> = trace.frames().collect();
+    let mut text =
+        String::from("format = \"buscue-bench/1\"\nname = \"the board as recorded\"\nmax_bytes_per_op = 65535\n\n");
+    for a in Recording::addresses(frames.iter().map(|f| (f.address, &f.outcome))) {
+        let rec = Recording::learn(a, frames.iter().map(|f| (f.address, f.ops.as_slice(), &f.outcome)));
+        text.push_str(&rec.to_toml(&format!("recorded-{a}")));
+        text.push('\n');
+    }
+    let bench = Bench::from_str(&text, &path.display().to_string())
+        .with_context(|| format!("cannot make a stand-in of the recording {}", path.display()))?;
+    Ok(SimAdapter::new(bench, false))
+}

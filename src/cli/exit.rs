@@ -23,6 +23,9 @@ pub const RECORD_FAILED: u8 = 6;
 /// `shrink`: the recording replays without a divergence, so there is
 /// nothing to shrink (the board on the desk behaves as the customer's did).
 pub const NOT_DIVERGING: u8 = 8;
+/// `station`: at least one fixture did not pass (a failed or errored
+/// step, a measurement out of limits, a fixture that could not run).
+pub const STATION_FAILED: u8 = 7;
 /// Interrupted (Ctrl-C): 128 + SIGINT, as shells report it.
 pub const INTERRUPTED: u8 = 130;
 

@@ -22,6 +22,7 @@ mod scan;
 #[cfg(unix)]
 mod serve;
 mod shrink;
+mod station;
 mod traces;
 
 use std::sync::Arc;
@@ -77,6 +78,9 @@ pub enum Command {
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
+    /// Run one script on several fixtures at once, with a report per
+    /// fixture and a combined one (JUnit XML and JSON).
+    Station(station::StationArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -388,6 +392,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
+        Command::Station(a) => station::station(a),
     }
 }
 

@@ -71,13 +71,23 @@ pub struct RunArgs {
     #[arg(long)]
     pub no_trace: bool,
     /// Replace the file --trace names if it exists.
-    #[arg(long, requires = "trace")]
+    #[arg(long)]
     pub force: bool,
     /// Stop the run when its trace would pass this size (100M, 1G; K, M, G
     /// are 1024-based; 0 = no limit). Exit code 6.
     #[arg(long, value_name = "SIZE", default_value = "1G", value_parser = parse_size, conflicts_with = "no_trace",
           allow_hyphen_values = true)]
     pub trace_limit: u64,
+    /// End the run at the first step that fails, instead of going on with
+    /// the next top-level step.
+    #[arg(long)]
+    pub stop_on_fail: bool,
+    /// Write a report of the steps and measurements: junit:PATH or
+    /// json:PATH; repeatable. Written even when the run stops early.
+    #[arg(long = "report", value_name = "FORMAT:PATH", value_parser = crate::report::Target::parse)]
+    pub reports: Vec<crate::report::Target>,
+    #[command(flatten)]
+    pub dry: super::station::DryRunArgs,
 }
 
 /// The script to play, read once: what runs is what the trace's header
@@ -137,8 +147,19 @@ impl Script {
 pub fn run(a: RunArgs) -> Result<u8> {
     let script = Script::read(&a.script)?;
     let name = script.name.display().to_string();
+    let stem = script.stem_path().file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
     let interrupt = interrupt_flag()?;
-    let adapter = a.bus.open()?;
+    for r in &a.reports {
+        outputs::check(&r.path, "the report", &[(script.input_path(), "the script")])?;
+        if !a.force && r.path.exists() {
+            return Err(outputs::OutputError::Exists(r.path.clone()).into());
+        }
+    }
+    // A dry run never opens the adapter it names: the stand-in answers.
+    let adapter = match &a.dry.dry_run {
+        Some(stand_in) => stand_in.open()?,
+        None => a.bus.open()?,
+    };
     let mut session = Session::new(adapter, interrupt.clone());
     session.allow_reserved = a.allow_reserved;
     let timeout = (a.timeout > Duration::ZERO).then_some(a.timeout);
@@ -172,6 +193,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
         session.add_sink(Box::new(w));
         Some(path)
     };
+    let writes = super::station::WriteList::default();
+    let listed = writes.lines.clone();
+    if a.dry.dry_run.is_some() {
+        session.add_sink(Box::new(writes));
+    }
     // The JSON stream stays line by line: programs read it live, as a
     // person reads the frame log on a terminal.
     let mut log_flush = None;
@@ -191,6 +217,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         timeout,
         memory_limit: script::memory_limit_bytes(a.memory_limit),
         allow_io: a.allow_io,
+        stop_on_fail: a.stop_on_fail,
     };
     let started = Instant::now();
     let watched = watchdog::Outputs {
@@ -199,15 +226,39 @@ pub fn run(a: RunArgs) -> Result<u8> {
         log: log_flush,
     };
     let dog = Watchdog::start(session.deadline(), interrupt.clone(), watched);
-    let report = script::run(session, &cfg, interrupt);
+    let mut report = script::run(session, &cfg, interrupt);
     dog.disarm();
     let host = started.elapsed();
-    let mut session = report.session;
     let code = report.abort.as_ref().map_or(exit::OK, exit::of_abort);
     let error = report.abort.as_ref().map(|e| e.to_string());
-    let closed = session.finish(code, error.clone());
+    let closed = report.session.finish(code, error.clone());
+    let adapter_text = if a.dry.dry_run.is_some() { "dry run" } else { "adapter" };
+    let run_report =
+        super::station::report_of(&stem, &name, adapter_text, &cfg.params, trace_path.clone(), &mut report, host);
+    let reported = super::station::write_reports(&a.reports, std::slice::from_ref(&run_report), &stem, a.force);
+    let mut session = report.session;
     let mut err = std::io::stderr().lock();
     let colour = a.show.colour.resolve_stderr();
+    if !run_report.steps.is_empty() || !run_report.measurements.is_empty() {
+        for s in run_report.steps.iter().filter(|s| s.status != crate::report::Status::Passed) {
+            let msg = s.message.as_deref().unwrap_or("");
+            let _ = writeln!(err, "step {} {}: {}", shown(&s.name), s.status.word(), shown(msg));
+        }
+        for m in run_report.measurements.iter().filter(|m| !m.passed) {
+            let _ = writeln!(err, "measurement {} = {} out of limits", shown(&m.name), m.value);
+        }
+        let _ = writeln!(err, "{}", run_report.summary_line());
+    }
+    if a.dry.dry_run.is_some() {
+        let lines = listed.lock().unwrap_or_else(|p| p.into_inner());
+        let _ = writeln!(err, "dry run: {} write(s) would have gone to the board:", lines.len());
+        for l in lines.iter() {
+            let _ = writeln!(err, "  {}", shown(l));
+        }
+    }
+    if let Err(e) = &reported {
+        let _ = writeln!(err, "{}", error_line(super::message(e), colour));
+    }
     for w in session.take_warnings() {
         let _ = writeln!(err, "{}", warning_line(w, colour));
     }

@@ -136,6 +136,11 @@ impl Session {
         self.adapter.as_ref()
     }
 
+    /// The sequence number of the last frame recorded (0 before the first).
+    pub fn seq(&self) -> u64 {
+        self.seq
+    }
+
     pub fn now(&self) -> Duration {
         self.adapter.now()
     }

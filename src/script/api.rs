@@ -412,9 +412,18 @@ fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
     }
 
     let c = ctx.clone();
-    add(lua, g, "step", move |lua, StepName(name)| {
-        c.session.borrow_mut().step(name, origin(lua));
-        Ok(())
+    add(lua, g, "step", move |lua, (StepName(name), body): (StepName, Option<Function>)| match body {
+        None => {
+            c.session.borrow_mut().step(name, origin(lua));
+            Ok(None)
+        }
+        Some(f) => super::steps::run(lua, &c, name, f).map(Some),
+    })?;
+
+    let c = ctx.clone();
+    add(lua, g, "measure", move |lua, (StepName(name), value, limits): (StepName, Value, Option<Table>)| {
+        let v = convert::number(&value, "measured value")?;
+        super::steps::measure(lua, &c, name, v, limits)
     })?;
 
     let c = ctx.clone();

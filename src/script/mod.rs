@@ -24,6 +24,7 @@ pub mod device;
 pub mod electrical_api;
 pub mod sandbox;
 pub mod smbus_api;
+pub mod steps;
 
 use std::cell::RefCell;
 use std::collections::{BTreeMap, BTreeSet};
@@ -96,6 +97,9 @@ pub struct RunConfig {
     pub timeout: Option<Duration>,
     pub memory_limit: usize,
     pub allow_io: bool,
+    /// End the run at the first step that fails (`--stop-on-fail`)
+    /// instead of going on with the next top-level step.
+    pub stop_on_fail: bool,
 }
 
 /// Default memory limit for a script, in MiB (the unit of `--memory-limit`):
@@ -117,6 +121,8 @@ pub struct Ctx {
     pub params: RefCell<Params>,
     /// Traceback captured where the last error was raised.
     pub traceback: RefCell<Option<String>>,
+    /// Steps and measurements ([`steps`]).
+    pub book: RefCell<steps::Book>,
 }
 
 /// The result of a run.
@@ -125,6 +131,9 @@ pub struct Report {
     pub traceback: Option<String>,
     pub unused_params: Vec<String>,
     pub session: Session,
+    /// The steps and measurements, with the planned steps never reached
+    /// marked skipped.
+    pub book: steps::Book,
 }
 
 /// Chunk name prefix of the tool's own Lua code, skipped when looking for
@@ -313,23 +322,37 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
         session: RefCell::new(session),
         params: RefCell::new(Params::new(cfg.params.clone())),
         traceback: RefCell::new(None),
+        book: RefCell::new(steps::Book { stop_on_fail: cfg.stop_on_fail, ..Default::default() }),
     });
-    let abort = execute(&ctx, cfg, interrupt).err();
+    let text = match &cfg.text {
+        Some(t) => Ok(t.clone()),
+        None => std::fs::read_to_string(&cfg.script).map_err(|e| Abort::Script {
+            message: format!("cannot read script {}: {e}", cfg.script.display()),
+            origin: None,
+        }),
+    };
+    let (abort, text) = match text {
+        Ok(text) => (execute(&ctx, cfg, &text, interrupt).err(), text),
+        Err(a) => (Some(a), String::new()),
+    };
     let ctx = match Rc::try_unwrap(ctx) {
         Ok(c) => c,
         Err(_) => unreachable!("the Lua state holding the context was dropped"),
     };
     let unused_params = ctx.params.borrow().unused();
-    Report { abort, traceback: ctx.traceback.into_inner(), unused_params, session: ctx.session.into_inner() }
+    let mut book = ctx.book.into_inner();
+    let reason = match &abort {
+        Some(a) => format!("not run: the run stopped ({a})"),
+        None => "not run: the script did not reach it".to_string(),
+    };
+    book.finish(&steps::planned(&text), &reason);
+    // A step that failed while the run went on is the run's failure.
+    let abort = abort.or_else(|| book.first_failure.clone());
+    Report { abort, traceback: ctx.traceback.into_inner(), unused_params, session: ctx.session.into_inner(), book }
 }
 
-fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
+fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
     let script_err = |m: String| Abort::Script { message: m, origin: None };
-    let text = match &cfg.text {
-        Some(t) => t.clone(),
-        None => std::fs::read_to_string(&cfg.script)
-            .map_err(|e| script_err(format!("cannot read script {}: {e}", cfg.script.display())))?,
-    };
     let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
     let search = search_dirs(&cfg.script);
     // The stock `xpcall`, for the run itself: the script's own is wrapped.
@@ -369,7 +392,7 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result
 
     let file = cfg.script.display().to_string();
     let main = lua
-        .load(&text)
+        .load(text)
         .set_name(format!("@{file}"))
         .set_mode(mlua::ChunkMode::Text)
         .into_function()

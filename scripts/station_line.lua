@@ -1,0 +1,25 @@
+-- The end-of-line configuration of a greenhouse climate node, as a test
+-- station runs it on every board: each step is a test case, each
+-- measurement a value with limits for the factory database.
+--   buscue run scripts/station_line.lua --report junit:line.xml
+--   buscue station scripts/station_line.lua --fixture a=sim --fixture b=sim
+
+local light = bus.device(0x2B, { width = 16, order = "little" })
+local vent = bus.device(0x11)
+bus.retry({ attempts = 8, delay_ms = 1 })
+
+step("identify", function()
+  check_eq(light:get(0x00), 0x1C5A, "light sensor ID")
+  check_eq(vent:get(0x00), 0xA7, "vent controller ID")
+end)
+
+step("configure", function()
+  light:set(0x01, 0x0003)
+  check_eq(light:get(0x01), 0x0003, "light CONTROL read back")
+  vent:set(0x01, param("vent_open", 25))
+end)
+
+step("measure", function()
+  measure("visible_counts", light:get(0x02), { low = 5000, high = 40000, unit = "counts" })
+  measure("infrared_counts", light:get(0x03), { low = 1000, high = 10000, unit = "counts" })
+end)

@@ -1,0 +1,283 @@
+//! The test station: steps as test cases, measurements, JUnit and JSON
+//! reports, fixtures in parallel over pseudo-terminals, a cut link, Ctrl-C
+//! and dry runs. The JUnit XML is read with an XML parser (roxmltree), as
+//! a CI server would read it.
+
+mod common;
+
+use std::path::Path;
+
+use common::*;
+
+const LINE: &str = "scripts/station_line.lua";
+
+fn bench_variant(dir: &Path, name: &str, from: &str, to: &str) -> String {
+    let text = std::fs::read_to_string(root().join("adapters/greenhouse.toml")).unwrap();
+    assert!(text.contains(from), "the demo bench has `{from}`");
+    let p = dir.join(name);
+    std::fs::write(&p, text.replace(from, to)).unwrap();
+    format!("sim:{}", p.display())
+}
+
+fn json(path: &Path) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).expect("the JSON report parses")
+}
+
+fn statuses(fixture: &serde_json::Value) -> Vec<(String, String)> {
+    fixture["steps"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| (s["name"].as_str().unwrap().to_string(), s["status"].as_str().unwrap().to_string()))
+        .collect()
+}
+
+/// Counts the elements named `tag` under `node`.
+fn count(node: roxmltree::Node, tag: &str) -> usize {
+    node.descendants().filter(|n| n.has_tag_name(tag)).count()
+}
+
+#[test]
+fn three_fixtures_over_pseudo_terminals_each_get_their_verdict() {
+    let dir = tempfile::tempdir().unwrap();
+    // The vent controller NACKs half its addresses: the retry policy rides
+    // through. The light sensor answers at another address: missing.
+    let flaky =
+        bench_variant(dir.path(), "flaky.toml", "address_nack_probability = 0.35", "address_nack_probability = 0.5");
+    let missing = bench_variant(dir.path(), "missing.toml", "address = 0x2B", "address = 0x2C");
+    let (mut s1, p1) = serve(&["--bench", "sim"]);
+    let (mut s2, p2) = serve(&["--bench", &flaky]);
+    let (mut s3, p3) = serve(&["--bench", &missing]);
+    let out = dir.path().join("out");
+    let combined = dir.path().join("all.xml");
+    let o = run(&[
+        "station",
+        LINE,
+        "--fixture",
+        &format!("good=serial:{p1}"),
+        "--fixture",
+        &format!("flaky=serial:{p2}"),
+        "--fixture",
+        &format!("missing=serial:{p3}"),
+        "--out",
+        out.to_str().unwrap(),
+        "--report",
+        &format!("junit:{}", combined.display()),
+    ]);
+    for s in [&mut s1, &mut s2, &mut s3] {
+        let _ = s.kill();
+        let _ = s.wait();
+    }
+    assert_eq!(code(&o), 7, "one fixture failed: {}", stderr(&o));
+    let err = stderr(&o);
+    assert!(err.contains("fixture good: PASSED"), "{err}");
+    assert!(err.contains("fixture flaky: PASSED"), "{err}");
+    assert!(err.contains("fixture missing: FAILED"), "{err}");
+
+    let xml = std::fs::read_to_string(&combined).unwrap();
+    assert_eq!(xml, std::fs::read_to_string(out.join("junit.xml")).unwrap());
+    let doc = roxmltree::Document::parse(&xml).expect("the JUnit report is XML");
+    let suites: Vec<_> = doc.descendants().filter(|n| n.has_tag_name("testsuite")).collect();
+    assert_eq!(suites.iter().map(|s| s.attribute("name").unwrap()).collect::<Vec<_>>(), ["good", "flaky", "missing"]);
+    for s in &suites {
+        assert_eq!(count(*s, "testcase"), 3, "one testcase per step");
+        assert_eq!(s.attribute("tests"), Some("3"));
+    }
+    // Every step of the missing fixture talks to the light sensor: three errors.
+    assert_eq!(count(suites[0], "error") + count(suites[0], "failure"), 0);
+    assert_eq!(count(suites[1], "error") + count(suites[1], "failure"), 0);
+    assert_eq!(count(suites[2], "error"), 3);
+    assert_eq!(suites[2].attribute("errors"), Some("3"));
+    let first_error = suites[2].descendants().find(|n| n.has_tag_name("error")).unwrap();
+    assert!(first_error.attribute("message").unwrap().contains("0x2B: address NACK"), "{xml}");
+    // Measurements are properties.
+    let props: Vec<_> = suites[0]
+        .descendants()
+        .filter(|n| n.has_tag_name("property"))
+        .map(|n| n.attribute("name").unwrap().to_string())
+        .collect();
+    assert!(props.contains(&"measure.visible_counts".to_string()), "{props:?}");
+
+    let report = json(&out.join("report.json"));
+    assert_eq!(report["format"], "buscue-report");
+    assert_eq!(report["passed"], false);
+    let fixtures = report["fixtures"].as_array().unwrap();
+    assert_eq!(fixtures.len(), 3);
+    assert_eq!(fixtures[0]["passed"], true);
+    assert_eq!(fixtures[1]["passed"], true);
+    assert!(fixtures[1]["stats"]["retries"].as_u64().unwrap() > 0, "the flaky fixture retried");
+    assert_eq!(fixtures[2]["passed"], false);
+    assert!(statuses(&fixtures[2]).iter().all(|(_, s)| s == "error"));
+    assert_eq!(fixtures[0]["measurements"].as_array().unwrap().len(), 2);
+    // Each fixture has its own trace and report pair, named after it.
+    for name in ["good", "flaky", "missing"] {
+        for suffix in ["trace.jsonl", "junit.xml", "report.json"] {
+            assert!(out.join(format!("{name}.{suffix}")).is_file(), "{name}.{suffix}");
+        }
+        assert_eq!(json(&out.join(format!("{name}.report.json")))["fixtures"][0]["name"], name);
+    }
+}
+
+#[test]
+fn a_cut_link_ends_its_fixture_only_and_the_rest_is_skipped_with_the_reason() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut s1, p1) = serve(&["--bench", "sim"]);
+    // The handshake and the two frames of `identify`, then the port closes.
+    let (mut s2, p2) = serve(&["--bench", "sim", "--hang-up-after", "4"]);
+    let out = dir.path().join("out");
+    let o = run(&[
+        "station",
+        LINE,
+        "--fixture",
+        &format!("steady=serial:{p1}"),
+        "--fixture",
+        &format!("cut=serial:{p2}"),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    for s in [&mut s1, &mut s2] {
+        let _ = s.kill();
+        let _ = s.wait();
+    }
+    assert_eq!(code(&o), 7, "{}", stderr(&o));
+    let report = json(&out.join("report.json"));
+    let f = report["fixtures"].as_array().unwrap();
+    assert_eq!(f[0]["passed"], true, "the other fixture finished: {}", stderr(&o));
+    let cut = statuses(&f[1]);
+    let error_at = cut.iter().position(|(_, s)| s == "error").expect("the step on the cut link is an error");
+    assert!(error_at < cut.len() - 1, "steps follow the failed one: {cut:?}");
+    for (name, s) in &cut[error_at + 1..] {
+        assert_eq!(s, "skipped", "{name} never ran");
+    }
+    let skipped = f[1]["steps"].as_array().unwrap().last().unwrap();
+    assert!(skipped["message"].as_str().unwrap().starts_with("not run: the run stopped"), "{skipped}");
+    assert!(f[1]["stopped"].is_string());
+}
+
+#[cfg(unix)]
+#[test]
+fn ctrl_c_mid_run_still_writes_whole_reports_with_the_rest_skipped() {
+    use std::io::{BufRead, BufReader};
+    let (dir, script) = common::script(
+        "spin.lua",
+        "step('first', function() bus.read(0x2B, 2) end)\n\
+         step('spin', function() log('spinning') while true do end end)\n\
+         step('after', function() bus.read(0x2B, 2) end)\n",
+    );
+    let xml = dir.path().join("r.xml");
+    let js = dir.path().join("r.json");
+    let mut child = buscue()
+        .args(["run", script.to_str().unwrap(), "--no-trace", "--json"])
+        .args(["--report", &format!("junit:{}", xml.display()), "--report", &format!("json:{}", js.display())])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    // The JSON stream is written line by line: wait for the log line.
+    let mut lines = BufReader::new(child.stdout.take().unwrap()).lines();
+    loop {
+        let line = lines.next().expect("the run logs before it spins").unwrap();
+        if line.contains("spinning") {
+            break;
+        }
+    }
+    // SAFETY: kill(2) on the child's own id.
+    unsafe { libc::kill(child.id() as i32, libc::SIGINT) };
+    let status = child.wait().unwrap();
+    assert_eq!(status.code(), Some(130));
+    let doc = std::fs::read_to_string(&xml).unwrap();
+    let parsed = roxmltree::Document::parse(&doc).expect("whole XML");
+    assert_eq!(count(parsed.root(), "testcase"), 3);
+    assert_eq!(count(parsed.root(), "skipped"), 1);
+    let report = json(&js);
+    let st = statuses(&report["fixtures"][0]);
+    assert_eq!(
+        st,
+        [("first".into(), "passed".into()), ("spin".into(), "error".into()), ("after".into(), "skipped".into())]
+    );
+}
+
+#[test]
+fn a_failed_check_fails_its_step_and_the_run_goes_on_unless_told_to_stop() {
+    let text = "step('a', function() check_eq(1, 2, 'one') end)\n\
+                step('b', function() measure('temp_c', 30, {low = 10, high = 25, unit = 'C'}) end)\n\
+                step('c', function() step('inner', function() end) end)\n";
+    let (dir, script) = common::script("s.lua", text);
+    let js = dir.path().join("r.json");
+    let o = run_path(&script, &["--report", &format!("json:{}", js.display())]);
+    assert_eq!(code(&o), 1, "a failed check: {}", stderr(&o));
+    let report = json(&js);
+    let f = &report["fixtures"][0];
+    assert_eq!(
+        statuses(f),
+        [
+            ("a".into(), "failed".into()),
+            ("b".into(), "failed".into()),
+            ("c/inner".into(), "passed".into()),
+            ("c".into(), "passed".into())
+        ]
+    );
+    let a = &f["steps"][0];
+    assert!(a["message"].as_str().unwrap().contains("one: expected 0x02, got 0x01"), "{a}");
+    assert!(a["origin"].as_str().unwrap().ends_with("s.lua:1"), "{a}");
+    let m = &f["measurements"][0];
+    assert_eq!((m["passed"].as_bool(), m["step"].as_str(), m["unit"].as_str()), (Some(false), Some("b"), Some("C")));
+
+    let js2 = dir.path().join("r2.json");
+    let o = run_path(&script, &["--stop-on-fail", "--report", &format!("json:{}", js2.display())]);
+    assert_eq!(code(&o), 1);
+    let st = statuses(&json(&js2)["fixtures"][0]);
+    assert_eq!(st[0], ("a".into(), "failed".into()));
+    assert!(st[1..].iter().all(|(_, s)| s == "skipped"), "{st:?}");
+    // A report is never written over an existing file without --force.
+    let o = run_path(&script, &["--report", &format!("json:{}", js2.display())]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("exists"), "{}", stderr(&o));
+}
+
+#[test]
+fn a_dry_run_opens_nothing_and_lists_every_write() {
+    let o = run_path(&root().join(LINE), &["--adapter", "serial:/dev/buscue-no-such-port", "--dry-run", "-q"]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 0, "{err}");
+    // The demo bench answered every transaction of the script.
+    assert!(err.contains("7 transactions"), "{err}");
+    // Two plain writes (CONTROL, the vent position), a pointer write before
+    // each of the five reads, and the vent position again: the demo's vent
+    // controller NACKed the first try and the retry sent it once more.
+    assert!(err.contains("dry run: 8 write(s) would have gone to the board"), "{err}");
+    assert!(err.contains("#6 0x11 write 01 19 (attempt 2)"), "{err}");
+    assert!(err.contains("0x2B write 01 03 00"), "{err}");
+}
+
+#[test]
+fn a_dry_run_against_a_recording_answers_as_the_board_did() {
+    let dir = tempfile::tempdir().unwrap();
+    let trace = dir.path().join("board.jsonl");
+    let o = run_path(&root().join(LINE), &["--trace", trace.to_str().unwrap(), "-q"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let stand_in = format!("--dry-run=trace:{}", trace.display());
+    let o = run_path(&root().join(LINE), &["--adapter", "serial:/dev/buscue-no-such-port", &stand_in, "-q"]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 0, "{err}");
+    assert!(err.contains("steps: 3 passed"), "{err}");
+    // The recorded NACK of the vent controller comes back, and its retry.
+    assert!(err.contains("#6 0x11 write 01 19 (attempt 2)"), "{err}");
+    // A script asking for something the recording never saw is told so.
+    let (_d, other) = common::script("o.lua", "step('x', function() bus.write_read(0x2B, {0x07}, 2) end)\n");
+    let o = run_path(&other, &[&stand_in]);
+    assert_ne!(code(&o), 0);
+    assert!(stderr(&o).contains("step x error"), "{}", stderr(&o));
+    let o = run_path(&root().join(LINE), &["--dry-run=trace:/nonexistent/t.jsonl"]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+}
+
+#[test]
+fn fixture_names_are_checked() {
+    let o = run(&["station", LINE, "--fixture", "a=sim", "--fixture", "a=sim", "--out", "/nonexistent/x"]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("named twice"), "{}", stderr(&o));
+    let o = run(&["station", LINE, "--fixture", "../x=sim"]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains("not a fixture name"), "{}", stderr(&o));
+}
