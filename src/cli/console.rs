@@ -73,13 +73,18 @@ pub fn device_global(a: Address) -> String {
     format!("dev{:x}", a.value())
 }
 
-/// Frame lines the session's log wrote, kept for the screen.
+/// Frame lines the session's log writes: shown as they come (a long
+/// command shows its progress) and kept for `%frames`.
 #[derive(Clone, Default)]
 struct Captured(Arc<Mutex<Vec<u8>>>);
 
 impl Write for Captured {
     fn write(&mut self, b: &[u8]) -> std::io::Result<usize> {
         self.0.lock().map_err(|_| std::io::Error::other("poisoned"))?.extend_from_slice(b);
+        // A closed standard output ends nothing here: the console notices
+        // it when it writes its own text.
+        let mut o = std::io::stdout();
+        let _ = o.write_all(b).and_then(|_| o.flush());
         Ok(b.len())
     }
     fn flush(&mut self) -> std::io::Result<()> {
@@ -128,9 +133,8 @@ impl State {
         }
         let expression = self.console.borrow().is_expression(chunk);
         let r = self.console.borrow_mut().eval(chunk);
-        let frames = self.frames.take();
-        let mut s = frames.clone();
-        self.last_frames = frames;
+        self.last_frames = self.frames.take();
+        let mut s = String::new();
         match r {
             Ok(values) => {
                 // A bare expression is no Lua statement: the script keeps
