@@ -167,3 +167,75 @@ fn demo_climate_map_decodes_the_demo_sensor() {
     );
     assert_eq!(code(&out), 0, "{}{}", stdout(&out), stderr(&out));
 }
+
+/// A device simulated from its map: a soil probe of our own, declared in a
+/// bench file by its map alone.
+const SOIL_MAP: &str = r#"return {
+  ID     = { at = 0x00, width = 16, access = "ro", reset = 0x50A1 },
+  CONFIG = { at = 0x01, reset = 0x04, fields = {
+    RATE = { lsb = 2, width = 2, values = { slow = 0, normal = 1, fast = 2 } },
+    RUN  = { bit = 0 },
+  } },
+  EVENTS = { at = 0x02, reset = 0x07, fields = {
+    DONE = { bit = 0, access = "w1c" },
+    WET  = { bit = 1, access = "w1c" },
+    LOST = { bit = 2, access = "rc" },
+  } },
+  MOISTURE = { at = 0x03, width = 16, access = "volatile", reset = 0x0BB8, scale = 0.01, unit = "%" },
+}
+"#;
+
+const SOIL_BENCH: &str = r#"
+format = "buscue-bench/1"
+name = "soil probe from its map"
+speed = "400k"
+
+[[device]]
+name = "soil-probe"
+model = "mapped"
+address = 0x3C
+map = "soil.lua"
+"#;
+
+#[test]
+fn a_device_simulated_from_its_map_honours_reset_w1c_and_rc() {
+    let (dir, bench) = common::script("bench.toml", SOIL_BENCH);
+    std::fs::write(dir.path().join("soil.lua"), SOIL_MAP).unwrap();
+    let path = dir.path().join("t.lua");
+    std::fs::write(
+        &path,
+        "local p = bus.device(0x3C, { map = require('soil') })\n\
+         check_eq(p:get('ID'), 0x50A1, 'reset value of a 16-bit register')\n\
+         check_eq(p:read('CONFIG.RATE'), 'normal', 'reset 0x04: RATE = 1')\n\
+         local m, unit = p:read('MOISTURE')\n\
+         check_eq(m, 30.0, '0x0BB8 = 3000 counts of 0.01 %')\n\
+         -- writing 1 to WET clears it and only it; LOST (rc) is not written\n\
+         p:set('EVENTS', { WET = 1 })\n\
+         -- that read-modify-write read EVENTS once: LOST cleared then\n\
+         check_eq(p:get('EVENTS'), 0x01, 'DONE left, WET cleared, LOST cleared by the read')\n\
+         check_eq(p:get('EVENTS'), 0x01, 'reading again changes nothing more')\n\
+         local ok, e = pcall(p.set, p, 'ID', 1)\n\
+         check(not ok, 'a read-only register refuses the helper')\n\
+         bus.write(0x3C, { 0x00, 0x12 })\n",
+    )
+    .unwrap();
+    let adapter = format!("sim:{}", bench.display());
+    let out = run_path(&path, &["--adapter", &adapter, "--json"]);
+    let f = frames(&out);
+    let last = f.last().expect("frames");
+    // The raw write to the read-only ID: the data byte is NACKed (the map
+    // says read-only, the model documents the NACK).
+    assert_eq!(last["outcome"]["ops"][0]["acks"], serde_json::json!([true, false]), "{}", stdout(&out));
+    assert_eq!(code(&out), 3, "the NACKed write fails the run as a bus failure: {}", stderr(&out));
+    assert!(stderr(&out).contains(":13"), "only the last line fails: {}", stderr(&out));
+}
+
+#[test]
+fn a_bench_naming_a_bad_map_names_the_map_file_and_line() {
+    let (dir, bench) = common::script("bench.toml", SOIL_BENCH);
+    std::fs::write(dir.path().join("soil.lua"), "return {\n  A = { at = 1 },\n  B = { at = 1 },\n}\n").unwrap();
+    let out = run(&["scan", "--adapter", &format!("sim:{}", bench.display())]);
+    assert_eq!(code(&out), 2, "{}", stderr(&out));
+    let e = stderr(&out);
+    assert!(e.contains("soil.lua:3: B: address 0x01 is also `A`'s"), "{e}");
+}

@@ -328,9 +328,10 @@ pub struct Map {
 impl Map {
     /// A map from its registers, checked (see the module contract).
     pub fn new(mut registers: Vec<Register>, source: Source) -> Result<Map, MapError> {
-        registers.sort_by_key(|r| r.at);
+        // By address, then name: Lua hands table entries over in no fixed order.
+        registers.sort_by(|a, b| (a.at, &a.name).cmp(&(b.at, &b.name)));
         for r in &mut registers {
-            r.fields.sort_by_key(|f| f.lsb);
+            r.fields.sort_by(|a, b| (a.lsb, &a.name).cmp(&(b.lsb, &b.name)));
         }
         let err = |r: &str, f: Option<&str>, m: String| MapError::at(&source, r, f, m);
         let mut by_name = HashMap::new();

@@ -12,6 +12,7 @@ pub mod clock;
 pub mod device;
 pub mod eeprom;
 pub mod gauge;
+pub mod mapped;
 pub mod register;
 pub mod rng;
 pub mod signal;
