@@ -113,9 +113,7 @@ mod terminal {
         pub fn start(data_home: &std::path::Path) -> Screen {
             let (mut m, mut s) = (0, 0);
             // SAFETY: openpty writes two descriptors; the rest may be null.
-            let r = unsafe {
-                libc::openpty(&mut m, &mut s, std::ptr::null_mut(), std::ptr::null(), std::ptr::null())
-            };
+            let r = unsafe { libc::openpty(&mut m, &mut s, std::ptr::null_mut(), std::ptr::null(), std::ptr::null()) };
             assert_eq!(r, 0, "openpty");
             // SAFETY: both descriptors were just opened and are ours alone.
             let (master, slave) = unsafe { (OwnedFd::from_raw_fd(m), OwnedFd::from_raw_fd(s)) };

@@ -140,11 +140,15 @@ fn map_error(map: &str) -> String {
 
 #[test]
 fn map_errors_name_file_line_and_register_or_field() {
-    let e = map_error("return {\n  A = { at = 1, fields = {\n    X = { lsb = 0, width = 4 },\n    Y = { bit = 2 },\n  } },\n}\n");
+    let e = map_error(
+        "return {\n  A = { at = 1, fields = {\n    X = { lsb = 0, width = 4 },\n    Y = { bit = 2 },\n  } },\n}\n",
+    );
     assert!(e.contains("/bad.lua:4: A.Y: overlaps field `X`"), "{e}");
     let e = map_error("return {\n  A = { at = 1, fields = {\n    W = { lsb = 6, width = 4 },\n  } },\n}\n");
     assert!(e.contains("/bad.lua:3: A.W: bits 6..9 do not fit a 8-bit register"), "{e}");
-    let e = map_error("return {\n  A = { at = 1, fields = {\n    R = { lsb = 0, width = 1, values = { on = 2 } },\n  } },\n}\n");
+    let e = map_error(
+        "return {\n  A = { at = 1, fields = {\n    R = { lsb = 0, width = 1, values = { on = 2 } },\n  } },\n}\n",
+    );
     assert!(e.contains("/bad.lua:3: A.R: value `on` = 2 does not fit 1 bit(s) (0-1)"), "{e}");
     let e = map_error("return {\n  B = { at = 2 },\n  A = { at = 1, access = 'sometimes' },\n}\n");
     assert!(e.contains("/bad.lua:3: A: unknown access kind \"sometimes\""), "{e}");

@@ -270,12 +270,7 @@ struct Complete(Rc<RefCell<Console>>);
 
 impl Completer for Complete {
     type Candidate = Pair;
-    fn complete(
-        &self,
-        line: &str,
-        pos: usize,
-        _: &rustyline::Context<'_>,
-    ) -> rustyline::Result<(usize, Vec<Pair>)> {
+    fn complete(&self, line: &str, pos: usize, _: &rustyline::Context<'_>) -> rustyline::Result<(usize, Vec<Pair>)> {
         let (at, names) = self.0.borrow().completions(&line[..pos]);
         Ok((at, names.into_iter().map(|n| Pair { display: n.clone(), replacement: n }).collect()))
     }

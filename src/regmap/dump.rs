@@ -19,13 +19,7 @@ pub fn hex(reg: &Register, raw: u32) -> String {
 /// A register's block in the dump (no trailing newline).
 pub fn block(reg: &Register, raw: u32) -> String {
     let changed = reg.reset.is_some_and(|r| r != raw);
-    let mut s = format!(
-        "{} {:<12} @0x{:02X}  {}",
-        if changed { '*' } else { ' ' },
-        reg.name,
-        reg.at,
-        hex(reg, raw)
-    );
+    let mut s = format!("{} {:<12} @0x{:02X}  {}", if changed { '*' } else { ' ' }, reg.name, reg.at, hex(reg, raw));
     if changed && let Some(r) = reg.reset {
         s.push_str(&format!("   (reset {})", hex(reg, r)));
     }
@@ -50,9 +44,23 @@ mod tests {
 
     #[test]
     fn block_marks_what_differs_from_reset() {
-        let mut avg = Field { name: "AVG".into(), lsb: 1, width: 2, access: Access::ReadWrite, meaning: Meaning::default(), doc: None };
+        let mut avg = Field {
+            name: "AVG".into(),
+            lsb: 1,
+            width: 2,
+            access: Access::ReadWrite,
+            meaning: Meaning::default(),
+            doc: None,
+        };
         avg.meaning.values = vec![("2ms".into(), 0), ("16ms".into(), 3)];
-        let start = Field { name: "START".into(), lsb: 0, width: 1, access: Access::ReadWrite, meaning: Meaning::default(), doc: None };
+        let start = Field {
+            name: "START".into(),
+            lsb: 0,
+            width: 1,
+            access: Access::ReadWrite,
+            meaning: Meaning::default(),
+            doc: None,
+        };
         let r = Register {
             name: "CONTROL".into(),
             at: 1,
@@ -68,6 +76,9 @@ mod tests {
             block(&r, 0x0006),
             "* CONTROL      @0x01  0x0006   (reset 0x0000)\n    * AVG        = 16ms (3)\n      START      = 0 (0x0)"
         );
-        assert_eq!(block(&r, 0), "  CONTROL      @0x01  0x0000\n      AVG        = 2ms (0)\n      START      = 0 (0x0)");
+        assert_eq!(
+            block(&r, 0),
+            "  CONTROL      @0x01  0x0000\n      AVG        = 2ms (0)\n      START      = 0 (0x0)"
+        );
     }
 }

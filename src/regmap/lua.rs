@@ -246,5 +246,10 @@ fn lua_error(file: &str, e: mlua::Error) -> MapError {
         Some((l, rest)) if l.parse::<u32>().is_ok() => (l.parse().ok(), rest.to_string()),
         _ => (None, m.clone()),
     };
-    MapError { file: Some(file.to_string()), line, what: "map".into(), message: crate::ascii::escape_controls(&message).into_owned() }
+    MapError {
+        file: Some(file.to_string()),
+        line,
+        what: "map".into(),
+        message: crate::ascii::escape_controls(&message).into_owned(),
+    }
 }

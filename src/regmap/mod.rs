@@ -356,7 +356,12 @@ impl Map {
                     return Err(err(
                         &r.name,
                         Some(&f.name),
-                        format!("bits {}..{} do not fit a {}-bit register", f.lsb, f.lsb + f.width.max(1) - 1, r.bits()),
+                        format!(
+                            "bits {}..{} do not fit a {}-bit register",
+                            f.lsb,
+                            f.lsb + f.width.max(1) - 1,
+                            r.bits()
+                        ),
                     ));
                 }
                 if used & f.mask() != 0 {
@@ -456,9 +461,11 @@ mod tests {
 
     #[test]
     fn overlapping_and_too_wide_fields_are_refused_by_name() {
-        let src = Source { file: Some("m.lua".into()), text: Some("STATUS = {\n  A = {bit=0},\n  B = {bit=0},\n}".into()) };
-        let e = Map::new(vec![reg(vec![field("A", 0, 1, Access::ReadWrite), field("B", 0, 2, Access::ReadWrite)])], src)
-            .unwrap_err();
+        let src =
+            Source { file: Some("m.lua".into()), text: Some("STATUS = {\n  A = {bit=0},\n  B = {bit=0},\n}".into()) };
+        let e =
+            Map::new(vec![reg(vec![field("A", 0, 1, Access::ReadWrite), field("B", 0, 2, Access::ReadWrite)])], src)
+                .unwrap_err();
         assert_eq!(e.to_string(), "m.lua:3: STATUS.B: overlaps field `A`");
         let e = Map::new(vec![reg(vec![field("W", 4, 8, Access::ReadWrite)])], Source::default()).unwrap_err();
         assert_eq!(e.to_string(), "STATUS.W: bits 4..11 do not fit a 8-bit register");

@@ -73,8 +73,7 @@ impl Console {
     /// Whether `chunk` is whole (or wrong in a way more lines cannot mend).
     pub fn complete(&self, chunk: &str) -> bool {
         let incomplete = |text: &str| {
-            matches!(self.lua.load(text).into_function(),
-                Err(mlua::Error::SyntaxError { incomplete_input: true, .. }))
+            matches!(self.lua.load(text).into_function(), Err(mlua::Error::SyntaxError { incomplete_input: true, .. }))
         };
         self.lua.load(format!("return {chunk}")).into_function().is_ok() || !incomplete(chunk)
     }

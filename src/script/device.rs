@@ -85,7 +85,6 @@ impl DeviceHandle {
         Ok(DeviceHandle { ctx, address, pointer_bytes, width, big_endian, map, retry: o.retry, reserved: o.reserved })
     }
 
-
     /// The register map the handle reads with (empty without one).
     pub fn map(&self) -> &Map {
         &self.map
@@ -261,7 +260,8 @@ impl DeviceHandle {
         let mut out = format!("{}", self.address);
         for r in self.map.registers() {
             if !r.access.readable() || (r.read_clears() && !clears) {
-                let why = if r.access.readable() { "read clears it; dump({clears = true}) reads it" } else { "write-only" };
+                let why =
+                    if r.access.readable() { "read clears it; dump({clears = true}) reads it" } else { "write-only" };
                 out.push_str(&format!("\n  {:<12} @0x{:02X}  not read ({why})", r.name, r.at));
                 continue;
             }

@@ -18,8 +18,8 @@
 pub mod api;
 pub mod batch;
 pub mod cap;
-pub mod console;
 pub mod caught;
+pub mod console;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
