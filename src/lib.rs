@@ -7,6 +7,7 @@
 pub mod ascii;
 pub mod bus;
 pub mod config;
+pub mod regmap;
 
 pub mod adapter;
 pub mod electrical;

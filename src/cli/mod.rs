@@ -16,6 +16,7 @@ pub mod out;
 pub mod outputs;
 pub mod watchdog;
 
+mod console;
 mod ports;
 mod run;
 mod scan;
@@ -81,6 +82,8 @@ pub enum Command {
     /// Run one script on several fixtures at once, with a report per
     /// fixture and a combined one (JUnit XML and JSON).
     Station(station::StationArgs),
+    /// A Lua prompt on the bus for bring-up: registers by name, frames after each command.
+    Console(console::ConsoleArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -393,6 +396,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
         Command::Station(a) => station::station(a),
+        Command::Console(a) => console::run(a),
     }
 }
 

@@ -283,7 +283,7 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
 
     let c = ctx.clone();
     add(lua, &bus, "bus.device", move |lua, (addr, opts): (Value, Option<Table>)| {
-        let d = DeviceHandle::new(c.clone(), convert::address(&addr)?, opts, default_retry(&c))?;
+        let d = DeviceHandle::new(lua, c.clone(), convert::address(&addr)?, opts, default_retry(&c))?;
         lua.create_userdata(d)
     })?;
     let c = ctx.clone();

@@ -16,7 +16,6 @@
 //! `{ unlock = true }`: a seat belt for power, OTP and write-protect
 //! registers.
 
-use std::collections::HashMap;
 use std::rc::Rc;
 
 use mlua::{Lua, Table, UserData, UserDataMethods, Value};
@@ -30,30 +29,12 @@ use crate::player::RunError;
 use crate::player::retry::RetryPolicy;
 use crate::record::Purpose;
 
-#[derive(Debug, Clone)]
-struct Field {
-    lsb: u32,
-    width: u32,
-}
+use crate::regmap::{self, Access, Decoded, Map, Register, Source};
 
-impl Field {
-    fn mask(&self) -> u32 {
-        (((1u64 << self.width) - 1) << self.lsb) as u32
-    }
-}
-
-#[derive(Debug, Clone)]
-struct RegDef {
-    at: u32,
-    guard: bool,
-    fields: HashMap<String, Field>,
-}
-
-#[derive(Debug, Clone, Default)]
-struct RegMap {
-    regs: HashMap<String, RegDef>,
-    names: HashMap<u32, String>,
-}
+/// Map tables `require` loaded from files, by table identity: a Lua table
+/// keeps no lines, so a map's errors find theirs in the file's text.
+#[derive(Default)]
+pub struct MapFiles(pub Vec<(usize, Source)>);
 
 pub struct DeviceHandle {
     ctx: Rc<Ctx>,
@@ -61,7 +42,7 @@ pub struct DeviceHandle {
     pointer_bytes: usize,
     width: usize,
     big_endian: bool,
-    map: RegMap,
+    map: Map,
     retry: Option<RetryPolicy>,
     reserved: bool,
 }
@@ -72,13 +53,16 @@ fn width_bits(v: Value, key: &str, default: usize) -> LuaResult<usize> {
         v => match convert::integer(&v, key)? {
             8 => Ok(1),
             16 => Ok(2),
+            24 if key == "width" => Ok(3),
+            32 if key == "width" => Ok(4),
+            n if key == "width" => Err(bad(format!("device option width must be 8, 16, 24 or 32, got {n}"))),
             n => Err(bad(format!("device option {key} must be 8 or 16, got {n}"))),
         },
     }
 }
 
 impl DeviceHandle {
-    pub fn new(ctx: Rc<Ctx>, address: Address, opts: Option<Table>, base: RetryPolicy) -> LuaResult<Self> {
+    pub fn new(lua: &Lua, ctx: Rc<Ctx>, address: Address, opts: Option<Table>, base: RetryPolicy) -> LuaResult<Self> {
         let (o, t) = call_options(opts, base, &["pointer", "width", "order", "map"])?;
         let get = |k: &str| -> LuaResult<Value> { t.as_ref().map_or(Ok(Value::Nil), |t| t.get(k)) };
         let pointer_bytes = width_bits(get("pointer")?, "pointer", 1)?;
@@ -90,19 +74,41 @@ impl DeviceHandle {
             _ => return Err(bad("device option order must be \"big\" or \"little\"")),
         };
         let map = match get("map")? {
-            Value::Nil => RegMap::default(),
-            Value::Table(m) => parse_map(&m, pointer_bytes, width)?,
+            Value::Nil => Map::default(),
+            Value::Table(m) => {
+                let source = map_source(lua, &m);
+                regmap::lua::from_table(&m, source, width, pointer_max(pointer_bytes))
+                    .map_err(|e| bad(e.to_string()))?
+            }
             other => return Err(bad(format!("device option map must be a table, got {}", other.type_name()))),
         };
         Ok(DeviceHandle { ctx, address, pointer_bytes, width, big_endian, map, retry: o.retry, reserved: o.reserved })
+    }
+
+    /// The register map the handle reads with (empty without one).
+    pub fn map(&self) -> &Map {
+        &self.map
+    }
+
+    pub fn bus_address(&self) -> Address {
+        self.address
     }
 
     fn options(&self) -> CallOptions {
         CallOptions { retry: self.retry, reserved: self.reserved }
     }
 
-    fn max_value(&self) -> u32 {
-        if self.width == 2 { 0xFFFF } else { 0xFF }
+    /// The width in bytes of register `reg` (its map entry's, else the handle's).
+    fn bytes_of(&self, reg: u32) -> usize {
+        self.map.at(reg).map_or(self.width, |r| r.bytes)
+    }
+
+    fn max_value(&self, reg: u32) -> u32 {
+        ((1u64 << (self.bytes_of(reg) * 8)) - 1) as u32
+    }
+
+    fn mapped(&self, name: &str) -> LuaResult<&Register> {
+        self.map.get(name).ok_or_else(|| bad(format!("{}: no register `{name}` in the map", self.address)))
     }
 
     /// A register from a number or a map name; returns its number and name.
@@ -110,97 +116,183 @@ impl DeviceHandle {
         match v {
             Value::String(s) => {
                 let name = s.to_string_lossy();
-                let r = self
-                    .map
-                    .regs
-                    .get(&name)
-                    .ok_or_else(|| bad(format!("{}: no register `{name}` in the map", self.address)))?;
-                Ok((r.at, Some(name)))
+                Ok((self.mapped(&name)?.at, Some(name)))
             }
             other => {
                 let n = convert::integer(other, "register")?;
-                let max = if self.pointer_bytes == 2 { 0xFFFF } else { 0xFF };
-                if !(0..=max).contains(&n) {
+                if !(0..=pointer_max(self.pointer_bytes) as i64).contains(&n) {
                     return Err(bad(format!("register 0x{n:X} does not fit a {}-bit pointer", self.pointer_bytes * 8)));
                 }
-                Ok((n as u32, self.map.names.get(&(n as u32)).cloned()))
+                Ok((n as u32, self.map.at(n as u32).map(|r| r.name.clone())))
             }
         }
     }
 
-    fn field(&self, path: &str) -> LuaResult<(u32, String, Field)> {
-        let (reg, field) =
-            path.split_once('.').ok_or_else(|| bad(format!("field `{path}` must be written REGISTER.FIELD")))?;
-        let r =
-            self.map.regs.get(reg).ok_or_else(|| bad(format!("{}: no register `{reg}` in the map", self.address)))?;
-        let f = r
-            .fields
-            .get(field)
-            .ok_or_else(|| bad(format!("{}: register `{reg}` has no field `{field}`", self.address)))?;
-        Ok((r.at, path.to_string(), f.clone()))
+    /// `REGISTER.FIELD`, or a register alone (`field` is then `None`).
+    fn path(&self, path: &str) -> LuaResult<(&Register, Option<&regmap::Field>)> {
+        match path.split_once('.') {
+            Some((reg, field)) => {
+                let r = self.mapped(reg)?;
+                let f = r.field_or_err(field).map_err(|m| bad(format!("{}: {m}", self.address)))?;
+                Ok((r, Some(f)))
+            }
+            None => Ok((self.mapped(path)?, None)),
+        }
+    }
+
+    fn field(&self, path: &str) -> LuaResult<(&Register, &regmap::Field)> {
+        match self.path(path)? {
+            (r, Some(f)) => Ok((r, f)),
+            _ => Err(bad(format!("field `{path}` must be written REGISTER.FIELD"))),
+        }
     }
 
     fn pointer(&self, reg: u32) -> Vec<u8> {
         if self.pointer_bytes == 2 { vec![(reg >> 8) as u8, reg as u8] } else { vec![reg as u8] }
     }
 
-    fn encode(&self, v: u32) -> Vec<u8> {
-        match (self.width, self.big_endian) {
-            (1, _) => vec![v as u8],
-            (_, true) => vec![(v >> 8) as u8, v as u8],
-            (_, false) => vec![v as u8, (v >> 8) as u8],
+    fn encode(&self, reg: u32, v: u32) -> Vec<u8> {
+        let n = self.bytes_of(reg);
+        let mut b: Vec<u8> = (0..n).map(|i| (v >> (8 * (n - 1 - i))) as u8).collect();
+        if !self.big_endian {
+            b.reverse();
         }
+        b
     }
 
     /// A register value from the bytes read; an adapter that answered
     /// with fewer bytes than asked for is an error, not a panic.
-    fn decode(&self, b: &[u8]) -> LuaResult<u32> {
-        Ok(match (self.width, self.big_endian, b) {
-            (1, _, [v, ..]) => *v as u32,
-            (2, true, [hi, lo, ..]) => ((*hi as u32) << 8) | *lo as u32,
-            (2, false, [lo, hi, ..]) => ((*hi as u32) << 8) | *lo as u32,
-            _ => {
-                return Err(bad(format!(
-                    "{}: a {}-bit register read returned {} byte(s)",
-                    self.address,
-                    self.width * 8,
-                    b.len()
-                )));
-            }
-        })
+    fn decode(&self, reg: u32, b: &[u8]) -> LuaResult<u32> {
+        let n = self.bytes_of(reg);
+        if b.len() < n {
+            return Err(bad(format!("{}: a {}-bit register read returned {} byte(s)", self.address, n * 8, b.len())));
+        }
+        let fold = |acc: u32, x: &u8| (acc << 8) | *x as u32;
+        Ok(if self.big_endian { b[..n].iter().fold(0, fold) } else { b[..n].iter().rev().fold(0, fold) })
     }
 
     fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<Purpose>) -> LuaResult<u32> {
-        let tx = Transaction::new(self.address, vec![Operation::Write(self.pointer(reg)), Operation::Read(self.width)]);
+        let tx = Transaction::new(
+            self.address,
+            vec![Operation::Write(self.pointer(reg)), Operation::Read(self.bytes_of(reg))],
+        );
         let out = transact(lua, &self.ctx, &tx, &self.options(), purpose, name)?;
         // The read is the last operation, so its bytes are all the reply
         // holds: taken in place rather than gathered into a new vector.
-        self.decode(out.ops.last().map_or(&[], |o| o.data.as_slice()))
+        self.decode(reg, out.ops.last().map_or(&[], |o| o.data.as_slice()))
     }
 
     fn write_reg(&self, lua: &Lua, reg: u32, name: Option<String>, value: u32, unlock: bool) -> LuaResult<()> {
-        if value > self.max_value() {
-            return Err(bad(format!("0x{value:X} does not fit a {}-bit register", self.width * 8)));
+        if value > self.max_value(reg) {
+            return Err(bad(format!("0x{value:X} does not fit a {}-bit register", self.bytes_of(reg) * 8)));
         }
         self.guard(reg, &name, unlock)?;
         let mut bytes = self.pointer(reg);
-        bytes.extend(self.encode(value));
+        bytes.extend(self.encode(reg, value));
         let tx = Transaction::new(self.address, vec![Operation::Write(bytes)]);
         transact(lua, &self.ctx, &tx, &self.options(), None, name)?;
         Ok(())
     }
 
+    /// The value a read-modify-write starts from: the register read, or its
+    /// reset value (0 without one) when it cannot be read.
+    fn base(&self, lua: &Lua, r: &Register) -> LuaResult<u32> {
+        if r.access.readable() {
+            self.read_reg(lua, r.at, Some(r.name.clone()), None)
+        } else {
+            Ok(r.reset.unwrap_or(0))
+        }
+    }
+
+    /// Refuses, before the bus, writes the map forbids: read-only registers
+    /// and guarded ones without `unlock`.
     fn guard(&self, reg: u32, name: &Option<String>, unlock: bool) -> LuaResult<()> {
-        let guarded =
-            name.as_ref().and_then(|n| self.map.regs.get(n.split('.').next().unwrap_or(n))).is_some_and(|r| r.guard);
-        if guarded && !unlock {
+        let Some(r) = name.as_ref().and_then(|n| self.map.get(n.split('.').next().unwrap_or(n))) else {
+            return Ok(());
+        };
+        if r.access == Access::ReadOnly {
+            return Err(bad(format!("{} register 0x{reg:02X} ({}) is read-only", self.address, r.name)));
+        }
+        if r.guard && !unlock {
             return Err(bad(format!(
                 "{} register 0x{reg:02X} ({}) is guarded; pass {{unlock = true}} to write it",
-                self.address,
-                name.as_deref().unwrap_or("?")
+                self.address, r.name
             )));
         }
         Ok(())
+    }
+
+    /// A field's raw value from what a script gives: an enum name, a number
+    /// in the field's units (a scaled field), or a raw number.
+    fn field_raw(&self, f: &regmap::Field, v: &Value) -> LuaResult<u32> {
+        let r = match v {
+            Value::String(s) => f.value_of(&s.to_string_lossy()),
+            Value::Boolean(b) => f.raw_of_number(*b as u8 as f64),
+            Value::Integer(i) => f.raw_of_number(*i as f64),
+            Value::Number(n) => f.raw_of_number(*n),
+            other => Err(format!("{} takes a name or a number, not a {}", f.name, other.type_name())),
+        };
+        r.map_err(|m| bad(format!("{}: {m}", self.address)))
+    }
+
+    /// Sets several fields of one register in one read-modify-write.
+    fn set_fields(&self, lua: &Lua, r: &Register, fields: &Table, unlock: bool) -> LuaResult<u32> {
+        let mut changes = Vec::new();
+        for pair in fields.pairs::<String, Value>() {
+            let (name, v) = pair.map_err(|_| bad("fields to set must be NAME = value"))?;
+            let f = r.field_or_err(&name).map_err(|m| bad(format!("{}: {m}", self.address)))?;
+            if f.access == Access::ReadOnly {
+                return Err(bad(format!("{}: field {}.{} is read-only", self.address, r.name, f.name)));
+            }
+            changes.push((f, self.field_raw(f, &v)?));
+        }
+        changes.sort_by_key(|(f, _)| f.lsb);
+        self.guard(r.at, &Some(r.name.clone()), unlock)?;
+        let old = self.base(lua, r)?;
+        let new = r.merge(old, &changes);
+        self.write_reg(lua, r.at, Some(r.name.clone()), new, true)?;
+        Ok(new)
+    }
+
+    /// Reads every readable register of the map (read-to-clear ones only
+    /// when `clears`), one block each ([`regmap::dump`]).
+    pub fn dump(&self, lua: &Lua, clears: bool) -> LuaResult<String> {
+        let mut out = format!("{}", self.address);
+        for r in self.map.registers() {
+            if !r.access.readable() || (r.read_clears() && !clears) {
+                let why =
+                    if r.access.readable() { "read clears it; dump({clears = true}) reads it" } else { "write-only" };
+                out.push_str(&format!("\n  {:<12} @0x{:02X}  not read ({why})", r.name, r.at));
+                continue;
+            }
+            let v = self.read_reg(lua, r.at, Some(r.name.clone()), None)?;
+            out.push('\n');
+            out.push_str(&regmap::dump::block(r, v));
+        }
+        Ok(out)
+    }
+}
+
+fn pointer_max(pointer_bytes: usize) -> u32 {
+    if pointer_bytes == 2 { 0xFFFF } else { 0xFF }
+}
+
+/// Where a map table came from, when `require` loaded it from a file.
+fn map_source(lua: &Lua, t: &Table) -> Source {
+    let key = t.to_pointer() as usize;
+    lua.app_data_ref::<MapFiles>()
+        .and_then(|m| m.0.iter().find(|(k, _)| *k == key).map(|(_, s)| s.clone()))
+        .unwrap_or_default()
+}
+
+/// A decoded value as Lua gets it: an enum name, a scaled number (and its
+/// unit as a second value), or the raw number.
+fn decoded_values(lua: &Lua, d: Decoded) -> LuaResult<mlua::MultiValue> {
+    use mlua::IntoLuaMulti;
+    match d {
+        Decoded::Raw(v) => v.into_lua_multi(lua),
+        Decoded::Named(n, _) => n.into_lua_multi(lua),
+        Decoded::Scaled { value, unit, .. } => (value, unit).into_lua_multi(lua),
     }
 }
 
@@ -212,52 +304,6 @@ fn unlock_option(t: &Option<Table>) -> LuaResult<bool> {
             Ok(t.get::<Option<bool>>("unlock")?.unwrap_or(false))
         }
     }
-}
-
-fn parse_map(m: &Table, pointer_bytes: usize, width: usize) -> LuaResult<RegMap> {
-    let mut map = RegMap::default();
-    let max_reg = if pointer_bytes == 2 { 0xFFFF } else { 0xFF };
-    for pair in m.pairs::<String, Table>() {
-        let (name, def) = pair.map_err(|_| bad("register map entries must be NAME = { at = ..., fields = {...} }"))?;
-        check_keys(&def, &format!("register map `{name}`"), &["at", "fields", "guard", "doc"])?;
-        let at = convert::integer(&def.get::<Value>("at")?, &format!("register map `{name}`.at"))?;
-        if !(0..=max_reg).contains(&at) {
-            return Err(bad(format!(
-                "register map `{name}`.at = 0x{at:X} does not fit a {}-bit pointer",
-                pointer_bytes * 8
-            )));
-        }
-        let mut fields = HashMap::new();
-        if let Some(ft) = def.get::<Option<Table>>("fields")? {
-            for fp in ft.pairs::<String, Table>() {
-                let (fname, f) = fp.map_err(|_| {
-                    bad(format!(
-                        "register map `{name}`.fields entries must be NAME = {{ bit = N }} or {{ lsb = N, width = N }}"
-                    ))
-                })?;
-                let key = format!("register map `{name}.{fname}`");
-                check_keys(&f, &key, &["bit", "lsb", "width", "doc"])?;
-                let (lsb, w) = match (f.get::<Value>("bit")?, f.get::<Value>("lsb")?) {
-                    (Value::Nil, Value::Nil) => return Err(bad(format!("{key} needs `bit` or `lsb` and `width`"))),
-                    (b, Value::Nil) => (convert::integer(&b, &format!("{key}.bit"))?, 1),
-                    (Value::Nil, l) => (
-                        convert::integer(&l, &format!("{key}.lsb"))?,
-                        convert::integer(&f.get::<Value>("width")?, &format!("{key}.width"))?,
-                    ),
-                    _ => return Err(bad(format!("{key}: give `bit` or `lsb`, not both"))),
-                };
-                let bits = (width * 8) as i64;
-                if lsb < 0 || w < 1 || lsb + w > bits {
-                    return Err(bad(format!("{key}: bits {lsb}..{} do not fit a {bits}-bit register", lsb + w - 1)));
-                }
-                fields.insert(fname, Field { lsb: lsb as u32, width: w as u32 });
-            }
-        }
-        let guard = def.get::<Option<bool>>("guard")?.unwrap_or(false);
-        map.names.insert(at as u32, name.clone());
-        map.regs.insert(name, RegDef { at: at as u32, guard, fields });
-    }
-    Ok(map)
 }
 
 impl UserData for DeviceHandle {
@@ -275,16 +321,22 @@ impl UserData for DeviceHandle {
         });
 
         methods.add_method("set", |lua, this, (reg, value, opts): (Value, Value, Option<Table>)| {
-            let r = || -> LuaResult<()> {
-                let (reg, name) = this.register(&reg)?;
+            let r = || -> LuaResult<u32> {
+                let (at, name) = this.register(&reg)?;
+                if let Value::Table(fields) = &value {
+                    let n = name.ok_or_else(|| bad("setting fields by name needs a mapped register"))?;
+                    return this.set_fields(lua, this.mapped(&n)?, fields, unlock_option(&opts)?);
+                }
                 let v = convert::integer(&value, "register value")?;
                 if v < 0 {
                     return Err(bad(format!(
                         "register value {v} is negative; registers hold 0-0x{:X}",
-                        this.max_value()
+                        this.max_value(at)
                     )));
                 }
-                this.write_reg(lua, reg, name, v.min(u32::MAX as i64) as u32, unlock_option(&opts)?)
+                let v = v.min(u32::MAX as i64) as u32;
+                this.write_reg(lua, at, name, v, unlock_option(&opts)?)?;
+                Ok(v)
             };
             r().map_err(|e| located(lua, e))
         });
@@ -294,13 +346,16 @@ impl UserData for DeviceHandle {
                 let (reg, name) = this.register(&reg)?;
                 let mask = convert::integer(&mask, "mask")?;
                 let bits = convert::integer(&bits, "bits")?;
-                let max = this.max_value() as i64;
+                let max = this.max_value(reg) as i64;
                 if !(0..=max).contains(&mask) || !(0..=max).contains(&bits) {
                     return Err(bad(format!("mask and bits must fit the register (0-0x{max:X})")));
                 }
                 this.guard(reg, &name, unlock_option(&opts)?)?;
                 let old = this.read_reg(lua, reg, name.clone(), None)?;
-                let new = (old & !(mask as u32)) | (bits as u32 & mask as u32);
+                // Bits that clear when written 1 are written 0 unless the
+                // mask sets them: the map's read-modify-write rule.
+                let clearing = name.as_ref().and_then(|n| this.map.get(n)).map_or(0, |r| r.clearing_mask());
+                let new = (old & !clearing & !(mask as u32)) | (bits as u32 & mask as u32);
                 this.write_reg(lua, reg, name, new, true)?;
                 Ok(new)
             };
@@ -312,31 +367,52 @@ impl UserData for DeviceHandle {
                 let (reg, name) = this.register(&reg)?;
                 let mask = convert::integer(&mask, "mask")? as u32;
                 let expected = convert::integer(&expected, "expected")? as u32;
-                if let Some(t) = &opts {
-                    check_keys(t, "wait options", &["timeout_ms", "interval_ms"])?;
-                }
-                let timeout = ms_option(opts.as_ref(), "timeout_ms", 100.0)?;
-                let interval = ms_option(opts.as_ref(), "interval_ms", 1.0)?;
-                let start = this.ctx.session.borrow().now();
-                loop {
-                    let v = this.read_reg(lua, reg, name.clone(), Some(Purpose::Poll))?;
-                    if v & mask == expected & mask {
-                        return Ok(v);
+                this.poll(lua, reg, name, mask, expected, opts.as_ref())
+            };
+            r().map_err(|e| located(lua, e))
+        });
+
+        methods.add_method("wait_for", |lua, this, (path, value, opts): (String, Value, Option<Table>)| {
+            let r = || -> LuaResult<mlua::MultiValue> {
+                let (reg, f) = this.field(&path)?;
+                let want = this.field_raw(f, &value)?;
+                let v = this.poll(lua, reg.at, Some(reg.name.clone()), f.mask(), want << f.lsb, opts.as_ref())?;
+                decoded_values(lua, f.decode(f.extract(v)))
+            };
+            r().map_err(|e| located(lua, e))
+        });
+
+        methods.add_method("read", |lua, this, path: String| {
+            let r = || -> LuaResult<mlua::MultiValue> {
+                let (reg, f) = this.path(&path)?;
+                let v = this.read_reg(lua, reg.at, Some(reg.name.clone()), None)?;
+                decoded_values(lua, f.map_or_else(|| reg.decode(v), |f| f.decode(f.extract(v))))
+            };
+            r().map_err(|e| located(lua, e))
+        });
+
+        methods.add_method("explain", |lua, this, reg: Value| {
+            let r = || -> LuaResult<String> {
+                let (at, name) = this.register(&reg)?;
+                let v = this.read_reg(lua, at, name, None)?;
+                Ok(match this.map.at(at) {
+                    Some(r) => regmap::dump::block(r, v).trim_start().to_string(),
+                    None => format!("0x{at:02X} = 0x{v:X}"),
+                })
+            };
+            r().map_err(|e| located(lua, e))
+        });
+
+        methods.add_method("dump", |lua, this, opts: Option<Table>| {
+            let r = || -> LuaResult<String> {
+                let clears = match &opts {
+                    None => false,
+                    Some(t) => {
+                        check_keys(t, "dump options", &["clears"])?;
+                        t.get::<Option<bool>>("clears")?.unwrap_or(false)
                     }
-                    let waited = this.ctx.session.borrow().now() - start;
-                    if waited >= timeout {
-                        // The device never became ready: a bus-side failure
-                        // (exit 3), like an ACK poll that times out.
-                        let what = format!(
-                            "register 0x{reg:02X}{}: value & 0x{mask:X} never became 0x{expected:X} within {:.3} ms (last 0x{v:X})",
-                            name.as_ref().map(|n| format!(" ({n})")).unwrap_or_default(),
-                            timeout.as_secs_f64() * 1e3
-                        );
-                        return Err(run_error(lua, RunError::WaitTimeout { address: this.address, what }));
-                    }
-                    let d = this.ctx.session.borrow_mut().delay(interval);
-                    d.map_err(|e| run_error(lua, e))?;
-                }
+                };
+                this.dump(lua, clears)
             };
             r().map_err(|e| located(lua, e))
         });
@@ -369,15 +445,15 @@ impl UserData for DeviceHandle {
 
         methods.add_method("field", |lua, this, path: String| {
             let r = || -> LuaResult<u32> {
-                let (reg, name, f) = this.field(&path)?;
-                Ok((this.read_reg(lua, reg, Some(name), None)? & f.mask()) >> f.lsb)
+                let (reg, f) = this.field(&path)?;
+                Ok(f.extract(this.read_reg(lua, reg.at, Some(path.clone()), None)?))
             };
             r().map_err(|e| located(lua, e))
         });
 
         methods.add_method("set_field", |lua, this, (path, value, opts): (String, Value, Option<Table>)| {
             let r = || -> LuaResult<u32> {
-                let (reg, name, f) = this.field(&path)?;
+                let (reg, f) = this.field(&path)?;
                 let v = convert::integer(&value, &path)?;
                 if v < 0 || v >= 1i64 << f.width {
                     return Err(bad(format!(
@@ -386,13 +462,52 @@ impl UserData for DeviceHandle {
                         if f.width == 1 { "" } else { "s" }
                     )));
                 }
-                this.guard(reg, &Some(name.clone()), unlock_option(&opts)?)?;
-                let old = this.read_reg(lua, reg, Some(name.clone()), None)?;
-                let new = (old & !f.mask()) | ((v as u32) << f.lsb);
-                this.write_reg(lua, reg, Some(name), new, true)?;
+                this.guard(reg.at, &Some(path.clone()), unlock_option(&opts)?)?;
+                let old = this.read_reg(lua, reg.at, Some(path.clone()), None)?;
+                let new = reg.merge(old, &[(f, v as u32)]);
+                this.write_reg(lua, reg.at, Some(path.clone()), new, true)?;
                 Ok(new)
             };
             r().map_err(|e| located(lua, e))
         });
+    }
+}
+
+impl DeviceHandle {
+    /// Reads `reg` until `value & mask == expected & mask` or the timeout.
+    fn poll(
+        &self,
+        lua: &Lua,
+        reg: u32,
+        name: Option<String>,
+        mask: u32,
+        expected: u32,
+        opts: Option<&Table>,
+    ) -> LuaResult<u32> {
+        if let Some(t) = opts {
+            check_keys(t, "wait options", &["timeout_ms", "interval_ms"])?;
+        }
+        let timeout = ms_option(opts, "timeout_ms", 100.0)?;
+        let interval = ms_option(opts, "interval_ms", 1.0)?;
+        let start = self.ctx.session.borrow().now();
+        loop {
+            let v = self.read_reg(lua, reg, name.clone(), Some(Purpose::Poll))?;
+            if v & mask == expected & mask {
+                return Ok(v);
+            }
+            let waited = self.ctx.session.borrow().now() - start;
+            if waited >= timeout {
+                // The device never became ready: a bus-side failure
+                // (exit 3), like an ACK poll that times out.
+                let what = format!(
+                    "register 0x{reg:02X}{}: value & 0x{mask:X} never became 0x{expected:X} within {:.3} ms (last 0x{v:X})",
+                    name.as_ref().map(|n| format!(" ({n})")).unwrap_or_default(),
+                    timeout.as_secs_f64() * 1e3
+                );
+                return Err(run_error(lua, RunError::WaitTimeout { address: self.address, what }));
+            }
+            let d = self.ctx.session.borrow_mut().delay(interval);
+            d.map_err(|e| run_error(lua, e))?;
+        }
     }
 }

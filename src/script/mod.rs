@@ -19,6 +19,7 @@ pub mod api;
 pub mod batch;
 pub mod cap;
 pub mod caught;
+pub mod console;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
@@ -260,7 +261,7 @@ fn classify(e: &mlua::Error) -> Abort {
 /// The message without the `stack traceback:` that mlua appends to the
 /// errors it catches itself (loading a chunk, a call made from Rust): it
 /// lists `[C]` frames only, and the script's own frames come separately.
-fn without_traceback(m: &str) -> String {
+pub(crate) fn without_traceback(m: &str) -> String {
     m.split_once("\nstack traceback:").map_or(m, |(head, _)| head).to_string()
 }
 
@@ -352,12 +353,24 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
 }
 
 fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {
+    let lua = new_state(ctx, cfg, interrupt)?;
+    let file = cfg.script.display().to_string();
+    let result = call_chunk(&lua, ctx, text, &file).map(|_| ());
+    if let Some(w) = lua.remove_app_data::<cap::Cuts>().and_then(|c| c.warning()) {
+        ctx.session.borrow_mut().warn(w);
+    }
+    result
+}
+
+/// A Lua state set up as every script gets it: the sandbox, the API, the
+/// memory limit and the hook that honours Ctrl-C and the time limit.
+pub(crate) fn new_state(ctx: &Rc<Ctx>, cfg: &RunConfig, interrupt: Arc<AtomicBool>) -> Result<Lua, Abort> {
     let script_err = |m: String| Abort::Script { message: m, origin: None };
     let lua = Lua::new_with(StdLib::ALL_SAFE, LuaOptions::new()).map_err(|e| script_err(e.to_string()))?;
     let search = search_dirs(&cfg.script);
-    // The stock `xpcall`, for the run itself: the script's own is wrapped.
-    let xpcall: mlua::Function = lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?;
     let setup = || -> mlua::Result<()> {
+        // The stock `xpcall`, for running chunks: the script's own is wrapped.
+        lua.set_named_registry_value("buscue.xpcall", lua.globals().get::<mlua::Function>("xpcall")?)?;
         sandbox::install(&lua, cfg.allow_io, &search)?;
         caught::install(&lua)?;
         api::install(&lua, ctx.clone())?;
@@ -366,6 +379,14 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool
     setup().map_err(|e| script_err(format!("setting up the script runtime: {e}")))?;
     lua.set_app_data(cap::Cuts::default());
     lua.set_memory_limit(cfg.memory_limit).map_err(|e| script_err(e.to_string()))?;
+    install_hook(&lua, ctx, interrupt).map_err(|e| script_err(e.to_string()))?;
+    Ok(lua)
+}
+
+/// The hook that stops a chunk on Ctrl-C or at the time limit. Once it
+/// fires every instruction fails, so a `pcall` in the script cannot
+/// swallow the stop; the console installs it afresh for the next command.
+pub(crate) fn install_hook(lua: &Lua, ctx: &Rc<Ctx>, interrupt: Arc<AtomicBool>) -> mlua::Result<()> {
     // The session holds the run's deadline, so waits on the Rust side
     // (retries, polling, sleeps) end at the same moment the hook would.
     let deadline = ctx.session.borrow().deadline();
@@ -379,24 +400,29 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool
         } else {
             return Ok(VmState::Continue);
         };
-        // From now on every instruction fails, so a `pcall` in the script
-        // cannot swallow the stop: the first instruction after it raises
-        // again, outside it.
         let again = abort.clone();
         lua.set_hook(HookTriggers::new().every_nth_instruction(1), move |_, _| {
             Err(mlua::Error::external(again.clone()))
         })?;
         Err(mlua::Error::external(abort))
     })
-    .map_err(|e| script_err(e.to_string()))?;
+}
 
-    let file = cfg.script.display().to_string();
+/// Loads `text` as a chunk named `file` and runs it under the error
+/// handler that locates failures; returns what the chunk returned.
+pub(crate) fn call_chunk(lua: &Lua, ctx: &Rc<Ctx>, text: &str, file: &str) -> Result<Vec<Value>, Abort> {
+    let script_err = |m: String| Abort::Script { message: m, origin: None };
+    // The stock `xpcall`, for the run itself: the script's own is wrapped.
+    let xpcall: mlua::Function = match lua.named_registry_value::<Option<mlua::Function>>("buscue.xpcall") {
+        Ok(Some(f)) => f,
+        _ => lua.globals().get("xpcall").map_err(|e| script_err(e.to_string()))?,
+    };
     let main = lua
         .load(text)
         .set_name(format!("@{file}"))
         .set_mode(mlua::ChunkMode::Text)
         .into_function()
-        .map_err(|e| locate(classify(&e), None, &file))?;
+        .map_err(|e| locate(classify(&e), None, file))?;
     let tb_ctx = ctx.clone();
     // Where the error that ends the run was raised, for errors that do not
     // say so themselves.
@@ -416,23 +442,19 @@ fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool
         })
         .map_err(|e| script_err(e.to_string()))?;
     let result = match xpcall.call::<MultiValue>((main, handler)) {
-        Err(e) => Err(locate(classify(&e), innermost.take(), &file)),
+        Err(e) => Err(locate(classify(&e), innermost.take(), file)),
         Ok(values) => {
             let mut values = values.into_iter();
             match values.next() {
-                Some(Value::Boolean(true)) => Ok(()),
+                Some(Value::Boolean(true)) => Ok(values.collect()),
                 _ => {
                     let err = values.next().unwrap_or(Value::Nil);
-                    Err(locate(classify_value(&err), innermost.take(), &file))
+                    Err(locate(classify_value(&err), innermost.take(), file))
                 }
             }
         }
     };
-    let result = result.map_err(|a| bounded(&lua, a));
-    if let Some(w) = lua.remove_app_data::<cap::Cuts>().and_then(|c| c.warning()) {
-        ctx.session.borrow_mut().warn(w);
-    }
-    result
+    result.map_err(|a| bounded(lua, a))
 }
 
 /// The abort with its message bounded ([`cap::bounded`]): a message the

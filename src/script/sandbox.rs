@@ -166,6 +166,16 @@ fn require(lua: &Lua, dirs: &[PathBuf], name: &str) -> mlua::Result<Value> {
             mlua::Error::RuntimeError(m) => mlua::Error::RuntimeError(in_file(&file, &m)),
             other => other,
         })?;
+    // A map module's errors find their lines in its text (`device::MapFiles`).
+    if let Value::Table(t) = &value {
+        let source = crate::regmap::Source { file: Some(file.clone()), text: Some(text.clone()) };
+        if lua.app_data_ref::<super::device::MapFiles>().is_none() {
+            lua.set_app_data(super::device::MapFiles::default());
+        }
+        if let Some(mut m) = lua.app_data_mut::<super::device::MapFiles>() {
+            m.0.push((t.to_pointer() as usize, source));
+        }
+    }
     let value = if value.is_nil() { Value::Boolean(true) } else { value };
     loaded.set(name, value.clone())?;
     Ok(value)

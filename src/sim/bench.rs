@@ -23,6 +23,7 @@ use super::device::Device;
 use super::eeprom::{Eeprom, EepromConfig};
 use super::gauge::{Gauge, GaugeConfig};
 use super::recorded::{Attempt, Follows, RecordedDevice, Recording, Unseen, parse_handshake, parse_hex};
+use super::mapped::MappedDevice;
 use super::register::{Access, ByteOrder, Layout, RegisterDevice, RegisterInit};
 use super::rng::SplitMix64;
 use super::signal::{CountRange, RegisterSignal, Signal, SignalSpec};
@@ -87,6 +88,18 @@ struct FaultSpec {
     hold_sda_after: Option<u64>,
     #[serde(default = "three")]
     release_after_pulses: u8,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct MappedSpec {
+    map: String,
+    #[serde(default = "eight")]
+    pointer_bits: u8,
+    #[serde(default = "eight")]
+    register_bits: u8,
+    #[serde(default = "big")]
+    byte_order: String,
 }
 
 #[derive(Debug, Deserialize)]
@@ -487,6 +500,32 @@ fn build_device(
             Box::new(Gauge::new(name, address, cfg))
         }
         "recorded" => Box::new(RecordedDevice::new(name, recorded_spec(cx, n, address, rest, keys)?)),
+        "mapped" => {
+            let s: MappedSpec = cx.parse_keys(Some(n), "", rest, keys)?;
+            let bits = |k: &str, v: u8, allowed: &[u8]| {
+                if allowed.contains(&v) {
+                    Ok(v as usize / 8)
+                } else {
+                    Err(cx.err(Some(n), k, format!("must be one of {allowed:?}, got {v}")))
+                }
+            };
+            let pointer_bytes = bits("pointer_bits", s.pointer_bits, &[8, 16])?;
+            let register_bytes = bits("register_bits", s.register_bits, &[8, 16, 24, 32])?;
+            let big_endian = match s.byte_order.as_str() {
+                "big" => true,
+                "little" => false,
+                o => {
+                    return Err(cx.err(Some(n), "byte_order", format!("must be \"big\" or \"little\", got \"{o}\"")));
+                }
+            };
+            // A map path is relative to the bench file's folder.
+            let dir = std::path::Path::new(cx.file).parent().unwrap_or(std::path::Path::new(""));
+            let path = dir.join(&s.map);
+            let max_at = if pointer_bytes == 2 { 0xFFFF } else { 0xFF };
+            let map = crate::regmap::lua::load_file(&path, register_bytes, max_at)
+                .map_err(|e| cx.err(Some(n), "map", e.to_string()))?;
+            Box::new(MappedDevice::new(name, address, map, pointer_bytes, big_endian))
+        }
         m => {
             return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));
         }
@@ -494,7 +533,7 @@ fn build_device(
 }
 
 /// Device models a bench file can name.
-pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor", "smbus-gauge", "recorded"];
+pub const MODELS: &[&str] = &["register", "eeprom", "climate-sensor", "smbus-gauge", "recorded", "mapped"];
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]

@@ -13,6 +13,7 @@ pub mod device;
 pub mod eeprom;
 pub mod gauge;
 pub mod recorded;
+pub mod mapped;
 pub mod register;
 pub mod rng;
 pub mod signal;
