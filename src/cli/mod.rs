@@ -21,6 +21,7 @@ mod scan;
 #[cfg(unix)]
 mod serve;
 mod traces;
+mod view;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -71,6 +72,8 @@ pub enum Command {
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
+    /// Browse a trace in the full-screen view (off a terminal: print it, filtered).
+    View(view::ViewArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -329,6 +332,7 @@ impl Command {
             Command::Scan(a) => Some(a.show.colour),
             Command::Replay(a) => Some(a.show.colour),
             Command::Diff(a) => Some(a.show.colour),
+            Command::View(a) => Some(a.show.colour),
             _ => None,
         }
     }
@@ -380,6 +384,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
+        Command::View(a) => view::view(a),
     }
 }
 
