@@ -43,7 +43,7 @@ fn split(area: Rect, detail: bool) -> (Rect, Rect, Option<Rect>, Rect) {
         return (top, middle, None, bottom);
     }
     let [list, pane] = if area.width >= SIDE_BY_SIDE {
-        Split::horizontal([Constraint::Percentage(58), Constraint::Percentage(42)]).areas(middle)
+        Split::horizontal([Constraint::Percentage(50), Constraint::Percentage(50)]).areas(middle)
     } else {
         Split::vertical([Constraint::Min(3), Constraint::Length(9)]).areas(middle)
     };
@@ -81,27 +81,28 @@ fn status_line(app: &App, src: &dyn Source, cx: &Context) -> Line<'static> {
         Some(e) => e.stats.bus_time,
         None => Duration::from_nanos(c.bus_ns),
     };
-    let mut spans = vec![
-        Span::styled(" buscue ", Style::new().fg(Color::Black).bg(Color::Green)),
-        Span::raw(format!(" {} ", escape_controls(&src.adapter()))),
-        Span::raw(format!("│ {} frames ", c.frames)),
-        Span::styled(format!("{} NACK ", c.nacks), nack_style(c.nacks > 0)),
-        Span::raw(format!("{} retries ", c.retries)),
-        Span::styled(format!("{} errors ", c.errors), error_style(c.errors > 0)),
-        Span::raw(format!("│ bus {} ", human(bus))),
-    ];
-    if let Some(w) = cx.wall {
-        spans.push(Span::raw(format!("/ wall {} ", human(w))));
-    }
-    if let Some(step) = src.current_step() {
-        spans.push(Span::raw(format!("│ step {} ", escape_controls(&step))));
-    }
     let mode = if src.growing() {
         if app.follow { "following" } else { "paused" }
     } else {
         "ended"
     };
-    spans.push(Span::styled(format!("│ {mode}"), Style::new().add_modifier(Modifier::BOLD)));
+    // Most wanted first: a narrow terminal cuts the end of the line.
+    let mut spans = vec![
+        Span::styled(" buscue ", Style::new().fg(Color::Black).bg(Color::Green)),
+        Span::styled(format!(" {mode} "), Style::new().add_modifier(Modifier::BOLD)),
+        Span::raw(format!("│ {} frames ", c.frames)),
+        Span::styled(format!("{} NACK ", c.nacks), nack_style(c.nacks > 0)),
+        Span::raw(format!("{} retries ", c.retries)),
+        Span::styled(format!("{} errors ", c.errors), error_style(c.errors > 0)),
+    ];
+    if let Some(step) = src.current_step() {
+        spans.push(Span::raw(format!("│ step {} ", escape_controls(&step))));
+    }
+    spans.push(Span::raw(format!("│ bus {} ", human(bus))));
+    if let Some(w) = cx.wall {
+        spans.push(Span::raw(format!("/ wall {} ", human(w))));
+    }
+    spans.push(Span::raw(format!("│ {}", escape_controls(&src.adapter()))));
     Line::from(spans)
 }
 

@@ -130,13 +130,15 @@ pub fn line_flags(line: &[u8]) -> Flags {
     const FRAME: &[u8] = br#"{"kind":"frame""#;
     if line.starts_with(FRAME) {
         let mut b = Flags::FRAME;
-        if let Some(at) = find(line, br#""fault":{"kind":""#) {
-            let rest = &line[at + 18..];
+        const FAULT: &[u8] = br#""fault":{"kind":""#;
+        const ATTEMPT: &[u8] = br#""attempt":"#;
+        if let Some(at) = find(line, FAULT) {
+            let rest = &line[at + FAULT.len()..];
             let nack = [&b"address-nack\""[..], b"data-nack\"", b"nack\""];
             b |= if nack.iter().any(|k| rest.starts_with(k)) { Flags::NACK } else { Flags::ERROR };
         }
-        if let Some(at) = find(line, br#""attempt":"#) {
-            let digits = &line[at + 10..];
+        if let Some(at) = find(line, ATTEMPT) {
+            let digits = &line[at + ATTEMPT.len()..];
             if !(digits.starts_with(b"1,") || digits.starts_with(b"0,")) {
                 b |= Flags::RETRY;
             }
