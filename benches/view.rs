@@ -36,7 +36,10 @@ fn frame(seq: u64) -> Frame {
         address: Address::Seven(0x31),
         ops: vec![Operation::Write(vec![reg]), Operation::Read(2)],
         outcome: Outcome {
-            ops: vec![OpOutcome { acks: vec![true], data: vec![] }, OpOutcome { acks: vec![], data: vec![seq as u8, 0x2D] }],
+            ops: vec![
+                OpOutcome { acks: vec![true], data: vec![] },
+                OpOutcome { acks: vec![], data: vec![seq as u8, 0x2D] },
+            ],
             bus_time: Duration::from_micros(395),
             measured: None,
             fault: None,
@@ -100,7 +103,7 @@ fn live_run(bin: &str, script: &std::path::Path, trace: &std::path::Path) -> f64
     // SAFETY: TIOCSWINSZ reads one winsize from the pointer it is given.
     unsafe { libc::ioctl(master.as_raw_fd(), libc::TIOCSWINSZ, &ws) };
     let open = || std::fs::OpenOptions::new().read(true).write(true).open(&path).unwrap();
-    let mut child = Command::new(bin)
+    let child = Command::new(bin)
         .arg("run")
         .arg(script)
         .arg("--trace")

@@ -129,7 +129,8 @@ fn quitting_during_a_run_stops_it_after_the_transaction_with_the_trace_complete(
         .unwrap();
     let mut screen = reader(&master);
     screen.wait_until("three frames, following", |t| {
-        let counted = t.split("following │ ").nth(1).and_then(|r| r.split(' ').next()).and_then(|n| n.parse::<u64>().ok());
+        let counted =
+            t.split("following │ ").nth(1).and_then(|r| r.split(' ').next()).and_then(|n| n.parse::<u64>().ok());
         counted.is_some_and(|n| n >= 3)
     });
     screen.press("q");

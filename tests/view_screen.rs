@@ -51,7 +51,12 @@ fn records() -> Vec<Record> {
             Some(Fault::DataNack { op: 0, index: 1 }),
             Some("FAN_DUTY"),
         ),
-        Record::Log { t: Duration::from_millis(2), level: buscue::record::Level::Info, text: "canopy done".into(), origin: None },
+        Record::Log {
+            t: Duration::from_millis(2),
+            level: buscue::record::Level::Info,
+            text: "canopy done".into(),
+            origin: None,
+        },
     ]
 }
 
@@ -156,8 +161,13 @@ fn the_legend_opens_on_a_key_and_any_key_closes_it() {
 #[test]
 fn recorded_text_is_shown_not_obeyed() {
     let (mut sink, mut src) = live::feed("bench".into());
-    sink.record(&Record::Log { t: Duration::ZERO, level: buscue::record::Level::Info, text: "a\x1b[2Jb".into(), origin: None })
-        .unwrap();
+    sink.record(&Record::Log {
+        t: Duration::ZERO,
+        level: buscue::record::Level::Info,
+        text: "a\x1b[2Jb".into(),
+        origin: None,
+    })
+    .unwrap();
     let mut app = App::new(false);
     let all = text(&screen(80, 24, &mut app, &mut src));
     assert!(!all.contains('\x1b'), "{all:?}");

@@ -156,7 +156,11 @@ fn open_view(
     let view = std::thread::spawn(move || {
         let mut app = App::new(true);
         let stop = move || interrupt.store(true, std::sync::atomic::Ordering::SeqCst);
-        term::run(&mut source, &mut app, term::Options { stop_run: Some(Box::new(stop)), script: Some(script), wall: true })
+        term::run(
+            &mut source,
+            &mut app,
+            term::Options { stop_run: Some(Box::new(stop)), script: Some(script), wall: true },
+        )
     });
     (done, view)
 }

@@ -110,7 +110,12 @@ impl App {
 
     /// The next (or previous) row, from the selected one, whose record
     /// passes `hit`.
-    fn find(&self, src: &mut dyn Source, forward: bool, mut hit: impl FnMut(&mut dyn Source, usize) -> bool) -> Option<usize> {
+    fn find(
+        &self,
+        src: &mut dyn Source,
+        forward: bool,
+        mut hit: impl FnMut(&mut dyn Source, usize) -> bool,
+    ) -> Option<usize> {
         let n = self.row_count(src);
         let rows: Box<dyn Iterator<Item = usize>> =
             if forward { Box::new(self.selected + 1..n) } else { Box::new((0..self.selected.min(n)).rev()) };
@@ -199,7 +204,9 @@ impl App {
             KeyCode::End | KeyCode::Char('G') => self.select(usize::MAX, src),
             KeyCode::Char('n') => self.jump_failure(src, true),
             KeyCode::Char('N') => self.jump_failure(src, false),
-            KeyCode::Char('f') => self.prompt = Some((Prompt::Filter, self.filter.as_ref().map(|f| f.text.clone()).unwrap_or_default())),
+            KeyCode::Char('f') => {
+                self.prompt = Some((Prompt::Filter, self.filter.as_ref().map(|f| f.text.clone()).unwrap_or_default()))
+            }
             KeyCode::Char('/') => self.prompt = Some((Prompt::Search, String::new())),
             KeyCode::Char('>') => self.jump_search(src, true),
             KeyCode::Char('<') => self.jump_search(src, false),

@@ -81,11 +81,7 @@ fn status_line(app: &App, src: &dyn Source, cx: &Context) -> Line<'static> {
         Some(e) => e.stats.bus_time,
         None => Duration::from_nanos(c.bus_ns),
     };
-    let mode = if src.growing() {
-        if app.follow { "following" } else { "paused" }
-    } else {
-        "ended"
-    };
+    let mode = if src.growing() { if app.follow { "following" } else { "paused" } } else { "ended" };
     // Most wanted first: a narrow terminal cuts the end of the line.
     let mut spans = vec![
         Span::styled(" buscue ", Style::new().fg(Color::Black).bg(Color::Green)),

@@ -77,10 +77,8 @@ impl Term {
             return Ok(Term::Register(n.to_lowercase()));
         }
         if let Some(b) = w.strip_prefix("bytes:") {
-            let pat: Option<Vec<Option<u8>>> = b
-                .split(',')
-                .map(|x| if x == "??" { Some(None) } else { parse_byte(x).map(Some) })
-                .collect();
+            let pat: Option<Vec<Option<u8>>> =
+                b.split(',').map(|x| if x == "??" { Some(None) } else { parse_byte(x).map(Some) }).collect();
             return match pat {
                 Some(p) if !p.is_empty() => Ok(Term::Bytes(p)),
                 _ => Err(FilterError::Bytes(w.to_string())),

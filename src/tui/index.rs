@@ -145,7 +145,9 @@ pub fn line_flags(line: &[u8]) -> Flags {
         }
         return Flags(b);
     }
-    for (prefix, bit) in [(&br#"{"kind":"log""#[..], Flags::LOG), (br#"{"kind":"step""#, Flags::STEP), (br#"{"kind":"end""#, Flags::END)] {
+    for (prefix, bit) in
+        [(&br#"{"kind":"log""#[..], Flags::LOG), (br#"{"kind":"step""#, Flags::STEP), (br#"{"kind":"end""#, Flags::END)]
+    {
         if line.starts_with(prefix) {
             return Flags(bit);
         }

@@ -53,7 +53,8 @@ pub fn feed(adapter: String) -> (LiveSink, LiveSource) {
 pub fn feed_keeping(adapter: String, keep: usize) -> (LiveSink, LiveSource) {
     let shared = Arc::new(Mutex::new(Shared::default()));
     let sink = LiveSink { shared: shared.clone(), keep: keep.max(1) };
-    let source = LiveSource { shared, adapter, len: 0, counts: Counts::default(), step: None, ending: None, done: false };
+    let source =
+        LiveSource { shared, adapter, len: 0, counts: Counts::default(), step: None, ending: None, done: false };
     (sink, source)
 }
 
