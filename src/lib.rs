@@ -24,6 +24,7 @@ pub mod hal;
 #[cfg(unix)]
 pub mod serve;
 pub mod trace;
+pub mod tui;
 
 pub mod script;
 

@@ -23,6 +23,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("hal", &["ascii", "bus", "adapter", "record", "player"]),
     ("serve", &["ascii", "bus", "config", "adapter", "sim", "regmap"]),
     ("trace", &["ascii", "bus", "adapter", "record", "player"]),
+    ("tui", &["ascii", "bus", "adapter", "record", "player", "view", "trace"]),
     ("script", &["ascii", "bus", "adapter", "electrical", "record", "report", "smbus", "regmap", "player", "view"]),
     (
         "cli",
@@ -42,6 +43,7 @@ const ROOMS: &[(&str, &[&str])] = &[
             "hal",
             "serve",
             "trace",
+            "tui",
             "script",
         ],
     ),

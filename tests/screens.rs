@@ -174,7 +174,8 @@ fn help_wraps_to_the_terminal_and_every_command_has_one_layout() {
     }
 }
 
-/// On a real terminal the frame log fits the window the terminal reports
+/// On a real terminal the frame log (`--plain`: without it a terminal gets
+/// the full-screen view) fits the window the terminal reports
 /// (a pseudo-terminal set to 72 columns), with no COLUMNS to say so.
 #[cfg(unix)]
 #[test]
@@ -189,7 +190,7 @@ fn on_a_terminal_frame_lines_fit_its_window() {
     let terminal = std::fs::OpenOptions::new().write(true).open(&path).expect("the terminal side");
     drop(slave);
     let status = buscue()
-        .args(["run", "scripts/eeprom_calibration.lua", "--no-trace"])
+        .args(["run", "scripts/eeprom_calibration.lua", "--no-trace", "--plain"])
         .env_remove("COLUMNS")
         .stdout(terminal)
         .stderr(std::process::Stdio::null())

@@ -25,6 +25,7 @@ mod serve;
 mod shrink;
 mod station;
 mod traces;
+mod view;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -84,6 +85,8 @@ pub enum Command {
     Station(station::StationArgs),
     /// A Lua prompt on the bus for bring-up: registers by name, frames after each command.
     Console(console::ConsoleArgs),
+    /// Browse a trace in the full-screen view (off a terminal: print it, filtered).
+    View(view::ViewArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -342,6 +345,7 @@ impl Command {
             Command::Scan(a) => Some(a.show.colour),
             Command::Replay(a) => Some(a.show.colour),
             Command::Diff(a) => Some(a.show.colour),
+            Command::View(a) => Some(a.show.colour),
             _ => None,
         }
     }
@@ -397,6 +401,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Ports(a) => ports::ports(a),
         Command::Station(a) => station::station(a),
         Command::Console(a) => console::run(a),
+        Command::View(a) => view::view(a),
     }
 }
 

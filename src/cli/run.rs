@@ -12,6 +12,8 @@ use crate::player::RunError;
 use crate::script::{self, RunConfig, Session};
 use crate::trace::file::size_text;
 use crate::trace::{Header, TraceWriter};
+use crate::tui::live::{self, LiveFinisher};
+use crate::tui::{App, term};
 use crate::view::format::{link_summary, summary};
 use crate::view::json::JsonLines;
 use crate::view::plain::PlainLog;
@@ -64,6 +66,10 @@ pub struct RunArgs {
     /// Print one JSON object per record on standard output instead of the frame log.
     #[arg(long)]
     pub json: bool,
+    /// Print the frame log line by line even on a terminal, instead of the
+    /// full-screen view.
+    #[arg(long, conflicts_with = "json")]
+    pub plain: bool,
     /// Write the trace here instead of traces/<script>-<UTC time>.jsonl.
     #[arg(long, value_name = "PATH", conflicts_with = "no_trace")]
     pub trace: Option<PathBuf>,
@@ -144,6 +150,31 @@ impl Script {
     }
 }
 
+/// The full-screen view of a run, on its own thread, fed by a sink the
+/// session writes to. Quitting it stops the run as Ctrl-C does.
+fn open_view(
+    session: &mut Session,
+    name: &str,
+    interrupt: std::sync::Arc<std::sync::atomic::AtomicBool>,
+) -> (LiveFinisher, std::thread::JoinHandle<std::io::Result<()>>) {
+    let snap = session.adapter_ref().snapshot();
+    let adapter = format!("{} {} @ {}", snap.identity.driver, snap.identity.target, snap.speed);
+    let (sink, mut source) = live::feed(adapter);
+    let done = sink.finisher();
+    session.add_sink(Box::new(sink));
+    let script: std::sync::Arc<str> = name.into();
+    let view = std::thread::spawn(move || {
+        let mut app = App::new(true);
+        let stop = move || interrupt.store(true, std::sync::atomic::Ordering::SeqCst);
+        term::run(
+            &mut source,
+            &mut app,
+            term::Options { stop_run: Some(Box::new(stop)), script: Some(script), wall: true },
+        )
+    });
+    (done, view)
+}
+
 pub fn run(a: RunArgs) -> Result<u8> {
     let script = Script::read(&a.script)?;
     let name = script.name.display().to_string();
@@ -201,8 +232,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
     // The JSON stream stays line by line: programs read it live, as a
     // person reads the frame log on a terminal.
     let mut log_flush = None;
+    let mut live = None;
     if a.json {
         session.add_sink(Box::new(JsonLines::new(out::stdout())));
+    } else if !a.plain && !a.quiet && std::io::stdout().is_terminal() {
+        live = Some(open_view(&mut session, &name, interrupt.clone()));
     } else {
         let log = out::frame_log();
         log_flush = Some(log.flusher());
@@ -237,6 +271,15 @@ pub fn run(a: RunArgs) -> Result<u8> {
         super::station::report_of(&stem, &name, adapter_text, &cfg.params, trace_path.clone(), &mut report, host);
     let reported = super::station::write_reports(&a.reports, std::slice::from_ref(&run_report), &stem, a.force);
     let mut session = report.session;
+    if let Some((done, view)) = live {
+        // The end record is in; the view shows the summary until the user leaves.
+        done.finish();
+        match view.join() {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => eprintln!("{}", warning_line(format_args!("the terminal view: {e}"), false)),
+            Err(_) => eprintln!("{}", warning_line("the terminal view failed", false)),
+        }
+    }
     let mut err = std::io::stderr().lock();
     let colour = a.show.colour.resolve_stderr();
     if !run_report.steps.is_empty() || !run_report.measurements.is_empty() {
