@@ -344,11 +344,14 @@ impl NativeAdapter {
         self.timer.rto()
     }
 
-    /// A frame was lost: frames get smaller and fewer in flight.
+    /// A frame was lost: frames get shorter. The window stays: how many
+    /// requests are in flight does not change the chance that one frame
+    /// crosses, and on a noisy line more in flight means more chances per
+    /// round trip (a request dropped behind a lost one is re-sent at once
+    /// on the `GAP`).
     fn lost(&mut self, now: Instant) {
         let rtt = self.timer.srtt().unwrap_or(self.timer.rto());
         self.batch_size.lost(now, rtt);
-        self.window_size.lost(now, rtt);
     }
 
     fn path(&self) -> String {

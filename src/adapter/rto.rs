@@ -35,11 +35,13 @@ use std::time::{Duration, Instant};
 /// (common practice), and a spurious resend shrinks the frames.
 pub const RTO_FLOOR: Duration = Duration::from_millis(5);
 
-/// Most doublings of the RTO while a request goes unanswered: 2^3 times
-/// the RTO, and never more than [`MAX_BACKED_OFF`]. Lower than TCP's:
-/// loss on a serial line is noise, not congestion, and a long wait only
-/// delays the next try.
-pub const MAX_BACKOFF: u32 = 3;
+/// Most doublings of the RTO while a request goes unanswered: twice the
+/// RTO, and never more than [`MAX_BACKED_OFF`]. Far lower than TCP's:
+/// loss on a serial line is noise, not congestion, so a longer wait only
+/// delays the next try; one doubling still lets a timer set too short
+/// (every reply then follows a resend, so Karn's rule takes no sample)
+/// reach the true round trip.
+pub const MAX_BACKOFF: u32 = 1;
 
 /// Longest wait for one try, however far the timer has backed off.
 pub const MAX_BACKED_OFF: Duration = Duration::from_secs(2);
@@ -198,10 +200,9 @@ mod tests {
         assert_eq!(t.rto(), ms(100.0), "a slow sample is capped at the ceiling");
         assert_eq!(t.backed_off(0), ms(100.0));
         assert_eq!(t.backed_off(1), ms(200.0));
-        assert_eq!(t.backed_off(3), ms(800.0));
-        assert_eq!(t.backed_off(30), ms(800.0), "at most 2^3 times, never overflowing");
-        let mut slow = RetransmitTimer::new(ms(2.0), ms(1000.0));
-        slow.sample(ms(900.0));
+        assert_eq!(t.backed_off(30), ms(200.0), "at most doubled, never overflowing");
+        let mut slow = RetransmitTimer::new(ms(2.0), ms(1800.0));
+        slow.sample(ms(1700.0));
         assert_eq!(slow.backed_off(3), MAX_BACKED_OFF, "and never past the cap");
     }
 
