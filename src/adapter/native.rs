@@ -303,8 +303,7 @@ impl NativeAdapter {
         };
         let speed = BusSpeed::from_hz(wire.speed_hz as u64).unwrap_or(BusSpeed::STANDARD);
         let window = settings.window.map_or(wire.window, |w| w.min(wire.window)).max(1) as usize;
-        let batch =
-            settings.batch.map_or(wire.max_tx_per_request, |b| b.min(wire.max_tx_per_request)).max(1) as usize;
+        let batch = settings.batch.map_or(wire.max_tx_per_request, |b| b.min(wire.max_tx_per_request)).max(1) as usize;
         Ok(NativeAdapter {
             link,
             settings,
@@ -318,7 +317,7 @@ impl NativeAdapter {
             failed: None,
             timer,
             batch_size: FrameSizer::new(batch),
-            window_size: FrameSizer::new(window),
+            window_size: FrameSizer::full(window),
             stats: NativeStats::default(),
         })
     }
@@ -610,7 +609,8 @@ impl NativeAdapter {
     /// Runs one round of a batch: packs, exchanges and decodes, pushing
     /// one outcome per transaction onto `out`.
     fn round(&mut self, txs: &[Transaction], batch: usize, out: &mut Vec<Outcome>) -> Result<(), NativeError> {
-        let groups = self.pack(txs, batch).map_err(|_| NativeError::Malformed { path: self.path(), kind: kind::RUN })?;
+        let groups =
+            self.pack(txs, batch).map_err(|_| NativeError::Malformed { path: self.path(), kind: kind::RUN })?;
         let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
         let replies = self.exchange(reqs)?;
         for (g, (_, body)) in groups.iter().zip(&replies) {

@@ -116,6 +116,11 @@ impl FrameSizer {
         FrameSizer { size: 1, max, credit: 0, last_cut: None, slow_start: true }
     }
 
+    /// Starts at the largest size, for a size that loss never cuts.
+    pub fn full(max: usize) -> Self {
+        FrameSizer { size: max.max(1), slow_start: false, ..FrameSizer::new(max) }
+    }
+
     pub fn size(&self) -> usize {
         self.size
     }

@@ -97,10 +97,7 @@ pub struct Pacer {
 
 impl Pacer {
     pub fn new(baud: u32) -> Self {
-        Pacer {
-            byte_time: Duration::from_secs_f64(10.0 / baud.max(1) as f64),
-            free_at: std::time::Instant::now(),
-        }
+        Pacer { byte_time: Duration::from_secs_f64(10.0 / baud.max(1) as f64), free_at: std::time::Instant::now() }
     }
 
     /// When `n` more bytes, handed over now, have crossed the line.
