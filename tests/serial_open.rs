@@ -58,7 +58,11 @@ fn a_port_nobody_answers_on_is_an_adapter_failure_for_both_protocols() {
     // Both ends stay open, so the port opens and the handshake goes unanswered.
     let (_master, slave) = serialport::TTYPort::pair().expect("a pseudo-terminal");
     let path = serialport::SerialPort::name(&slave).expect("slave path");
-    every_command_exits_4(&format!("serial:{path},timeout_ms=20"), "no answer to the native handshake", &trace);
+    every_command_exits_4(
+        &format!("serial:{path},timeout_ms=20,silence_ms=300"),
+        "no answer to the native handshake",
+        &trace,
+    );
     every_command_exits_4(&format!("dialect:oneline@{path},timeout_ms=50"), "no reply to", &trace);
 }
 

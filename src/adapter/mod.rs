@@ -38,6 +38,7 @@ pub mod kernel_map;
 pub mod link;
 pub mod native;
 pub mod native_fault;
+pub mod rto;
 
 pub use error::AdapterError;
 pub use native::{NativeAdapter, NativeSettings};
@@ -120,8 +121,34 @@ pub struct LinkCounters {
     pub frames_received: u64,
     /// Frames that arrived broken (bad CRC, broken framing) and were dropped.
     pub frames_dropped: u64,
-    /// Requests sent again because no reply came in time.
+    /// Requests sent again, for any reason.
     pub retransmissions: u64,
+    /// Distinct requests (each run once by the adapter).
+    pub requests: u64,
+    /// Resends because a request's own timer expired.
+    pub timeouts: u64,
+    /// Immediate resends because a reply or a gap notice showed a request
+    /// missing.
+    pub fast_resends: u64,
+    /// Gap notices from the adapter (a request arrived before one it
+    /// still waits for).
+    pub gaps: u64,
+    /// The retransmission timeout now in use.
+    pub rto: Duration,
+    /// Transactions per request and requests in flight now in use, and
+    /// the adapter's limits for them.
+    pub batch: u32,
+    pub batch_max: u32,
+    pub window: u32,
+    pub window_max: u32,
+}
+
+impl LinkCounters {
+    /// Share of request frames that were resends, an estimate of the loss
+    /// on the link (each loss costs at least one resend).
+    pub fn loss_estimate(&self) -> f64 {
+        if self.frames_sent == 0 { 0.0 } else { self.retransmissions as f64 / self.frames_sent as f64 }
+    }
 }
 
 /// A bus adapter driver.

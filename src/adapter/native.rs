@@ -12,11 +12,25 @@
 //!   touching the bus.
 //! - [`Adapter::execute_batch`] packs independent transactions into
 //!   requests (up to `batch` per request and the frame size) and pipelines
-//!   the requests.
+//!   the requests, in rounds of a few windows' worth so the batch and
+//!   window follow the loss between rounds.
+//! - Timing is learned from the link ([`super::rto`], RFC 6298): a request
+//!   is sent again when its timer (the RTO, doubled per expiry) runs out,
+//!   or at once when a later reply or a `GAP` shows it missing. Only a
+//!   timer expiry is a try; duplicate replies are harmless.
+//! - Batch and window shrink by half when frames are lost and grow back
+//!   by one per clean round ([`super::rto::FrameSizer`]); a script's
+//!   batch resolves whatever sizes went on the wire.
+//! - The link fails when no valid frame has come for `silence` (default
+//!   3 s; `tries` adds a count of timer expiries, off by default), so a
+//!   slow but working link never aborts a run. The handshake follows the
+//!   same timing and give-up rules.
+//! - A reply must carry exactly what its request asked for: more results
+//!   or data bytes is a malformed reply.
 //! - Time is the adapter's: [`Adapter::now`] is the adapter clock as of its
 //!   last reply, and [`Adapter::delay`] asks the adapter to wait, so a
 //!   served simulated bench keeps its virtual time.
-//! - Any link failure (no reply after the allowed tries, wrong protocol
+//! - Any link failure (silence past the limit, wrong protocol
 //!   version, adapter reset, port gone) is final: the outcome carries
 //!   [`Fault::Adapter`] and every later call fails the same way.
 
@@ -31,6 +45,7 @@ use thiserror::Error;
 
 use super::link::{LinkError, SerialLink};
 use super::native_fault;
+use super::rto::{FrameSizer, RTO_FLOOR, RetransmitTimer};
 use super::{Adapter, AdapterError, Capabilities, Identity, LineLevels, LinkCounters, Recovery};
 use crate::bus::timing::{breakdown_events, transaction_time};
 use crate::bus::{BusSpeed, Direction, OpOutcome, Operation, Outcome, Transaction};
@@ -43,15 +58,30 @@ pub struct NativeSettings {
     pub window: Option<u8>,
     /// Most transactions per request; `None`: the adapter's limit.
     pub batch: Option<u8>,
-    /// How long to wait for a reply before sending a request again.
+    /// Longest wait for the first try of a request: the ceiling of the
+    /// learned retransmission timeout.
     pub timeout: Duration,
-    /// Sends of one request before the adapter counts as not answering.
-    pub tries: u32,
+    /// How long the link may go without one valid frame from the adapter
+    /// before it counts as failed.
+    pub silence: Duration,
+    /// Timer expiries of one request before the adapter counts as not
+    /// answering; `None`: no count, only `silence`.
+    pub tries: Option<u32>,
 }
+
+/// Default of [`NativeSettings::silence`].
+pub const DEFAULT_SILENCE: Duration = Duration::from_secs(3);
 
 impl Default for NativeSettings {
     fn default() -> Self {
-        NativeSettings { baud: 115_200, window: None, batch: None, timeout: Duration::from_millis(100), tries: 20 }
+        NativeSettings {
+            baud: 115_200,
+            window: None,
+            batch: None,
+            timeout: Duration::from_millis(100),
+            silence: DEFAULT_SILENCE,
+            tries: None,
+        }
     }
 }
 
@@ -71,8 +101,11 @@ impl NativeSettings {
             "window" => self.window = Some(num(255)? as u8),
             "batch" => self.batch = Some(num(255)? as u8),
             "timeout_ms" => self.timeout = Duration::from_millis(num(60_000)?),
-            "tries" => self.tries = num(1000)? as u32,
-            other => bail!("`{other}` is not a serial setting: use baud, window, batch, timeout_ms or tries"),
+            "silence_ms" => self.silence = Duration::from_millis(num(3_600_000)?),
+            "tries" => self.tries = Some(num(1_000_000)? as u32),
+            other => {
+                bail!("`{other}` is not a serial setting: use baud, window, batch, timeout_ms, silence_ms or tries")
+            }
         }
         Ok(())
     }
@@ -85,6 +118,8 @@ pub enum NativeError {
     Link(String),
     #[error("no reply from the adapter on {path} after {tries} tries ({waited_ms} ms)")]
     NoReply { path: String, tries: u32, waited_ms: u128 },
+    #[error("no valid frame from the adapter on {path} for {waited_ms} ms (silence_ms): the link is down")]
+    Silent { path: String, waited_ms: u128 },
     #[error("the adapter on {path} speaks native protocol version {theirs}; this buscue speaks version {VERSION}")]
     Version { path: String, theirs: u8 },
     #[error("the adapter on {path} was reset mid-run ({why}); the bus state is unknown")]
@@ -111,7 +146,7 @@ impl From<NativeError> for AdapterError {
         let text = e.to_string();
         match e {
             NativeError::Link(_) | NativeError::Reset { .. } => AdapterError::LinkLost(text),
-            NativeError::NoReply { .. } => AdapterError::NoAnswer(text),
+            NativeError::NoReply { .. } | NativeError::Silent { .. } => AdapterError::NoAnswer(text),
             NativeError::Version { .. } | NativeError::Refused { .. } => AdapterError::Refused(text),
             NativeError::Malformed { .. } => AdapterError::Protocol(text),
         }
@@ -132,6 +167,12 @@ pub struct NativeStats {
     /// Request frames sent, repeats included.
     pub sends: u64,
     pub repeats: u64,
+    /// Repeats because a request's timer expired.
+    pub timeouts: u64,
+    /// Repeats because a reply or a gap notice showed a request missing.
+    pub fast_resends: u64,
+    /// Gap notices received.
+    pub gaps: u64,
     /// Frames received from the adapter during exchanges (replies,
     /// repeats of replies, notices).
     pub received: u64,
@@ -148,6 +189,9 @@ pub struct NativeAdapter {
     clock: Duration,
     speed: BusSpeed,
     failed: Option<NativeError>,
+    timer: RetransmitTimer,
+    batch_size: FrameSizer,
+    window_size: FrameSizer,
     pub stats: NativeStats,
 }
 
@@ -161,8 +205,20 @@ struct Pending {
     sent_at: Instant,
     /// Order of this request's last send among all sends of the exchange.
     send_no: u64,
-    tries: u32,
+    /// Sends, for Karn's rule: only a reply to a request sent once times
+    /// the link.
+    sends: u32,
+    /// Times this request's own timer ran out (its tries).
+    expiries: u32,
     first_sent: Option<Instant>,
+}
+
+/// Why a request goes out again.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Resend {
+    First,
+    Timer,
+    Fast,
 }
 
 impl NativeAdapter {
@@ -174,11 +230,21 @@ impl NativeAdapter {
         let seq0 = (std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.subsec_nanos())
             & 0x7FFF) as u16;
         let hello = Header { version: VERSION, kind: kind::HELLO, seq: seq0, session: 0 };
-        let tries = 3;
+        // The same give-up rule as every request: the handshake fails when
+        // `silence` passes without its answer. Before any sample the wait
+        // is what the exchange needs on the wire at this baud rate, with
+        // room to spare, never above the ceiling; it does not back off: a
+        // HELLO runs nothing, so a repeat costs the adapter nothing, and
+        // whichever answer arrives first is taken (they are all alike).
+        let mut timer = RetransmitTimer::new(RTO_FLOOR, settings.timeout);
+        let wait = hello_wait(settings.baud).min(settings.timeout);
+        let give_up = Instant::now() + settings.silence;
+        let mut expiries = 0u32;
         let mut answer = None;
-        'outer: for _ in 0..tries {
+        'outer: while Instant::now() < give_up && settings.tries.is_none_or(|t| expiries < t) {
             link.send(hello, &[])?;
-            let deadline = Instant::now() + settings.timeout.max(Duration::from_millis(300));
+            let sent = Instant::now();
+            let deadline = (sent + wait).min(give_up);
             while let Some((h, body)) = link.recv(deadline)? {
                 if h.kind == kind::REFUSED && body.first() == Some(&refusal::VERSION) {
                     let theirs = body.get(1).copied().unwrap_or(h.version);
@@ -188,14 +254,23 @@ impl NativeAdapter {
                     if h.version != VERSION {
                         return Err(NativeError::Version { path: path.into(), theirs: h.version });
                     }
+                    // Every HELLO is answered alike, so this answer may be
+                    // to an earlier one (Karn's ambiguity); timed from the
+                    // last send it is short if anything, which costs a
+                    // spurious resend at worst and is corrected by the
+                    // next samples, where the ceiling would cost a wait of
+                    // `timeout_ms` per lost frame until a clean reply.
+                    timer.sample(sent.elapsed());
                     answer = Some((h, body));
                     break 'outer;
                 }
             }
+            expiries += 1;
         }
         let Some((h, body)) = answer else {
             return Err(NativeError::Link(format!(
-                "no answer to the native handshake on {path}: is a buscue native adapter there, at {} baud?",
+                "no answer to the native handshake on {path} within {} ms: is a buscue native adapter there, at {} baud?",
+                settings.silence.as_millis(),
                 settings.baud
             )));
         };
@@ -227,6 +302,8 @@ impl NativeAdapter {
             ),
         };
         let speed = BusSpeed::from_hz(wire.speed_hz as u64).unwrap_or(BusSpeed::STANDARD);
+        let window = settings.window.map_or(wire.window, |w| w.min(wire.window)).max(1) as usize;
+        let batch = settings.batch.map_or(wire.max_tx_per_request, |b| b.min(wire.max_tx_per_request)).max(1) as usize;
         Ok(NativeAdapter {
             link,
             settings,
@@ -238,35 +315,68 @@ impl NativeAdapter {
             clock: Duration::from_nanos(t),
             speed,
             failed: None,
+            timer,
+            batch_size: FrameSizer::new(batch),
+            window_size: FrameSizer::full(window),
             stats: NativeStats::default(),
         })
     }
 
-    fn window(&self) -> usize {
-        self.settings.window.map_or(self.wire.window, |w| w.min(self.wire.window)).max(1) as usize
+    /// Transactions per request now in use (shrinks under loss).
+    pub fn batch_in_use(&self) -> usize {
+        self.batch_size.size()
     }
 
-    fn batch(&self) -> usize {
-        self.settings.batch.map_or(self.wire.max_tx_per_request, |b| b.min(self.wire.max_tx_per_request)).max(1)
-            as usize
+    /// Requests in flight now allowed (shrinks under loss).
+    pub fn window_in_use(&self) -> usize {
+        self.window_size.size()
+    }
+
+    /// The most transactions per request and requests in flight: the
+    /// adapter's limits, or the user's if lower.
+    pub fn limits(&self) -> (usize, usize) {
+        (self.batch_size.max(), self.window_size.max())
+    }
+
+    /// The retransmission timeout now in use.
+    pub fn rto(&self) -> Duration {
+        self.timer.rto()
+    }
+
+    /// A frame was lost: frames get shorter. The window stays: how many
+    /// requests are in flight does not change the chance that one frame
+    /// crosses, and on a noisy line more in flight means more chances per
+    /// round trip (a request dropped behind a lost one is re-sent at once
+    /// on the `GAP`).
+    fn lost(&mut self, now: Instant) {
+        let rtt = self.timer.srtt().unwrap_or(self.timer.rto());
+        self.batch_size.lost(now, rtt);
     }
 
     fn path(&self) -> String {
         self.link.path().to_string()
     }
 
-    fn send(&mut self, p: &mut Pending, seq: u16, send_no: &mut u64) -> Result<(), NativeError> {
+    fn send(&mut self, p: &mut Pending, seq: u16, send_no: &mut u64, why: Resend) -> Result<(), NativeError> {
         let h = Header { version: VERSION, kind: p.kind, seq, session: self.session };
         self.link.send(h, &p.body)?;
         let now = Instant::now();
         p.sent_at = now;
         p.first_sent.get_or_insert(now);
-        p.tries += 1;
+        p.sends += 1;
         *send_no += 1;
         p.send_no = *send_no;
         self.stats.sends += 1;
-        if p.tries > 1 {
-            self.stats.repeats += 1;
+        match why {
+            Resend::First => {}
+            Resend::Timer => {
+                self.stats.repeats += 1;
+                self.stats.timeouts += 1;
+            }
+            Resend::Fast => {
+                self.stats.repeats += 1;
+                self.stats.fast_resends += 1;
+            }
         }
         Ok(())
     }
@@ -298,53 +408,82 @@ impl NativeAdapter {
                 reply: None,
                 sent_at: now,
                 send_no: 0,
-                tries: 0,
+                sends: 0,
+                expiries: 0,
                 first_sent: None,
             })
             .collect();
-        let window = self.window();
         let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
+        // When the adapter was last heard from; the wait starts now.
+        let mut heard = now;
+        let mut dropped_before = self.link.stats.frames_dropped;
         let seq = |i: usize| base.wrapping_add(i as u16);
         while done < n {
-            while sent < n && sent < done + window {
-                self.send(&mut p[sent], seq(sent), &mut send_no)?;
+            while sent < n && sent < done + self.window_size.size() {
+                self.send(&mut p[sent], seq(sent), &mut send_no, Resend::First)?;
                 sent += 1;
             }
-            let deadline = p[done].sent_at + self.settings.timeout + p[done].extra;
-            let Some((h, body)) = self.link.recv(deadline)? else {
-                // Nothing came back in time: go back to the oldest request
-                // without a reply and send everything from there again.
-                if p[done].tries >= self.settings.tries {
-                    let waited = p[done].first_sent.map_or(0, |t| t.elapsed().as_millis());
-                    return Err(NativeError::NoReply { path: self.path(), tries: p[done].tries, waited_ms: waited });
+            let oldest = &p[done];
+            let timer = oldest.sent_at + self.timer.backed_off(oldest.expiries) + oldest.extra;
+            // A DELAY keeps the adapter quiet for as long as it asked.
+            let give_up = heard + self.settings.silence + oldest.extra;
+            let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
+                let now = Instant::now();
+                if now >= give_up {
+                    return Err(NativeError::Silent { path: self.path(), waited_ms: (now - heard).as_millis() });
                 }
+                // The oldest request's own timer ran out: one try. Go back
+                // to it and send everything from there again (the adapter
+                // dropped what came after a lost request).
+                p[done].expiries += 1;
+                if let Some(limit) = self.settings.tries
+                    && p[done].expiries >= limit
+                {
+                    let waited = p[done].first_sent.map_or(0, |t| t.elapsed().as_millis());
+                    return Err(NativeError::NoReply { path: self.path(), tries: p[done].expiries, waited_ms: waited });
+                }
+                self.lost(now);
                 for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
                     if q.reply.is_none() {
-                        self.send(q, seq(i), &mut send_no)?;
+                        self.send(q, seq(i), &mut send_no, Resend::Timer)?;
                     }
                 }
                 continue;
             };
             self.stats.received += 1;
+            // A damaged frame on the way here is a loss as much as a
+            // timer expiry: frames shrink before the timer would say so.
+            if self.link.stats.frames_dropped > dropped_before {
+                dropped_before = self.link.stats.frames_dropped;
+                self.lost(Instant::now());
+            }
             if h.kind == kind::BOOT {
                 return Err(NativeError::Reset { path: self.path(), why: "it announced a new boot" });
             }
             if h.session != self.session {
                 continue; // a stale frame from before the handshake
             }
+            let now = Instant::now();
+            heard = now;
             let idx = h.seq.wrapping_sub(base) as usize;
             match h.kind {
                 kind::GAP => {
                     // The adapter dropped a request because it still waits
                     // for number `h.seq`; the request that triggered the
                     // notice is named in the body.
+                    self.stats.gaps += 1;
                     let trigger = Reader::new(&body).u16().map(|s| s.wrapping_sub(base) as usize);
                     let Some(j) = trigger.filter(|&j| j < sent) else { continue };
                     let limit = p[j].send_no;
+                    let mut resent = false;
                     for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
                         if q.reply.is_none() && q.send_no <= limit {
-                            self.send(q, seq(i), &mut send_no)?;
+                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                            resent = true;
                         }
+                    }
+                    if resent {
+                        self.lost(now);
                     }
                 }
                 kind::REFUSED if body.first() == Some(&refusal::SESSION) => {
@@ -358,14 +497,27 @@ impl NativeAdapter {
                 }
                 k if idx < sent && p[idx].reply.is_none() && (k == kind::REFUSED || k == p[idx].kind | kind::REPLY) => {
                     p[idx].reply = Some((k, body));
+                    // Karn's rule: a reply to a repeated request could
+                    // answer any of its sends, so it is no sample; nor is
+                    // one that includes a DELAY's wait.
+                    if p[idx].sends == 1 && p[idx].extra.is_zero() {
+                        self.timer.sample(now - p[idx].sent_at);
+                        self.batch_size.clean();
+                        self.window_size.clean();
+                    }
                     // Replies come in request order, so a request before
                     // this one still without a reply (and sent before it)
                     // lost its reply on the way: ask again at once.
                     let limit = p[idx].send_no;
+                    let mut resent = false;
                     for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
                         if q.reply.is_none() && q.send_no < limit {
-                            self.send(q, seq(i), &mut send_no)?;
+                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                            resent = true;
                         }
+                    }
+                    if resent {
+                        self.lost(now);
                     }
                     while done < n && p[done].reply.is_some() {
                         done += 1;
@@ -398,15 +550,11 @@ impl NativeAdapter {
         Ok(body.get(8..).unwrap_or_default().to_vec())
     }
 
-    fn fail_all(&self, e: &NativeError, n: usize) -> Vec<Outcome> {
-        (0..n).map(|_| Outcome::adapter_failure(e.to_string())).collect()
-    }
-
     /// Groups transactions into requests that fit the frame and batch
-    /// limits; returns the groups as index ranges.
-    fn pack(&self, txs: &[Transaction]) -> Result<Vec<std::ops::Range<usize>>, String> {
+    /// limits, up to `batch` per request; returns the groups as index
+    /// ranges.
+    fn pack(&self, txs: &[Transaction], batch: usize) -> Result<Vec<std::ops::Range<usize>>, String> {
         let room = (self.wire.max_frame as usize).min(super::link::MAX_FRAME).saturating_sub(HEADER_LEN + CRC_LEN);
-        let batch = self.batch();
         let mut groups = Vec::new();
         let (mut start, mut req, mut rep) = (0usize, 1usize, 8usize);
         for (i, tx) in txs.iter().enumerate() {
@@ -441,6 +589,44 @@ impl NativeAdapter {
             groups.push(start..txs.len());
         }
         Ok(groups)
+    }
+}
+
+/// How long a handshake try waits before the link has been timed: four
+/// times the bytes of a HELLO and its answer (about 70 with framing) at
+/// `baud`, 10 bits a byte, and at least 10 ms for a USB adapter's polling
+/// and the host's scheduling (common practice).
+fn hello_wait(baud: u32) -> Duration {
+    let wire = Duration::from_secs_f64(4.0 * 70.0 * 10.0 / baud.max(1) as f64);
+    wire.max(Duration::from_millis(10))
+}
+
+/// Windows' worth of requests per round of [`Adapter::execute_batch`]:
+/// enough to keep the pipe full, few enough that the sizes adapt soon.
+const ROUND_WINDOWS: usize = 4;
+
+impl NativeAdapter {
+    /// Runs one round of a batch: packs, exchanges and decodes, pushing
+    /// one outcome per transaction onto `out`.
+    fn round(&mut self, txs: &[Transaction], batch: usize, out: &mut Vec<Outcome>) -> Result<(), NativeError> {
+        let groups =
+            self.pack(txs, batch).map_err(|_| NativeError::Malformed { path: self.path(), kind: kind::RUN })?;
+        let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
+        let replies = self.exchange(reqs)?;
+        for (g, (_, body)) in groups.iter().zip(&replies) {
+            let mut r = Reader::new(body);
+            r.u64();
+            for tx in &txs[g.clone()] {
+                let o = TxReport::read(&mut r).and_then(|rep| outcome_of(tx, &rep, &mut r, self.speed));
+                out.push(o.ok_or_else(|| NativeError::Malformed { path: self.path(), kind: kind::RUN })?);
+            }
+            // More results or data bytes than the request asked for: the
+            // reply answers something else.
+            if r.remaining() != 0 {
+                return Err(NativeError::Malformed { path: self.path(), kind: kind::RUN });
+            }
+        }
+        Ok(())
     }
 }
 
@@ -558,30 +744,20 @@ impl Adapter for NativeAdapter {
         if txs.is_empty() {
             return Vec::new();
         }
-        let groups = match self.pack(txs) {
-            Ok(g) => g,
-            Err(msg) => return (0..txs.len()).map(|_| Outcome::adapter_failure(msg.clone())).collect(),
-        };
-        let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
-        let replies = match self.exchange(reqs) {
-            Ok(r) => r,
-            Err(e) => return self.fail_all(&e, txs.len()),
-        };
+        // Every transaction is checked before anything is sent.
+        if let Err(msg) = self.pack(txs, usize::MAX) {
+            return (0..txs.len()).map(|_| Outcome::adapter_failure(msg.clone())).collect();
+        }
         let mut out = Vec::with_capacity(txs.len());
-        for (g, (_, body)) in groups.iter().zip(&replies) {
-            let mut r = Reader::new(body);
-            r.u64();
-            for tx in &txs[g.clone()] {
-                let o = TxReport::read(&mut r).and_then(|rep| outcome_of(tx, &rep, &mut r, self.speed));
-                match o {
-                    Some(o) => out.push(o),
-                    None => {
-                        let e = NativeError::Malformed { path: self.path(), kind: kind::RUN };
-                        self.failed = Some(e.clone());
-                        out.resize_with(txs.len(), || Outcome::adapter_failure(e.to_string()));
-                        return out;
-                    }
-                }
+        // Rounds of a few windows' worth, so the batch and window in use
+        // follow the loss: each round is packed at the sizes of its start.
+        while out.len() < txs.len() {
+            let at = out.len();
+            let batch = self.batch_size.size();
+            let end = txs.len().min(at + batch * self.window_size.size() * ROUND_WINDOWS);
+            if let Err(e) = self.round(&txs[at..end], batch, &mut out) {
+                self.failed = Some(e.clone());
+                out.resize_with(txs.len(), || Outcome::adapter_failure(e.to_string()));
             }
         }
         out
@@ -624,6 +800,15 @@ impl Adapter for NativeAdapter {
             frames_received: l.frames_received,
             frames_dropped: l.frames_dropped,
             retransmissions: self.stats.repeats,
+            requests: self.stats.requests,
+            timeouts: self.stats.timeouts,
+            fast_resends: self.stats.fast_resends,
+            gaps: self.stats.gaps,
+            rto: self.timer.rto(),
+            batch: self.batch_size.size() as u32,
+            batch_max: self.batch_size.max() as u32,
+            window: self.window_size.size() as u32,
+            window_max: self.window_size.max() as u32,
         })
     }
 

@@ -63,6 +63,10 @@ pub struct ServeArgs {
     /// Link fault: milliseconds added before every answer.
     #[arg(long, value_name = "MS", default_value_t = 0, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub latency_ms: u64,
+    /// Pace bytes like a UART at N baud (10 bits a byte, 8N1), both
+    /// directions, so a pseudo-terminal shows serialisation delays.
+    #[arg(long, value_name = "N", value_parser = baud, allow_negative_numbers = true)]
+    pub baud: Option<u32>,
     /// Link fault: reset the adapter in the middle of the frame (dialect:
     /// command line) after N of them.
     #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true)]
@@ -71,6 +75,13 @@ pub struct ServeArgs {
     /// (dialect: command lines), as if unplugged.
     #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub hang_up_after: Option<u64>,
+    /// Link fault: after N frames (dialect: command lines) the line goes
+    /// dead for --stall-ms, losing every byte both ways, then works again.
+    #[arg(long, value_name = "N", value_parser = whole::<u64>, allow_negative_numbers = true, requires = "stall_ms")]
+    pub stall_after: Option<u64>,
+    /// How long the line stays dead (with --stall-after).
+    #[arg(long, value_name = "MS", value_parser = whole::<u64>, allow_negative_numbers = true, requires = "stall_after")]
+    pub stall_ms: Option<u64>,
     /// Seed of the link faults.
     #[arg(long, value_name = "N", default_value_t = 1, value_parser = whole::<u64>, allow_negative_numbers = true)]
     pub seed: u64,
@@ -78,6 +89,14 @@ pub struct ServeArgs {
     /// the next one.
     #[arg(long)]
     pub once: bool,
+}
+
+fn baud(s: &str) -> Result<u32, String> {
+    let n = whole::<u64>(s)?;
+    if !(50..=20_000_000).contains(&n) {
+        return Err(format!("`{s}` is not a baud rate: use 50 to 20000000"));
+    }
+    Ok(n as u32)
 }
 
 fn probability(s: &str) -> Result<f64, String> {
@@ -106,6 +125,8 @@ pub fn serve(a: ServeArgs) -> Result<u8> {
         drop: a.drop_bytes,
         flip: a.flip_bits,
         latency: Duration::from_millis(a.latency_ms),
+        baud: a.baud,
+        stall: a.stall_after.zip(a.stall_ms.map(Duration::from_millis)),
         reset_after: a.reset_after,
         hang_up_after: a.hang_up_after,
         seed: a.seed,

@@ -452,7 +452,8 @@ impl Session {
     /// A trace that could not be written or synced is an error (the run
     /// failed), reported before a failure to close the adapter.
     pub fn finish(&mut self, exit: u8, error: Option<String>) -> Result<(), RunError> {
-        let r = Record::End { t: self.now(), stats: self.stats.clone(), exit, error };
+        let link = self.adapter.link_counters().map(|c| link_report(&c));
+        let r = Record::End { t: self.now(), stats: self.stats.clone(), exit, error, link };
         self.emit(&r);
         for s in &mut self.sinks {
             if let Err(e) = s.flush()
@@ -466,6 +467,25 @@ impl Session {
             Some(e) => Err(RunError::Record(e)),
             None => closed,
         }
+    }
+}
+
+/// The trace's account of a link, from the adapter's counters.
+fn link_report(c: &crate::adapter::LinkCounters) -> crate::record::LinkReport {
+    crate::record::LinkReport {
+        frames_sent: c.frames_sent,
+        frames_received: c.frames_received,
+        frames_dropped: c.frames_dropped,
+        requests: c.requests,
+        retransmissions: c.retransmissions,
+        timeouts: c.timeouts,
+        fast_resends: c.fast_resends,
+        gaps: c.gaps,
+        rto: c.rto,
+        batch: c.batch,
+        window: c.window,
+        // Rounded so the trace reads 0.0123, not a long binary fraction.
+        loss: (c.loss_estimate() * 1e6).round() / 1e6,
     }
 }
 

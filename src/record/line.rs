@@ -249,7 +249,13 @@ mod tests {
                 origin: Some(Origin { file: "x.lua".into(), line: 2 }),
             },
             Record::Step { t: Duration::ZERO, name: "s".into(), origin: None },
-            Record::End { t: Duration::from_nanos(9), stats: Stats::default(), exit: 3, error: Some("e".into()) },
+            Record::End {
+                t: Duration::from_nanos(9),
+                stats: Stats::default(),
+                exit: 3,
+                error: Some("e".into()),
+                link: Some(crate::record::LinkReport { rto: Duration::from_micros(2500), ..Default::default() }),
+            },
         ];
         for r in &records {
             let mut v = Vec::new();

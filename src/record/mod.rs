@@ -168,6 +168,35 @@ pub enum Level {
     Warn,
 }
 
+/// What a framed serial link did over a run (trace 1.2, the end record's
+/// `link`): how much it carried, how often it had to send again, and the
+/// timing and sizes it ended on.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct LinkReport {
+    pub frames_sent: u64,
+    pub frames_received: u64,
+    /// Frames that arrived damaged and were dropped.
+    pub frames_dropped: u64,
+    /// Distinct requests.
+    pub requests: u64,
+    /// Request frames sent again, for any reason.
+    pub retransmissions: u64,
+    /// Of those, after the request's own timer ran out.
+    pub timeouts: u64,
+    /// Of those, at once, because a reply or gap notice showed it missing.
+    pub fast_resends: u64,
+    /// Gap notices from the adapter.
+    pub gaps: u64,
+    /// The retransmission timeout in use at the end.
+    #[serde(rename = "rto_ns", with = "nanos")]
+    pub rto: Duration,
+    /// Transactions per request and requests in flight in use at the end.
+    pub batch: u32,
+    pub window: u32,
+    /// Retransmissions per request frame sent, an estimate of the loss.
+    pub loss: f64,
+}
+
 /// Counters a run reports at its end.
 ///
 /// NACKs are counted twice over: `nacks` holds every NACKed attempt (as
@@ -265,6 +294,9 @@ pub enum Record {
         exit: u8,
         #[serde(default, skip_serializing_if = "Option::is_none")]
         error: Option<String>,
+        /// Adapters with a framed link (trace 1.2).
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        link: Option<LinkReport>,
     },
 }
 

@@ -11,7 +11,9 @@
 //!   (the bench keeps its state, as hardware would).
 //! - [`LinkFaults`] injects seeded link trouble in both directions:
 //!   dropped bytes, flipped bits, added latency per answer, a reset of the
-//!   served adapter in the middle of a frame, a hang-up after N frames.
+//!   served adapter in the middle of a frame, a hang-up after N frames, a
+//!   dead line for a while after N frames;
+//!   and paces bytes like a UART at a given baud rate ([`Pacer`]).
 //! - [`NativeServer`] speaks the native protocol through the same
 //!   `buscue_bridge` library firmware links, over [`SimBoard`];
 //!   [`DialectServer`](dialect::DialectServer) speaks a text
@@ -46,12 +48,19 @@ pub struct LinkFaults {
     pub flip: f64,
     /// Added before each answer the adapter sends.
     pub latency: Duration,
+    /// Bytes cross like a UART at this baud rate (10 bits a byte), each
+    /// direction on its own line; `None`: as fast as the pseudo-terminal.
+    pub baud: Option<u32>,
     /// After this many frames received, the adapter resets in the middle
     /// of the next one (it announces a new session).
     pub reset_after: Option<u64>,
     /// After this many frames received, the adapter hangs up (closes the
     /// port).
     pub hang_up_after: Option<u64>,
+    /// After this many frames received, the line goes dead for this long:
+    /// every byte either way is lost (a loose connector), then it works
+    /// again.
+    pub stall: Option<(u64, Duration)>,
     pub seed: u64,
 }
 
@@ -78,6 +87,36 @@ impl Mangler {
     }
 }
 
+/// One direction of a paced line: a byte takes 10 bit times (start, 8
+/// data, stop: 8N1), and bytes queue behind each other.
+pub struct Pacer {
+    byte_time: Duration,
+    /// When the line finishes the bytes handed to it so far.
+    free_at: std::time::Instant,
+}
+
+impl Pacer {
+    pub fn new(baud: u32) -> Self {
+        Pacer { byte_time: Duration::from_secs_f64(10.0 / baud.max(1) as f64), free_at: std::time::Instant::now() }
+    }
+
+    /// When `n` more bytes, handed over now, have crossed the line.
+    pub fn carry(&mut self, n: usize) -> std::time::Instant {
+        let now = std::time::Instant::now();
+        self.free_at = self.free_at.max(now) + self.byte_time * n as u32;
+        self.free_at
+    }
+
+    /// Waits until `n` more bytes have crossed.
+    pub fn wait(&mut self, n: usize) {
+        let at = self.carry(n);
+        let now = std::time::Instant::now();
+        if at > now {
+            std::thread::sleep(at - now);
+        }
+    }
+}
+
 /// The adapter's side of the port: answers go out through it, with the
 /// outgoing faults applied per frame (at [`Link::flush`]).
 pub struct ServedLink {
@@ -86,6 +125,7 @@ pub struct ServedLink {
     mangled: Vec<u8>,
     faults: Mangler,
     latency: Duration,
+    pace: Option<Pacer>,
     inbox: VecDeque<u8>,
 }
 
@@ -119,6 +159,11 @@ impl Link for ServedLink {
         self.mangled.clear();
         self.faults.apply(&self.out, &mut self.mangled);
         self.out.clear();
+        // The frame leaves when its last byte has crossed the line: the
+        // host reads it no sooner than a UART would deliver it.
+        if let Some(p) = &mut self.pace {
+            p.wait(self.mangled.len());
+        }
         self.port.write_all(&self.mangled)
     }
 }
@@ -267,9 +312,18 @@ pub enum Peers<'a> {
     Many(&'a mut dyn FnMut()),
 }
 
+/// Where the dead-line fault ([`LinkFaults::stall`]) stands.
+#[derive(Clone, Copy)]
+enum Stall {
+    Armed,
+    Dead(std::time::Instant),
+    Over,
+}
+
 /// What the reader thread hands the serving loop.
 enum Incoming {
-    Bytes(Vec<u8>),
+    /// Bytes, and when a paced line has delivered the last of them.
+    Bytes(Vec<u8>, Option<std::time::Instant>),
     /// The peer closed its side (the master reads EIO while no one has
     /// the port open).
     Closed,
@@ -296,6 +350,9 @@ pub fn serve<S: Server>(
     let (tx, rx) = mpsc::channel::<Incoming>();
     let reader_stop = std::sync::Arc::new(AtomicBool::new(false));
     let rs = reader_stop.clone();
+    // Timed as they arrive, on this thread, so the incoming line runs
+    // while the adapter is busy sending (a UART is full duplex).
+    let mut pace_in = faults.baud.map(Pacer::new);
     let thread = std::thread::spawn(move || {
         let mut buf = [0u8; 4096];
         let mut open = true;
@@ -304,7 +361,8 @@ pub fn serve<S: Server>(
                 Ok(0) => break,
                 Ok(n) => {
                     open = true;
-                    if tx.send(Incoming::Bytes(buf[..n].to_vec())).is_err() {
+                    let ready = pace_in.as_mut().map(|p| p.carry(n));
+                    if tx.send(Incoming::Bytes(buf[..n].to_vec(), ready)).is_err() {
                         break;
                     }
                 }
@@ -331,20 +389,36 @@ pub fn serve<S: Server>(
         mangled: Vec::new(),
         faults: Mangler { drop: faults.drop, flip: faults.flip, rng: SplitMix64::new(faults.seed ^ 0x0A) },
         latency: faults.latency,
+        pace: faults.baud.map(Pacer::new),
         inbox: VecDeque::new(),
     };
+
     let mut incoming = Mangler { drop: faults.drop, flip: faults.flip, rng: SplitMix64::new(faults.seed ^ 0x0B) };
     server.start(&mut link)?;
     let mut slave = slave;
     let mut reset_done = false;
+    let mut stall = if faults.stall.is_some() { Stall::Armed } else { Stall::Over };
     let mut chunk = Vec::new();
     let end = loop {
         if stop.load(Ordering::Relaxed) {
             break ServeEnd::Stopped;
         }
         match rx.recv_timeout(Duration::from_millis(50)) {
-            Ok(Incoming::Bytes(bytes)) => {
+            Ok(Incoming::Bytes(bytes, ready)) => {
                 slave = None;
+                if let Stall::Dead(until) = stall {
+                    if std::time::Instant::now() < until {
+                        continue; // the dead line loses it
+                    }
+                    stall = Stall::Over;
+                }
+                // What the host wrote is here once the line has carried it.
+                if let Some(at) = ready {
+                    let now = std::time::Instant::now();
+                    if at > now {
+                        std::thread::sleep(at - now);
+                    }
+                }
                 chunk.clear();
                 incoming.apply(&bytes, &mut chunk);
                 link.inbox.extend(chunk.iter().copied());
@@ -378,6 +452,12 @@ pub fn serve<S: Server>(
                 reset_done = true;
                 link.inbox.clear();
                 server.reset(&mut link)?;
+            }
+            if let (Stall::Armed, Some((n, d))) = (stall, faults.stall)
+                && server.frames() >= n
+            {
+                stall = Stall::Dead(std::time::Instant::now() + d);
+                link.inbox.clear();
             }
             if faults.hang_up_after.is_some_and(|n| server.frames() >= n) {
                 hung = true;

@@ -134,7 +134,8 @@ impl TraceRescue {
 impl Written {
     /// Appends an end record with the counts so far; nothing follows it.
     fn end(&mut self, exit: u8, error: &str) -> io::Result<()> {
-        let end = Record::End { t: self.last_t, stats: self.stats.clone(), exit, error: Some(error.to_string()) };
+        let end =
+            Record::End { t: self.last_t, stats: self.stats.clone(), exit, error: Some(error.to_string()), link: None };
         let mut line = Vec::new();
         write_line(&end, &mut line);
         self.ended = true;

@@ -22,7 +22,7 @@ pub const FORMAT: &str = "buscue-trace";
 /// The version this build writes.
 pub const VERSION_MAJOR: u32 = 1;
 /// 1.1 added the fault kind `nack` (a NACK the adapter does not place).
-pub const VERSION_MINOR: u32 = 1;
+pub const VERSION_MINOR: u32 = 2;
 
 /// The adapter a trace was recorded through.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]

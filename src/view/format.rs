@@ -565,14 +565,35 @@ pub fn summary(s: &Stats, host: Duration) -> String {
 
 /// The link line of the summary, for adapters that count their link.
 pub fn link_summary(c: &crate::adapter::LinkCounters) -> String {
-    format!(
+    let mut s = format!(
         "link: {} frames sent, {} received, {} dropped as damaged, {} retransmission{}",
         c.frames_sent,
         c.frames_received,
         c.frames_dropped,
         c.retransmissions,
         if c.retransmissions == 1 { "" } else { "s" }
-    )
+    );
+    // Drivers that time their link (the native protocol) say more: how the
+    // resends split, the loss they suggest, the timer and sizes in use.
+    if c.requests > 0 {
+        use std::fmt::Write;
+        let _ = write!(
+            s,
+            " ({} on timeout, {} fast; {} gap notice{}); {} requests, loss ~{:.2}%, RTO {}, batch {}/{}, window {}/{}",
+            c.timeouts,
+            c.fast_resends,
+            c.gaps,
+            if c.gaps == 1 { "" } else { "s" },
+            c.requests,
+            c.loss_estimate() * 100.0,
+            human(c.rto),
+            c.batch,
+            c.batch_max,
+            c.window,
+            c.window_max
+        );
+    }
+    s
 }
 
 /// Cells per row of a [`cell_diff`].

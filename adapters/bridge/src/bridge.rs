@@ -241,6 +241,10 @@ impl<const FRAME: usize, const WINDOW: usize> Bridge<FRAME, WINDOW> {
 }
 
 fn send<L: Link>(link: &mut L, h: Header, body: &[u8]) -> Result<(), L::Error> {
+    // A delimiter before the frame as well as after it: a corrupted
+    // trailing delimiter of the last frame then costs that frame only,
+    // not the next one too (the host skips empty frames).
+    link.write(&[0])?;
     wire::emit_frame(h, body, |p: &[u8]| link.write(p))?;
     link.flush()
 }

@@ -1,0 +1,242 @@
+//! How long a framed serial link waits for a reply before it sends a
+//! request again, learned from the link, and how large the frames it sends
+//! may be.
+//!
+//! Contract:
+//! - [`RetransmitTimer`] follows RFC 6298 ("Computing TCP's Retransmission
+//!   Timer") section 2: the first sample R sets SRTT = R and
+//!   RTTVAR = R/2; each later one sets RTTVAR = (1 - 1/4)·RTTVAR +
+//!   1/4·|SRTT - R|, then SRTT = (1 - 1/8)·SRTT + 1/8·R; and
+//!   RTO = SRTT + max(G, 4·RTTVAR). The clock granularity G is the
+//!   floor below: a serial link has no coarse timer tick, but a host
+//!   thread wakes up late by a millisecond or so.
+//! - The RTO never falls below the floor nor rises above the ceiling (the
+//!   user's `timeout_ms`): the ceiling bounds the first try of a request.
+//!   Before the first sample the RTO is the ceiling (RFC 6298 §2.1 says
+//!   1 s for TCP; a serial adapter answers far sooner).
+//! - Karn's rule (RFC 6298 §3) is the caller's: only a reply to a request
+//!   sent once is a sample.
+//! - [`RetransmitTimer::backed_off`] doubles per expiry (§5.5) up to
+//!   [`MAX_BACKOFF`]; a new sample ends the backoff (§5.7).
+//! - [`FrameSizer`] sizes batches and windows to the loss. It starts at
+//!   one and grows by one per clean reply until the first loss (slow
+//!   start, as TCP's: a clean link reaches the adapter's limit within a
+//!   few dozen replies, a lossy one never sends a frame too long to get
+//!   through); then it is halved on a loss (at most once per round trip)
+//!   and grown by one after a clean run of as many replies as its current
+//!   size (additive increase, multiplicative decrease), between 1 and the
+//!   adapter's limit. Starting small matters: a request the adapter has
+//!   run cannot be split, and its reply must cross whole.
+
+use std::time::{Duration, Instant};
+
+/// Lowest RTO: a pseudo-terminal answers in about 0.1 ms, but a thread
+/// that sleeps wakes up a millisecond or more late on a busy host
+/// (common practice), and a spurious resend shrinks the frames.
+pub const RTO_FLOOR: Duration = Duration::from_millis(5);
+
+/// Most doublings of the RTO while a request goes unanswered: twice the
+/// RTO, and never more than [`MAX_BACKED_OFF`]. Far lower than TCP's:
+/// loss on a serial line is noise, not congestion, so a longer wait only
+/// delays the next try; one doubling still lets a timer set too short
+/// (every reply then follows a resend, so Karn's rule takes no sample)
+/// reach the true round trip.
+pub const MAX_BACKOFF: u32 = 1;
+
+/// Longest wait for one try, however far the timer has backed off.
+pub const MAX_BACKED_OFF: Duration = Duration::from_secs(2);
+
+/// The smoothed round-trip estimate of one link.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RetransmitTimer {
+    srtt: Option<Duration>,
+    rttvar: Duration,
+    rto: Duration,
+    floor: Duration,
+    ceiling: Duration,
+}
+
+impl RetransmitTimer {
+    /// A timer with no sample yet: its RTO is the ceiling.
+    pub fn new(floor: Duration, ceiling: Duration) -> Self {
+        let ceiling = ceiling.max(floor);
+        RetransmitTimer { srtt: None, rttvar: Duration::ZERO, rto: ceiling, floor, ceiling }
+    }
+
+    /// Takes one round-trip sample (a reply to a request sent once).
+    pub fn sample(&mut self, r: Duration) {
+        match self.srtt {
+            None => {
+                self.srtt = Some(r);
+                self.rttvar = r / 2;
+            }
+            Some(srtt) => {
+                let err = srtt.abs_diff(r);
+                self.rttvar = self.rttvar * 3 / 4 + err / 4;
+                self.srtt = Some(srtt * 7 / 8 + r / 8);
+            }
+        }
+        let srtt = self.srtt.unwrap_or(r);
+        self.rto = (srtt + (4 * self.rttvar).max(self.floor)).clamp(self.floor, self.ceiling);
+    }
+
+    /// The RTO for a request's first try.
+    pub fn rto(&self) -> Duration {
+        self.rto
+    }
+
+    /// The smoothed round trip, once there is a sample.
+    pub fn srtt(&self) -> Option<Duration> {
+        self.srtt
+    }
+
+    /// The wait for a request that has timed out `expiries` times.
+    pub fn backed_off(&self, expiries: u32) -> Duration {
+        let doubled = self.rto.saturating_mul(1 << expiries.min(MAX_BACKOFF));
+        doubled.min(MAX_BACKED_OFF.max(self.ceiling))
+    }
+}
+
+/// Batch or window size that follows the loss on the link.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct FrameSizer {
+    size: usize,
+    max: usize,
+    /// Clean replies since the size last changed.
+    credit: usize,
+    last_cut: Option<Instant>,
+    /// No loss seen yet: grow by one per clean reply.
+    slow_start: bool,
+}
+
+impl FrameSizer {
+    /// Starts at one, in slow start.
+    pub fn new(max: usize) -> Self {
+        let max = max.max(1);
+        FrameSizer { size: 1, max, credit: 0, last_cut: None, slow_start: true }
+    }
+
+    /// Starts at the largest size, for a size that loss never cuts.
+    pub fn full(max: usize) -> Self {
+        FrameSizer { size: max.max(1), slow_start: false, ..FrameSizer::new(max) }
+    }
+
+    pub fn size(&self) -> usize {
+        self.size
+    }
+
+    pub fn max(&self) -> usize {
+        self.max
+    }
+
+    /// A reply came back to a request sent once.
+    pub fn clean(&mut self) {
+        if self.size == self.max {
+            return;
+        }
+        if self.slow_start {
+            self.size += 1;
+            return;
+        }
+        self.credit += 1;
+        if self.credit >= self.size {
+            self.size += 1;
+            self.credit = 0;
+        }
+    }
+
+    /// A frame was lost at `now`; `rtt` is the link's round trip. Losses
+    /// within one round trip of a cut are the same event (one burst, or
+    /// requests already in flight when the size fell).
+    pub fn lost(&mut self, now: Instant, rtt: Duration) {
+        if self.last_cut.is_some_and(|t| now.duration_since(t) < rtt) {
+            return;
+        }
+        self.last_cut = Some(now);
+        self.slow_start = false;
+        self.size = (self.size / 2).max(1);
+        self.credit = 0;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ms(v: f64) -> Duration {
+        Duration::from_secs_f64(v / 1000.0)
+    }
+
+    fn close(a: Duration, b: Duration) -> bool {
+        a.abs_diff(b) < Duration::from_micros(1)
+    }
+
+    // RFC 6298 §2.2 and §2.3 worked by hand, floor (G) 2 ms, ceiling 100 ms:
+    //   R1 = 10 ms:  SRTT = 10,      RTTVAR = 5,                         RTO = 10 + 20      = 30 ms
+    //   R2 = 14 ms:  RTTVAR = 3/4·5 + 1/4·|10-14| = 4.75, SRTT = 7/8·10 + 1/8·14 = 10.5,  RTO = 10.5 + 19 = 29.5 ms
+    //   R3 = 6 ms:   RTTVAR = 3/4·4.75 + 1/4·|10.5-6| = 4.6875, SRTT = 7/8·10.5 + 6/8 = 9.9375, RTO = 9.9375 + 18.75 = 28.6875 ms
+    //   R4 = 10 ms x 40: RTTVAR decays towards 0, so 4·RTTVAR falls below
+    //   G and RTO = SRTT + G, about 12 ms.
+    #[test]
+    fn the_estimator_follows_rfc_6298_section_2() {
+        let mut t = RetransmitTimer::new(ms(2.0), ms(100.0));
+        assert_eq!(t.rto(), ms(100.0), "no sample yet: the ceiling");
+        t.sample(ms(10.0));
+        assert!(close(t.rto(), ms(30.0)), "{:?}", t.rto());
+        t.sample(ms(14.0));
+        assert!(close(t.srtt().unwrap(), ms(10.5)) && close(t.rto(), ms(29.5)), "{:?}", t);
+        t.sample(ms(6.0));
+        assert!(close(t.srtt().unwrap(), ms(9.9375)) && close(t.rto(), ms(28.6875)), "{:?}", t);
+        for _ in 0..40 {
+            t.sample(ms(10.0));
+        }
+        assert!(t.rto() > ms(11.9) && t.rto() < ms(12.1), "SRTT + G once the variance is gone: {:?}", t.rto());
+    }
+
+    // The floor and the ceiling bound every RTO; backoff doubles (RFC 6298
+    // §5.5) up to its own cap.
+    #[test]
+    fn the_rto_stays_between_floor_and_ceiling_and_backs_off() {
+        let mut t = RetransmitTimer::new(ms(2.0), ms(100.0));
+        t.sample(ms(0.1));
+        // SRTT = 0.1, RTTVAR = 0.05: RTO = 0.1 + max(G = 2, 0.2) = 2.1 ms.
+        assert!(close(t.rto(), ms(2.1)), "{:?}", t.rto());
+        t.sample(ms(900.0));
+        assert_eq!(t.rto(), ms(100.0), "a slow sample is capped at the ceiling");
+        assert_eq!(t.backed_off(0), ms(100.0));
+        assert_eq!(t.backed_off(1), ms(200.0));
+        assert_eq!(t.backed_off(30), ms(200.0), "at most doubled, never overflowing");
+        let mut slow = RetransmitTimer::new(ms(2.0), ms(1800.0));
+        slow.sample(ms(1700.0));
+        assert_eq!(slow.backed_off(3), MAX_BACKED_OFF, "and never past the cap");
+    }
+
+    #[test]
+    fn frames_shrink_on_loss_and_grow_back_on_a_clean_link() {
+        let mut s = FrameSizer::new(32);
+        assert_eq!(s.size(), 1, "starts small");
+        for _ in 0..31 {
+            s.clean();
+        }
+        assert_eq!(s.size(), 32, "slow start: one more per clean reply until the first loss");
+        let t0 = Instant::now();
+        let rtt = ms(1.0);
+        s.lost(t0, rtt);
+        assert_eq!(s.size(), 16);
+        s.lost(t0, rtt);
+        assert_eq!(s.size(), 16, "a second loss in the same round trip is the same event");
+        for k in 1..=5 {
+            s.lost(t0 + rtt * 2 * k, rtt);
+        }
+        assert_eq!(s.size(), 1, "halved down to one");
+        let mut replies = 0;
+        while s.size() < 32 {
+            s.clean();
+            replies += 1;
+        }
+        // Additive: one more per `size` clean replies, 1 + 2 + ... + 31.
+        assert_eq!(replies, (1..32).sum::<usize>());
+        s.clean();
+        assert_eq!(s.size(), 32, "never above the adapter's limit");
+    }
+}
