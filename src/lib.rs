@@ -25,4 +25,5 @@ pub mod trace;
 
 pub mod script;
 
+pub mod capture;
 pub mod cli;
