@@ -21,6 +21,10 @@
 //!   repeated START reads from the 10-bit address last written in the same
 //!   transaction (§3.1.11); without one it is an issue.
 //! - A repeated START to another address ends the frame and starts one.
+//! - A START or STOP comes while SCL is high, after that high period's
+//!   rising edge sampled a bit: that bit is taken back, so a condition one
+//!   bit into a byte is at its boundary. A condition during an ACK clock's
+//!   high period is not told from one after it.
 
 use std::time::Duration;
 
@@ -422,8 +426,10 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
 
     fn start(&mut self, t: u64) {
         if self.in_tx {
-            if self.nbits != 0 {
-                let n = self.nbits;
+            // The SCL rise of this high period sampled a bit the condition
+            // now takes back: one bit in is a byte boundary.
+            if self.nbits > 1 {
+                let n = self.nbits - 1;
                 self.issue(t, IssueKind::StartInByte, format!("after {n} of 9 bits"));
                 if let Some(b) = &mut self.b {
                     b.fault.get_or_insert(Fault::Bus { line: LineFault::MisplacedCondition });
@@ -456,8 +462,8 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             self.last_stop = Some(t);
             return;
         }
-        if self.nbits != 0 {
-            let n = self.nbits;
+        if self.nbits > 1 {
+            let n = self.nbits - 1;
             self.issue(t, IssueKind::StopInByte, format!("after {n} of 9 bits"));
             if let Some(b) = &mut self.b {
                 b.fault.get_or_insert(Fault::Bus { line: LineFault::MisplacedCondition });

@@ -2,7 +2,8 @@
 //! would put on the bus for them, for tests, benchmarks and examples.
 //! SCL low for 55 % of the period and high for 45 % (Table 10's tLOW and
 //! tHIGH minimums are met at 100 kHz, 400 kHz and 1 MHz), SDA changed 15 %
-//! of a period after SCL falls unless a set-up time is asked for.
+//! of a period after SCL falls unless a set-up time is asked for; a frame
+//! starts no earlier than its recorded time after the first one's.
 
 use std::io::{self, Write};
 
@@ -75,6 +76,8 @@ impl<O: Write> W<'_, O> {
             self.set(Some(true), None)?;
             self.at(8 * self.u)?;
             self.set(None, Some(true))?;
+            // tSU;STA: Standard-mode asks 4.7 us (Table 10), more than tHIGH.
+            self.at(self.u)?;
         }
         self.at(9 * self.u)?;
         self.set(Some(false), None)?;
@@ -113,7 +116,14 @@ pub fn render<O: Write>(frames: &[Frame], shape: Shape, out: &mut O) -> io::Resu
     let u = 1_000_000_000_000 / shape.hz / 20;
     let mut w = W { out, t: 0, u, shape, sda: true, scl: true };
     w.at(20 * u)?;
+    let t0 = frames.first().map_or(std::time::Duration::ZERO, |f| f.t);
     for f in frames {
+        // The recorded gaps between frames are kept: a device that was
+        // busy converting sees the same idle bus.
+        let due = (f.t.saturating_sub(t0).as_nanos() as u64).saturating_mul(1000);
+        if due > w.t {
+            w.t = due;
+        }
         let nack_at = match &f.outcome.fault {
             Some(Fault::AddressNack { op, .. }) => Some(*op),
             _ => None,

@@ -51,6 +51,9 @@ pub fn header<R: Read>(lines: &mut Lines<R>) -> Result<Header, CaptureError> {
         for tok in toks {
             match &mut section {
                 None => {
+                    if tok.starts_with('#') {
+                        return Err(lines.err(format!("time stamp `{tok}` before $enddefinitions $end")));
+                    }
                     if !tok.starts_with('$') {
                         return Err(lines.err(format!("expected a $ section in the header, found `{tok}`")));
                     }

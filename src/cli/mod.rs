@@ -15,6 +15,7 @@ pub mod out;
 pub mod outputs;
 pub mod watchdog;
 
+mod decode;
 mod ports;
 mod run;
 mod scan;
@@ -71,6 +72,8 @@ pub enum Command {
     Serve(serve::ServeArgs),
     /// List serial ports; --probe finds native adapters among them.
     Ports(ports::PortsArgs),
+    /// Decode a logic capture (VCD or CSV, gzip too) into a trace; check its timing.
+    Decode(decode::DecodeArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -380,6 +383,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         #[cfg(unix)]
         Command::Serve(a) => serve::serve(a),
         Command::Ports(a) => ports::ports(a),
+        Command::Decode(a) => decode::decode(a),
     }
 }
 

@@ -19,4 +19,4 @@ pub mod replay;
 pub mod to_script;
 
 pub use file::{LimitReached, Trace, TraceError, TraceReader, TraceRescue, TraceWriter};
-pub use header::Header;
+pub use header::{CaptureInfo, Header};
