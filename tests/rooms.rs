@@ -21,6 +21,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("hal", &["ascii", "bus", "adapter", "record", "player"]),
     ("serve", &["ascii", "bus", "config", "adapter", "sim"]),
     ("trace", &["ascii", "bus", "adapter", "record", "player"]),
+    ("capture", &["ascii", "bus", "electrical", "record"]),
     ("script", &["ascii", "bus", "adapter", "electrical", "record", "smbus", "player", "view"]),
     (
         "cli",
@@ -38,6 +39,7 @@ const ROOMS: &[(&str, &[&str])] = &[
             "hal",
             "serve",
             "trace",
+            "capture",
             "script",
         ],
     ),
