@@ -144,7 +144,6 @@ pub struct Decoder<F: FnMut(Frame, TxTiming)> {
     scl_rise: Option<u64>,
     scl_fall: Option<u64>,
     sda_change: Option<u64>,
-    held_since: bool,
     last_stop: Option<u64>,
     low_since: [Option<u64>; 2],
     first_fall_pending: bool,
@@ -179,7 +178,6 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             scl_rise: None,
             scl_fall: None,
             sda_change: None,
-            held_since: false,
             last_stop: None,
             low_since: [None, None],
             first_fall_pending: false,
@@ -328,11 +326,12 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
                 }
             }
             (Line::Sda, _) => {
-                if self.in_tx && self.sda_change.is_none_or(|c| self.scl_fall.is_some_and(|f| c < f)) {
-                    if let Some(f) = self.scl_fall {
-                        let (v, at) = (self.ticks.ps(t - f), self.ns(t));
-                        self.see(Param::HdDat, v, at);
-                    }
+                if self.in_tx
+                    && self.sda_change.is_none_or(|c| self.scl_fall.is_some_and(|f| c < f))
+                    && let Some(f) = self.scl_fall
+                {
+                    let (v, at) = (self.ticks.ps(t - f), self.ns(t));
+                    self.see(Param::HdDat, v, at);
                 }
                 self.sda_change = Some(t);
             }
@@ -421,7 +420,6 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             }
         }
         self.scl_fall = Some(t);
-        self.held_since = false;
     }
 
     fn start(&mut self, t: u64) {

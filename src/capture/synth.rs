@@ -35,7 +35,7 @@ impl<O: Write> W<'_, O> {
     fn at(&mut self, ps: u64) -> io::Result<()> {
         self.t += ps;
         let ticks = (self.t as u128 * 1000 / self.shape.tick_fs as u128) as u64;
-        write!(self.out, "#{ticks}\n")
+        writeln!(self.out, "#{ticks}")
     }
     fn set(&mut self, sda: Option<bool>, scl: Option<bool>) -> io::Result<()> {
         if let Some(v) = sda {
@@ -98,7 +98,8 @@ impl<O: Write> W<'_, O> {
 }
 
 /// Writes `frames` as a VCD with wires `top.sda` (`d`) and `top.scl` (`c`).
-pub fn render<O: Write>(frames: &[Frame], shape: Shape, out: &mut O) -> io::Result<()> {
+pub fn render<'a, O: Write>(frames: impl IntoIterator<Item = &'a Frame>, shape: Shape, out: &mut O) -> io::Result<()> {
+    let mut frames = frames.into_iter().peekable();
     let scale = match shape.tick_fs {
         1 => "1fs",
         1000 => "1ps",
@@ -116,7 +117,7 @@ pub fn render<O: Write>(frames: &[Frame], shape: Shape, out: &mut O) -> io::Resu
     let u = 1_000_000_000_000 / shape.hz / 20;
     let mut w = W { out, t: 0, u, shape, sda: true, scl: true };
     w.at(20 * u)?;
-    let t0 = frames.first().map_or(std::time::Duration::ZERO, |f| f.t);
+    let t0 = frames.peek().map_or(std::time::Duration::ZERO, |f| f.t);
     for f in frames {
         // The recorded gaps between frames are kept: a device that was
         // busy converting sees the same idle bus.

@@ -151,7 +151,14 @@ pub struct Checker {
 
 impl Checker {
     pub fn new(mode: Option<Mode>) -> Self {
-        Checker { mode, inferred: false, worst: Vec::new(), violations: Vec::new(), violation_count: 0, all: TxTiming::default() }
+        Checker {
+            mode,
+            inferred: false,
+            worst: Vec::new(),
+            violations: Vec::new(),
+            violation_count: 0,
+            all: TxTiming::default(),
+        }
     }
 
     /// The mode a measured clock (millihertz) calls for.

@@ -72,7 +72,8 @@ pub fn header<R: Read>(lines: &mut Lines<R>) -> Result<Header, CaptureError> {
                             if words.len() < 4 {
                                 return Err(lines.err("$var needs a type, a width, a code and a name"));
                             }
-                            let width = words[1].parse().map_err(|_| lines.err(format!("bad $var width `{}`", words[1])))?;
+                            let width =
+                                words[1].parse().map_err(|_| lines.err(format!("bad $var width `{}`", words[1])))?;
                             let mut name = scopes.clone();
                             name.push(words[3].clone());
                             signals.push(Signal { code: words[2].clone(), name: name.join("."), width });
@@ -118,7 +119,11 @@ pub fn pick(h: &Header, sel: &Select, file: &str) -> Result<(String, String), Ca
         let hits: Vec<&Signal> = match want {
             Some(w) => {
                 let by_name: Vec<&Signal> = h.signals.iter().filter(|s| &s.name == w).collect();
-                if by_name.is_empty() { h.signals.iter().filter(|s| &s.code == w || last(&s.name) == w).collect() } else { by_name }
+                if by_name.is_empty() {
+                    h.signals.iter().filter(|s| &s.code == w || last(&s.name) == w).collect()
+                } else {
+                    by_name
+                }
             }
             None => h.signals.iter().filter(|s| last(&s.name).eq_ignore_ascii_case(default)).collect(),
         };
@@ -128,12 +133,21 @@ pub fn pick(h: &Header, sel: &Select, file: &str) -> Result<(String, String), Ca
         match codes.as_slice() {
             [c] => {
                 if hits[0].width != 1 {
-                    return Err(CaptureError::File { file: file.into(), message: format!("signal `{what}` is {} bits wide, not 1", hits[0].width) });
+                    return Err(CaptureError::File {
+                        file: file.into(),
+                        message: format!("signal `{what}` is {} bits wide, not 1", hits[0].width),
+                    });
                 }
                 Ok(c.to_string())
             }
-            [] => Err(CaptureError::File { file: file.into(), message: format!("no signal `{what}` (list them with --signals; pick with --sda/--scl)") }),
-            _ => Err(CaptureError::File { file: file.into(), message: format!("{} signals match `{what}`; name one with --sda/--scl", codes.len()) }),
+            [] => Err(CaptureError::File {
+                file: file.into(),
+                message: format!("no signal `{what}` (list them with --signals; pick with --sda/--scl)"),
+            }),
+            _ => Err(CaptureError::File {
+                file: file.into(),
+                message: format!("{} signals match `{what}`; name one with --sda/--scl", codes.len()),
+            }),
         }
     };
     Ok((find(&sel.sda, "sda")?, find(&sel.scl, "scl")?))
@@ -158,7 +172,6 @@ pub fn body<R: Read>(
     let mut t: u64 = 0;
     let mut dirty = false;
     let mut in_comment = false;
-    let mut dumpoff = false;
     while let Some(r) = lines.next_range()? {
         let l = lines.slice(r);
         let mut it = l.split(|b| *b == b' ' || *b == b'\t').filter(|t| !t.is_empty());
@@ -184,14 +197,12 @@ pub fn body<R: Read>(
                     match tok {
                         b"$comment" => in_comment = true,
                         b"$dumpoff" => {
-                            dumpoff = true;
                             // Every value is x while dumping is off (§18.2.3.4).
                             s = Level::Unknown;
                             c = Level::Unknown;
                             dirty = true;
                         }
-                        b"$dumpon" => dumpoff = false,
-                        _ => {} // $dumpvars, $dumpall, $end
+                        _ => {} // $dumpvars, $dumpall, $dumpon (its values follow), $end
                     }
                     continue;
                 }
@@ -224,7 +235,6 @@ pub fn body<R: Read>(
             } else {
                 continue;
             }
-            let _ = dumpoff;
             dirty = true;
         }
     }

@@ -147,7 +147,8 @@ pub fn decode(a: DecodeArgs) -> Result<u8> {
             (table::TICKS, ("column 2".to_string(), "column 3".to_string()), None)
         }
     };
-    let opts = Options { spike_ns: a.spike, stuck_ns: a.stuck.saturating_mul(1000), high_ns: a.high.saturating_mul(1000) };
+    let opts =
+        Options { spike_ns: a.spike, stuck_ns: a.stuck.saturating_mul(1000), high_ns: a.high.saturating_mul(1000) };
     let mut checker = Checker::new(a.mode.map(ModeArg::mode));
     let mut writer: Option<TraceWriter> = None;
     let mut stats = Stats::default();
@@ -239,13 +240,29 @@ fn name_of(h: &vcd::Header, code: &str) -> String {
 }
 
 fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
-    writeln!(o, "{}: {} transactions, {} glitches suppressed, {} bus errors", shown(&r.file), r.transactions, r.glitches_suppressed, r.issue_count)?;
+    writeln!(
+        o,
+        "{}: {} transactions, {} glitches suppressed, {} bus errors",
+        shown(&r.file),
+        r.transactions,
+        r.glitches_suppressed,
+        r.issue_count
+    )?;
     for i in r.issues {
-        writeln!(o, "  bus error at {} ns: {}{}{}", i.at_ns, i.kind.text(), if i.detail.is_empty() { "" } else { ": " }, i.detail)?;
+        writeln!(
+            o,
+            "  bus error at {} ns: {}{}{}",
+            i.at_ns,
+            i.kind.text(),
+            if i.detail.is_empty() { "" } else { ": " },
+            i.detail
+        )?;
     }
     let Some(c) = r.timing else { return Ok(()) };
     match c.mode {
-        Some(m) => writeln!(o, "timing against {}{}", m.name(), if c.inferred { " (inferred from the clock)" } else { "" })?,
+        Some(m) => {
+            writeln!(o, "timing against {}{}", m.name(), if c.inferred { " (inferred from the clock)" } else { "" })?
+        }
         None => writeln!(o, "timing: no transaction to measure")?,
     }
     writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", "parameter", "worst", "limit", "at (ns)")?;
@@ -259,8 +276,20 @@ fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
     }
     writeln!(o, "  {} violations", c.violation_count)?;
     for v in &c.violations {
-        let limit = if v.param == Param::FScl { format!("{:.1} kHz", v.limit as f64 / 1e3) } else { timing::show(v.param, v.limit * 1000) };
-        writeln!(o, "  violation: frame {} {} {} (limit {}) at {} ns", v.frame, v.param.name(), timing::show(v.param, v.value), limit, v.at_ns)?;
+        let limit = if v.param == Param::FScl {
+            format!("{:.1} kHz", v.limit as f64 / 1e3)
+        } else {
+            timing::show(v.param, v.limit * 1000)
+        };
+        writeln!(
+            o,
+            "  violation: frame {} {} {} (limit {}) at {} ns",
+            v.frame,
+            v.param.name(),
+            timing::show(v.param, v.value),
+            limit,
+            v.at_ns
+        )?;
     }
     writeln!(o, "  limits: {TIMING_SOURCE}")
 }
