@@ -224,7 +224,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
         }
         if let Some((t0, _)) = self.pend[i]
             && level == self.committed(line)
-            && t - t0 < self.spike
+            && t.saturating_sub(t0) < self.spike
         {
             self.pend[i] = None;
             self.glitches += 1;
@@ -267,9 +267,9 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
         self.commit_until(u64::MAX);
         for (i, name) in [(0, "SDA"), (1, "SCL")] {
             if let Some(t0) = self.low_since[i]
-                && end - t0 > self.stuck
+                && end.saturating_sub(t0) > self.stuck
             {
-                let d = self.ns(end - t0);
+                let d = self.ns(end.saturating_sub(t0));
                 self.issue(t0, IssueKind::StuckLow, format!("{name} low for {d} ns to the end of the capture"));
             }
         }
@@ -309,10 +309,10 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
         if level == Level::Low {
             self.low_since[i] = Some(t);
         } else if let Some(t0) = self.low_since[i].take()
-            && t - t0 > self.stuck
+            && t.saturating_sub(t0) > self.stuck
         {
             let name = if line == Line::Sda { "SDA" } else { "SCL" };
-            let d = self.ns(t - t0);
+            let d = self.ns(t.saturating_sub(t0));
             self.issue(t0, IssueKind::StuckLow, format!("{name} low for {d} ns"));
         }
         match (line, level) {
@@ -330,7 +330,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
                     && self.sda_change.is_none_or(|c| self.scl_fall.is_some_and(|f| c < f))
                     && let Some(f) = self.scl_fall
                 {
-                    let (v, at) = (self.ticks.ps(t - f), self.ns(t));
+                    let (v, at) = (self.ticks.ps(t.saturating_sub(f)), self.ns(t));
                     self.see(Param::HdDat, v, at);
                 }
                 self.sda_change = Some(t);
@@ -346,7 +346,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
 
     fn scl_rose(&mut self, t: u64) {
         if let Some(f) = self.scl_fall {
-            let low = t - f;
+            let low = t.saturating_sub(f);
             if self.in_tx {
                 if low < self.short_low && !self.first_fall_pending {
                     let d = self.ticks.ps(low);
@@ -360,7 +360,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
                 if let Some(c) = self.sda_change
                     && c >= f
                 {
-                    let (v, at) = (self.ticks.ps(t - c), self.ns(c));
+                    let (v, at) = (self.ticks.ps(t.saturating_sub(c)), self.ns(c));
                     self.see(Param::SuDat, v, at);
                 }
             }
@@ -369,7 +369,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             && let Some(r) = self.scl_rise
             && r > self.b.as_ref().map_or(0, |b| b.start)
         {
-            let period = t - r;
+            let period = t.saturating_sub(r);
             if period > 0 {
                 let mhz = (1_000_000_000_000_000_000u128 / (period as u128 * self.ticks.fs as u128)) as u64;
                 let at = self.ns(r);
@@ -400,7 +400,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
         if let Some(r) = self.scl_rise
             && self.in_tx
         {
-            let high = t - r;
+            let high = t.saturating_sub(r);
             if self.first_fall_pending {
                 self.first_fall_pending = false;
                 let start = self.b.as_ref().map_or(t, |b| b.sda_start());
@@ -434,13 +434,13 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
                 }
             }
             if let Some(r) = self.scl_rise {
-                let (v, at) = (self.ticks.ps(t - r), self.ns(r));
+                let (v, at) = (self.ticks.ps(t.saturating_sub(r)), self.ns(r));
                 self.see(Param::SuSta, v, at);
             }
         } else {
             let mut b = Building::new(t);
             if let Some(s) = self.last_stop {
-                b.timing.see(Param::Buf, self.ticks.ps(t - s), self.ns(s));
+                b.timing.see(Param::Buf, self.ticks.ps(t.saturating_sub(s)), self.ns(s));
             }
             self.b = Some(b);
             self.in_tx = true;
@@ -468,7 +468,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             }
         }
         if let Some(r) = self.scl_rise {
-            let (v, at) = (self.ticks.ps(t - r), self.ns(r));
+            let (v, at) = (self.ticks.ps(t.saturating_sub(r)), self.ns(r));
             self.see(Param::SuSto, v, at);
         }
         self.close(t);
@@ -562,7 +562,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
         if let Some(&min) = b.lows.iter().min() {
             let mut most: Option<u64> = None;
             for &l in &b.lows {
-                if l * 2 > min * 3 {
+                if l.saturating_mul(2) > min.saturating_mul(3) {
                     most = Some(most.map_or(l - min, |m| m.max(l - min)));
                 }
             }
@@ -571,7 +571,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             }
         }
         self.seq += 1;
-        let took = Duration::from_nanos(self.ticks.ns(end - b.start));
+        let took = Duration::from_nanos(self.ticks.ns(end.saturating_sub(b.start)));
         let frame = Frame {
             seq: self.seq,
             t: Duration::from_nanos(self.ticks.ns(b.start)),

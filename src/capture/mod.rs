@@ -134,7 +134,7 @@ impl<R: Read> Lines<R> {
 
     /// An error at the current line.
     pub fn err(&self, message: impl Into<String>) -> CaptureError {
-        CaptureError::At { file: self.file.clone(), line: self.line, message: message.into() }
+        CaptureError::At { file: self.file.clone(), line: self.line.max(1), message: message.into() }
     }
 
     /// The next line without its end (`\n` or `\r\n`), or None at the end.
