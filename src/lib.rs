@@ -28,4 +28,5 @@ pub mod tui;
 
 pub mod script;
 
+pub mod capture;
 pub mod cli;

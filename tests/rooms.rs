@@ -24,6 +24,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("serve", &["ascii", "bus", "config", "adapter", "sim", "regmap"]),
     ("trace", &["ascii", "bus", "adapter", "record", "player"]),
     ("tui", &["ascii", "bus", "adapter", "record", "player", "view", "trace"]),
+    ("capture", &["ascii", "bus", "electrical", "record"]),
     ("script", &["ascii", "bus", "adapter", "electrical", "record", "report", "smbus", "regmap", "player", "view"]),
     (
         "cli",
@@ -44,6 +45,7 @@ const ROOMS: &[(&str, &[&str])] = &[
             "serve",
             "trace",
             "tui",
+            "capture",
             "script",
         ],
     ),

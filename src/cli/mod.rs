@@ -17,6 +17,7 @@ pub mod outputs;
 pub mod watchdog;
 
 mod console;
+mod decode;
 mod ports;
 mod run;
 mod scan;
@@ -87,6 +88,8 @@ pub enum Command {
     Console(console::ConsoleArgs),
     /// Browse a trace in the full-screen view (off a terminal: print it, filtered).
     View(view::ViewArgs),
+    /// Decode a logic capture (VCD or CSV, gzip too) into a trace; check its timing.
+    Decode(decode::DecodeArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -402,6 +405,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Station(a) => station::station(a),
         Command::Console(a) => console::run(a),
         Command::View(a) => view::view(a),
+        Command::Decode(a) => decode::decode(a),
     }
 }
 

@@ -32,6 +32,9 @@ use crate::bus::Mode;
 pub const SOURCE: &str =
     "UM10204 rev. 7: §7.1 pull-up sizing, Table 9 (VOL, IOL, Ci), Table 10 (tr, Cb); values from memory";
 
+/// Named in every timing report.
+pub const TIMING_SOURCE: &str = "UM10204 rev. 7: Table 10 (fSCL, tHD;STA, tLOW, tHIGH, tSU;STA, tHD;DAT, tSU;DAT, tSU;STO, tBUF, tr, tf, tSP); values from memory";
+
 /// Rise time from 0.3 × VDD to 0.7 × VDD of an RC line, as a multiple of
 /// R × C: ln(0.7 / 0.3) = 0.8473 (UM10204 §7.1).
 pub const RISE_FACTOR: f64 = 0.8473;
@@ -144,13 +147,98 @@ pub struct ModeLimits {
     pub rise_max_ns: f64,
     /// Cb(max), capacitive load of each bus line, in picofarads (Table 10).
     pub cb_max_pf: f64,
+    /// The timing characteristics a capture is checked against (Table 10).
+    pub timing: BusTiming,
+}
+
+/// The timing rows of UM10204 rev. 7 Table 10 "Characteristics of the SDA
+/// and SCL bus lines" for one mode, in nanoseconds (values from memory:
+/// check them against your copy). Minimums unless the name says `max`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct BusTiming {
+    /// fSCL(max), hertz.
+    pub f_scl_max_hz: u32,
+    /// tHD;STA: hold time of a (repeated) START.
+    pub hd_sta_ns: u64,
+    /// tLOW and tHIGH of SCL.
+    pub low_ns: u64,
+    pub high_ns: u64,
+    /// tSU;STA: set-up time of a repeated START.
+    pub su_sta_ns: u64,
+    /// tHD;DAT: data hold time (0 for every mode's controller-side minimum).
+    pub hd_dat_ns: u64,
+    /// tSU;DAT: data set-up time.
+    pub su_dat_ns: u64,
+    /// tSU;STO: set-up time of a STOP.
+    pub su_sto_ns: u64,
+    /// tBUF: bus free time between a STOP and the next START.
+    pub buf_ns: u64,
+    /// tf(max) of SDA and SCL; tr(max) is [`ModeLimits::rise_max_ns`].
+    pub fall_max_ns: u64,
+    /// tSP(max): the spikes an input filter must suppress; 0 where the
+    /// mode asks for no filter (Standard-mode).
+    pub spike_ns: u64,
 }
 
 /// Standard-mode, Fast-mode, Fast-mode Plus, slowest first.
 pub const LIMITS: [ModeLimits; 3] = [
-    ModeLimits { mode: Mode::Standard, sink: Sink::Ma3, rise_max_ns: 1000.0, cb_max_pf: 400.0 },
-    ModeLimits { mode: Mode::Fast, sink: Sink::Ma3, rise_max_ns: 300.0, cb_max_pf: 400.0 },
-    ModeLimits { mode: Mode::FastPlus, sink: Sink::Ma20, rise_max_ns: 120.0, cb_max_pf: 550.0 },
+    ModeLimits {
+        mode: Mode::Standard,
+        sink: Sink::Ma3,
+        rise_max_ns: 1000.0,
+        cb_max_pf: 400.0,
+        timing: BusTiming {
+            f_scl_max_hz: 100_000,
+            hd_sta_ns: 4000,
+            low_ns: 4700,
+            high_ns: 4000,
+            su_sta_ns: 4700,
+            hd_dat_ns: 0,
+            su_dat_ns: 250,
+            su_sto_ns: 4000,
+            buf_ns: 4700,
+            fall_max_ns: 300,
+            spike_ns: 0,
+        },
+    },
+    ModeLimits {
+        mode: Mode::Fast,
+        sink: Sink::Ma3,
+        rise_max_ns: 300.0,
+        cb_max_pf: 400.0,
+        timing: BusTiming {
+            f_scl_max_hz: 400_000,
+            hd_sta_ns: 600,
+            low_ns: 1300,
+            high_ns: 600,
+            su_sta_ns: 600,
+            hd_dat_ns: 0,
+            su_dat_ns: 100,
+            su_sto_ns: 600,
+            buf_ns: 1300,
+            fall_max_ns: 300,
+            spike_ns: 50,
+        },
+    },
+    ModeLimits {
+        mode: Mode::FastPlus,
+        sink: Sink::Ma20,
+        rise_max_ns: 120.0,
+        cb_max_pf: 550.0,
+        timing: BusTiming {
+            f_scl_max_hz: 1_000_000,
+            hd_sta_ns: 260,
+            low_ns: 500,
+            high_ns: 260,
+            su_sta_ns: 260,
+            hd_dat_ns: 0,
+            su_dat_ns: 50,
+            su_sto_ns: 260,
+            buf_ns: 500,
+            fall_max_ns: 120,
+            spike_ns: 50,
+        },
+    },
 ];
 
 /// The limits of a mode; None above Fast-mode Plus (not modelled).

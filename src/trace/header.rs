@@ -21,8 +21,22 @@ use crate::bus::outcome::nanos;
 pub const FORMAT: &str = "buscue-trace";
 /// The version this build writes.
 pub const VERSION_MAJOR: u32 = 1;
-/// 1.1 added the fault kind `nack` (a NACK the adapter does not place).
+/// 1.1 added the fault kind `nack` (a NACK the adapter does not place);
+/// 1.2 the end record's `link` (the native link's statistics), the
+/// header's `capture` and the source `capture` (a trace decoded from a
+/// logic capture).
 pub const VERSION_MINOR: u32 = 2;
+
+/// The logic capture a trace was decoded from, for `source = "capture"`.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct CaptureInfo {
+    /// The capture file as named on the command line.
+    pub file: String,
+    /// The signals decoded as SDA and SCL (VCD: hierarchical names;
+    /// tables: column names).
+    pub sda: String,
+    pub scl: String,
+}
 
 /// The adapter a trace was recorded through.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -66,6 +80,9 @@ pub struct Header {
     /// The trace a replay played, for `source = "replay"`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub replay_of: Option<String>,
+    /// The capture decoded, for `source = "capture"` (1.2).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub capture: Option<CaptureInfo>,
 }
 
 impl Header {
@@ -87,6 +104,7 @@ impl Header {
             script: None,
             params: BTreeMap::new(),
             replay_of: None,
+            capture: None,
         }
     }
 

@@ -22,4 +22,4 @@ pub mod shrink;
 pub mod to_script;
 
 pub use file::{LimitReached, Trace, TraceError, TraceReader, TraceRescue, TraceWriter};
-pub use header::Header;
+pub use header::{CaptureInfo, Header};

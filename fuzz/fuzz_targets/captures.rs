@@ -1,0 +1,36 @@
+//! Arbitrary bytes as a VCD and as a sample table must never panic, and
+//! every error must name the file and a line (the same property as the
+//! proptest cases in tests/capture.rs, run without limits).
+
+#![no_main]
+
+use buscue::capture::decode::{Decoder, Options};
+use buscue::capture::table::{self, TableOptions};
+use buscue::capture::{CaptureError, Lines, vcd};
+use libfuzzer_sys::fuzz_target;
+
+fn named(e: &CaptureError) -> bool {
+    e.to_string().starts_with("f:")
+}
+
+fuzz_target!(|data: &[u8]| {
+    let mut lines = Lines::new(data, "f");
+    match vcd::header(&mut lines) {
+        Err(e) => assert!(named(&e)),
+        Ok(h) => {
+            if let Ok((sda, scl)) = vcd::pick(&h, &vcd::Select::default(), "f") {
+                let mut dec = Decoder::new(h.ticks, Options::default(), |_, _| {});
+                match vcd::body(&mut lines, &h, &sda, &scl, |t, s, c| dec.levels(t, s, c)) {
+                    Ok(last) => dec.finish(last),
+                    Err(e) => assert!(named(&e)),
+                }
+            }
+        }
+    }
+    let mut lines = Lines::new(data, "f");
+    let mut dec = Decoder::new(table::TICKS, Options::default(), |_, _| {});
+    let opts = TableOptions { sample_rate: None, thresholds: Some((0.99, 2.31)) };
+    if let Err(e) = table::read(&mut lines, opts, |t, s, c| dec.levels(t, s, c)) {
+        assert!(named(&e));
+    }
+});

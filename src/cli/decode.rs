@@ -1,0 +1,296 @@
+//! `buscue decode`: a logic capture to a trace, with its bus errors and,
+//! with `--timing`, its timing against UM10204 Table 10.
+
+use std::io::Write;
+use std::path::PathBuf;
+use std::time::Duration;
+
+use anyhow::{Context, Result};
+use clap::{Args, ValueEnum};
+use serde::Serialize;
+
+use super::{exit, out, outputs, shown};
+use crate::adapter::{Capabilities, Identity, Snapshot};
+use crate::bus::{BusSpeed, Mode};
+use crate::capture::decode::{Decoder, Issue, Options};
+use crate::capture::table::{self, TableOptions};
+use crate::capture::timing::{self, Checker, Param};
+use crate::capture::{self, Kind, Lines, vcd};
+use crate::electrical::limits::TIMING_SOURCE;
+use crate::record::{Record, Sink, Stats};
+use crate::trace::{CaptureInfo, Header, TraceWriter};
+
+#[derive(Args, Debug)]
+pub struct DecodeArgs {
+    /// The capture: a VCD or a CSV sample table, either may be gzipped.
+    pub capture: PathBuf,
+    /// Write the decoded transactions to this trace.
+    #[arg(long, short = 'o')]
+    pub output: Option<PathBuf>,
+    /// Overwrite the trace if it exists.
+    #[arg(long)]
+    pub force: bool,
+    /// The SDA signal: hierarchical name, last name part or identifier code (default: the one named sda).
+    #[arg(long)]
+    pub sda: Option<String>,
+    /// The SCL signal (default: the one named scl).
+    #[arg(long)]
+    pub scl: Option<String>,
+    /// List the signals of a VCD and stop.
+    #[arg(long)]
+    pub signals: bool,
+    /// Speed mode to check against (default: inferred from the first transaction's clock).
+    #[arg(long, value_enum)]
+    pub mode: Option<ModeArg>,
+    /// Check timing against the mode's limits; exit 1 on a violation or bus error.
+    #[arg(long)]
+    pub timing: bool,
+    /// The report as JSON on standard output.
+    #[arg(long)]
+    pub json: bool,
+    /// Spike limit tSP in ns: shorter pulses are dropped (default 50, UM10204 Fast-mode).
+    #[arg(long, value_name = "NS", default_value_t = 50)]
+    pub spike: u64,
+    /// A line low longer than this many microseconds is stuck (default 35000, SMBus tTIMEOUT).
+    #[arg(long, value_name = "US", default_value_t = 35_000)]
+    pub stuck: u64,
+    /// SCL high longer than this many microseconds mid-byte is an error (default 50, SMBus tHIGH max).
+    #[arg(long, value_name = "US", default_value_t = 50)]
+    pub high: u64,
+    /// Tables: the first column is a sample index at this many samples per second.
+    #[arg(long, value_name = "HZ")]
+    pub sample_rate: Option<u64>,
+    /// Tables: voltages, low at or below this (needs --vih).
+    #[arg(long, requires = "vih", value_name = "VOLTS")]
+    pub vil: Option<f64>,
+    /// Tables: voltages, high at or above this.
+    #[arg(long, requires = "vil", value_name = "VOLTS")]
+    pub vih: Option<f64>,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum ModeArg {
+    Standard,
+    Fast,
+    FastPlus,
+}
+
+impl ModeArg {
+    fn mode(self) -> Mode {
+        match self {
+            ModeArg::Standard => Mode::Standard,
+            ModeArg::Fast => Mode::Fast,
+            ModeArg::FastPlus => Mode::FastPlus,
+        }
+    }
+}
+
+#[derive(Serialize)]
+struct Report<'a> {
+    file: String,
+    transactions: u64,
+    glitches_suppressed: u64,
+    issues: &'a [Issue],
+    issue_count: u64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    timing: Option<&'a Checker>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    limits_source: Option<&'static str>,
+}
+
+/// The trace header of a decoded capture.
+fn header(file: &str, sda: &str, scl: &str, mode: Mode) -> Header {
+    let speed = BusSpeed::from_hz(mode.max_hz().into()).unwrap_or(BusSpeed::STANDARD);
+    let snap = Snapshot {
+        identity: Identity { driver: "capture".into(), target: file.into(), description: "logic capture".into() },
+        capabilities: Capabilities {
+            max_bytes_per_op: crate::bus::transaction::MAX_OPERATION_BYTES,
+            ten_bit: true,
+            min_speed_hz: speed.hz(),
+            max_speed_hz: speed.hz(),
+            stretch_timeout_us: 0,
+            line_readback: false,
+            recovery: false,
+        },
+        speed,
+        clock: Duration::ZERO,
+    };
+    let mut h = Header::new("capture", snap);
+    h.capture = Some(CaptureInfo { file: file.into(), sda: sda.into(), scl: scl.into() });
+    h
+}
+
+pub fn decode(a: DecodeArgs) -> Result<u8> {
+    let file = a.capture.display().to_string();
+    if let Some(p) = &a.output {
+        outputs::check(p, "the trace", &[(&a.capture, "the capture")])?;
+    }
+    let mut input = capture::open(&a.capture)?;
+    let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
+    let mut lines = Lines::new(input, &file);
+    let (ticks, names, vcd_header) = match kind {
+        Kind::Vcd => {
+            let h = vcd::header(&mut lines)?;
+            if a.signals {
+                let mut o = out::locked();
+                for s in &h.signals {
+                    writeln!(o, "{}  {}  {} bit", shown(&s.code), shown(&s.name), s.width)?;
+                }
+                return Ok(exit::OK);
+            }
+            let (sda, scl) = vcd::pick(&h, &vcd::Select { sda: a.sda.clone(), scl: a.scl.clone() }, &file)?;
+            let names = (name_of(&h, &sda), name_of(&h, &scl));
+            (h.ticks, names, Some((h, sda, scl)))
+        }
+        Kind::Table => {
+            anyhow::ensure!(!a.signals, "{file}: --signals lists the signals of a VCD; a table's are its columns");
+            (table::TICKS, ("column 2".to_string(), "column 3".to_string()), None)
+        }
+    };
+    let opts =
+        Options { spike_ns: a.spike, stuck_ns: a.stuck.saturating_mul(1000), high_ns: a.high.saturating_mul(1000) };
+    let mut checker = Checker::new(a.mode.map(ModeArg::mode));
+    let mut writer: Option<TraceWriter> = None;
+    let mut stats = Stats::default();
+    let mut failure: Option<std::io::Error> = None;
+    let mut end_ns = 0;
+    {
+        let mut on_frame = |f: crate::record::Frame, t: timing::TxTiming| {
+            checker.check(f.seq, &t);
+            stats.add_frame(&f);
+            end_ns = (f.t + f.outcome.bus_time).as_nanos() as u64;
+            if let Some(p) = &a.output
+                && failure.is_none()
+            {
+                if writer.is_none() {
+                    let h = header(&file, &names.0, &names.1, checker.mode.unwrap_or(Mode::Standard));
+                    let w = if a.force { TraceWriter::create(p, &h) } else { TraceWriter::create_new(p, &h) };
+                    match w {
+                        Ok(w) => writer = Some(w),
+                        Err(e) => failure = Some(e),
+                    }
+                }
+                if let Some(w) = &mut writer
+                    && let Err(e) = w.record(&Record::Frame(f))
+                {
+                    failure = Some(e);
+                }
+            }
+        };
+        let mut dec = Decoder::new(ticks, opts, &mut on_frame);
+        let last = match &vcd_header {
+            Some((h, sda, scl)) => vcd::body(&mut lines, h, sda, scl, |t, s, c| dec.levels(t, s, c))?,
+            None => {
+                let t = TableOptions { sample_rate: a.sample_rate, thresholds: a.vil.zip(a.vih) };
+                table::read(&mut lines, t, |t, s, c| dec.levels(t, s, c))?
+            }
+        };
+        dec.finish(last);
+        let report = Report {
+            file: file.clone(),
+            transactions: 0,
+            glitches_suppressed: dec.glitches,
+            issues: &dec.issues,
+            issue_count: dec.issue_count,
+            timing: None,
+            limits_source: None,
+        };
+        // Moved out of the decoder's borrow below.
+        let (issues, issue_count, glitches) = (report.issues.to_vec(), report.issue_count, report.glitches_suppressed);
+        drop(dec);
+        if let Some(e) = failure {
+            let p = a.output.as_deref().unwrap_or(a.capture.as_path());
+            return Err(outputs::trace_error(p, e).into());
+        }
+        if let Some(p) = &a.output {
+            let mut w = match writer {
+                Some(w) => w,
+                None => {
+                    let h = header(&file, &names.0, &names.1, checker.mode.unwrap_or(Mode::Standard));
+                    let w = if a.force { TraceWriter::create(p, &h) } else { TraceWriter::create_new(p, &h) };
+                    w.map_err(|e| outputs::trace_error(p, e))?
+                }
+            };
+            let end =
+                Record::End { t: Duration::from_nanos(end_ns), stats: stats.clone(), exit: 0, error: None, link: None };
+            w.record(&end).and_then(|()| w.flush()).map_err(|e| outputs::trace_error(p, e))?;
+        }
+        let report = Report {
+            file,
+            transactions: stats.transactions,
+            glitches_suppressed: glitches,
+            issues: &issues,
+            issue_count,
+            timing: a.timing.then_some(&checker),
+            limits_source: a.timing.then_some(TIMING_SOURCE),
+        };
+        let mut o = out::locked();
+        if a.json {
+            serde_json::to_writer(&mut o, &report)?;
+            writeln!(o)?;
+        } else {
+            write_text(&mut o, &report)?;
+        }
+        let failed = a.timing && (checker.violation_count > 0 || issue_count > 0);
+        Ok(if failed { exit::CHECK_FAILED } else { exit::OK })
+    }
+}
+
+fn name_of(h: &vcd::Header, code: &str) -> String {
+    h.signals.iter().find(|s| s.code == code).map_or_else(|| code.to_string(), |s| s.name.clone())
+}
+
+fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
+    writeln!(
+        o,
+        "{}: {} transactions, {} glitches suppressed, {} bus errors",
+        shown(&r.file),
+        r.transactions,
+        r.glitches_suppressed,
+        r.issue_count
+    )?;
+    for i in r.issues {
+        writeln!(
+            o,
+            "  bus error at {} ns: {}{}{}",
+            i.at_ns,
+            i.kind.text(),
+            if i.detail.is_empty() { "" } else { ": " },
+            i.detail
+        )?;
+    }
+    let Some(c) = r.timing else { return Ok(()) };
+    match c.mode {
+        Some(m) => {
+            writeln!(o, "timing against {}{}", m.name(), if c.inferred { " (inferred from the clock)" } else { "" })?
+        }
+        None => writeln!(o, "timing: no transaction to measure")?,
+    }
+    writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", "parameter", "worst", "limit", "at (ns)")?;
+    let lim = c.mode.and_then(crate::electrical::limits::limits);
+    for (p, s) in &c.worst {
+        let limit = lim.and_then(|l| p.limit(&l.timing)).map_or_else(
+            || "-".to_string(),
+            |v| if *p == Param::FScl { format!("{:.1} kHz", v as f64 / 1e3) } else { timing::show(*p, v * 1000) },
+        );
+        writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", p.name(), timing::show(*p, s.value), limit, s.at_ns)?;
+    }
+    writeln!(o, "  {} violations", c.violation_count)?;
+    for v in &c.violations {
+        let limit = if v.param == Param::FScl {
+            format!("{:.1} kHz", v.limit as f64 / 1e3)
+        } else {
+            timing::show(v.param, v.limit * 1000)
+        };
+        writeln!(
+            o,
+            "  violation: frame {} {} {} (limit {}) at {} ns",
+            v.frame,
+            v.param.name(),
+            timing::show(v.param, v.value),
+            limit,
+            v.at_ns
+        )?;
+    }
+    writeln!(o, "  limits: {TIMING_SOURCE}")
+}
