@@ -29,27 +29,17 @@ fn frames(n: u64) -> Vec<Frame> {
         .map(|i| {
             let reg = (i % 6) as u8;
             let v = (i.wrapping_mul(2_654_435_761) >> 8) as u8;
-            Frame {
-                seq: i + 1,
-                t: Duration::ZERO,
-                address: Address::Seven(0x31),
-                ops: vec![Operation::Write(vec![reg]), Operation::Read(2)],
-                outcome: Outcome {
-                    ops: vec![
-                        OpOutcome { acks: vec![true], data: vec![] },
-                        OpOutcome { acks: vec![], data: vec![v, 0x2D] },
-                    ],
-                    bus_time: Duration::ZERO,
-                    measured: None,
-                    fault: None,
-                },
-                attempt: 1,
-                attempts: 1,
-                purpose: None,
-                origin: None,
-                decoded: None,
-                pec: None,
-            }
+            let outcome = Outcome {
+                ops: vec![
+                    OpOutcome { acks: vec![true], data: vec![] },
+                    OpOutcome { acks: vec![], data: vec![v, 0x2D] },
+                ],
+                bus_time: Duration::ZERO,
+                measured: None,
+                fault: None,
+            };
+            let ops = vec![Operation::Write(vec![reg]), Operation::Read(2)];
+            Frame::single(i + 1, Duration::ZERO, Address::Seven(0x31), ops, outcome)
         })
         .collect()
 }

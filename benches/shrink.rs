@@ -47,19 +47,7 @@ fn recording(n: u64) -> Trace {
         if i == n / 10 {
             sim.delay(Duration::from_millis(10)); // the write cycle
         }
-        records.push(Record::Frame(Frame {
-            seq: i + 1,
-            t,
-            address: tx.address,
-            ops: tx.ops,
-            outcome,
-            attempt: 1,
-            attempts: 1,
-            purpose: None,
-            origin: None,
-            decoded: None,
-            pec: None,
-        }));
+        records.push(Record::Frame(Frame::single(i + 1, t, tx.address, tx.ops, outcome)));
     }
     Trace { header, records, warnings: Vec::new() }
 }

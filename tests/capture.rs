@@ -16,19 +16,8 @@ use common::{code, run, stderr, stdout};
 use proptest::prelude::*;
 
 fn frame(address: Address, ops: Vec<Operation>, outs: Vec<OpOutcome>, fault: Option<Fault>) -> Frame {
-    Frame {
-        seq: 0,
-        t: Duration::ZERO,
-        address,
-        ops,
-        outcome: Outcome { ops: outs, bus_time: Duration::ZERO, measured: None, fault },
-        attempt: 1,
-        attempts: 1,
-        purpose: None,
-        origin: None,
-        decoded: None,
-        pec: None,
-    }
+    let outcome = Outcome { ops: outs, bus_time: Duration::ZERO, measured: None, fault };
+    Frame::single(0, Duration::ZERO, address, ops, outcome)
 }
 
 fn w(acks: &[bool]) -> OpOutcome {

@@ -57,6 +57,27 @@ pub struct Frame {
     pub pec: Option<PecMark>,
 }
 
+impl Frame {
+    /// A frame of one attempt the script asked for itself: no purpose,
+    /// script line, register names or PEC (tests, benches and tools that
+    /// build frames by hand fill in what they need on top).
+    pub fn single(seq: u64, t: Duration, address: Address, ops: Vec<Operation>, outcome: Outcome) -> Frame {
+        Frame {
+            seq,
+            t,
+            address,
+            ops,
+            outcome,
+            attempt: 1,
+            attempts: 1,
+            purpose: None,
+            origin: None,
+            decoded: None,
+            pec: None,
+        }
+    }
+}
+
 /// Why the tool sent a frame the script did not ask for directly.
 /// Serialized as its name (`scan`, `ack-poll`, `poll`, `batch`).
 ///

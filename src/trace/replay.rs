@@ -558,23 +558,16 @@ mod tests {
     use crate::bus::{Address, OpOutcome};
 
     fn recorded(read: Vec<u8>, acks: Vec<bool>) -> Frame {
+        let ops = vec![Operation::Write(vec![0x00, 0x10, 0x20]), Operation::Read(read.len())];
+        let outcome = Outcome {
+            ops: vec![OpOutcome { acks, data: vec![] }, OpOutcome { acks: vec![], data: read }],
+            bus_time: Duration::ZERO,
+            measured: None,
+            fault: None,
+        };
         Frame {
-            seq: 15,
-            t: Duration::ZERO,
-            address: Address::Seven(0x50),
-            ops: vec![Operation::Write(vec![0x00, 0x10, 0x20]), Operation::Read(read.len())],
-            outcome: Outcome {
-                ops: vec![OpOutcome { acks, data: vec![] }, OpOutcome { acks: vec![], data: read }],
-                bus_time: Duration::ZERO,
-                measured: None,
-                fault: None,
-            },
-            attempt: 1,
-            attempts: 1,
-            purpose: None,
             origin: Some(Origin { file: "ee.lua".into(), line: 33 }),
-            decoded: None,
-            pec: None,
+            ..Frame::single(15, Duration::ZERO, Address::Seven(0x50), ops, outcome)
         }
     }
 

@@ -99,19 +99,8 @@ mod tests {
     use crate::bus::{Address, OpOutcome, Operation, Outcome};
 
     fn frame(ops: Vec<Operation>, outs: Vec<OpOutcome>, fault: Option<Fault>) -> Frame {
-        Frame {
-            seq: 1,
-            t: Duration::ZERO,
-            address: Address::Seven(0x48),
-            ops,
-            outcome: Outcome { ops: outs, bus_time: Duration::ZERO, measured: None, fault },
-            attempt: 1,
-            attempts: 1,
-            purpose: None,
-            origin: None,
-            decoded: None,
-            pec: None,
-        }
+        let outcome = Outcome { ops: outs, bus_time: Duration::ZERO, measured: None, fault };
+        Frame::single(1, Duration::ZERO, Address::Seven(0x48), ops, outcome)
     }
 
     // UM10204 §3.1.10 (combined format, figure 13): S, address, W, A,
