@@ -197,7 +197,7 @@ speed = "400k"
 [[device]]
 name = "soil-probe"
 model = "mapped"
-address = 0x3C
+address = 0x66
 map = "soil.lua"
 "#;
 
@@ -208,7 +208,7 @@ fn a_device_simulated_from_its_map_honours_reset_w1c_and_rc() {
     let path = dir.path().join("t.lua");
     std::fs::write(
         &path,
-        "local p = bus.device(0x3C, { map = require('soil') })\n\
+        "local p = bus.device(0x66, { map = require('soil') })\n\
          check_eq(p:get('ID'), 0x50A1, 'reset value of a 16-bit register')\n\
          check_eq(p:read('CONFIG.RATE'), 'normal', 'reset 0x04: RATE = 1')\n\
          local m, unit = p:read('MOISTURE')\n\
@@ -220,7 +220,7 @@ fn a_device_simulated_from_its_map_honours_reset_w1c_and_rc() {
          check_eq(p:get('EVENTS'), 0x01, 'reading again changes nothing more')\n\
          local ok, e = pcall(p.set, p, 'ID', 1)\n\
          check(not ok, 'a read-only register refuses the helper')\n\
-         bus.write(0x3C, { 0x00, 0x12 })\n",
+         bus.write(0x66, { 0x00, 0x12 })\n",
     )
     .unwrap();
     let adapter = format!("sim:{}", bench.display());
