@@ -237,12 +237,12 @@ impl State {
     }
 
     fn save(&self, path: &Path, force: bool) -> Result<usize> {
-        let mut f = if force {
-            std::fs::File::create(path)
-        } else {
-            std::fs::OpenOptions::new().write(true).create_new(true).open(path)
-        }
-        .with_context(|| format!("cannot write {} (an existing file needs `force`)", path.display()))?;
+        // The map files the session loaded are its inputs: never the file saved over.
+        let inputs: Vec<(&Path, &'static str)> =
+            self.maps.iter().map(|(_, m)| (Path::new(m.as_str()), "a register map")).collect();
+        super::outputs::check(path, "the session", &inputs)?;
+        let mut f = super::outputs::create(path, force)
+            .context("cannot save the session (`%save FILE force` replaces a file)")?;
         f.write_all(self.script().as_bytes())?;
         Ok(self.saved.len())
     }
