@@ -54,10 +54,16 @@ fn recording(n: u64) -> Trace {
 
 fn run(trace: &Trace, quick_passes: bool) -> (u64, usize, Duration) {
     let opts = ShrinkOptions {
-        replay: ReplayOptions { time_scale: Some(1.0), keep_going: false, masks: Masks(Vec::new()) },
+        replay: ReplayOptions {
+            time_scale: Some(1.0),
+            keep_going: false,
+            masks: Masks(Vec::new()),
+            ..Default::default()
+        },
         max_trials: 100_000,
         max_time: None,
         quick_passes,
+        shorter_gaps: false,
     };
     let mut open = || -> Result<Box<dyn Adapter>, AdapterError> { Ok(Box::new(SimAdapter::demo())) };
     let start = Instant::now();

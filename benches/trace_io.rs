@@ -132,7 +132,7 @@ fn main() {
     let cpu0 = cpu_seconds();
     let start = Instant::now();
     let masks = Masks::default();
-    let (ka, kb) = key_files(&a, &b, &masks).expect("read both traces");
+    let (ka, kb) = key_files(&a, &b, &masks, Default::default()).expect("read both traces");
     let read = start.elapsed();
     let hunks = align(&ka.keys, &kb.keys);
     let total = start.elapsed();

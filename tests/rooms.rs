@@ -22,7 +22,7 @@ const ROOMS: &[(&str, &[&str])] = &[
     ("view", &["ascii", "bus", "adapter", "record"]),
     ("hal", &["ascii", "bus", "adapter", "record", "player"]),
     ("serve", &["ascii", "bus", "config", "adapter", "sim", "regmap"]),
-    ("trace", &["ascii", "bus", "adapter", "record", "player"]),
+    ("trace", &["ascii", "bus", "adapter", "record", "player", "smbus"]),
     ("tui", &["ascii", "bus", "adapter", "record", "player", "view", "trace"]),
     ("capture", &["ascii", "bus", "electrical", "record"]),
     ("script", &["ascii", "bus", "adapter", "electrical", "record", "report", "smbus", "regmap", "player", "view"]),

@@ -21,6 +21,9 @@ use crate::trace::{Trace, TraceReader, TraceWriter};
 use super::traces::parse_mask;
 use super::{BusArgs, interrupt_flag, parse_duration, shown, warning_line};
 
+/// The longest a reset script may run before a trial.
+const RESET_LIMIT: Duration = Duration::from_secs(60);
+
 #[derive(Args, Debug)]
 pub struct ShrinkArgs {
     /// The recording that diverges when replayed.
@@ -42,6 +45,17 @@ pub struct ShrinkArgs {
     /// Wall-clock limit for the search (30s, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub max_time: Duration,
+    /// A Lua script run on the board before every trial, to put it in the
+    /// same starting state (power-cycle a fixture, write a reset register);
+    /// its transactions are not part of the trial. Limits as for `run`'s
+    /// defaults, and at most 60 s per reset.
+    #[arg(long, value_name = "SCRIPT")]
+    pub reset: Option<PathBuf>,
+    /// After shrinking, try shortening each kept gap between transactions
+    /// (to none, then to half), keeping a shorter gap where the divergence
+    /// stays: shows which waits matter.
+    #[arg(long)]
+    pub shorter_gaps: bool,
     /// Skip the cheap passes (the divergence alone, whole steps, reads) and run ddmin on everything.
     #[arg(long)]
     pub ddmin_only: bool,
@@ -66,20 +80,40 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
         eprintln!("warning: {}", shown(w));
     }
     let simulated = matches!(a.bus.adapter, AdapterSpec::DemoBench | AdapterSpec::Bench(_));
-    if !simulated {
+    if !simulated && a.reset.is_none() {
         eprintln!(
             "{}",
             warning_line(
-                "the board is not reset between trials: what a trial finds may depend on the ones before it",
+                "the board is not reset between trials (--reset SCRIPT does that): what a trial finds may depend on \
+                 the ones before it",
                 std::io::stderr().is_terminal()
             )
         );
     }
+    // The reset script is read once: the same text before every trial.
+    let reset = match &a.reset {
+        Some(p) => {
+            let text =
+                std::fs::read_to_string(p).with_context(|| format!("cannot read the reset script {}", p.display()))?;
+            Some(crate::script::RunConfig {
+                script: p.clone(),
+                text: Some(text),
+                params: Default::default(),
+                timeout: Some(RESET_LIMIT),
+                memory_limit: crate::script::DEFAULT_MEMORY_LIMIT,
+                allow_io: false,
+                stop_on_fail: true,
+            })
+        }
+        None => None,
+    };
     let speed = match a.bus.speed {
         Some(s) => Some(s),
         None => BusSpeed::from_hz(trace.header.speed_hz as u64).ok(),
     };
     let bus = a.bus.clone();
+    let interrupt = interrupt_flag()?;
+    let reset_interrupt = interrupt.clone();
     let mut open = move || -> Result<Box<dyn crate::adapter::Adapter>, AdapterError> {
         let mut adapter = bus.open().map_err(|e| AdapterError::Input(e.to_string()))?;
         if let Some(s) = speed {
@@ -89,14 +123,23 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
                 Err(e) => return Err(e),
             }
         }
+        if let Some(cfg) = &reset {
+            let session = crate::script::Session::new(adapter, reset_interrupt.clone());
+            let report = crate::script::run(session, cfg, reset_interrupt.clone());
+            if let Some(abort) = report.abort {
+                // Not a trial's result: the search cannot go on from an unknown state.
+                return Err(AdapterError::Input(format!("the reset script {} failed: {abort}", cfg.script.display())));
+            }
+            adapter = report.session.into_adapter();
+        }
         Ok(adapter)
     };
-    let interrupt = interrupt_flag()?;
     let opts = ShrinkOptions {
-        replay: ReplayOptions { time_scale: Some(1.0), keep_going: false, masks },
+        replay: ReplayOptions { time_scale: Some(1.0), keep_going: false, masks, ..Default::default() },
         max_trials: a.max_trials.max(1),
         max_time: (!a.max_time.is_zero()).then_some(a.max_time),
         quick_passes: !a.ddmin_only,
+        shorter_gaps: a.shorter_gaps,
     };
     let tty = std::io::stderr().is_terminal();
     let mut last_shown = 0u64;
@@ -135,7 +178,7 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
         }
         Err(e) => return Err(e).with_context(|| format!("shrinking {}", a.trace.display())),
     };
-    let records: Vec<Record> = shrunk.records(&trace).into_iter().cloned().collect();
+    let records: Vec<Record> = shrunk.records(&trace);
     let how = match shrunk.cut {
         None => "finished (1-minimal: dropping any one kept transaction loses the divergence)".to_string(),
         Some(Cut::Trials) => format!("stopped at the trial limit ({}); the best result so far", a.max_trials),
@@ -182,11 +225,21 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
         shrunk.elapsed.as_secs_f64()
     );
     eprintln!("divergence kept: {}", shown(&shrunk.target));
-    for &i in &shrunk.kept {
-        if let Record::Frame(f) = &trace.records[i] {
-            let ops = f.ops.iter().map(|o| format!("{o:?}")).collect::<Vec<_>>().join(" ");
-            eprintln!("  #{} {} {}", f.seq, f.address, shown(ops));
-        }
+    let kept_frames = records.iter().filter_map(|r| match r {
+        Record::Frame(f) => Some(f),
+        _ => None,
+    });
+    let mut prev: Option<(Duration, Duration)> = None;
+    for f in kept_frames {
+        let ops = f.ops.iter().map(|o| format!("{o:?}")).collect::<Vec<_>>().join(" ");
+        // With the gap pass, the wait before each kept frame as replayed.
+        let gap = match (&shrunk.retimed, prev) {
+            (Some(_), Some((t, bus))) => format!("  (after {:.3} ms)", f.t.saturating_sub(t + bus).as_secs_f64() * 1e3),
+            (Some(_), None) => format!("  (at {:.3} ms)", f.t.saturating_sub(trace.header.clock).as_secs_f64() * 1e3),
+            (None, _) => String::new(),
+        };
+        eprintln!("  #{} {} {}{gap}", f.seq, f.address, shown(ops));
+        prev = Some((f.t, f.outcome.bus_time));
     }
     Ok(if shrunk.cut == Some(Cut::Interrupt) { exit::INTERRUPTED } else { exit::OK })
 }

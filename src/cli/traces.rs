@@ -13,6 +13,7 @@ use crate::player::RunError;
 use crate::record::{Record, Stats};
 use crate::script::Session;
 use crate::trace::diff::{Hunk, Keyed, align, key_files};
+use crate::trace::ignore::Ignore;
 use crate::trace::mask::{Mask, Masks};
 use crate::trace::replay::{Heading, ReplayOptions, Stop, check as check_trace, check_scale, groups, replay as play};
 use crate::trace::to_script::{ScriptOptions, to_script as convert};
@@ -60,6 +61,17 @@ pub struct ReplayArgs {
     /// Ignore volatile read data: ADDRESS[,reg=REG][,bytes=A-B]; repeatable.
     #[arg(long, value_name = "MASK", value_parser = parse_mask)]
     pub mask: Vec<Mask>,
+    /// Send only reads and ACK probes: no frame that writes data reaches
+    /// the board (a register pointer before a read in the same frame is
+    /// sent); the writes are listed as skipped.
+    #[arg(long)]
+    pub no_writes: bool,
+    /// Replay loosely what depends on the board's speed or luck: polls
+    /// (a wait polls until its recorded end, within twice its recorded
+    /// time plus 1 ms), retries (as many tries as the recording allowed,
+    /// the last compared), scans (not sent); comma-separated.
+    #[arg(long, value_name = "LIST", value_parser = parse_ignore)]
+    pub ignore: Option<Ignore>,
     /// Show the replayed frames.
     #[arg(long, conflicts_with = "json")]
     pub frames: bool,
@@ -152,7 +164,13 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
         let script = reader.header().script.as_ref().map(|s| s.path.as_str().into());
         session.add_sink(Box::new(PlainLog::with_layout(out::stdout(), a.show.layout(script), true)));
     }
-    let opts = ReplayOptions { time_scale, keep_going: a.no_stop, masks };
+    let opts = ReplayOptions {
+        time_scale,
+        keep_going: a.no_stop,
+        masks,
+        ignore: a.ignore.unwrap_or_default(),
+        skip_writes: a.no_writes,
+    };
     let report = play(&mut session, &mut reader, &opts);
     let (code, error) = match &report.stopped {
         Some(Stop::Trace(e)) => (exit::INPUT, Some(e.to_string())),
@@ -179,8 +197,22 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
             });
             let _ = writeln!(out, "{v}");
         }
+        for seq in &report.skipped_seqs {
+            let _ = writeln!(out, "{}", serde_json::json!({ "kind": "skipped", "seq": seq, "why": "writes" }));
+        }
     } else {
         let colour = a.show.colour.resolve();
+        if !report.skipped_seqs.is_empty() {
+            let script = reader.header().script.as_ref().map(|s| s.path.as_str().into());
+            let layout = a.show.layout(script);
+            for f in &report.skipped {
+                let _ = writeln!(out, "{} {}", paint("skipped write:", Tone::Warn, colour), frame_line(f, &layout));
+            }
+            let more = report.skipped_seqs.len() - report.skipped.len();
+            if more > 0 {
+                let _ = writeln!(out, "... and {more} more skipped writes (--json lists every one)");
+            }
+        }
         for group in groups(&report.divergences) {
             // Its decoded name and origin come from the recording.
             let _ = writeln!(out, "{} {}", paint("diverged:", Tone::Bad, colour), shown(Heading(group)));
@@ -212,6 +244,13 @@ pub fn replay(a: ReplayArgs) -> Result<u8> {
     }
     if report.masked_bytes > 0 {
         counts.push(format!("{} hidden by masks", report.masked_bytes));
+    }
+    if !report.skipped_seqs.is_empty() {
+        let n = report.skipped_seqs.len();
+        counts.push(format!("{n} write{} skipped", if n == 1 { "" } else { "s" }));
+    }
+    if report.left_out > 0 {
+        counts.push(format!("{} recorded frames ignored", report.left_out));
     }
     let counts = match counts.is_empty() {
         true => String::new(),
@@ -261,23 +300,80 @@ pub struct DiffArgs {
     /// Print only the summaries.
     #[arg(long, short = 'q')]
     pub quiet: bool,
+    /// Leave out frames whose number depends on the board's speed or luck:
+    /// polls (all but the last of a wait), retries (all but the last
+    /// attempt), scans (every probe); comma-separated.
+    #[arg(long, value_name = "LIST", value_parser = parse_ignore)]
+    pub ignore: Option<Ignore>,
+    /// Print the differences, the per-address summaries and the verdict as
+    /// JSON lines (docs/traces.md) instead.
+    #[arg(long, conflicts_with = "quiet")]
+    pub json: bool,
     #[command(flatten)]
     pub show: ShowArgs,
+}
+
+pub(super) fn parse_ignore(s: &str) -> Result<Ignore, String> {
+    s.parse().map_err(|e: crate::trace::ignore::IgnoreError| e.to_string())
+}
+
+/// The frames `range` of a keyed trace, read back from its file.
+fn frames_of(path: &Path, keyed: &Keyed, range: std::ops::Range<usize>) -> Result<Vec<crate::record::Frame>> {
+    let mut r = TraceReader::open(path)?;
+    let mut out = Vec::new();
+    for i in range {
+        let (offset, line) = keyed.places[i];
+        if let Record::Frame(f) = r.record_at(offset, line)? {
+            out.push(f);
+        }
+    }
+    Ok(out)
+}
+
+/// `diff --json`: one object per line, see docs/traces.md ("diff --json").
+fn diff_json(a: &DiffArgs, ka: &Keyed, kb: &Keyed, hunks: &[Hunk]) -> Result<u8> {
+    let mut out = out::locked();
+    let side = |path: &Path, k: &Keyed, r: &std::ops::Range<usize>| -> Result<serde_json::Value> {
+        let frames: Vec<_> = frames_of(path, k, r.clone())?.into_iter().map(Record::Frame).collect();
+        Ok(serde_json::json!({ "first": r.start + 1, "count": r.len(), "frames": frames }))
+    };
+    for (n, h) in hunks.iter().enumerate() {
+        let v = serde_json::json!({
+            "kind": "difference", "n": n + 1, "a": side(&a.a, ka, &h.a)?, "b": side(&a.b, kb, &h.b)?,
+        });
+        writeln!(out, "{v}")?;
+    }
+    let none = Stats::default();
+    let addrs: std::collections::BTreeSet<_> = ka.summary.keys().chain(kb.summary.keys()).collect();
+    for addr in addrs {
+        let (sa, sb) = (ka.summary.get(addr).unwrap_or(&none), kb.summary.get(addr).unwrap_or(&none));
+        let stats = |s: &Stats| {
+            serde_json::json!({
+                "transactions": s.transactions, "retries": s.retries, "nacks": s.other_nacks(),
+                "probes": s.probes, "probe_nacks": s.probe_nacks, "bytes_written": s.bytes_written,
+                "bytes_read": s.bytes_read, "bus_ns": s.bus_time.as_nanos() as u64,
+            })
+        };
+        let v = serde_json::json!({
+            "kind": "address", "address": addr.to_string(), "same": sa == sb, "a": stats(sa), "b": stats(sb),
+        });
+        writeln!(out, "{v}")?;
+    }
+    let v = serde_json::json!({
+        "kind": "verdict", "same": hunks.is_empty(), "differences": hunks.len(),
+        "a": { "path": a.a.display().to_string(), "frames": ka.keys.len(), "left_out": ka.left_out },
+        "b": { "path": a.b.display().to_string(), "frames": kb.keys.len(), "left_out": kb.left_out },
+        "ignored": a.ignore.unwrap_or_default().to_string(),
+    });
+    writeln!(out, "{v}")?;
+    Ok(if hunks.is_empty() { exit::OK } else { exit::DIVERGED })
 }
 
 /// The frame lines of frames `range` of a keyed trace, laid out by `layout`
 /// (the trace's own script named as the run named it).
 fn frames_at(path: &Path, keyed: &Keyed, range: std::ops::Range<usize>, layout: &Layout) -> Result<Vec<String>> {
     let layout = Layout { script: keyed.header.script.as_ref().map(|s| s.path.as_str().into()), ..layout.clone() };
-    let mut r = TraceReader::open(path)?;
-    let mut out = Vec::new();
-    for i in range {
-        let (offset, line) = keyed.places[i];
-        if let Record::Frame(f) = r.record_at(offset, line)? {
-            out.push(frame_line(&f, &layout));
-        }
-    }
-    Ok(out)
+    Ok(frames_of(path, keyed, range)?.iter().map(|f| frame_line(f, &layout)).collect())
 }
 
 /// The columns of the per-address summary (79 wide with the address and
@@ -307,7 +403,8 @@ fn silent(s: &Stats) -> bool {
 
 pub fn diff(a: DiffArgs) -> Result<u8> {
     let masks = Masks(a.mask.clone());
-    let (ka, kb) = key_files(&a.a, &a.b, &masks)?;
+    let ignore = a.ignore.unwrap_or_default();
+    let (ka, kb) = key_files(&a.a, &a.b, &masks, ignore)?;
     let mut err = std::io::stderr().lock();
     let err_colour = a.show.colour.resolve_stderr();
     for w in ka.warnings.iter().chain(&kb.warnings) {
@@ -320,6 +417,9 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
     names.merge(&kb.names);
     names.check(&masks, &format!("{} or {}", shown(a.a.display().to_string()), shown(a.b.display().to_string())))?;
     let hunks = align(&ka.keys, &kb.keys);
+    if a.json {
+        return diff_json(&a, &ka, &kb, &hunks);
+    }
     let colour = a.show.colour.resolve();
     // Frame lines are indented by `  A `, and keep every byte: they are
     // there to be compared.
@@ -328,6 +428,9 @@ pub fn diff(a: DiffArgs) -> Result<u8> {
     let mut out = out::locked();
     writeln!(out, "A = {} ({} frames)", shown(a.a.display()), ka.keys.len())?;
     writeln!(out, "B = {} ({} frames)", shown(a.b.display()), kb.keys.len())?;
+    if ignore.any() {
+        writeln!(out, "ignoring {ignore}: {} frames of A and {} of B left out", ka.left_out, kb.left_out)?;
+    }
     if !a.quiet {
         for (n, Hunk { a: ra, b: rb }) in hunks.iter().take(a.show_n).enumerate() {
             writeln!(
@@ -414,9 +517,26 @@ pub struct ToScriptArgs {
     /// Turn recorded reads into check_eq calls, so the script fails where the board differs.
     #[arg(long)]
     pub checks: bool,
+    /// With --checks, leave these read bytes unchecked (volatile readings):
+    /// ADDRESS[,reg=REG][,bytes=A-B]; repeatable.
+    #[arg(long, value_name = "MASK", value_parser = parse_mask)]
+    pub mask: Vec<Mask>,
+    /// A wait's timeout is FACTOR times what the recording needed, plus 1 ms
+    /// (a board slower than the recorded one still passes).
+    #[arg(long, value_name = "FACTOR", default_value_t = crate::trace::to_script::DEFAULT_MARGIN,
+          value_parser = parse_margin)]
+    pub margin: f64,
     /// Replace the file -o names if it exists.
     #[arg(long, requires = "output")]
     pub force: bool,
+}
+
+fn parse_margin(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(f) if f.is_finite() && (1.0..=100.0).contains(&f) => Ok(f),
+        Ok(_) => Err(format!("`{s}` is outside 1-100: the timeout is FACTOR times the recorded wait")),
+        Err(_) => Err(format!("`{s}` is not a number")),
+    }
 }
 
 pub fn to_script(a: ToScriptArgs) -> Result<u8> {
@@ -427,7 +547,13 @@ pub fn to_script(a: ToScriptArgs) -> Result<u8> {
     for w in &trace.warnings {
         eprintln!("warning: {}", shown(w));
     }
-    let text = convert(&trace, &ScriptOptions { checks: a.checks });
+    let masks = Masks(a.mask.clone());
+    let mut names = crate::trace::mask::RegisterNames::default();
+    for f in trace.frames() {
+        names.add(f);
+    }
+    names.check(&masks, &a.trace.display().to_string())?;
+    let text = convert(&trace, &ScriptOptions { checks: a.checks, masks, margin: a.margin });
     match &a.output {
         Some(p) => {
             let mut f = outputs::create(p, a.force)?;

@@ -132,6 +132,13 @@ impl Session {
         self.adapter.as_mut()
     }
 
+    /// The adapter back, for a caller that ran a session on it and goes on
+    /// with another (a reset script before a trial). Sinks are dropped
+    /// unflushed: give such a session none that needs [`Session::finish`].
+    pub fn into_adapter(self) -> Box<dyn Adapter> {
+        self.adapter
+    }
+
     pub fn adapter_ref(&self) -> &dyn Adapter {
         self.adapter.as_ref()
     }

@@ -29,6 +29,7 @@ use serde::Deserialize;
 
 use crate::bus::{Address, Fault, Operation, Outcome};
 
+use super::ignore::{Collapse, Ignore};
 use super::mask::{Masks, RegisterNames};
 use super::{Header, TraceError, TraceReader};
 use crate::record::{Frame, Purpose, Stats};
@@ -46,6 +47,8 @@ pub struct Keyed {
     pub summary: BTreeMap<Address, Stats>,
     /// The register names the frames carry, for checking masks.
     pub names: RegisterNames,
+    /// Frames left out by the [`Ignore`] asked for.
+    pub left_out: u64,
     pub warnings: Vec<String>,
 }
 
@@ -131,37 +134,55 @@ impl FrameLine<'_> {
     }
 }
 
-/// Reads a trace into keys and summaries, one frame at a time.
-pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks) -> Result<Keyed, TraceError> {
+/// Reads a trace into keys and summaries, one frame at a time, leaving
+/// out what `ignore` says (see [`super::ignore`]); the summaries count
+/// only the frames kept.
+pub fn key_trace<R: BufRead>(r: &mut TraceReader<R>, masks: &Masks, ignore: Ignore) -> Result<Keyed, TraceError> {
     let mut keyed = Keyed {
         header: r.header().clone(),
         keys: Vec::new(),
         places: Vec::new(),
         summary: BTreeMap::new(),
         names: RegisterNames::default(),
+        left_out: 0,
         warnings: Vec::new(),
     };
     let parse = |line: &[u8]| serde_json::from_slice::<FrameLine>(line).map(FrameLine::into_frame);
-    while let Some((line, offset, f)) = r.next_with(parse)? {
-        let Some(f) = f else { continue };
+    let mut collapse = Collapse::new(ignore);
+    let keep = |keyed: &mut Keyed, (mut f, place): (Frame, (u64, u64))| {
+        if ignore.retries {
+            // The attempt kept stands for its request: counted as one
+            // transaction, not as a retry, whichever attempt it was.
+            f.attempt = 1;
+        }
         keyed.keys.push(frame_key(&f, masks));
-        keyed.places.push((offset, line));
+        keyed.places.push(place);
         keyed.summary.entry(f.address).or_default().add_frame(&f);
         keyed.names.add(&f);
+    };
+    while let Some((line, offset, f)) = r.next_with(parse)? {
+        let Some(f) = f else { continue };
+        if let Some(kept) = collapse.push(f, (offset, line)) {
+            keep(&mut keyed, kept);
+        }
     }
+    if let Some(kept) = collapse.finish() {
+        keep(&mut keyed, kept);
+    }
+    keyed.left_out = collapse.left_out;
     keyed.warnings = r.warnings().to_vec();
     Ok(keyed)
 }
 
-pub fn key_file(path: &Path, masks: &Masks) -> Result<Keyed, TraceError> {
-    key_trace(&mut TraceReader::open(path)?, masks)
+pub fn key_file(path: &Path, masks: &Masks, ignore: Ignore) -> Result<Keyed, TraceError> {
+    key_trace(&mut TraceReader::open(path)?, masks, ignore)
 }
 
 /// Keys two files at once, one thread each.
-pub fn key_files(a: &Path, b: &Path, masks: &Masks) -> Result<(Keyed, Keyed), TraceError> {
+pub fn key_files(a: &Path, b: &Path, masks: &Masks, ignore: Ignore) -> Result<(Keyed, Keyed), TraceError> {
     std::thread::scope(|s| {
-        let other = s.spawn(|| key_file(b, masks));
-        let ka = key_file(a, masks);
+        let other = s.spawn(|| key_file(b, masks, ignore));
+        let ka = key_file(a, masks, ignore);
         let kb = match other.join() {
             Ok(r) => r,
             Err(panic) => std::panic::resume_unwind(panic),

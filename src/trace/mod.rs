@@ -6,7 +6,7 @@
 //! [`crate::record`]; this room holds [`header`] (a trace file's first
 //! line), [`file`] (writing and reading trace files), [`mask`] (volatile
 //! data to ignore when comparing), [`replay`] (play a trace against an
-//! adapter and compare), [`diff`] (align two traces), [`to_script`]
+//! adapter and compare), [`diff`] (align two traces), [`ignore`] (polls, retries and scans left out of both), [`to_script`]
 //! (turn a trace into an editable Lua script), [`shrink`] (the fewest
 //! recorded transactions that still diverge, through [`ddmin`]). The format is documented
 //! in docs/traces.md.
@@ -16,6 +16,7 @@ pub mod ddmin;
 pub mod diff;
 pub mod file;
 pub mod header;
+pub mod ignore;
 pub mod mask;
 pub mod replay;
 pub mod shrink;

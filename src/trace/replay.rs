@@ -33,6 +33,7 @@ use crate::bus::transaction::MAX_OPERATION_BYTES;
 use crate::bus::{Fault, FaultClass, Operation, Outcome, Transaction};
 use crate::player::{Request, RetryPolicy, RunError, Session};
 
+use super::ignore::Ignore;
 use super::mask::{Masks, RegisterNames};
 use super::{TraceError, TraceReader};
 use crate::record::{Frame, Origin, Record, Sink};
@@ -45,7 +46,50 @@ pub struct ReplayOptions {
     /// Go on after a diverging frame.
     pub keep_going: bool,
     pub masks: Masks,
+    /// Polls, retries and scans replayed loosely (see the module contract).
+    pub ignore: Ignore,
+    /// Send no frame that writes data ([`writes_data`]); list them as skipped.
+    pub skip_writes: bool,
 }
+
+impl Default for ReplayOptions {
+    /// Recorded gaps kept, stop at the first divergence, nothing masked,
+    /// ignored or skipped.
+    fn default() -> Self {
+        ReplayOptions {
+            time_scale: Some(1.0),
+            keep_going: false,
+            masks: Masks::default(),
+            ignore: Ignore::default(),
+            skip_writes: false,
+        }
+    }
+}
+
+/// Whether a frame writes data to its target: any written byte except a
+/// register pointer that a read in the same frame follows (a
+/// write-then-read with repeated START). Address-only probes write
+/// nothing. A pointer sent in a frame of its own counts as a write: the
+/// frame alone cannot tell a pointer from a one-byte command.
+pub fn writes_data(f: &Frame) -> bool {
+    f.ops.iter().enumerate().any(|(i, op)| match op {
+        Operation::Write(b) if b.is_empty() => false,
+        Operation::Write(_) => {
+            !(i == 0 && f.ops.len() > 1 && f.ops[1..].iter().all(|o| o.direction() == crate::bus::Direction::Read))
+        }
+        _ => false,
+    })
+}
+
+/// How long a wait replayed with polls ignored may poll: twice what the
+/// recording needed plus a millisecond, so a board half as fast again
+/// still matches while a board that never gets ready stops the replay.
+pub fn wait_budget(recorded: Duration) -> Duration {
+    recorded * 2 + Duration::from_millis(1)
+}
+
+/// How many skipped writes a report keeps whole (all are counted).
+pub const SKIPPED_KEPT: usize = 50;
 
 /// What differed.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -222,6 +266,12 @@ pub struct ReplayReport {
     pub stopped: Option<Stop>,
     /// Whether the replay stopped at a divergence (not at the end).
     pub stopped_at_divergence: bool,
+    /// Frames not sent because they write ([`ReplayOptions::skip_writes`]):
+    /// all their sequence numbers, and the first [`SKIPPED_KEPT`] whole.
+    pub skipped_seqs: Vec<u64>,
+    pub skipped: Vec<Frame>,
+    /// Recorded frames left out by [`ReplayOptions::ignore`].
+    pub left_out: u64,
 }
 
 /// Keeps the last frame the session emitted: the outcome of a NACKed
@@ -316,12 +366,12 @@ pub const MAX_OFFSET: Duration = Duration::from_secs(30 * 86_400);
 fn offset(
     file: &str,
     line: u64,
-    f: &Frame,
+    (seq, t): (u64, Duration),
     clock0: Duration,
     scale: Option<f64>,
 ) -> Option<Result<Duration, TraceError>> {
     let scale = scale?;
-    let offset = f.t.saturating_sub(clock0).as_secs_f64() * scale;
+    let offset = t.saturating_sub(clock0).as_secs_f64() * scale;
     if offset <= MAX_OFFSET.as_secs_f64() {
         return Some(Ok(Duration::from_secs_f64(offset)));
     }
@@ -331,9 +381,8 @@ fn offset(
         file: file.to_string(),
         line,
         detail: format!(
-            "frame {} would be replayed {offset:.0} s after the start; a recording longer than {} days is taken as \
+            "frame {seq} would be replayed {offset:.0} s after the start; a recording longer than {} days is taken as \
              damaged",
-            f.seq,
             MAX_OFFSET.as_secs() / 86_400
         ),
     }))
@@ -412,7 +461,7 @@ pub fn check<R: BufRead>(trace: &mut TraceReader<R>, time_scale: Option<f64>) ->
     let mut checked = Checked::default();
     while let Some(located) = trace.next_located()? {
         let Record::Frame(f) = located.record else { continue };
-        if let Some(Err(e)) = offset(trace.file(), trace.line(), &f, clock0, time_scale) {
+        if let Some(Err(e)) = offset(trace.file(), trace.line(), (f.seq, f.t), clock0, time_scale) {
             return Err(e);
         }
         checked.note(&f, located.line);
@@ -460,20 +509,40 @@ pub fn replay_records<'a>(
     })
 }
 
+/// A record from a source, with where it stands (file, line).
+type Sourced = (Result<Option<Record>, TraceError>, String, u64);
+
+/// What the frames left out before a kept one tell about it: when the
+/// wait or the request they belong to started in the recording, and the
+/// recorded gap between its tries.
+#[derive(Debug, Default, Clone, Copy)]
+struct LeftOut {
+    since: Option<Duration>,
+    gap: Option<Duration>,
+}
+
 /// The replay loop over any record source: `next` gives the next record
 /// and where it stands (file, line) for errors.
 fn replay_from(
     session: &mut Session,
     clock0: Duration,
     opts: &ReplayOptions,
-    mut next: impl FnMut() -> (Result<Option<Record>, TraceError>, String, u64),
+    mut next: impl FnMut() -> Sourced,
 ) -> ReplayReport {
     let last = Rc::new(RefCell::new(None));
     session.add_sink(Box::new(LastFrame(last.clone())));
     let start = session.now();
     let mut report = ReplayReport::default();
+    // A frame's fate may depend on the one after it (see `Ignore`): that
+    // one is read ahead and kept here.
+    let mut ahead: Option<Sourced> = None;
+    let mut before = LeftOut::default();
+    let scaled = |d: Duration| match opts.time_scale {
+        Some(s) => Duration::from_secs_f64(d.as_secs_f64() * s),
+        None => d,
+    };
     loop {
-        let (record, file, line) = next();
+        let (record, file, line) = ahead.take().unwrap_or_else(&mut next);
         let record = match record {
             Ok(Some(r)) => r,
             Ok(None) => break,
@@ -490,7 +559,34 @@ fn replay_from(
             }
             Record::Log { .. } | Record::End { .. } => continue,
         };
-        if let Some(offset) = offset(&file, line, &f, clock0, opts.time_scale) {
+        if opts.skip_writes && writes_data(&f) {
+            report.skipped_seqs.push(f.seq);
+            if report.skipped.len() < SKIPPED_KEPT {
+                report.skipped.push(f);
+            }
+            continue;
+        }
+        if opts.ignore.drops(&f) {
+            report.left_out += 1;
+            continue;
+        }
+        if opts.ignore.polls || opts.ignore.retries {
+            let peek = next();
+            if let Ok(Some(Record::Frame(n))) = &peek.0
+                && opts.ignore.superseded(&f, n)
+            {
+                before.since.get_or_insert(f.t);
+                before.gap = Some(n.t.saturating_sub(f.t + f.outcome.bus_time));
+                report.left_out += 1;
+                ahead = Some(peek);
+                continue;
+            }
+            ahead = Some(peek);
+        }
+        let left_out = std::mem::take(&mut before);
+        // A kept frame that stands for others starts when the first of them did.
+        let recorded_start = (f.seq, left_out.since.unwrap_or(f.t));
+        if let Some(offset) = offset(&file, line, recorded_start, clock0, opts.time_scale) {
             let offset = match offset {
                 Ok(o) => o,
                 Err(e) => {
@@ -507,26 +603,53 @@ fn replay_from(
                 break;
             }
         }
+        // Polls ignored: poll until the recorded end of the wait, within its budget.
+        let polling = opts.ignore.is_ignored_poll(&f);
+        let deadline = polling.then(|| {
+            let recorded = (f.t + f.outcome.bus_time).saturating_sub(left_out.since.unwrap_or(f.t));
+            session.now() + scaled(wait_budget(recorded))
+        });
+        let interval = scaled(left_out.gap.unwrap_or(Duration::from_micros(500)));
+        // Retries ignored: as many tries as the recording allowed.
+        let retry = match opts.ignore.retries && f.attempts > 1 {
+            true => RetryPolicy {
+                attempts: f.attempts.min(crate::player::retry::MAX_ATTEMPTS),
+                delay: left_out.gap.map(scaled).unwrap_or_default(),
+                backoff: 1.0,
+            },
+            false => RetryPolicy::default(),
+        };
         let req = Request {
-            retry: Some(RetryPolicy::default()),
+            retry: Some(retry),
             origin: f.origin.clone(),
             purpose: f.purpose.clone(),
             decoded: f.decoded.clone(),
             allow_reserved: true,
         };
-        last.borrow_mut().take();
-        let result = session.transact(&Transaction::new(f.address, f.ops.clone()), &req);
-        let stop = match result {
-            Ok(_) | Err(RunError::Bus { .. }) => None,
-            Err(e) => Some(e),
+        let tx = Transaction::new(f.address, f.ops.clone());
+        let (stop, done, divs, masked) = loop {
+            last.borrow_mut().take();
+            let result = session.transact(&tx, &req);
+            let stop = match result {
+                Ok(_) | Err(RunError::Bus { .. }) => None,
+                Err(e) => Some(e),
+            };
+            let Some(done) = last.borrow_mut().take() else { break (stop, None, Vec::new(), 0) };
+            report.frames += u64::from(if opts.ignore.retries { done.attempt.max(1) } else { 1 });
+            let (divs, masked) = compare(&f, &done.outcome, done.seq, &opts.masks);
+            let again = deadline.is_some_and(|d| session.now() < d) && !divs.is_empty() && stop.is_none();
+            if !again {
+                break (stop, Some(done), divs, masked);
+            }
+            if let Err(e) = session.delay(interval) {
+                break (Some(e), Some(done), divs, masked);
+            }
         };
-        let Some(done) = last.borrow_mut().take() else {
+        if done.is_none() {
             // Nothing reached the bus: the adapter refused the shape, or an interrupt.
             report.stopped = stop.map(Stop::Run);
             break;
-        };
-        report.frames += 1;
-        let (divs, masked) = compare(&f, &done.outcome, done.seq, &opts.masks);
+        }
         report.masked_bytes += masked;
         let diverged = !divs.is_empty();
         report.diverged_frames += diverged as u64;

@@ -42,6 +42,8 @@ pub struct ShrinkOptions {
     /// Run the cheap passes before ddmin (the default); off, ddmin alone
     /// works on everything before the divergence.
     pub quick_passes: bool,
+    /// After ddmin, try each kept gap shorter ([`shorten_gaps`]).
+    pub shorter_gaps: bool,
 }
 
 /// Where the search is, for a progress line.
@@ -91,12 +93,30 @@ pub struct Shrunk {
     pub passes: Vec<(&'static str, u64, usize)>,
     pub cut: Option<Cut>,
     pub elapsed: Duration,
+    /// New start times of the kept frames, in `kept`'s order, where the
+    /// gap pass shortened any gap (`None`: the recorded times).
+    pub retimed: Option<Vec<Duration>>,
 }
 
 impl Shrunk {
-    /// The kept records in order: the step record a kept frame ran under
-    /// goes before it, once.
-    pub fn records<'a>(&self, trace: &'a Trace) -> Vec<&'a Record> {
+    /// The kept records in order, with the times the gap pass gave them:
+    /// the step record a kept frame ran under goes before it, once.
+    pub fn records(&self, trace: &Trace) -> Vec<Record> {
+        let mut k = 0;
+        self.records_as_recorded(trace)
+            .into_iter()
+            .map(|r| match (r, &self.retimed) {
+                (Record::Frame(f), Some(times)) => {
+                    let t = times.get(k).copied().unwrap_or(f.t);
+                    k += 1;
+                    Record::Frame(crate::record::Frame { t, ..f.clone() })
+                }
+                (r, _) => r.clone(),
+            })
+            .collect()
+    }
+
+    fn records_as_recorded<'a>(&self, trace: &'a Trace) -> Vec<&'a Record> {
         let mut out = Vec::new();
         let mut step: Option<usize> = None;
         let mut written_step: Option<usize> = None;
@@ -154,14 +174,33 @@ enum Trial {
 }
 
 impl Trials<'_> {
-    fn replay(&mut self, frames: &[usize]) -> Result<Trial, ShrinkError> {
+    /// Replays the frames at `frames` (indices into the records), at
+    /// `times` where given (one per frame) instead of their recorded ones.
+    fn replay(&mut self, frames: &[usize], times: Option<&[Duration]>) -> Result<Trial, ShrinkError> {
         let adapter = (self.open)().map_err(ShrinkError::Open)?;
         let mut session = Session::new(adapter, self.interrupt.clone());
         if let Some(t) = self.opts.max_time {
             session.set_time_limit(Some(t.saturating_sub(self.started.elapsed()).max(Duration::from_millis(1))));
         }
-        let records = frames.iter().map(|&i| &self.trace.records[i]);
-        let report = replay_records(&mut session, self.trace.header.clock, "candidate", records, &self.opts.replay);
+        let retimed: Vec<Record> = match times {
+            Some(times) => frames
+                .iter()
+                .zip(times)
+                .map(|(&i, &t)| match &self.trace.records[i] {
+                    Record::Frame(f) => Record::Frame(crate::record::Frame { t, ..f.clone() }),
+                    r => r.clone(),
+                })
+                .collect(),
+            None => Vec::new(),
+        };
+        let clock = self.trace.header.clock;
+        let opts = &self.opts.replay;
+        let report = match times {
+            Some(_) => replay_records(&mut session, clock, "candidate", &retimed, opts),
+            None => {
+                replay_records(&mut session, clock, "candidate", frames.iter().map(|&i| &self.trace.records[i]), opts)
+            }
+        };
         self.trials += 1;
         if let Some(d) = report.divergences.into_iter().next() {
             return Ok(Trial::Diverged(d));
@@ -177,6 +216,14 @@ impl Trials<'_> {
     /// Whether `items` (with the diverging frame after them) reproduces;
     /// `None` when a limit says stop.
     fn test(&mut self, items: &[usize], last: usize) -> Option<bool> {
+        let mut frames = items.to_vec();
+        frames.push(last);
+        self.test_at(&frames, None)
+    }
+
+    /// Whether `frames` (the diverging one last) reproduce, at `times`
+    /// where given; `None` when a limit says stop.
+    fn test_at(&mut self, frames: &[usize], times: Option<&[Duration]>) -> Option<bool> {
         if self.interrupt.load(Ordering::Relaxed) {
             self.cut = Some(Cut::Interrupt);
             return None;
@@ -189,8 +236,6 @@ impl Trials<'_> {
             self.cut = Some(Cut::Time);
             return None;
         }
-        let mut frames = items.to_vec();
-        frames.push(last);
         (self.progress)(&Progress {
             pass: self.pass,
             trials: self.trials,
@@ -198,7 +243,7 @@ impl Trials<'_> {
             best: self.best,
             elapsed: self.started.elapsed(),
         });
-        let result = self.replay(&frames).ok()?;
+        let result = self.replay(frames, times).ok()?;
         if self.interrupt.load(Ordering::Relaxed) {
             self.cut = Some(Cut::Interrupt);
             return None;
@@ -236,7 +281,7 @@ pub fn shrink(
         pass: "whole recording",
         progress,
     };
-    let target = match t.replay(&frames)? {
+    let target = match t.replay(&frames, None)? {
         Trial::Diverged(d) => d,
         Trial::Clean(n) => return Err(ShrinkError::NoDivergence { frames: n }),
         Trial::Stopped(why) if why == "interrupted" => return Err(ShrinkError::Interrupted),
@@ -262,6 +307,7 @@ pub fn shrink(
         passes,
         cut,
         elapsed: t.started.elapsed(),
+        retimed: None,
     };
     // Pass 2: the diverging frame alone.
     t.pass = "the diverging frame alone";
@@ -313,7 +359,52 @@ pub fn shrink(
         passes.push((t.pass, t.trials, items.len() + 1));
     }
     let cut = t.cut;
-    Ok(done(&t, items, passes, cut))
+    let mut shrunk = done(&t, items, passes, cut);
+    if opts.shorter_gaps && cut.is_none() {
+        t.pass = "shorter gaps";
+        let (times, gap_cut) = shorten_gaps(&mut t, &shrunk.kept);
+        shrunk.passes.push((t.pass, t.trials, shrunk.kept.len()));
+        shrunk.retimed = Some(times);
+        shrunk.cut = gap_cut;
+        shrunk.trials = t.trials;
+        shrunk.elapsed = t.started.elapsed();
+    }
+    Ok(shrunk)
+}
+
+/// The gap pass: for each kept frame in turn, the gap before it (from the
+/// end of the kept frame before it, or from the recording's start) is
+/// tried at none, then at half; the first that still reproduces is kept,
+/// and the frames after it move earlier with it. Two trials per gap at
+/// most. Returns the start times and why the pass was cut short, if it was.
+fn shorten_gaps(t: &mut Trials, kept: &[usize]) -> (Vec<Duration>, Option<Cut>) {
+    let frame = |i: usize| match &t.trace.records[i] {
+        Record::Frame(f) => Some((f.t, f.outcome.bus_time)),
+        _ => None,
+    };
+    let recorded: Vec<(Duration, Duration)> = kept.iter().filter_map(|&i| frame(i)).collect();
+    let mut times: Vec<Duration> = recorded.iter().map(|r| r.0).collect();
+    for k in 0..times.len() {
+        let prev_end = if k == 0 { t.trace.header.clock } else { times[k - 1] + recorded[k - 1].1 };
+        let gap = times[k].saturating_sub(prev_end);
+        if gap.is_zero() {
+            continue;
+        }
+        for shorter in [Duration::ZERO, gap / 2] {
+            let shift = gap - shorter;
+            let trial: Vec<Duration> =
+                times.iter().enumerate().map(|(j, &x)| if j >= k { x.saturating_sub(shift) } else { x }).collect();
+            match t.test_at(kept, Some(&trial)) {
+                None => return (times, t.cut),
+                Some(true) => {
+                    times = trial;
+                    break;
+                }
+                Some(false) => {}
+            }
+        }
+    }
+    (times, None)
 }
 
 /// The frames among `items` grouped by the step they ran under.

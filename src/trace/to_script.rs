@@ -17,7 +17,7 @@
 //!   recording went on after it, and left bare when the run ended there,
 //!   so the script fails where the recording did.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
 use std::time::Duration;
 
@@ -25,13 +25,37 @@ use crate::ascii::hex_bytes;
 use crate::bus::{Address, Operation};
 
 use super::Trace;
+use super::ignore::{retry_of, same_wait};
+use super::mask::Masks;
 use crate::record::{Frame, Purpose, Record};
+use crate::smbus::{BlockLimit, Call, Request as SmbusRequest, Value as SmbusValue};
 
 /// Conversion options.
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone)]
 pub struct ScriptOptions {
     /// Emit recorded reads as `check_eq` instead of comments.
     pub checks: bool,
+    /// Read bytes the checks leave alone (volatile readings).
+    pub masks: Masks,
+    /// A wait's timeout is this many times what the recording needed,
+    /// plus a millisecond ([`wait_timeout`]).
+    pub margin: f64,
+}
+
+impl Default for ScriptOptions {
+    fn default() -> Self {
+        ScriptOptions { checks: false, masks: Masks::default(), margin: DEFAULT_MARGIN }
+    }
+}
+
+/// The default [`ScriptOptions::margin`]: a board half as fast again as
+/// the recorded one still passes, one that never gets ready still fails.
+pub const DEFAULT_MARGIN: f64 = 2.0;
+
+/// A generated wait's timeout: `margin` times the `recorded` duration
+/// plus 1 ms (so a wait that needed no time at all still gets some).
+pub fn wait_timeout(recorded: Duration, margin: f64) -> Duration {
+    Duration::from_secs_f64(recorded.as_secs_f64() * margin.max(1.0)) + Duration::from_millis(1)
 }
 
 /// Gaps shorter than this are the adapter's own turnaround, not a wait.
@@ -103,7 +127,17 @@ fn comment_text(s: &str) -> std::borrow::Cow<'_, str> {
 struct Device {
     var: String,
     pointer_bytes: usize,
-    regs: BTreeMap<String, u32>,
+    /// Register number and, where a wait reads it whole, its width in bytes.
+    regs: BTreeMap<String, (u32, Option<usize>)>,
+    /// The handle's register width in bytes, for waits on numbered registers.
+    width: Option<usize>,
+}
+
+fn device_var(addr: Address) -> String {
+    match addr {
+        Address::Seven(v) => format!("dev_{v:02x}"),
+        Address::Ten(v) => format!("dev10_{v:03x}"),
+    }
 }
 
 /// Which addresses get a device handle: every decoded frame must have a
@@ -138,19 +172,103 @@ fn infer_devices(frames: &[&Frame]) -> BTreeMap<Address, Device> {
                 continue 'addr;
             }
         }
-        let var = match addr {
-            Address::Seven(v) => format!("dev_{v:02x}"),
-            Address::Ten(v) => format!("dev10_{v:03x}"),
-        };
-        out.insert(addr, Device { var, pointer_bytes: pb, regs });
+        let regs = regs.into_iter().map(|(n, at)| (n, (at, None))).collect();
+        out.insert(addr, Device { var: device_var(addr), pointer_bytes: pb, regs, width: None });
     }
     out
+}
+
+/// The SMBus call a frame was, where its recorded name says so and the
+/// call rebuilt from its bytes puts exactly its operations on the bus:
+/// the Lua call (and whether it returns a value) and, for a read, the
+/// value it returned in the recording as a Lua literal. The PEC is asked
+/// for where the frame carried one, so the script checks it again.
+fn smbus_call(f: &Frame, retry: Option<&str>) -> Option<((String, bool), Option<String>)> {
+    let decoded = f.decoded.as_deref()?;
+    let w: &[u8] = match f.ops.first() {
+        Some(Operation::Write(b)) => b,
+        _ => &[],
+    };
+    let at = |i: usize| w.get(i).copied();
+    let word = |i: usize| Some(u16::from_le_bytes([at(i)?, at(i + 1)?]));
+    let block = || {
+        let n = usize::from(at(1)?);
+        w.get(2..2 + n).map(<[u8]>::to_vec)
+    };
+    let (name, command) = match decoded.rsplit_once(" 0x") {
+        Some((name, c)) if c.len() == 2 => (name, u8::from_str_radix(c, 16).ok()),
+        _ => (decoded, None),
+    };
+    let c = command;
+    let (request, lua_fn, args) = match name {
+        "Quick Command" => (SmbusRequest::QuickCommand { read: false }, "quick", String::new()),
+        "Send Byte" => (SmbusRequest::SendByte { data: at(0)? }, "send_byte", format!(", 0x{:02X}", at(0)?)),
+        "Receive Byte" => (SmbusRequest::ReceiveByte, "receive_byte", String::new()),
+        "Write Byte" => {
+            (SmbusRequest::WriteByte { command: c?, data: at(1)? }, "write_byte", format!(", 0x{:02X}", at(1)?))
+        }
+        "Write Word" => {
+            (SmbusRequest::WriteWord { command: c?, data: word(1)? }, "write_word", format!(", 0x{:04X}", word(1)?))
+        }
+        "Read Byte" => (SmbusRequest::ReadByte { command: c? }, "read_byte", String::new()),
+        "Read Word" => (SmbusRequest::ReadWord { command: c? }, "read_word", String::new()),
+        "Process Call" => {
+            (SmbusRequest::ProcessCall { command: c?, data: word(1)? }, "process_call", format!(", 0x{:04X}", word(1)?))
+        }
+        "Block Write" => {
+            let d = block()?;
+            let args = format!(", {}", lua_bytes(&d));
+            (SmbusRequest::BlockWrite { command: c?, data: d }, "block_write", args)
+        }
+        "Block Read" => (SmbusRequest::BlockRead { command: c? }, "block_read", String::new()),
+        "Block Write-Block Read Process Call" => {
+            let d = block()?;
+            let args = format!(", {}", lua_bytes(&d));
+            (SmbusRequest::BlockProcessCall { command: c?, data: d }, "block_process_call", args)
+        }
+        _ => return None,
+    };
+    let pec = f.pec.is_some();
+    let call = [BlockLimit::Smbus2, BlockLimit::Smbus3]
+        .into_iter()
+        .map(|limit| Call { address: f.address, request: request.clone(), pec, limit })
+        .find(|call| call.transaction().is_ok_and(|tx| tx.ops == f.ops))?;
+    // The command byte the name gave is the one on the wire.
+    if command.is_some_and(|c| at(0) != Some(c)) {
+        return None;
+    }
+    let mut opts = Vec::new();
+    if pec {
+        opts.push("pec = true".to_string());
+    }
+    if call.limit == BlockLimit::Smbus3 {
+        opts.push("limit = \"3\"".to_string());
+    }
+    if let Some(r) = retry {
+        opts.push(format!("retry = {r}"));
+    }
+    let opts = if opts.is_empty() { String::new() } else { format!(", {{ {} }}", opts.join(", ")) };
+    let command = command.map(|c| format!(", 0x{c:02X}")).unwrap_or_default();
+    let text = format!("smbus.{lua_fn}({}{command}{args}{opts})", lua_address(f.address));
+    let value = match f.outcome.fault {
+        Some(_) => None,
+        None => match call.decode(&f.outcome).ok()?.value {
+            SmbusValue::None => None,
+            SmbusValue::Byte(b) => Some(format!("0x{b:02X}")),
+            SmbusValue::Word(v) => Some(format!("0x{v:04X}")),
+            SmbusValue::Block(b) => Some(lua_bytes(&b)),
+        },
+    };
+    let reads = value.is_some();
+    Some(((text, reads), value))
 }
 
 struct Writer<'a> {
     out: String,
     opts: &'a ScriptOptions,
     devices: BTreeMap<Address, Device>,
+    /// The devices some emitted line uses: only those are declared.
+    used: BTreeSet<Address>,
 }
 
 impl Writer<'_> {
@@ -161,22 +279,29 @@ impl Writer<'_> {
 
     /// The call that puts `f`'s transaction on the bus, and whether it
     /// returns read data.
-    fn call(&self, f: &Frame, retry: Option<String>) -> (String, bool) {
+    fn call(&mut self, f: &Frame, retry: Option<String>) -> (String, bool) {
         let addr = lua_address(f.address);
+        if let Some((call, _)) = smbus_call(f, retry.as_deref()) {
+            return call;
+        }
         let opts = retry.map(|r| format!(", {{ retry = {r} }}")).unwrap_or_default();
         if opts.is_empty()
             && let (Some(dev), Some(name)) = (self.devices.get(&f.address), f.decoded.as_deref())
         {
             let reg = name.split('.').next().unwrap_or(name);
-            match f.ops.as_slice() {
+            let line = match f.ops.as_slice() {
                 [Operation::Write(_), Operation::Read(n)] => {
-                    return (format!("{}:read_bytes({}, {n})", dev.var, lua_string(reg)), true);
+                    Some((format!("{}:read_bytes({}, {n})", dev.var, lua_string(reg)), true))
                 }
                 [Operation::Write(p)] => {
                     let data = lua_bytes(&p[dev.pointer_bytes..]);
-                    return (format!("{}:write_bytes({}, {data})", dev.var, lua_string(reg)), false);
+                    Some((format!("{}:write_bytes({}, {data})", dev.var, lua_string(reg)), false))
                 }
-                _ => {}
+                _ => None,
+            };
+            if let Some(line) = line {
+                self.used.insert(f.address);
+                return line;
             }
         }
         match f.ops.as_slice() {
@@ -242,19 +367,134 @@ impl Writer<'_> {
             }
             None if reads => {
                 let data = last.outcome.read_bytes();
-                if self.opts.checks {
-                    let what = lua_string(&format!(
-                        "{} read",
-                        first.decoded.as_deref().unwrap_or(&lua_address(first.address))
-                    ));
-                    self.line(&format!("check_eq({call}, {}, {what}){note}", lua_bytes(&data)));
-                } else {
-                    self.line(&format!("{call}{note}"));
-                    self.line(&format!("-- read {}", hex_bytes(&data)));
+                let what = format!("{} read", first.decoded.as_deref().unwrap_or(&lua_address(first.address)));
+                // An SMBus read returns its value, not the bytes on the wire.
+                let value = smbus_call(last, None).and_then(|(_, v)| v);
+                let hidden = self.hidden_bytes(first, data.len());
+                match (self.opts.checks, value) {
+                    (false, value) => {
+                        self.line(&format!("{call}{note}"));
+                        self.line(&format!("-- read {}", value.unwrap_or_else(|| hex_bytes(&data))));
+                    }
+                    (true, _) if hidden.len() == data.len() => {
+                        self.line(&format!("{call}{note}"));
+                        self.line(&format!("-- read {} (masked: not checked)", hex_bytes(&data)));
+                    }
+                    (true, Some(v)) if hidden.is_empty() => {
+                        self.line(&format!("check_eq({call}, {v}, {}){note}", lua_string(&what)));
+                    }
+                    (true, _) if hidden.is_empty() => {
+                        self.line(&format!("check_eq({call}, {}, {}){note}", lua_bytes(&data), lua_string(&what)));
+                    }
+                    (true, _) => {
+                        // Check the bytes no mask hides, one list of them.
+                        let shown: Vec<usize> = (0..data.len()).filter(|i| !hidden.contains(i)).collect();
+                        let got: Vec<String> = shown.iter().map(|i| format!("r[{}]", i + 1)).collect();
+                        let want: Vec<u8> = shown.iter().map(|&i| data[i]).collect();
+                        let what = format!("{what}, bytes {} (the rest masked)", got.join(" "));
+                        self.line(&format!("do{note}"));
+                        self.line(&format!("  local r = {call}"));
+                        self.line(&format!(
+                            "  check_eq({{ {} }}, {}, {})",
+                            got.join(", "),
+                            lua_bytes(&want),
+                            lua_string(&what)
+                        ));
+                        self.line("end");
+                    }
                 }
             }
             None => self.line(&format!("{call}{note}")),
         }
+    }
+
+    /// Indices of `f`'s read bytes (counted over all its reads) the masks hide.
+    fn hidden_bytes(&self, f: &Frame, n: usize) -> BTreeSet<usize> {
+        let fm = self.opts.masks.for_frame(f);
+        if fm.is_empty() {
+            return BTreeSet::new();
+        }
+        (0..n).filter(|&i| fm.hides(i)).collect()
+    }
+
+    /// A run of register polls as the register helper's `wait`: the bits
+    /// that changed between the polls and the last read are the mask, the
+    /// last read's value of them is what is waited for (all bits when
+    /// nothing changed); the timeout has [`ScriptOptions::margin`] over
+    /// what the recording needed. `false` when the polls have no shape the
+    /// helper reads (a register pointer of 1-2 bytes, 1-4 bytes read, no
+    /// failure): the caller writes them one by one.
+    fn wait(&mut self, group: &[&Frame]) -> bool {
+        let first = group[0];
+        let last = group[group.len() - 1];
+        let (pointer, n) = match first.ops.as_slice() {
+            [Operation::Write(p), Operation::Read(n)] if (1..=2).contains(&p.len()) && (1..=4).contains(n) => {
+                (p.clone(), *n)
+            }
+            _ => return false,
+        };
+        if group.iter().any(|f| f.outcome.fault.is_some() || f.outcome.read_bytes().len() != n) {
+            return false;
+        }
+        let value = |f: &Frame| f.outcome.read_bytes().iter().fold(0u64, |acc, b| acc << 8 | u64::from(*b));
+        let full = (1u64 << (8 * n)) - 1;
+        let end = value(last);
+        let changed = group[..group.len() - 1].iter().fold(0, |m, f| m | (value(f) ^ end));
+        let mask = if changed == 0 { full } else { changed };
+        let at = pointer.iter().fold(0u32, |acc, b| acc << 8 | u32::from(*b));
+        // The register by its name where the handle's map has it, else by number.
+        let name = first.decoded.as_deref().map(|d| d.split('.').next().unwrap_or(d).to_string());
+        let reg = match self.devices.get_mut(&first.address) {
+            Some(dev) if dev.pointer_bytes == pointer.len() => {
+                match name.and_then(|name| dev.regs.get_mut(&name).map(|r| (name, r))) {
+                    Some((name, r)) if r.0 == at && r.1.is_none_or(|w| w == n) => {
+                        r.1 = Some(n);
+                        lua_string(&name)
+                    }
+                    _ if n <= 2 && dev.width.is_none_or(|w| w == n) => {
+                        dev.width = Some(n);
+                        format!("0x{at:02X}")
+                    }
+                    _ => return false,
+                }
+            }
+            Some(_) => return false,
+            None if n > 2 => return false,
+            None => {
+                let dev = Device {
+                    var: device_var(first.address),
+                    pointer_bytes: pointer.len(),
+                    regs: BTreeMap::new(),
+                    width: Some(n),
+                };
+                self.devices.insert(first.address, dev);
+                format!("0x{at:02X}")
+            }
+        };
+        self.used.insert(first.address);
+        let interval = match group.get(1) {
+            Some(second) => second.t.saturating_sub(first.t + first.outcome.bus_time),
+            None => Duration::from_millis(1),
+        };
+        let needed = (last.t + last.outcome.bus_time).saturating_sub(first.t);
+        let var = &self.devices[&first.address].var;
+        let digits = 2 * n;
+        let line = format!(
+            "{var}:wait({reg}, 0x{mask:0digits$X}, 0x{:0digits$X}, {{ timeout_ms = {}, interval_ms = {} }})  -- {} poll{} \
+             in the recording, {} ms",
+            end & mask,
+            ms(wait_timeout(needed, self.opts.margin)),
+            ms(interval),
+            group.len(),
+            if group.len() == 1 { "" } else { "s" },
+            ms(needed),
+        );
+        let line = match &first.origin {
+            Some(o) => format!("{line}, from {}", comment_text(&o.to_string())),
+            None => line,
+        };
+        self.line(&line);
+        true
     }
 
     fn ack_poll(&mut self, group: &[&Frame]) {
@@ -266,7 +506,8 @@ impl Writer<'_> {
             Duration::from_micros(500)
         };
         let waited = (last.t + last.outcome.bus_time).saturating_sub(first.t);
-        let timeout = if last.outcome.fault.is_some() { waited } else { waited * 2 + Duration::from_millis(1) };
+        // A wait that timed out in the recording times out the same way.
+        let timeout = if last.outcome.fault.is_some() { waited } else { wait_timeout(waited, self.opts.margin) };
         self.line(&format!(
             "bus.wait_ack({}, {{ timeout_ms = {}, interval_ms = {} }})  -- {} polls in the recording",
             lua_address(first.address),
@@ -293,19 +534,10 @@ fn trim_float(v: f64) -> String {
     s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
-/// Whether `next` is another attempt of the same request as `prev`.
-fn retry_of(prev: &Frame, next: &Frame) -> bool {
-    next.attempt == prev.attempt + 1
-        && next.address == prev.address
-        && next.ops == prev.ops
-        && next.origin == prev.origin
-        && next.purpose == prev.purpose
-}
-
 /// Converts a trace; see the module contract.
 pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
     let frames: Vec<&Frame> = trace.frames().collect();
-    let mut w = Writer { out: String::new(), opts, devices: infer_devices(&frames) };
+    let mut w = Writer { out: String::new(), opts, devices: infer_devices(&frames), used: BTreeSet::new() };
     let h = &trace.header;
     w.line("-- Generated by buscue to-script from a trace; edit freely.");
     if let Some(s) = &h.script {
@@ -318,27 +550,8 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
         w.line(&format!("-- parameter {} = {}", comment_text(k), comment_text(v)));
     }
     w.line("");
-    let devs: Vec<String> = w
-        .devices
-        .iter()
-        .map(|(a, d)| {
-            let regs: Vec<String> =
-                d.regs.iter().map(|(n, at)| format!("{} = {{ at = 0x{at:02X} }}", lua_key(n))).collect();
-            format!(
-                "local {} = bus.device({}, {{ pointer = {}, map = {{ {} }} }})",
-                d.var,
-                lua_address(*a),
-                d.pointer_bytes * 8,
-                regs.join(", ")
-            )
-        })
-        .collect();
-    for d in &devs {
-        w.line(d);
-    }
-    if !devs.is_empty() {
-        w.line("");
-    }
+    // The body first: the device handles declared are those it uses.
+    let head = std::mem::take(&mut w.out);
     let run_failed = trace.records.iter().any(|r| matches!(r, Record::End { exit, .. } if *exit != 0));
     let last_frame_seq = frames.last().map(|f| f.seq);
     let mut cursor = h.clock;
@@ -367,6 +580,7 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
                             n.purpose == f.purpose && n.address == f.address && prev.outcome.fault.is_some()
                         }
                         Some(Purpose::Scan) => n.purpose == f.purpose && n.origin == f.origin,
+                        Some(Purpose::Poll) => same_wait(prev, n),
                         _ => retry_of(prev, n),
                     };
                     if !same_run {
@@ -384,6 +598,13 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
                 match f.purpose {
                     Some(Purpose::AckPoll) => w.ack_poll(&group),
                     Some(Purpose::Scan) => w.scan(&group),
+                    Some(Purpose::Poll) if w.wait(&group) => {}
+                    Some(Purpose::Poll) => {
+                        for (k, f) in group.iter().enumerate() {
+                            let last_in_run = k + 1 == group.len() && Some(f.seq) == last_frame_seq;
+                            w.transaction(&[f], last_in_run, run_failed);
+                        }
+                    }
                     _ => w.transaction(&group, Some(last.seq) == last_frame_seq, run_failed),
                 }
                 i = j;
@@ -392,7 +613,34 @@ pub fn to_script(trace: &Trace, opts: &ScriptOptions) -> String {
         }
         i += 1;
     }
-    w.out
+    let body = std::mem::take(&mut w.out);
+    let mut out = head;
+    let mut declared = 0;
+    for (a, d) in w.devices.iter().filter(|(a, _)| w.used.contains(a)) {
+        let regs: Vec<String> = d
+            .regs
+            .iter()
+            .map(|(n, (at, width))| match width {
+                Some(b) if *b > 1 => format!("{} = {{ at = 0x{at:02X}, width = {} }}", lua_key(n), b * 8),
+                _ => format!("{} = {{ at = 0x{at:02X} }}", lua_key(n)),
+            })
+            .collect();
+        let width = d.width.filter(|&b| b > 1).map(|b| format!(", width = {}", b * 8)).unwrap_or_default();
+        let map = if regs.is_empty() { String::new() } else { format!(", map = {{ {} }}", regs.join(", ")) };
+        let _ = writeln!(
+            out,
+            "local {} = bus.device({}, {{ pointer = {}{width}{map} }})",
+            d.var,
+            lua_address(*a),
+            d.pointer_bytes * 8
+        );
+        declared += 1;
+    }
+    if declared > 0 {
+        out.push('\n');
+    }
+    out.push_str(&body);
+    out
 }
 
 #[cfg(test)]
