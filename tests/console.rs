@@ -273,3 +273,36 @@ fn on_a_terminal_editing_completion_errors_ctrl_c_and_history_work() {
     s.wait_for("= 0x5E11 (24081)");
     assert_eq!(s.finish(), 0);
 }
+
+/// `%view` opens the full-screen view over the session's frames (the
+/// alternate screen, the frame in its list) and `q` comes back
+/// to the prompt, where the session goes on.
+#[cfg(unix)]
+#[test]
+fn the_view_opens_over_the_session_and_q_returns_to_the_prompt() {
+    use terminal::Screen;
+    let data = tempfile::tempdir().unwrap();
+    let mut s = Screen::start(data.path());
+    s.wait_for("bus> ");
+    s.send("dev31:get(\"ID\")\r");
+    s.wait_for("= 0x5E11 (24081)");
+    s.wait_for("bus> ");
+    s.send("%view\r");
+    s.wait_for("\x1b[?1049h");
+    // The session's one frame in the list (ratatui moves the cursor
+    // between the status line's words, so the list row is what is matched).
+    s.wait_for("0x31 W 00 | R 5E 11 ok");
+    s.send("q");
+    s.wait_for("\x1b[?1049l");
+    s.wait_for("bus> ");
+    s.send("dev31:get(\"ID\")\r");
+    s.wait_for("= 0x5E11 (24081)");
+    assert_eq!(s.finish(), 0);
+}
+
+#[test]
+fn the_view_needs_a_terminal() {
+    let o = console_stdin("%view\n", &[]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("%view needs a terminal"), "{o:?}");
+}

@@ -33,6 +33,8 @@ use crate::cli::{exit, out};
 use crate::script::console::Console;
 use crate::script::{self, Abort, RunConfig, Session};
 use crate::trace::{Header, TraceWriter};
+use crate::tui::live::LiveSource;
+use crate::tui::{App, term};
 use crate::view::plain::PlainLog;
 
 use super::{BusArgs, ShowArgs, error_line, interrupt_flag, shown};
@@ -109,6 +111,8 @@ struct State {
     /// Maps loaded: address, file.
     maps: Vec<(Address, String)>,
     first_failure: Option<u8>,
+    /// The session's frames for `%view`, on a terminal.
+    live: Option<LiveSource>,
 }
 
 const HELP: &str = "\
@@ -117,6 +121,7 @@ Console commands:
   %devices                 devices held in globals, with their maps
   %map ADDR FILE           load a register map for ADDR as global devADDR
   %frames                  show the last command's frames again
+  %view                    the session's frames in the full-screen view (q comes back)
   %save FILE [force]       save this session's commands as a script
   %help                    this text
 Ctrl-C cancels a running command (after its transaction); Ctrl-D leaves.";
@@ -170,6 +175,19 @@ impl State {
         match words.next() {
             Some("help") | None => format!("{HELP}\n"),
             Some("frames") => self.last_frames.clone(),
+            Some("view") => match &mut self.live {
+                Some(src) => {
+                    // Nothing runs on the bus meanwhile: the view only reads
+                    // what the session recorded, newest first in sight.
+                    let mut app = App::new(true);
+                    let opts = term::Options { stop_run: None, script: None, wall: false };
+                    match term::run(src, &mut app, opts) {
+                        Ok(()) => String::new(),
+                        Err(e) => fail(self, format!("the terminal view: {e}")),
+                    }
+                }
+                None => fail(self, "%view needs a terminal; %frames shows the last command's frames".into()),
+            },
             Some("devices") => {
                 let ds = self.console.borrow().devices();
                 if ds.is_empty() {
@@ -309,6 +327,13 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
     let frames = Captured::default();
     let layout = a.show.layout(None);
     session.add_sink(Box::new(PlainLog::with_layout(frames.clone(), layout, true)));
+    let interactive = std::io::stdin().is_terminal();
+    // `%view` reads the session's records from a live feed, as `run`'s view does.
+    let live = (interactive && std::io::stdout().is_terminal()).then(|| {
+        let (sink, src) = crate::tui::live::feed(super::run::view_label(&session));
+        session.add_sink(Box::new(sink));
+        src
+    });
     let cfg = RunConfig {
         script: PathBuf::from("console"),
         text: None,
@@ -326,6 +351,7 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
         saved: Vec::new(),
         maps: Vec::new(),
         first_failure: None,
+        live,
     };
     let mut o = out::stdout();
     for (addr, path) in &a.map {
@@ -333,7 +359,6 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
             anyhow::bail!("--map {addr}={}: {}", path.display(), shown(e));
         }
     }
-    let interactive = std::io::stdin().is_terminal();
     if interactive {
         interactive_loop(&mut st)?;
     } else {

@@ -150,6 +150,12 @@ impl Script {
     }
 }
 
+/// The adapter as the view's status line names it.
+pub(super) fn view_label(session: &Session) -> String {
+    let snap = session.adapter_ref().snapshot();
+    format!("{} {} @ {}", snap.identity.driver, snap.identity.target, snap.speed)
+}
+
 /// The full-screen view of a run, on its own thread, fed by a sink the
 /// session writes to. Quitting it stops the run as Ctrl-C does.
 fn open_view(
@@ -157,9 +163,7 @@ fn open_view(
     name: &str,
     interrupt: std::sync::Arc<std::sync::atomic::AtomicBool>,
 ) -> (LiveFinisher, std::thread::JoinHandle<std::io::Result<()>>) {
-    let snap = session.adapter_ref().snapshot();
-    let adapter = format!("{} {} @ {}", snap.identity.driver, snap.identity.target, snap.speed);
-    let (sink, mut source) = live::feed(adapter);
+    let (sink, mut source) = live::feed(view_label(session));
     let done = sink.finisher();
     session.add_sink(Box::new(sink));
     let script: std::sync::Arc<str> = name.into();
