@@ -18,6 +18,7 @@ pub mod watchdog;
 
 mod console;
 mod decode;
+mod fixtures;
 mod ports;
 mod run;
 mod scan;

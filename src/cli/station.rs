@@ -32,6 +32,8 @@ use crate::ascii::push_hex_bytes;
 use crate::bus::Operation;
 use crate::record::{Record, Sink};
 use crate::report::{self, RunReport, Status, Target};
+use crate::script::guarded::AllowGuarded;
+use crate::script::params::{self, Given};
 use crate::script::{self, RunConfig, Session};
 use crate::trace::{Header, TraceWriter};
 
@@ -39,15 +41,25 @@ use super::{compose, exit, interrupt_flag, parse_adapter, parse_assignment, pars
 
 #[derive(Args, Debug)]
 pub struct StationArgs {
-    /// The Lua script every fixture runs.
-    pub script: PathBuf,
+    /// The Lua script every fixture runs; or a fixtures file (TOML,
+    /// `format = "buscue-fixtures/1"`) and then the script.
+    #[arg(value_name = "[FIXTURES.toml] SCRIPT", num_args = 1..=2, required = true)]
+    pub files: Vec<PathBuf>,
     /// A fixture: its name (letters, digits, `-`, `_`) and its adapter,
     /// as --adapter takes it (`a=serial:/dev/ttyUSB0`); repeatable.
-    #[arg(long = "fixture", value_name = "NAME=ADAPTER", value_parser = parse_fixture, required = true)]
+    #[arg(long = "fixture", value_name = "NAME=ADAPTER", value_parser = parse_fixture)]
     pub fixtures: Vec<Fixture>,
-    /// Script parameter for every fixture (`param`); repeatable.
+    /// Script parameter for every fixture; repeatable. Wins over the
+    /// fixtures file and --params.
     #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
+    /// Script parameters for every fixture from a TOML file of NAME = VALUE.
+    #[arg(long = "params", value_name = "FILE.toml")]
+    pub params: Option<PathBuf>,
+    /// Unlock these guarded registers (map names, comma-separated) or
+    /// `all` for the whole run; every guarded write is listed.
+    #[arg(long = "allow-guarded", value_name = "REG[,REG...]|all", value_parser = AllowGuarded::parse)]
+    pub allow_guarded: Vec<AllowGuarded>,
     /// Wall-clock limit per fixture (30s, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: Duration,
@@ -64,6 +76,10 @@ pub struct StationArgs {
     /// Replace files --report names if they exist.
     #[arg(long)]
     pub force: bool,
+    /// Print a line per fixture as it goes even on a terminal, instead of
+    /// lines redrawn in place.
+    #[arg(long)]
+    pub plain: bool,
     #[command(flatten)]
     pub dry: DryRunArgs,
 }
@@ -123,6 +139,11 @@ pub struct Fixture {
 
 fn parse_fixture(s: &str) -> Result<Fixture, String> {
     let (name, spec) = s.split_once('=').ok_or_else(|| format!("`{s}`: write --fixture NAME=ADAPTER"))?;
+    fixture_of(name, spec)
+}
+
+/// A fixture named `name` on the adapter `spec` (as --adapter takes it).
+pub fn fixture_of(name: &str, spec: &str) -> Result<Fixture, String> {
     if name.is_empty() || name.len() > 64 || !name.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_') {
         return Err(format!("`{name}` is not a fixture name: 1 to 64 letters, digits, '-' or '_'"));
     }
@@ -180,6 +201,8 @@ pub fn report_of(
         trace,
         steps: std::mem::take(&mut run.book.steps),
         measurements: std::mem::take(&mut run.book.measurements),
+        guarded_writes: std::mem::take(&mut run.guarded),
+        dry_run_writes: None,
         stopped: None,
         stats: run.session.stats.clone(),
         wall,
@@ -208,6 +231,52 @@ pub fn write_reports(targets: &[Target], runs: &[RunReport], suite: &str, force:
     Ok(())
 }
 
+/// The parameters of one run: the values and their sources as
+/// [`RunConfig`] takes them, and what the reports and the trace header
+/// show (every declared parameter resolved, defaults included, and the
+/// undeclared ones as given).
+#[derive(Debug, Clone, Default)]
+pub struct ParamSet {
+    pub values: BTreeMap<String, String>,
+    pub sources: BTreeMap<String, String>,
+    pub shown: BTreeMap<String, String>,
+}
+
+/// `--params FILE` then `--set`, the later winning.
+pub fn given_params(file: Option<&Path>, set: &[(String, String)]) -> Result<BTreeMap<String, Given>> {
+    let mut given = match file {
+        Some(p) => super::fixtures::read_params(p)?,
+        None => BTreeMap::new(),
+    };
+    for (k, v) in set {
+        given.insert(k.clone(), Given { value: v.clone(), source: "--set".into() });
+    }
+    Ok(given)
+}
+
+/// Checks `given` against the script's `params { ... }` declaration
+/// before anything is opened: an error names the parameter, the type and
+/// where the value came from.
+pub fn param_set(text: &str, given: BTreeMap<String, Given>) -> Result<ParamSet> {
+    let mut set = ParamSet::default();
+    for (k, g) in &given {
+        set.values.insert(k.clone(), g.value.clone());
+        set.sources.insert(k.clone(), g.source.clone());
+        set.shown.insert(k.clone(), g.value.clone());
+    }
+    if let Some(decls) = params::declared(text)? {
+        for (k, v) in params::resolve(&decls, &given)? {
+            set.shown.insert(k, v.text());
+        }
+    }
+    Ok(set)
+}
+
+/// The guarded registers every `--allow-guarded` unlocks.
+pub fn allowed(list: &[AllowGuarded]) -> AllowGuarded {
+    list.iter().cloned().fold(AllowGuarded::None, AllowGuarded::merge)
+}
+
 /// A new folder for a station run: `base`, else `base-2`, `base-3`...
 fn new_folder(base: &Path, numbered: bool) -> Result<PathBuf> {
     if let Some(parent) = base.parent().filter(|p| !p.as_os_str().is_empty()) {
@@ -228,18 +297,48 @@ fn new_folder(base: &Path, numbered: bool) -> Result<PathBuf> {
 }
 
 pub fn station(a: StationArgs) -> Result<u8> {
+    let (fixtures_file, script_path) = match a.files.as_slice() {
+        [script] => (None, script.clone()),
+        [file, script] => (Some(file.clone()), script.clone()),
+        _ => bail!("give the script, or a fixtures file and then the script"),
+    };
+    let mut fixtures: Vec<(Fixture, BTreeMap<String, Given>)> = Vec::new();
+    if let Some(file) = &fixtures_file {
+        let (listed, warnings) = super::fixtures::read_fixtures(file)?;
+        for w in warnings {
+            eprintln!("{}", super::warning_line(shown(w), false));
+        }
+        fixtures.extend(listed.into_iter().map(|f| (f.fixture, f.params)));
+    }
+    fixtures.extend(a.fixtures.iter().map(|f| (f.clone(), BTreeMap::new())));
+    if fixtures.is_empty() {
+        bail!("no fixtures: give a fixtures file before the script, or --fixture NAME=ADAPTER");
+    }
     let mut names = std::collections::BTreeSet::new();
-    for f in &a.fixtures {
+    for (f, _) in &fixtures {
         if !names.insert(f.name.as_str()) {
             bail!("fixture `{}` is named twice; every fixture needs its own name", f.name);
         }
     }
-    if !a.script.is_file() {
-        bail!("script {} does not exist or is not a file", a.script.display());
+    if !script_path.is_file() {
+        bail!("script {} does not exist or is not a file", script_path.display());
     }
-    let text =
-        std::fs::read_to_string(&a.script).with_context(|| format!("cannot read script {}", a.script.display()))?;
-    let stem = a.script.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "station".into());
+    let text = std::fs::read_to_string(&script_path)
+        .with_context(|| format!("cannot read script {}", script_path.display()))?;
+    // Every fixture's parameters are checked before any adapter is opened.
+    let common = given_params(a.params.as_deref(), &[])?;
+    let mut jobs_params = Vec::new();
+    for (f, own) in &fixtures {
+        let mut given = common.clone();
+        given.extend(own.clone());
+        for (k, v) in &a.set {
+            given.insert(k.clone(), Given { value: v.clone(), source: "--set".into() });
+        }
+        let set = param_set(&text, given).with_context(|| format!("fixture {}", f.name))?;
+        jobs_params.push(set);
+    }
+    let allow_guarded = allowed(&a.allow_guarded);
+    let stem = script_path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "station".into());
     let dir = match &a.out {
         Some(p) => new_folder(p, false)?,
         None => {
@@ -248,20 +347,20 @@ pub fn station(a: StationArgs) -> Result<u8> {
         }
     };
     let interrupt = interrupt_flag()?;
-    let params: BTreeMap<String, String> = a.set.iter().cloned().collect();
-    let total = a.fixtures.len();
+    let total = fixtures.len();
     let started = Instant::now();
     let mut err = std::io::stderr();
     let _ = writeln!(err, "station: {total} fixture(s), files in {}", shown(dir.display()));
-    let handles: Vec<_> = a
-        .fixtures
+    let handles: Vec<_> = fixtures
         .iter()
-        .map(|f| {
+        .zip(jobs_params)
+        .map(|((f, _), params)| {
             let job = Job {
                 fixture: f.clone(),
-                script: a.script.clone(),
+                script: script_path.clone(),
                 text: text.clone(),
-                params: params.clone(),
+                params,
+                allow_guarded: allow_guarded.clone(),
                 timeout: a.timeout,
                 stop_on_fail: a.stop_on_fail,
                 dir: dir.clone(),
@@ -275,8 +374,8 @@ pub fn station(a: StationArgs) -> Result<u8> {
     let mut runs = Vec::new();
     for (name, h) in handles {
         let report = match h {
-            Ok(h) => h.join().unwrap_or_else(|_| failed_fixture(&name, &a.script, "the fixture's thread panicked")),
-            Err(e) => failed_fixture(&name, &a.script, &format!("cannot start the fixture's thread: {e}")),
+            Ok(h) => h.join().unwrap_or_else(|_| failed_fixture(&name, &script_path, "the fixture's thread panicked")),
+            Err(e) => failed_fixture(&name, &script_path, &format!("cannot start the fixture's thread: {e}")),
         };
         let _ = writeln!(
             err,
@@ -290,6 +389,13 @@ pub fn station(a: StationArgs) -> Result<u8> {
         );
         if let Some(s) = &report.stopped {
             let _ = writeln!(err, "  stopped: {}", shown(s));
+        }
+        for g in &report.guarded_writes {
+            let _ = writeln!(err, "  guarded write: {}", shown(g));
+        }
+        if let Some(w) = &report.dry_run_writes {
+            let _ =
+                writeln!(err, "  dry run: {} write(s) would have gone to the board (in {name}.writes.txt)", w.len());
         }
         runs.push(report);
     }
@@ -327,6 +433,8 @@ fn failed_fixture(name: &str, script: &Path, why: &str) -> RunReport {
         trace: None,
         steps: Vec::new(),
         measurements: Vec::new(),
+        guarded_writes: Vec::new(),
+        dry_run_writes: None,
         stopped: Some(why.to_string()),
         stats: Default::default(),
         wall: Duration::ZERO,
@@ -339,7 +447,8 @@ struct Job {
     fixture: Fixture,
     script: PathBuf,
     text: String,
-    params: BTreeMap<String, String>,
+    params: ParamSet,
+    allow_guarded: AllowGuarded,
     timeout: Duration,
     stop_on_fail: bool,
     dir: PathBuf,
@@ -362,11 +471,13 @@ impl Job {
                 let e = super::message(&e);
                 let mut r = failed_fixture(&name, &self.script, &format!("cannot open the adapter: {e}"));
                 r.adapter = self.fixture.written.clone();
-                r.parameters = self.params.clone();
+                r.parameters = self.params.shown.clone();
                 let mut book = script::steps::Book::default();
                 book.finish(&script::steps::planned(&self.text), &format!("not run: cannot open the adapter: {e}"));
                 r.steps = book.steps;
-                self.write_own(std::slice::from_ref(&r));
+                if let Err(e) = self.write_own(std::slice::from_ref(&r)) {
+                    r.stopped = Some(format!("{}; {e}", r.stopped.unwrap_or_default()));
+                }
                 return r;
             }
         };
@@ -377,7 +488,7 @@ impl Job {
         let header = Header::new("station", session.adapter_ref().snapshot()).with_script(
             &script_name,
             self.text.as_bytes(),
-            self.params.clone(),
+            self.params.shown.clone(),
         );
         let trace = match TraceWriter::create_new(&trace_path, &header) {
             Ok(w) => {
@@ -397,38 +508,58 @@ impl Job {
         let cfg = RunConfig {
             script: self.script.clone(),
             text: Some(self.text.clone()),
-            params: self.params.clone(),
+            params: self.params.values.clone(),
             timeout,
             memory_limit: script::DEFAULT_MEMORY_LIMIT,
             allow_io: false,
             stop_on_fail: self.stop_on_fail,
+            allow_guarded: self.allow_guarded.clone(),
+            param_sources: self.params.sources.clone(),
         };
         let mut run = script::run(session, &cfg, self.interrupt.clone());
         let code = run.abort.as_ref().map_or(exit::OK, exit::of_abort);
         let closed = run.session.finish(code, run.abort.as_ref().map(|a| a.to_string()));
-        let mut r =
-            report_of(&name, &script_name, &self.fixture.written, &self.params, trace, &mut run, started.elapsed());
+        let mut r = report_of(
+            &name,
+            &script_name,
+            &self.fixture.written,
+            &self.params.shown,
+            trace,
+            &mut run,
+            started.elapsed(),
+        );
         if let Err(e) = closed {
             r.stopped.get_or_insert_with(|| e.to_string());
             r.passed = false;
         }
         if self.dry.is_some() {
-            let lines = listed.lock().unwrap_or_else(|p| p.into_inner());
-            let _ = std::fs::write(self.dir.join(format!("{name}.writes.txt")), lines.join("\n") + "\n");
+            // The list of writes is the dry run's result: a list that
+            // cannot be written fails the fixture, never a warning.
+            let lines = listed.lock().unwrap_or_else(|p| p.into_inner()).clone();
+            let path = self.dir.join(format!("{name}.writes.txt"));
+            let text = lines.iter().map(|l| l.clone() + "\n").collect::<String>();
+            if let Err(e) = report::write_atomic(&path, text.as_bytes(), false) {
+                r.stopped
+                    .get_or_insert_with(|| format!("cannot write the dry run's writes to {}: {e}", path.display()));
+                r.passed = false;
+            }
+            r.dry_run_writes = Some(lines);
         }
-        self.write_own(std::slice::from_ref(&r));
+        if let Err(e) = self.write_own(std::slice::from_ref(&r)) {
+            r.stopped.get_or_insert(e);
+            r.passed = false;
+        }
         r
     }
 
-    /// The fixture's own report pair.
-    fn write_own(&self, runs: &[RunReport]) {
+    /// The fixture's own report pair; a report that cannot be written
+    /// fails the fixture (the error comes back for the combined report).
+    fn write_own(&self, runs: &[RunReport]) -> Result<(), String> {
         let name = &self.fixture.name;
         let own = [
             Target { format: report::Format::Junit, path: self.dir.join(format!("{name}.junit.xml")) },
             Target { format: report::Format::Json, path: self.dir.join(format!("{name}.report.json")) },
         ];
-        if let Err(e) = write_reports(&own, runs, name, false) {
-            eprintln!("fixture {}: {}", shown(name), shown(super::message(&e)));
-        }
+        write_reports(&own, runs, name, false).map_err(|e| super::message(&e))
     }
 }
