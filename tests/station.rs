@@ -281,3 +281,79 @@ fn fixture_names_are_checked() {
     assert_eq!(code(&o), 2);
     assert!(stderr(&o).contains("not a fixture name"), "{}", stderr(&o));
 }
+
+/// A script writing the light sensor's CONTROL, which its map guards.
+const GUARDED: &str = r#"
+local light = bus.device(0x2B, { width = 16, order = "little", map = { CONTROL = { at = 0x01, guard = true } } })
+step("configure", function()
+  light:set("CONTROL", 0x0003)
+end)
+"#;
+
+#[test]
+fn a_guarded_write_is_refused_without_the_flag_and_allowed_and_listed_with_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_d, script) = common::script("guarded.lua", GUARDED);
+    let o = run_path(&script, &["-q"]);
+    let err = stderr(&o);
+    assert_ne!(code(&o), 0, "{err}");
+    assert!(err.contains("is guarded; pass {unlock = true}"), "{err}");
+    assert!(err.contains("--allow-guarded CONTROL"), "{err}");
+    assert!(!err.contains("guarded write:"), "nothing was written: {err}");
+    // Unlocking another register does not unlock this one.
+    let o = run_path(&script, &["-q", "--allow-guarded", "OTHER"]);
+    assert_ne!(code(&o), 0, "{}", stderr(&o));
+
+    let json_path = dir.path().join("r.json");
+    let xml_path = dir.path().join("r.xml");
+    let o = run_path(
+        &script,
+        &[
+            "-q",
+            "--allow-guarded",
+            "CONTROL",
+            "--report",
+            &format!("json:{}", json_path.display()),
+            "--report",
+            &format!("junit:{}", xml_path.display()),
+        ],
+    );
+    let err = stderr(&o);
+    assert_eq!(code(&o), 0, "{err}");
+    assert!(err.contains("guarded write: #1 0x2B CONTROL <- 03 00 (--allow-guarded)"), "{err}");
+    let r = json(&json_path);
+    let g = &r["fixtures"][0]["guarded_writes"];
+    assert_eq!(g.as_array().unwrap().len(), 1, "{r}");
+    assert_eq!(g[0]["register"], "CONTROL");
+    assert_eq!(g[0]["bytes"], "03 00");
+    assert_eq!(g[0]["frame"], 1);
+    assert_eq!(g[0]["unlocked_by"], "--allow-guarded");
+    let xml = std::fs::read_to_string(&xml_path).unwrap();
+    let doc = roxmltree::Document::parse(&xml).unwrap();
+    let prop = doc
+        .descendants()
+        .find(|n| n.has_tag_name("property") && n.attribute("name") == Some("guarded_write.1"))
+        .expect("the guarded write is a JUnit property");
+    assert!(prop.attribute("value").unwrap().contains("CONTROL <- 03 00"), "{xml}");
+
+    // `all` on a station, in a dry run: listed per fixture, in the combined report.
+    let out = dir.path().join("out");
+    let o = run(&[
+        "station",
+        script.to_str().unwrap(),
+        "--fixture",
+        "a=sim",
+        "--allow-guarded",
+        "all",
+        "--dry-run",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 0, "{err}");
+    assert!(err.contains("  guarded write: #1 0x2B CONTROL <- 03 00"), "{err}");
+    let r = json(&out.join("report.json"));
+    assert_eq!(r["fixtures"][0]["guarded_writes"][0]["register"], "CONTROL", "{r}");
+    assert_eq!(r["fixtures"][0]["dry_run_writes"][0], "#1 0x2B write 01 03 00  CONTROL", "{r}");
+    assert_eq!(std::fs::read_to_string(out.join("a.writes.txt")).unwrap(), "#1 0x2B write 01 03 00  CONTROL\n");
+}

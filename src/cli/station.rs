@@ -442,6 +442,17 @@ fn failed_fixture(name: &str, script: &Path, why: &str) -> RunReport {
     }
 }
 
+/// Writes a dry run's list of writes to `path` (whole, never over a file)
+/// and into the report; a list that cannot be written fails the run.
+fn record_dry_run(r: &mut RunReport, path: &Path, lines: Vec<String>) {
+    let text = lines.iter().map(|l| l.clone() + "\n").collect::<String>();
+    if let Err(e) = report::write_atomic(path, text.as_bytes(), false) {
+        r.stopped.get_or_insert_with(|| format!("cannot write the dry run's writes to {}: {e}", path.display()));
+        r.passed = false;
+    }
+    r.dry_run_writes = Some(lines);
+}
+
 /// One fixture's run, on its own thread.
 struct Job {
     fixture: Fixture,
@@ -536,14 +547,7 @@ impl Job {
             // The list of writes is the dry run's result: a list that
             // cannot be written fails the fixture, never a warning.
             let lines = listed.lock().unwrap_or_else(|p| p.into_inner()).clone();
-            let path = self.dir.join(format!("{name}.writes.txt"));
-            let text = lines.iter().map(|l| l.clone() + "\n").collect::<String>();
-            if let Err(e) = report::write_atomic(&path, text.as_bytes(), false) {
-                r.stopped
-                    .get_or_insert_with(|| format!("cannot write the dry run's writes to {}: {e}", path.display()));
-                r.passed = false;
-            }
-            r.dry_run_writes = Some(lines);
+            record_dry_run(&mut r, &self.dir.join(format!("{name}.writes.txt")), lines);
         }
         if let Err(e) = self.write_own(std::slice::from_ref(&r)) {
             r.stopped.get_or_insert(e);
@@ -561,5 +565,31 @@ impl Job {
             Target { format: report::Format::Json, path: self.dir.join(format!("{name}.report.json")) },
         ];
         write_reports(&own, runs, name, false).map_err(|e| super::message(&e))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_list_of_writes_that_cannot_be_written_fails_the_run() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut r = failed_fixture("a", Path::new("s.lua"), "x");
+        r.stopped = None;
+        r.passed = true;
+        record_dry_run(&mut r, &dir.path().join("a.writes.txt"), vec!["#1 0x2B write 01".into()]);
+        assert!(r.passed && r.stopped.is_none());
+        assert_eq!(std::fs::read_to_string(dir.path().join("a.writes.txt")).unwrap(), "#1 0x2B write 01\n");
+        // A second list may not replace the first, and a folder that is
+        // not there takes none: both fail the run.
+        record_dry_run(&mut r, &dir.path().join("a.writes.txt"), vec![]);
+        assert!(!r.passed);
+        assert!(r.stopped.as_deref().unwrap().contains("cannot write the dry run's writes"), "{:?}", r.stopped);
+        let mut r2 = failed_fixture("b", Path::new("s.lua"), "x");
+        r2.stopped = None;
+        r2.passed = true;
+        record_dry_run(&mut r2, &dir.path().join("gone/b.writes.txt"), vec![]);
+        assert!(!r2.passed && r2.stopped.is_some());
     }
 }
