@@ -357,3 +357,116 @@ fn a_guarded_write_is_refused_without_the_flag_and_allowed_and_listed_with_it() 
     assert_eq!(r["fixtures"][0]["dry_run_writes"][0], "#1 0x2B write 01 03 00  CONTROL", "{r}");
     assert_eq!(std::fs::read_to_string(out.join("a.writes.txt")).unwrap(), "#1 0x2B write 01 03 00  CONTROL\n");
 }
+
+/// A script that does what its fixture's `mode` says: its job, or hang
+/// in Lua, or hang in a wait on the Rust side.
+const MODES: &str = r#"
+local p = params {
+  mode = { type = "string", default = "work", doc = "work, spin or sleep" },
+  serial = { type = "hex", doc = "the board's serial number" },
+}
+local light = bus.device(0x2B, { width = 16, order = "little" })
+step("identify", function()
+  check_eq(light:get(0x00), 0x1C5A, "light sensor ID")
+end)
+step("program", function()
+  if p.mode == "spin" then while true do end end
+  if p.mode == "sleep" then sleep_ms(86400000) end
+  log(string.format("serial 0x%X", p.serial))
+end)
+step("read back", function()
+  check_eq(light:get(0x00), 0x1C5A, "light sensor ID")
+end)
+"#;
+
+fn fixtures_file(dir: &Path, text: &str) -> String {
+    let p = dir.join("fixtures.toml");
+    std::fs::write(&p, text).unwrap();
+    p.to_str().unwrap().to_string()
+}
+
+#[test]
+fn a_fixtures_file_names_adapters_and_fills_each_fixtures_parameters() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_d, script) = common::script("modes.lua", MODES);
+    let file = fixtures_file(
+        dir.path(),
+        "format = \"buscue-fixtures/1\"\n\n[[fixture]]\nname = \"bay1\"\nadapter = \"sim\"\nparams = { serial = 0x00A1 }\n\n\
+         [[fixture]]\nname = \"bay2\"\nadapter = \"sim\"\n[fixture.params]\nserial = \"B2\"\n",
+    );
+    let out = dir.path().join("out");
+    // One more on the command line, its serial from --set... which also
+    // wins over the file for the others.
+    let o =
+        run(&["station", &file, script.to_str().unwrap(), "--fixture", "extra=sim", "--out", out.to_str().unwrap()]);
+    let err = stderr(&o);
+    assert_eq!(code(&o), 2, "extra has no serial: {err}");
+    assert!(err.contains("fixture extra: parameter `serial` (hex) is required"), "{err}");
+    assert!(!out.exists(), "nothing ran");
+    let o = run(&["station", &file, script.to_str().unwrap(), "--out", out.to_str().unwrap()]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let r = json(&out.join("report.json"));
+    let f = r["fixtures"].as_array().unwrap();
+    assert_eq!(f.len(), 2);
+    assert_eq!((f[0]["name"].as_str(), f[0]["parameters"]["serial"].as_str()), (Some("bay1"), Some("0xA1")));
+    assert_eq!((f[1]["name"].as_str(), f[1]["parameters"]["serial"].as_str()), (Some("bay2"), Some("0xB2")));
+    assert_eq!(f[1]["parameters"]["mode"], "work", "the default is reported");
+    // A value the declaration refuses names the file and the line.
+    let bad = fixtures_file(
+        dir.path(),
+        "format = \"buscue-fixtures/1\"\n[[fixture]]\nname = \"bay1\"\nadapter = \"sim\"\nparams = { serial = \"nope\" }\n",
+    );
+    let o = run(&["station", &bad, script.to_str().unwrap()]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains(&format!("parameter `serial` (from {bad}:5): expected hex")), "{}", stderr(&o));
+    // A bad file: file, line and key.
+    let bad = fixtures_file(dir.path(), "format = \"buscue-fixtures/1\"\n[[fixture]]\nname = \"bay1\"\nadapter = 7\n");
+    let o = run(&["station", &bad, script.to_str().unwrap()]);
+    assert_eq!(code(&o), 2);
+    assert!(stderr(&o).contains(&format!("{bad}:4: key `fixture[0].adapter`")), "{}", stderr(&o));
+}
+
+#[test]
+fn a_fixture_past_its_time_limit_ends_alone_with_whole_reports() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_d, script) = common::script("modes.lua", MODES);
+    // The sleeping fixture is on a pseudo-terminal, so its wait is a real
+    // one on the Rust side (the simulated bench would pass it in virtual time).
+    let (mut s1, p1) = serve(&["--bench", "sim"]);
+    let file = fixtures_file(
+        dir.path(),
+        &format!(
+            "format = \"buscue-fixtures/1\"\n\
+             [[fixture]]\nname = \"spin\"\nadapter = \"sim\"\nparams = {{ serial = 1, mode = \"spin\" }}\n\
+             [[fixture]]\nname = \"sleep\"\nadapter = \"serial:{p1}\"\nparams = {{ serial = 2, mode = \"sleep\" }}\n\
+             [[fixture]]\nname = \"good\"\nadapter = \"sim\"\nparams = {{ serial = 3 }}\n"
+        ),
+    );
+    let out = dir.path().join("out");
+    let o = run(&["station", &file, script.to_str().unwrap(), "--timeout", "3s", "--out", out.to_str().unwrap()]);
+    let _ = s1.kill();
+    let _ = s1.wait();
+    let err = stderr(&o);
+    assert_eq!(code(&o), 7, "{err}");
+    assert!(err.contains("fixture good: PASSED"), "{err}");
+    let r = json(&out.join("report.json"));
+    for (i, name) in [(0, "spin"), (1, "sleep")] {
+        let f = &r["fixtures"][i];
+        assert_eq!(f["name"], name);
+        assert_eq!(f["passed"], false);
+        let steps = statuses(f);
+        assert_eq!(steps[0], ("identify".to_string(), "passed".to_string()), "{name}: {steps:?}");
+        assert_eq!(steps[1].0, "program");
+        assert_ne!(steps[1].1, "passed", "{name}: {steps:?}");
+        assert_eq!(steps[2], ("read back".to_string(), "skipped".to_string()), "{name}: {steps:?}");
+        let stopped = f["stopped"].as_str().unwrap_or_default();
+        assert!(stopped.contains("time limit"), "{name}: {stopped}");
+        // Its own report is whole JSON, and its trace ends with the end record.
+        let own = json(&out.join(format!("{name}.report.json")));
+        assert_eq!(own["fixtures"][0]["name"], name);
+        let trace = std::fs::read_to_string(out.join(format!("{name}.trace.jsonl"))).unwrap();
+        let last: serde_json::Value = serde_json::from_str(trace.lines().last().unwrap()).unwrap();
+        assert_eq!(last["kind"], "end", "{name}: {last}");
+    }
+    assert_eq!(r["fixtures"][2]["passed"], true);
+}
