@@ -106,6 +106,7 @@ fn dump(label: &str, default_path: bool) {
         stop_on_fail: false,
         allow_guarded: Default::default(),
         param_sources: Default::default(),
+        progress: None,
     };
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);

@@ -319,6 +319,7 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
         stop_on_fail: false,
         allow_guarded: Default::default(),
         param_sources: Default::default(),
+        progress: None,
     };
     let console = Console::new(session, &cfg, interrupt).map_err(|e| anyhow::anyhow!("{e}"))?;
     let mut st = State {

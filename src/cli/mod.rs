@@ -20,6 +20,7 @@ mod console;
 mod decode;
 mod fixtures;
 mod ports;
+mod progress;
 mod run;
 mod scan;
 #[cfg(unix)]

@@ -269,6 +269,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         stop_on_fail: a.stop_on_fail,
         allow_guarded: super::station::allowed(&a.allow_guarded),
         param_sources: params.sources.clone(),
+        progress: None,
     };
     let started = Instant::now();
     let watched = watchdog::Outputs {

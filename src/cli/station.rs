@@ -18,7 +18,7 @@
 //!   when any did not, [`exit::INTERRUPTED`] after Ctrl-C, 2 for usage.
 
 use std::collections::BTreeMap;
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
@@ -35,9 +35,9 @@ use crate::report::{self, RunReport, Status, Target};
 use crate::script::guarded::AllowGuarded;
 use crate::script::params::{self, Given};
 use crate::script::{self, RunConfig, Session};
-use crate::trace::{Header, TraceWriter};
+use crate::trace::{Header, TraceRescue, TraceWriter};
 
-use super::{compose, exit, interrupt_flag, parse_adapter, parse_assignment, parse_duration, shown};
+use super::{compose, exit, interrupt_flag, parse_adapter, parse_assignment, parse_duration, shown, watchdog};
 
 #[derive(Args, Debug)]
 pub struct StationArgs {
@@ -351,32 +351,89 @@ pub fn station(a: StationArgs) -> Result<u8> {
     let started = Instant::now();
     let mut err = std::io::stderr();
     let _ = writeln!(err, "station: {total} fixture(s), files in {}", shown(dir.display()));
-    let handles: Vec<_> = fixtures
-        .iter()
-        .zip(jobs_params)
-        .map(|((f, _), params)| {
-            let job = Job {
-                fixture: f.clone(),
-                script: script_path.clone(),
-                text: text.clone(),
-                params,
-                allow_guarded: allow_guarded.clone(),
-                timeout: a.timeout,
-                stop_on_fail: a.stop_on_fail,
-                dir: dir.clone(),
-                dry: a.dry.dry_run.clone(),
-                interrupt: interrupt.clone(),
-            };
-            let name = f.name.clone();
-            (name, std::thread::Builder::new().name(format!("fixture-{}", f.name)).spawn(move || job.run()))
-        })
-        .collect();
-    let mut runs = Vec::new();
-    for (name, h) in handles {
-        let report = match h {
-            Ok(h) => h.join().unwrap_or_else(|_| failed_fixture(&name, &script_path, "the fixture's thread panicked")),
-            Err(e) => failed_fixture(&name, &script_path, &format!("cannot start the fixture's thread: {e}")),
+    let names: Vec<String> = fixtures.iter().map(|(f, _)| f.name.clone()).collect();
+    let plan = script::steps::planned(&text);
+    let live = !a.plain && std::io::stderr().is_terminal();
+    let mut progress = super::progress::Progress::new(&names, plan.len(), live);
+    let (tx, rx) = std::sync::mpsc::channel::<Event>();
+    for (i, ((f, _), params)) in fixtures.iter().zip(jobs_params).enumerate() {
+        let job = Job {
+            fixture: f.clone(),
+            script: script_path.clone(),
+            text: text.clone(),
+            params,
+            allow_guarded: allow_guarded.clone(),
+            timeout: a.timeout,
+            stop_on_fail: a.stop_on_fail,
+            dir: dir.clone(),
+            dry: a.dry.dry_run.clone(),
+            interrupt: interrupt.clone(),
         };
+        let (name, script_name, sender) = (f.name.clone(), script_path.clone(), tx.clone());
+        let spawned = std::thread::Builder::new().name(format!("fixture-{name}")).spawn(move || {
+            let run = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| job.run(i, &sender)));
+            let report = run.unwrap_or_else(|_| failed_fixture(&name, &script_name, "the fixture's thread panicked"));
+            let _ = sender.send(Event::Done(i, Box::new(report)));
+        });
+        if let Err(e) = spawned {
+            let _ = tx.send(Event::Done(
+                i,
+                Box::new(failed_fixture(&f.name, &script_path, &format!("cannot start the fixture's thread: {e}"))),
+            ));
+        }
+    }
+    drop(tx);
+    let mut watch: Vec<Watched> = (0..total).map(|_| Watched::default()).collect();
+    let mut reports: Vec<Option<RunReport>> = vec![None; total];
+    // Each fixture's own deadline: its time limit, plus the grace the
+    // run's watchdog gives, plus (before its session starts) time to open
+    // its adapter. A fixture still running then is ended here, alone.
+    let backstop = (a.timeout > Duration::ZERO).then(|| started + a.timeout + watchdog::GRACE + OPEN_ALLOWANCE);
+    let mut interrupted_at = None;
+    while reports.iter().any(Option::is_none) {
+        let now = Instant::now();
+        if interrupt.load(std::sync::atomic::Ordering::SeqCst) {
+            interrupted_at.get_or_insert(now);
+        }
+        for i in 0..total {
+            let due = watch[i].deadline.or(backstop);
+            let due = match (due, interrupted_at) {
+                (Some(d), Some(t)) => Some(d.min(t + watchdog::GRACE)),
+                (d, t) => d.or(t.map(|t| t + watchdog::GRACE)),
+            };
+            if reports[i].is_none() && due.is_some_and(|d| now >= d) {
+                let r =
+                    stuck_fixture(&fixtures[i].0, &script_path, &dir, &plan, &mut watch[i], interrupted_at.is_some());
+                progress.done(i, &r);
+                reports[i] = Some(r);
+            }
+        }
+        match rx.recv_timeout(Duration::from_millis(100)) {
+            Ok(Event::Started(i, rescue, deadline)) => {
+                watch[i].rescue = rescue;
+                watch[i].deadline = deadline.map(|d| d + watchdog::GRACE);
+            }
+            Ok(Event::Step(i, ev)) => {
+                progress.step(i, &ev);
+                watch[i].heard(ev);
+            }
+            Ok(Event::Done(i, r)) => {
+                if reports[i].is_none() {
+                    progress.done(i, &r);
+                    reports[i] = Some(*r);
+                }
+            }
+            Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {}
+            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                for (i, r) in reports.iter_mut().enumerate().filter(|(_, r)| r.is_none()) {
+                    *r = Some(failed_fixture(&names[i], &script_path, "the fixture's thread ended without a report"));
+                }
+            }
+        }
+    }
+    let mut runs = Vec::new();
+    for report in reports.into_iter().flatten() {
+        let name = report.name.clone();
         let _ = writeln!(
             err,
             "fixture {}: {} ({}; {} transactions, {} NACKs, {} retries)",
@@ -420,6 +477,104 @@ pub fn station(a: StationArgs) -> Result<u8> {
     } else {
         exit::STATION_FAILED
     })
+}
+
+/// How long a fixture may take to open its adapter before its time
+/// limit starts, as far as the station's backstop deadline goes; opening
+/// has its own time-outs, this only bounds a fixture that never starts.
+const OPEN_ALLOWANCE: Duration = Duration::from_secs(10);
+
+/// What a fixture's thread tells the station.
+enum Event {
+    /// The session started: its trace (to end it from here if the
+    /// fixture never stops) and its deadline.
+    Started(usize, Option<TraceRescue>, Option<Instant>),
+    Step(usize, script::steps::StepEvent),
+    Done(usize, Box<RunReport>),
+}
+
+/// What the station knows of a running fixture.
+#[derive(Default)]
+struct Watched {
+    rescue: Option<TraceRescue>,
+    deadline: Option<Instant>,
+    /// Steps that ended, and the ones running now (outermost first).
+    ended: Vec<crate::report::StepResult>,
+    open: Vec<String>,
+    transactions: u64,
+}
+
+impl Watched {
+    fn heard(&mut self, ev: script::steps::StepEvent) {
+        self.transactions = ev.transactions;
+        match ev.result {
+            None => self.open.push(ev.name),
+            Some(r) => {
+                self.open.retain(|n| *n != r.name);
+                self.ended.push(r);
+            }
+        }
+    }
+}
+
+/// The report of a fixture that did not stop by itself after its time
+/// limit (one long library call the script's hook never sees) or after
+/// Ctrl-C: the steps it finished as they ended, the ones running as
+/// errors, the rest skipped; its trace ended here. Its thread is left to
+/// the end of the process.
+fn stuck_fixture(
+    f: &Fixture,
+    script: &Path,
+    dir: &Path,
+    plan: &[String],
+    w: &mut Watched,
+    interrupted: bool,
+) -> RunReport {
+    let why = if interrupted {
+        format!("interrupted; the fixture did not stop within {} s", watchdog::GRACE.as_secs())
+    } else {
+        format!("script ran past its time limit (--timeout) and did not stop within {} s", watchdog::GRACE.as_secs())
+    };
+    let mut r = failed_fixture(&f.name, script, &why);
+    r.adapter = f.written.clone();
+    r.stats.transactions = w.transactions;
+    let mut steps = std::mem::take(&mut w.ended);
+    for name in w.open.drain(..).rev() {
+        steps.push(crate::report::StepResult {
+            depth: name.matches('/').count() as u32,
+            name,
+            status: Status::Error,
+            message: Some(why.clone()),
+            origin: None,
+            frames: None,
+            failed_at_frame: None,
+            duration: Duration::ZERO,
+        });
+    }
+    let mut book = script::steps::Book { steps, ..Default::default() };
+    book.finish(plan, &format!("not run: the run stopped ({why})"));
+    r.steps = book.steps;
+    if let Some(t) = w.rescue.take()
+        && let Err(e) = t.end(if interrupted { exit::INTERRUPTED } else { exit::INPUT }, &why)
+    {
+        r.stopped = Some(format!("{why}; cannot end its trace: {e}"));
+    } else {
+        r.trace = Some(dir.join(format!("{}.trace.jsonl", f.name)));
+    }
+    if let Err(e) = write_own(dir, &f.name, std::slice::from_ref(&r)) {
+        r.stopped = Some(format!("{why}; {e}"));
+    }
+    r
+}
+
+/// A fixture's own report pair; a report that cannot be written fails
+/// the fixture (the error comes back for the combined report).
+fn write_own(dir: &Path, name: &str, runs: &[RunReport]) -> Result<(), String> {
+    let own = [
+        Target { format: report::Format::Junit, path: dir.join(format!("{name}.junit.xml")) },
+        Target { format: report::Format::Json, path: dir.join(format!("{name}.report.json")) },
+    ];
+    write_reports(&own, runs, name, false).map_err(|e| super::message(&e))
 }
 
 /// The report of a fixture that could not run at all.
@@ -468,7 +623,7 @@ struct Job {
 }
 
 impl Job {
-    fn run(self) -> RunReport {
+    fn run(self, index: usize, tx: &std::sync::mpsc::Sender<Event>) -> RunReport {
         let name = self.fixture.name.clone();
         let script_name = self.script.display().to_string();
         let started = Instant::now();
@@ -486,7 +641,7 @@ impl Job {
                 let mut book = script::steps::Book::default();
                 book.finish(&script::steps::planned(&self.text), &format!("not run: cannot open the adapter: {e}"));
                 r.steps = book.steps;
-                if let Err(e) = self.write_own(std::slice::from_ref(&r)) {
+                if let Err(e) = write_own(&self.dir, &self.fixture.name, std::slice::from_ref(&r)) {
                     r.stopped = Some(format!("{}; {e}", r.stopped.unwrap_or_default()));
                 }
                 return r;
@@ -501,8 +656,10 @@ impl Job {
             self.text.as_bytes(),
             self.params.shown.clone(),
         );
+        let mut rescue = None;
         let trace = match TraceWriter::create_new(&trace_path, &header) {
             Ok(w) => {
+                rescue = Some(w.rescue());
                 session.add_sink(Box::new(w));
                 Some(trace_path)
             }
@@ -526,7 +683,14 @@ impl Job {
             stop_on_fail: self.stop_on_fail,
             allow_guarded: self.allow_guarded.clone(),
             param_sources: self.params.sources.clone(),
+            progress: Some(script::steps::Watch(Arc::new({
+                let tx = std::sync::Mutex::new(tx.clone());
+                move |ev| {
+                    let _ = tx.lock().unwrap_or_else(|p| p.into_inner()).send(Event::Step(index, ev));
+                }
+            }))),
         };
+        let _ = tx.send(Event::Started(index, rescue, session.deadline().map(|(when, _)| when)));
         let mut run = script::run(session, &cfg, self.interrupt.clone());
         let code = run.abort.as_ref().map_or(exit::OK, exit::of_abort);
         let closed = run.session.finish(code, run.abort.as_ref().map(|a| a.to_string()));
@@ -549,22 +713,11 @@ impl Job {
             let lines = listed.lock().unwrap_or_else(|p| p.into_inner()).clone();
             record_dry_run(&mut r, &self.dir.join(format!("{name}.writes.txt")), lines);
         }
-        if let Err(e) = self.write_own(std::slice::from_ref(&r)) {
+        if let Err(e) = write_own(&self.dir, &self.fixture.name, std::slice::from_ref(&r)) {
             r.stopped.get_or_insert(e);
             r.passed = false;
         }
         r
-    }
-
-    /// The fixture's own report pair; a report that cannot be written
-    /// fails the fixture (the error comes back for the combined report).
-    fn write_own(&self, runs: &[RunReport]) -> Result<(), String> {
-        let name = &self.fixture.name;
-        let own = [
-            Target { format: report::Format::Junit, path: self.dir.join(format!("{name}.junit.xml")) },
-            Target { format: report::Format::Json, path: self.dir.join(format!("{name}.report.json")) },
-        ];
-        write_reports(&own, runs, name, false).map_err(|e| super::message(&e))
     }
 }
 

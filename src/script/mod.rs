@@ -134,6 +134,8 @@ pub struct RunConfig {
     /// Where each of `params` came from (`--set`, `FILE:LINE`), for
     /// errors; a name missing here came from `--set`.
     pub param_sources: BTreeMap<String, String>,
+    /// Told of every step as it starts and ends ([`steps::Watch`]).
+    pub progress: Option<steps::Watch>,
 }
 
 /// Default memory limit for a script, in MiB (the unit of `--memory-limit`):
@@ -360,7 +362,11 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
         session: RefCell::new(session),
         params: RefCell::new(Params::new(cfg.params.clone()).with_sources(cfg.param_sources.clone())),
         traceback: RefCell::new(None),
-        book: RefCell::new(steps::Book { stop_on_fail: cfg.stop_on_fail, ..Default::default() }),
+        book: RefCell::new(steps::Book {
+            stop_on_fail: cfg.stop_on_fail,
+            watch: cfg.progress.clone(),
+            ..Default::default()
+        }),
         guarded: RefCell::new(guarded::GuardLog { allow: cfg.allow_guarded.clone(), writes: Vec::new() }),
     });
     let text = match &cfg.text {
