@@ -478,3 +478,56 @@ fn a_fixture_past_its_time_limit_ends_alone_with_whole_reports() {
     }
     assert_eq!(r["fixtures"][2]["passed"], true);
 }
+
+/// On a terminal the fixture lines are redrawn in place: the screen, as a
+/// terminal emulator (vt100) shows it, holds one line per fixture with its
+/// final state, not one line per step.
+#[cfg(unix)]
+#[test]
+fn on_a_terminal_each_fixture_has_one_line_redrawn_in_place() {
+    use std::io::Read;
+    use std::os::fd::{AsRawFd, FromRawFd};
+    let dir = tempfile::tempdir().unwrap();
+    let (master, slave, path) = buscue::serve::pty().expect("a pseudo-terminal");
+    let ws = libc::winsize { ws_row: 30, ws_col: 100, ws_xpixel: 0, ws_ypixel: 0 };
+    // SAFETY: TIOCSWINSZ reads one winsize from the pointer it is given.
+    assert_eq!(unsafe { libc::ioctl(master.as_raw_fd(), libc::TIOCSWINSZ, &ws) }, 0);
+    let tty = std::fs::OpenOptions::new().read(true).write(true).open(&path).unwrap();
+    let out = dir.path().join("out");
+    let mut child = buscue()
+        .args(["station", LINE, "--fixture", "bay1=sim", "--fixture", "bay2=sim", "--out"])
+        .arg(&out)
+        .stdin(std::process::Stdio::null())
+        .stdout(std::process::Stdio::null())
+        .stderr(tty)
+        .spawn()
+        .unwrap();
+    // Only the child holds the terminal's side now: the master reads to
+    // the end once it exits.
+    drop(slave);
+    // SAFETY: a duplicate of the master's descriptor, owned by this File.
+    let mut reader = unsafe { std::fs::File::from_raw_fd(libc::dup(master.as_raw_fd())) };
+    let collect = std::thread::spawn(move || {
+        let mut bytes = Vec::new();
+        let mut buf = [0u8; 4096];
+        while let Ok(n @ 1..) = reader.read(&mut buf) {
+            bytes.extend_from_slice(&buf[..n]);
+        }
+        bytes
+    });
+    let status = child.wait().unwrap();
+    let bytes = collect.join().unwrap();
+    assert_eq!(status.code(), Some(0));
+    let mut screen = vt100::Parser::new(30, 100, 0);
+    screen.process(&bytes);
+    let text = screen.screen().contents();
+    for name in ["bay1", "bay2"] {
+        let lines: Vec<&str> = text.lines().filter(|l| l.starts_with(&format!("{name}  "))).collect();
+        assert_eq!(lines.len(), 1, "one line for {name}:\n{text}");
+        assert!(lines[0].contains("steps 3/3") && lines[0].ends_with("PASSED"), "{text}");
+    }
+    // No plain per-step lines on a terminal; the lines were moved back over.
+    assert!(!text.contains("fixture bay1: step"), "{text}");
+    assert!(String::from_utf8_lossy(&bytes).contains("\x1b[2A"), "the cursor went back up two lines");
+    assert!(text.contains("station: 2 of 2 fixture(s) passed"), "{text}");
+}
