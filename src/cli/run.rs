@@ -46,15 +46,15 @@ pub struct RunArgs {
     #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
     /// Script parameters from a TOML file of NAME = VALUE; --set wins.
-    #[arg(long = "params", value_name = "FILE.toml")]
+    #[arg(long = "params", value_name = "FILE")]
     pub params: Option<PathBuf>,
     /// Print the parameters the script declares (`params { ... }`), with
     /// their types, defaults and docs, and exit; nothing is opened.
     #[arg(long)]
     pub list_params: bool,
-    /// Unlock these guarded registers (map names, comma-separated) or
-    /// `all` for the whole run; every guarded write is listed.
-    #[arg(long = "allow-guarded", value_name = "REG[,REG...]|all", value_parser = crate::script::guarded::AllowGuarded::parse)]
+    /// Unlock guarded registers for the whole run: map names,
+    /// comma-separated (REG,REG), or `all`; every guarded write is listed.
+    #[arg(long = "allow-guarded", value_name = "REGS", value_parser = crate::script::guarded::AllowGuarded::parse)]
     pub allow_guarded: Vec<crate::script::guarded::AllowGuarded>,
     /// Wall-clock limit for the script (30, 30s, 500ms, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]

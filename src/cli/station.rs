@@ -54,11 +54,11 @@ pub struct StationArgs {
     #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
     /// Script parameters for every fixture from a TOML file of NAME = VALUE.
-    #[arg(long = "params", value_name = "FILE.toml")]
+    #[arg(long = "params", value_name = "FILE")]
     pub params: Option<PathBuf>,
-    /// Unlock these guarded registers (map names, comma-separated) or
-    /// `all` for the whole run; every guarded write is listed.
-    #[arg(long = "allow-guarded", value_name = "REG[,REG...]|all", value_parser = AllowGuarded::parse)]
+    /// Unlock guarded registers for the whole run: map names,
+    /// comma-separated (REG,REG), or `all`; every guarded write is listed.
+    #[arg(long = "allow-guarded", value_name = "REGS", value_parser = AllowGuarded::parse)]
     pub allow_guarded: Vec<AllowGuarded>,
     /// Wall-clock limit per fixture (30s, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
