@@ -251,6 +251,22 @@ fn a_dry_run_opens_nothing_and_lists_every_write() {
 }
 
 #[test]
+fn a_dry_run_report_lists_the_writes_and_a_report_that_cannot_be_written_fails_the_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let j = dir.path().join("dry.json");
+    let o = run_path(&root().join(LINE), &["--dry-run", "-q", "--report", &format!("json:{}", j.display())]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let writes = json(&j)["fixtures"][0]["dry_run_writes"].clone();
+    assert_eq!(writes.as_array().map(Vec::len), Some(8), "{writes}");
+    assert_eq!(writes[5], "#6 0x11 write 01 19 (attempt 2)");
+    // A report into a folder that is not there: the run has no record, exit 6.
+    let gone = dir.path().join("gone/r.json");
+    let o = run_path(&root().join(LINE), &["--dry-run", "-q", "--report", &format!("json:{}", gone.display())]);
+    assert_eq!(code(&o), 6, "{}", stderr(&o));
+    assert!(stderr(&o).contains("cannot write the report"), "{}", stderr(&o));
+}
+
+#[test]
 fn a_dry_run_against_a_recording_answers_as_the_board_did() {
     let dir = tempfile::tempdir().unwrap();
     let trace = dir.path().join("board.jsonl");

@@ -285,8 +285,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let error = report.abort.as_ref().map(|e| e.to_string());
     let closed = report.session.finish(code, error.clone());
     let adapter_text = if a.dry.dry_run.is_some() { "dry run" } else { "adapter" };
-    let run_report =
+    let mut run_report =
         super::station::report_of(&stem, &name, adapter_text, &params.shown, trace_path.clone(), &mut report, host);
+    if a.dry.dry_run.is_some() {
+        run_report.dry_run_writes = Some(listed.lock().unwrap_or_else(|p| p.into_inner()).clone());
+    }
     let reported = super::station::write_reports(&a.reports, std::slice::from_ref(&run_report), &stem, a.force);
     let mut session = report.session;
     if let Some((done, view)) = live {
@@ -354,6 +357,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
             e => writeln!(err, "{}", error_line(e, colour)),
         };
         return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
+    }
+    // A report asked for and not written leaves the run without its
+    // record: failed, as a trace that cannot be written fails it.
+    if reported.is_err() && code == exit::OK {
+        return Ok(exit::RECORD_FAILED);
     }
     Ok(code)
 }
