@@ -104,6 +104,9 @@ fn dump(label: &str, default_path: bool) {
         memory_limit: DEFAULT_MEMORY_LIMIT,
         allow_io: false,
         stop_on_fail: false,
+        allow_guarded: Default::default(),
+        param_sources: Default::default(),
+        progress: None,
     };
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);

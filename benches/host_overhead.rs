@@ -91,6 +91,9 @@ fn measure(label: &str, make: impl Fn(&std::path::Path, std::fs::File, &SimAdapt
         memory_limit: DEFAULT_MEMORY_LIMIT,
         allow_io: false,
         stop_on_fail: false,
+        allow_guarded: Default::default(),
+        param_sources: Default::default(),
+        progress: None,
     };
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);

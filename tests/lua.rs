@@ -549,3 +549,102 @@ fn bus_adapter_says_who_the_adapter_is() {
     "#);
     assert!(out.contains("target "), "{out}");
 }
+
+/// A script declaring one parameter of each type.
+const DECLARED: &str = r#"
+local p = params {
+  serial = { type = "hex", doc = "serial number to program" },
+  offset_mdeg = { type = "integer", default = 0, doc = "temperature trim" },
+  gain = { type = "float", default = 1.5 },
+  vent_auto = { type = "boolean", default = false },
+  label = { type = "string", default = "bay" },
+  key = { type = "bytes", default = { 1, 2 } },
+}
+log(p.serial, p.offset_mdeg, p.gain, p.vent_auto, p.label, #p.key, p.key[2], param("serial"))
+"#;
+
+#[test]
+fn declared_parameters_are_typed_and_checked_before_anything_opens() {
+    let o = run_script(DECLARED, &["--set", "serial=00A1", "--set", "offset_mdeg=-120", "--set", "key=0A 0B 0C"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stdout(&o).contains("note   161 -120 1.5 false bay 3 11 161"), "{}", stdout(&o));
+    // Errors name the parameter, the type and where the value came from;
+    // the port named does not exist, so the check came before any opening.
+    let no_port = ["--adapter", "serial:/dev/buscue-no-such-port"];
+    let (c, err) = fails(DECLARED, &[&no_port[..], &["--set", "serial=G1"]].concat());
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains("parameter `serial` (from --set): expected hex"), "{err}");
+    assert!(!err.contains("buscue-no-such-port"), "{err}");
+    let (c, err) = fails(DECLARED, &no_port);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains("parameter `serial` (hex) is required"), "{err}");
+    let (c, err) = fails(DECLARED, &["--set", "serial=1", "--set", "vent_auto=maybe"]);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains("parameter `vent_auto` (from --set): expected boolean"), "{err}");
+}
+
+#[test]
+fn a_parameters_file_fills_them_and_its_errors_name_file_and_line() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("board.toml");
+    // A TOML whole number written in hex means that number.
+    std::fs::write(&file, "# board 7\nserial = 0x00A1\ngain = 2\nkey = [0xAA, 187]\n").unwrap();
+    let f = file.to_str().unwrap();
+    let o = run_script(DECLARED, &["--params", f]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stdout(&o).contains("note   161 0 2.0 false bay 2 187 161"), "{}", stdout(&o));
+    // --set wins over the file.
+    let o = run_script(DECLARED, &["--params", f, "--set", "serial=FF"]);
+    assert!(stdout(&o).contains("note   255 "), "{}", stdout(&o));
+    std::fs::write(&file, "serial = 1\nvent_auto = \"sometimes\"\n").unwrap();
+    let (c, err) = fails(DECLARED, &["--params", f]);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains(&format!("parameter `vent_auto` (from {f}:2): expected boolean")), "{err}");
+    std::fs::write(&file, "serial = 1\nnested = { a = 1 }\n").unwrap();
+    let (c, err) = fails(DECLARED, &["--params", f]);
+    assert_eq!(c, 2, "{err}");
+    assert!(err.contains(&format!("{f}:2: key `nested`")), "{err}");
+}
+
+#[test]
+fn list_params_prints_types_defaults_and_docs_without_opening_the_adapter() {
+    let o = run_script(DECLARED, &["--list-params", "--adapter", "serial:/dev/buscue-no-such-port"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let out = stdout(&o);
+    let lines: Vec<&str> = out.lines().collect();
+    assert_eq!(lines.len(), 6, "{out}");
+    assert_eq!(lines[0], "gain         float    default 1.5");
+    assert_eq!(lines[5], "vent_auto    boolean  default false");
+    assert!(out.contains("serial       hex      required  serial number to program"), "{out}");
+    assert!(out.contains("offset_mdeg  integer  default 0  temperature trim"), "{out}");
+    assert!(out.contains("key          bytes    default 01 02"), "{out}");
+    let o = run_script("log(param('x', 1))", &["--list-params"]);
+    assert_eq!(code(&o), 0);
+    assert!(stdout(&o).contains("declares no parameters"), "{}", stdout(&o));
+}
+
+#[test]
+fn declared_parameters_and_their_defaults_go_into_the_reports() {
+    let dir = tempfile::tempdir().unwrap();
+    let j = dir.path().join("r.json");
+    let x = dir.path().join("r.xml");
+    let o = run_script(
+        DECLARED,
+        &[
+            "--set",
+            "serial=0x00a1",
+            "--report",
+            &format!("json:{}", j.display()),
+            "--report",
+            &format!("junit:{}", x.display()),
+        ],
+    );
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&j).unwrap()).unwrap();
+    let p = &r["fixtures"][0]["parameters"];
+    assert_eq!(p["serial"], "0xA1", "{r}");
+    assert_eq!(p["offset_mdeg"], "0");
+    assert_eq!(p["key"], "01 02");
+    let xml = std::fs::read_to_string(&x).unwrap();
+    assert!(xml.contains(r#"<property name="param.serial" value="0xA1"/>"#), "{xml}");
+}

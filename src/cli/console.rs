@@ -342,6 +342,9 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
         memory_limit: script::memory_limit_bytes(a.memory_limit),
         allow_io: false,
         stop_on_fail: false,
+        allow_guarded: Default::default(),
+        param_sources: Default::default(),
+        progress: None,
     };
     let console = Console::new(session, &cfg, interrupt).map_err(|e| anyhow::anyhow!("{e}"))?;
     let mut st = State {

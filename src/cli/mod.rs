@@ -18,7 +18,9 @@ pub mod watchdog;
 
 mod console;
 mod decode;
+mod fixtures;
 mod ports;
+mod progress;
 mod run;
 mod scan;
 #[cfg(unix)]

@@ -45,6 +45,17 @@ pub struct RunArgs {
     /// Script parameter, read by `param("name", default)`; repeatable.
     #[arg(long = "set", value_name = "NAME=VALUE", value_parser = parse_assignment, allow_hyphen_values = true)]
     pub set: Vec<(String, String)>,
+    /// Script parameters from a TOML file of NAME = VALUE; --set wins.
+    #[arg(long = "params", value_name = "FILE")]
+    pub params: Option<PathBuf>,
+    /// Print the parameters the script declares (`params { ... }`), with
+    /// their types, defaults and docs, and exit; nothing is opened.
+    #[arg(long)]
+    pub list_params: bool,
+    /// Unlock guarded registers for the whole run: map names,
+    /// comma-separated (REG,REG), or `all`; every guarded write is listed.
+    #[arg(long = "allow-guarded", value_name = "REGS", value_parser = crate::script::guarded::AllowGuarded::parse)]
+    pub allow_guarded: Vec<crate::script::guarded::AllowGuarded>,
     /// Wall-clock limit for the script (30, 30s, 500ms, 2m; 0 = none).
     #[arg(long, default_value = "10m", value_parser = parse_duration, allow_hyphen_values = true)]
     pub timeout: Duration,
@@ -183,6 +194,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let script = Script::read(&a.script)?;
     let name = script.name.display().to_string();
     let stem = script.stem_path().file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    if a.list_params {
+        return list_params(&script.text);
+    }
+    // Parameters are checked against the declaration before anything opens.
+    let params = super::station::param_set(&script.text, super::station::given_params(a.params.as_deref(), &a.set)?)?;
     let interrupt = interrupt_flag()?;
     for r in &a.reports {
         outputs::check(&r.path, "the report", &[(script.input_path(), "the script")])?;
@@ -200,7 +216,6 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let timeout = (a.timeout > Duration::ZERO).then_some(a.timeout);
     session.set_time_limit(timeout);
     let mut rescue = None;
-    let params: std::collections::BTreeMap<String, String> = a.set.into_iter().collect();
     // The trace sink goes first: a frame reaches the file before the
     // screen, so nothing a person saw can be missing from the trace.
     let trace_path = if a.no_trace {
@@ -209,7 +224,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
         let header = Header::new("run", session.adapter_ref().snapshot()).with_script(
             &name,
             script.text.as_bytes(),
-            params.clone(),
+            params.shown.clone(),
         );
         let mut w = match &a.trace {
             Some(path) => {
@@ -251,11 +266,14 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let cfg = RunConfig {
         script: script.name,
         text: Some(script.text),
-        params,
+        params: params.values.clone(),
         timeout,
         memory_limit: script::memory_limit_bytes(a.memory_limit),
         allow_io: a.allow_io,
         stop_on_fail: a.stop_on_fail,
+        allow_guarded: super::station::allowed(&a.allow_guarded),
+        param_sources: params.sources.clone(),
+        progress: None,
     };
     let started = Instant::now();
     let watched = watchdog::Outputs {
@@ -271,8 +289,11 @@ pub fn run(a: RunArgs) -> Result<u8> {
     let error = report.abort.as_ref().map(|e| e.to_string());
     let closed = report.session.finish(code, error.clone());
     let adapter_text = if a.dry.dry_run.is_some() { "dry run" } else { "adapter" };
-    let run_report =
-        super::station::report_of(&stem, &name, adapter_text, &cfg.params, trace_path.clone(), &mut report, host);
+    let mut run_report =
+        super::station::report_of(&stem, &name, adapter_text, &params.shown, trace_path.clone(), &mut report, host);
+    if a.dry.dry_run.is_some() {
+        run_report.dry_run_writes = Some(listed.lock().unwrap_or_else(|p| p.into_inner()).clone());
+    }
     let reported = super::station::write_reports(&a.reports, std::slice::from_ref(&run_report), &stem, a.force);
     let mut session = report.session;
     if let Some((done, view)) = live {
@@ -295,6 +316,9 @@ pub fn run(a: RunArgs) -> Result<u8> {
             let _ = writeln!(err, "measurement {} = {} out of limits", shown(&m.name), m.value);
         }
         let _ = writeln!(err, "{}", run_report.summary_line());
+    }
+    for g in &run_report.guarded_writes {
+        let _ = writeln!(err, "guarded write: {}", shown(g));
     }
     if a.dry.dry_run.is_some() {
         let lines = listed.lock().unwrap_or_else(|p| p.into_inner());
@@ -338,5 +362,30 @@ pub fn run(a: RunArgs) -> Result<u8> {
         };
         return Ok(if code == exit::OK { exit::of_run_error(&e) } else { code });
     }
+    // A report asked for and not written leaves the run without its
+    // record: failed, as a trace that cannot be written fails it.
+    if reported.is_err() && code == exit::OK {
+        return Ok(exit::RECORD_FAILED);
+    }
     Ok(code)
+}
+
+/// `--list-params`: the script's declared parameters, one per line with
+/// type, default (or `required`) and doc, from its text alone.
+fn list_params(text: &str) -> Result<u8> {
+    let mut o = out::locked();
+    let Some(decls) = crate::script::params::declared(text)? else {
+        writeln!(o, "the script declares no parameters (params {{ ... }})")?;
+        return Ok(exit::OK);
+    };
+    let width = decls.iter().map(|d| d.name.len()).max().unwrap_or(0);
+    for d in &decls {
+        let default = match &d.default {
+            Some(v) => format!("default {}", v.text()),
+            None => "required".to_string(),
+        };
+        let doc = d.doc.as_deref().map(|t| format!("  {}", shown(t))).unwrap_or_default();
+        writeln!(o, "{:<width$}  {:<7}  {}{doc}", d.name, d.kind.word(), shown(default))?;
+    }
+    Ok(exit::OK)
 }

@@ -1,4 +1,4 @@
-//! Our JSON report (format `buscue-report`, version 1.0): one object with
+//! Our JSON report (format `buscue-report`, version 1.1): one object with
 //! `format`, `version`, `passed` and `fixtures`, an array of
 //! [`RunReport`](super::RunReport)s. Documented in `docs/reports.md`.
 
@@ -7,7 +7,7 @@ use serde::Serialize;
 use super::RunReport;
 
 pub const FORMAT: &str = "buscue-report";
-pub const VERSION: &str = "1.0";
+pub const VERSION: &str = "1.1";
 
 #[derive(Serialize)]
 struct Document<'a> {

@@ -40,6 +40,12 @@ fn suite(run: &RunReport) -> TestSuite {
             if m.passed { "within limits" } else { "out of limits" },
         ));
     }
+    for (i, g) in run.guarded_writes.iter().enumerate() {
+        s.add_property(Property::new(format!("guarded_write.{}", i + 1), g.to_string()));
+    }
+    if let Some(w) = &run.dry_run_writes {
+        s.add_property(Property::new("dry_run.writes", w.len().to_string()));
+    }
     for step in &run.steps {
         let status = match step.status {
             Status::Passed => TestCaseStatus::success(),

@@ -98,6 +98,33 @@ impl Measurement {
     }
 }
 
+/// A write to a guarded register that went to the bus.
+#[derive(Debug, Clone, Serialize)]
+pub struct GuardedWrite {
+    /// The device's address as scripts write it (`0x2B`).
+    pub device: String,
+    /// The register (or `REGISTER.FIELD`) as the map names it.
+    pub register: String,
+    /// The bytes written after the register pointer, in hex.
+    pub bytes: String,
+    /// The frame's sequence number.
+    pub frame: u64,
+    /// What unlocked it: `unlock` (the call) or `--allow-guarded`.
+    pub unlocked_by: &'static str,
+    #[serde(skip_serializing_if = "Option::is_none", serialize_with = "origin_text")]
+    pub origin: Option<Origin>,
+}
+
+impl std::fmt::Display for GuardedWrite {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "#{} {} {} <- {} ({})", self.frame, self.device, self.register, self.bytes, self.unlocked_by)?;
+        if let Some(o) = &self.origin {
+            write!(f, " at {o}")?;
+        }
+        Ok(())
+    }
+}
+
 /// Everything one run (one fixture) reports.
 #[derive(Debug, Clone, Serialize)]
 pub struct RunReport {
@@ -113,6 +140,11 @@ pub struct RunReport {
     pub trace: Option<PathBuf>,
     pub steps: Vec<StepResult>,
     pub measurements: Vec<Measurement>,
+    /// Every write to a guarded register that went to the bus, in order.
+    pub guarded_writes: Vec<GuardedWrite>,
+    /// A dry run: every write that would have gone to the board, in order.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub dry_run_writes: Option<Vec<String>>,
     /// What ended the run early, if anything did.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub stopped: Option<String>,

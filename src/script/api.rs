@@ -427,7 +427,26 @@ fn install_globals(lua: &Lua, g: &Table, ctx: Rc<Ctx>) -> mlua::Result<()> {
     })?;
 
     let c = ctx.clone();
+    add(lua, g, "params", move |lua, decl: Table| {
+        let decls = super::params::from_table(&decl).map_err(|e| bad(e.to_string()))?;
+        let mut p = c.params.borrow_mut();
+        let given = p.given();
+        let values = super::params::resolve(&decls, &given).map_err(|e| bad(e.to_string()))?;
+        let out = lua.create_table()?;
+        for (name, v) in values {
+            p.mark_used(&name);
+            out.set(name.as_str(), v.to_lua(lua)?)?;
+            p.typed.insert(name, v);
+        }
+        Ok(out)
+    })?;
+
+    let c = ctx.clone();
     add(lua, g, "param", move |lua, (name, default): (String, Value)| {
+        // A parameter `params { ... }` declared has its type already.
+        if let Some(v) = c.params.borrow().typed.get(&name) {
+            return v.to_lua(lua);
+        }
         let given = c.params.borrow_mut().get(&name);
         let Some(text) = given else {
             if default.is_nil() {

@@ -66,6 +66,7 @@ impl Console {
             params: RefCell::new(Params::new(cfg.params.clone())),
             traceback: RefCell::new(None),
             book: RefCell::new(Default::default()),
+            guarded: RefCell::new(super::guarded::GuardLog { allow: cfg.allow_guarded.clone(), writes: Vec::new() }),
         });
         let lua = super::new_state(&ctx, cfg, interrupt.clone())?;
         Ok(Console { lua, ctx, interrupt, line: 0 })

@@ -188,10 +188,33 @@ impl DeviceHandle {
         }
         self.guard(reg, &name, unlock)?;
         let mut bytes = self.pointer(reg);
-        bytes.extend(self.encode(reg, value));
+        let data = self.encode(reg, value);
+        bytes.extend(&data);
         let tx = Transaction::new(self.address, vec![Operation::Write(bytes)]);
-        transact(lua, &self.ctx, &tx, &self.options(), None, name)?;
+        transact(lua, &self.ctx, &tx, &self.options(), None, name.clone())?;
+        self.note_guarded(lua, &name, &data);
         Ok(())
+    }
+
+    /// Logs a write that went to the bus when its register is guarded
+    /// ([`super::guarded`]): `name` as the call named it, `data` the bytes
+    /// after the pointer.
+    fn note_guarded(&self, lua: &Lua, name: &Option<String>, data: &[u8]) {
+        let Some(n) = name else { return };
+        let Some(r) = self.map.get(n.split('.').next().unwrap_or(n)).filter(|r| r.guard) else { return };
+        let frame = self.ctx.session.borrow().seq();
+        let mut g = self.ctx.guarded.borrow_mut();
+        let unlocked_by = if g.allow.allows(&r.name) { "--allow-guarded" } else { "unlock" };
+        let mut bytes = String::new();
+        crate::ascii::push_hex_bytes(&mut bytes, data);
+        g.writes.push(super::guarded::GuardedWrite {
+            device: self.address.to_string(),
+            register: n.clone(),
+            bytes,
+            frame,
+            unlocked_by,
+            origin: super::origin(lua),
+        });
     }
 
     /// The value a read-modify-write starts from: the register read, or its
@@ -213,10 +236,11 @@ impl DeviceHandle {
         if r.access == Access::ReadOnly {
             return Err(bad(format!("{} register 0x{reg:02X} ({}) is read-only", self.address, r.name)));
         }
-        if r.guard && !unlock {
+        if r.guard && !unlock && !self.ctx.guarded.borrow().allow.allows(&r.name) {
             return Err(bad(format!(
-                "{} register 0x{reg:02X} ({}) is guarded; pass {{unlock = true}} to write it",
-                self.address, r.name
+                "{} register 0x{reg:02X} ({}) is guarded; pass {{unlock = true}} to write it, \
+                 or unlock it for the run with --allow-guarded {}",
+                self.address, r.name, r.name
             )));
         }
         Ok(())
@@ -435,9 +459,11 @@ impl UserData for DeviceHandle {
                 let (reg, name) = this.register(&reg)?;
                 this.guard(reg, &name, unlock_option(&opts)?)?;
                 let mut bytes = this.pointer(reg);
-                bytes.extend(convert::bytes(&data, "write_bytes")?);
+                let data = convert::bytes(&data, "write_bytes")?;
+                bytes.extend(&data);
                 let tx = Transaction::new(this.address, vec![Operation::Write(bytes)]);
-                transact(lua, &this.ctx, &tx, &this.options(), None, name)?;
+                transact(lua, &this.ctx, &tx, &this.options(), None, name.clone())?;
+                this.note_guarded(lua, &name, &data);
                 Ok(())
             };
             r().map_err(|e| located(lua, e))

@@ -23,6 +23,8 @@ pub mod console;
 pub mod convert;
 pub mod device;
 pub mod electrical_api;
+pub mod guarded;
+pub mod params;
 pub mod sandbox;
 pub mod smbus_api;
 pub mod steps;
@@ -63,11 +65,37 @@ fn at(o: &Option<Origin>) -> String {
 pub struct Params {
     values: BTreeMap<String, String>,
     used: BTreeSet<String>,
+    /// Where each value came from; `--set` when not named.
+    sources: BTreeMap<String, String>,
+    /// Values `params { ... }` declared and converted, by name.
+    pub typed: BTreeMap<String, params::ParamValue>,
 }
 
 impl Params {
     pub fn new(values: BTreeMap<String, String>) -> Self {
-        Params { values, used: BTreeSet::new() }
+        Params { values, used: BTreeSet::new(), sources: BTreeMap::new(), typed: BTreeMap::new() }
+    }
+
+    pub fn with_sources(mut self, sources: BTreeMap<String, String>) -> Self {
+        self.sources = sources;
+        self
+    }
+
+    /// Every value given, with its source, marking them read.
+    pub fn given(&mut self) -> BTreeMap<String, params::Given> {
+        self.values
+            .iter()
+            .map(|(k, v)| {
+                let source = self.sources.get(k).cloned().unwrap_or_else(|| "--set".into());
+                (k.clone(), params::Given { value: v.clone(), source })
+            })
+            .collect()
+    }
+
+    pub fn mark_used(&mut self, name: &str) {
+        if self.values.contains_key(name) {
+            self.used.insert(name.to_string());
+        }
     }
 
     pub fn get(&mut self, name: &str) -> Option<String> {
@@ -101,6 +129,13 @@ pub struct RunConfig {
     /// End the run at the first step that fails (`--stop-on-fail`)
     /// instead of going on with the next top-level step.
     pub stop_on_fail: bool,
+    /// Guarded registers the run unlocks (`--allow-guarded`).
+    pub allow_guarded: guarded::AllowGuarded,
+    /// Where each of `params` came from (`--set`, `FILE:LINE`), for
+    /// errors; a name missing here came from `--set`.
+    pub param_sources: BTreeMap<String, String>,
+    /// Told of every step as it starts and ends ([`steps::Watch`]).
+    pub progress: Option<steps::Watch>,
 }
 
 /// Default memory limit for a script, in MiB (the unit of `--memory-limit`):
@@ -124,6 +159,8 @@ pub struct Ctx {
     pub traceback: RefCell<Option<String>>,
     /// Steps and measurements ([`steps`]).
     pub book: RefCell<steps::Book>,
+    /// Unlocked guarded registers and the guarded writes made ([`guarded`]).
+    pub guarded: RefCell<guarded::GuardLog>,
 }
 
 /// The result of a run.
@@ -135,6 +172,8 @@ pub struct Report {
     /// The steps and measurements, with the planned steps never reached
     /// marked skipped.
     pub book: steps::Book,
+    /// Every guarded write that went to the bus, in order.
+    pub guarded: Vec<guarded::GuardedWrite>,
 }
 
 /// Chunk name prefix of the tool's own Lua code, skipped when looking for
@@ -321,9 +360,14 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
     }
     let ctx = Rc::new(Ctx {
         session: RefCell::new(session),
-        params: RefCell::new(Params::new(cfg.params.clone())),
+        params: RefCell::new(Params::new(cfg.params.clone()).with_sources(cfg.param_sources.clone())),
         traceback: RefCell::new(None),
-        book: RefCell::new(steps::Book { stop_on_fail: cfg.stop_on_fail, ..Default::default() }),
+        book: RefCell::new(steps::Book {
+            stop_on_fail: cfg.stop_on_fail,
+            watch: cfg.progress.clone(),
+            ..Default::default()
+        }),
+        guarded: RefCell::new(guarded::GuardLog { allow: cfg.allow_guarded.clone(), writes: Vec::new() }),
     });
     let text = match &cfg.text {
         Some(t) => Ok(t.clone()),
@@ -349,7 +393,14 @@ pub fn run(mut session: Session, cfg: &RunConfig, interrupt: Arc<AtomicBool>) ->
     book.finish(&steps::planned(&text), &reason);
     // A step that failed while the run went on is the run's failure.
     let abort = abort.or_else(|| book.first_failure.clone());
-    Report { abort, traceback: ctx.traceback.into_inner(), unused_params, session: ctx.session.into_inner(), book }
+    Report {
+        abort,
+        traceback: ctx.traceback.into_inner(),
+        unused_params,
+        session: ctx.session.into_inner(),
+        book,
+        guarded: ctx.guarded.into_inner().writes,
+    }
 }
 
 fn execute(ctx: &Rc<Ctx>, cfg: &RunConfig, text: &str, interrupt: Arc<AtomicBool>) -> Result<(), Abort> {

@@ -15,6 +15,7 @@
 //!   ([`planned`]).
 //! - `step(name)` with no function stays a boundary mark in the trace.
 
+use std::sync::Arc;
 use std::time::Instant;
 
 use mlua::{Function, Lua, Result as LuaResult};
@@ -22,6 +23,28 @@ use mlua::{Function, Lua, Result as LuaResult};
 use super::{Abort, Ctx, RunError, classify, origin};
 use crate::record::Origin;
 use crate::report::{Measurement, Status, StepResult};
+
+/// What a step watcher ([`Watch`]) hears: a step started (`result`
+/// None) or ended, with the run's transactions so far.
+#[derive(Debug, Clone)]
+pub struct StepEvent {
+    /// The step's full name (`outer/inner`).
+    pub name: String,
+    pub depth: u32,
+    pub result: Option<StepResult>,
+    pub transactions: u64,
+}
+
+/// Told of every step as it starts and ends (the station's progress
+/// lines); called on the run's thread, so it should only pass the event on.
+#[derive(Clone)]
+pub struct Watch(pub Arc<dyn Fn(StepEvent) + Send + Sync>);
+
+impl std::fmt::Debug for Watch {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Watch")
+    }
+}
 
 /// What the run's steps and measurements came to so far.
 #[derive(Debug, Default)]
@@ -34,6 +57,7 @@ pub struct Book {
     /// run's exit code when nothing else stopped it.
     pub first_failure: Option<Abort>,
     pub stop_on_fail: bool,
+    pub watch: Option<Watch>,
 }
 
 impl Book {
@@ -92,9 +116,20 @@ pub fn run(lua: &Lua, ctx: &Ctx, name: String, body: Function) -> LuaResult<bool
         (b.open.join("/"), b.open.len() as u32 - 1, b.measurements.len())
     };
     let seq0 = ctx.session.borrow().seq();
+    let watch = ctx.book.borrow().watch.clone();
+    if let Some(w) = &watch {
+        let transactions = ctx.session.borrow().stats.transactions;
+        w.0(StepEvent { name: full.clone(), depth, result: None, transactions });
+    }
     let started = Instant::now();
     let result = body.call::<()>(());
     let seq1 = ctx.session.borrow().seq();
+    let transactions = ctx.session.borrow().stats.transactions;
+    let tell = |step: &StepResult| {
+        if let Some(w) = &watch {
+            w.0(StepEvent { name: step.name.clone(), depth: step.depth, result: Some(step.clone()), transactions });
+        }
+    };
     let mut b = ctx.book.borrow_mut();
     b.open.pop();
     let mut step = StepResult {
@@ -122,6 +157,7 @@ pub fn run(lua: &Lua, ctx: &Ctx, name: String, body: Function) -> LuaResult<bool
             if !passed && depth == 0 {
                 b.first_failure.get_or_insert_with(|| Abort::Check { message: out.join("; "), origin: None });
             }
+            tell(&step);
             b.steps.push(step);
             Ok(passed)
         }
@@ -137,6 +173,7 @@ pub fn run(lua: &Lua, ctx: &Ctx, name: String, body: Function) -> LuaResult<bool
                 step.origin = Some(o);
             }
             step.failed_at_frame = (seq1 > 0).then_some(seq1);
+            tell(&step);
             b.steps.push(step);
             if depth > 0 || b.stop_on_fail || ends_run(&abort) {
                 return Err(e);
