@@ -19,7 +19,7 @@ use std::time::Instant;
 use buscue::adapter::Adapter as _;
 use buscue::cli::out::{LogOut, Out};
 use buscue::record::Sink;
-use buscue::script::{self, DEFAULT_MEMORY_LIMIT, RunConfig, Session};
+use buscue::script::{self, RunConfig, Session};
 use buscue::sim::{Bench, SimAdapter};
 use buscue::trace::{Header, TraceWriter};
 use buscue::view::plain::PlainLog;
@@ -96,18 +96,7 @@ fn dump(label: &str, default_path: bool) {
     for s in sinks {
         session.add_sink(s);
     }
-    let cfg = RunConfig {
-        script,
-        text: None,
-        params: Default::default(),
-        timeout: None,
-        memory_limit: DEFAULT_MEMORY_LIMIT,
-        allow_io: false,
-        stop_on_fail: false,
-        allow_guarded: Default::default(),
-        param_sources: Default::default(),
-        progress: None,
-    };
+    let cfg = RunConfig::new(script);
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);
     let host = start.elapsed();

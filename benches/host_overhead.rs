@@ -18,7 +18,7 @@ use std::time::Instant;
 use buscue::adapter::Adapter as _;
 use buscue::cli::out::{LogOut, Out};
 use buscue::record::Sink;
-use buscue::script::{self, DEFAULT_MEMORY_LIMIT, RunConfig, Session};
+use buscue::script::{self, RunConfig, Session};
 use buscue::sim::{Bench, SimAdapter};
 use buscue::trace::{Header, TraceWriter};
 use buscue::view::json::JsonLines;
@@ -83,18 +83,7 @@ fn measure(label: &str, make: impl Fn(&std::path::Path, std::fs::File, &SimAdapt
     for sink in sinks {
         session.add_sink(sink);
     }
-    let cfg = RunConfig {
-        script,
-        text: None,
-        params: Default::default(),
-        timeout: None,
-        memory_limit: DEFAULT_MEMORY_LIMIT,
-        allow_io: false,
-        stop_on_fail: false,
-        allow_guarded: Default::default(),
-        param_sources: Default::default(),
-        progress: None,
-    };
+    let cfg = RunConfig::new(script);
     let start = Instant::now();
     let report = script::run(session, &cfg, interrupt);
     let host = start.elapsed();

@@ -264,6 +264,22 @@ fn a_dry_run_report_lists_the_writes_and_a_report_that_cannot_be_written_fails_t
     let o = run_path(&root().join(LINE), &["--dry-run", "-q", "--report", &format!("json:{}", gone.display())]);
     assert_eq!(code(&o), 6, "{}", stderr(&o));
     assert!(stderr(&o).contains("cannot write the report"), "{}", stderr(&o));
+    // The same for a station's combined report: the fixtures' own
+    // reports are written all the same.
+    let out = dir.path().join("station");
+    let o = run(&[
+        "station",
+        LINE,
+        "--fixture",
+        "a=sim",
+        "--out",
+        out.to_str().unwrap(),
+        "--report",
+        &format!("json:{}", gone.display()),
+    ]);
+    assert_eq!(code(&o), 6, "{}", stderr(&o));
+    assert!(stderr(&o).contains("cannot write the report"), "{}", stderr(&o));
+    assert!(out.join("report.json").exists(), "the combined report in --out was written");
 }
 
 #[test]

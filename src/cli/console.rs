@@ -16,7 +16,6 @@ use std::io::{BufRead, IsTerminal, Write};
 use std::path::{Path, PathBuf};
 use std::rc::Rc;
 use std::sync::{Arc, Mutex};
-use std::time::Duration;
 
 use anyhow::{Context, Result};
 use clap::Args;
@@ -335,16 +334,8 @@ pub fn run(a: ConsoleArgs) -> Result<u8> {
         src
     });
     let cfg = RunConfig {
-        script: PathBuf::from("console"),
-        text: None,
-        params: Default::default(),
-        timeout: None::<Duration>,
         memory_limit: script::memory_limit_bytes(a.memory_limit),
-        allow_io: false,
-        stop_on_fail: false,
-        allow_guarded: Default::default(),
-        param_sources: Default::default(),
-        progress: None,
+        ..RunConfig::new(PathBuf::from("console"))
     };
     let console = Console::new(session, &cfg, interrupt).map_err(|e| anyhow::anyhow!("{e}"))?;
     let mut st = State {

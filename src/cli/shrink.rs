@@ -96,13 +96,10 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
             let text =
                 std::fs::read_to_string(p).with_context(|| format!("cannot read the reset script {}", p.display()))?;
             Some(crate::script::RunConfig {
-                script: p.clone(),
                 text: Some(text),
-                params: Default::default(),
                 timeout: Some(RESET_LIMIT),
-                memory_limit: crate::script::DEFAULT_MEMORY_LIMIT,
-                allow_io: false,
                 stop_on_fail: true,
+                ..crate::script::RunConfig::new(p.clone())
             })
         }
         None => None,

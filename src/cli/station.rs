@@ -460,8 +460,15 @@ pub fn station(a: StationArgs) -> Result<u8> {
         Target { format: report::Format::Junit, path: dir.join("junit.xml") },
         Target { format: report::Format::Json, path: dir.join("report.json") },
     ];
-    write_reports(&combined, &runs, &stem, false)?;
-    write_reports(&a.reports, &runs, &stem, a.force)?;
+    // A report that cannot be written fails the station, as it fails a
+    // run; the other reports are still written.
+    let mut unwritten = false;
+    for (targets, force) in [(&combined[..], false), (&a.reports[..], a.force)] {
+        if let Err(e) = write_reports(targets, &runs, &stem, force) {
+            let _ = writeln!(err, "{}", super::error_line(shown(format!("{e:#}")), err.is_terminal()));
+            unwritten = true;
+        }
+    }
     let passed = runs.iter().filter(|r| r.passed).count();
     let _ = writeln!(
         err,
@@ -472,6 +479,8 @@ pub fn station(a: StationArgs) -> Result<u8> {
     );
     Ok(if interrupt.load(std::sync::atomic::Ordering::SeqCst) {
         exit::INTERRUPTED
+    } else if unwritten {
+        exit::RECORD_FAILED
     } else if passed == total {
         exit::OK
     } else {

@@ -138,6 +138,26 @@ pub struct RunConfig {
     pub progress: Option<steps::Watch>,
 }
 
+impl RunConfig {
+    /// The defaults for `script`: its file read when run, no parameters,
+    /// no time limit, the default memory limit, no file access, every
+    /// step run, nothing guarded unlocked, no progress watcher.
+    pub fn new(script: PathBuf) -> Self {
+        RunConfig {
+            script,
+            text: None,
+            params: BTreeMap::new(),
+            timeout: None,
+            memory_limit: DEFAULT_MEMORY_LIMIT,
+            allow_io: false,
+            stop_on_fail: false,
+            allow_guarded: guarded::AllowGuarded::default(),
+            param_sources: BTreeMap::new(),
+            progress: None,
+        }
+    }
+}
+
 /// Default memory limit for a script, in MiB (the unit of `--memory-limit`):
 /// generous for any bus sequence, small enough that a runaway table cannot
 /// take the machine down. The one place the number is written.
