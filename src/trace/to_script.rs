@@ -376,7 +376,8 @@ impl Writer<'_> {
                         self.line(&format!("{call}{note}"));
                         self.line(&format!("-- read {}", value.unwrap_or_else(|| hex_bytes(&data))));
                     }
-                    (true, _) if hidden.len() == data.len() => {
+                    // An SMBus value is one number: any of it masked leaves it unchecked.
+                    (true, v) if hidden.len() == data.len() || (v.is_some() && !hidden.is_empty()) => {
                         self.line(&format!("{call}{note}"));
                         self.line(&format!("-- read {} (masked: not checked)", hex_bytes(&data)));
                     }
