@@ -92,7 +92,11 @@ pub enum MarkKind {
     RepeatedStart,
     Stop,
     /// A byte: its value, whether the 9th bit was ACK, and what it was.
-    Byte { value: u8, ack: bool, role: ByteRole },
+    Byte {
+        value: u8,
+        ack: bool,
+        role: ByteRole,
+    },
 }
 
 /// A marked event; a byte runs from its first bit's SCL rise (`at`) to
@@ -461,9 +465,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             self.bits = 0;
             self.nbits = 0;
             let role = match self.phase {
-                Phase::First => {
-                    ByteRole::Address(if byte & 1 == 1 { Direction::Read } else { Direction::Write })
-                }
+                Phase::First => ByteRole::Address(if byte & 1 == 1 { Direction::Read } else { Direction::Write }),
                 Phase::Second { .. } => ByteRole::AddressLow,
                 Phase::Data(d) => ByteRole::Data(d),
             };

@@ -17,6 +17,8 @@
 //! - Every error of a file names the file and line ([`CaptureError`]).
 
 pub mod decode;
+pub mod picture;
+pub mod svg;
 pub mod synth;
 pub mod table;
 pub mod timing;

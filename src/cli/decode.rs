@@ -125,9 +125,18 @@ pub(super) struct Opened {
 impl Opened {
     /// Opens `path`; a VCD's signals are picked from `read`'s names.
     pub(super) fn new(path: &std::path::Path, read: &CaptureArgs) -> Result<Opened> {
+        let input = capture::open(path)?;
+        Opened::from_reader(input, &path.display().to_string(), read)
+    }
+
+    /// [`Opened::new`] for a capture already open (one made in memory).
+    pub(super) fn from_reader(
+        mut input: Box<dyn std::io::BufRead>,
+        file: &str,
+        read: &CaptureArgs,
+    ) -> Result<Opened> {
         read.check()?;
-        let file = path.display().to_string();
-        let mut input = capture::open(path)?;
+        let file = file.to_string();
         let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
         let mut lines = Lines::new(input, &file);
         Ok(match kind {
@@ -174,7 +183,7 @@ impl Opened {
     }
 
     /// The rise-and-fall report's supply, when the table has voltages.
-    fn slopes(&self) -> Option<Slopes> {
+    pub(super) fn slopes(&self) -> Option<Slopes> {
         let vdd = self.vcd.is_none().then(|| self.table.vdd()).flatten()?;
         Some(Slopes {
             vdd_v: vdd,
@@ -187,12 +196,12 @@ impl Opened {
 
 /// How rise and fall times were measured.
 #[derive(Serialize)]
-struct Slopes {
-    vdd_v: f64,
+pub(super) struct Slopes {
+    pub vdd_v: f64,
     /// false: VDD taken as VIH / 0.7.
-    vdd_given: bool,
-    low_v: f64,
-    high_v: f64,
+    pub vdd_given: bool,
+    pub low_v: f64,
+    pub high_v: f64,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
