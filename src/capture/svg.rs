@@ -205,21 +205,21 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
     let mut worst = String::new();
     for param in Param::ALL {
         if let Some(v) = p.timing.get(param) {
-            let _ = writeln!(worst, "{} {} at {} ns", param.name(), timing::show(param, v.value), v.at_ns);
+            let _ = write!(worst, "\n{} {} at {} ns", param.name(), timing::show(param, v.value), v.at_ns);
         }
     }
     if worst.is_empty() {
-        worst.push_str("no timing measured (a modelled waveform has only what the model draws)");
+        worst.push_str("\nnothing measured");
     }
     let _ = write!(
         s,
-        "<g class=\"frame\" data-frame=\"{}\"><title>frame {}: worst values\n{}</title>\
+        "<g class=\"frame\" data-frame=\"{}\"><title>frame {}: worst values{}</title>\
          <rect x=\"{x0:.1}\" y=\"56\" width=\"{w:.1}\" height=\"36\" rx=\"5\" fill=\"#ece4d2\"/>\
          <text x=\"{:.1}\" y=\"71\" font-weight=\"bold\" fill=\"{INK}\">#{} {} · {} · {}</text>\
          <text x=\"{:.1}\" y=\"86\" fill=\"{INK}\" font-size=\"10\">at {} · {}{}</text></g>\n",
         f.seq,
         f.seq,
-        esc(&worst),
+        worst,
         x0 + 6.0,
         f.seq,
         esc(f.address.text().as_str()),
