@@ -156,12 +156,9 @@ fn frame_choices_and_outputs_are_checked() {
     let dir = tempfile::tempdir().unwrap();
     let vcd = dir.path().join("bus.vcd");
     write_vcd(&vcd, &frames(), shape(100_000));
-    for (arg, want) in [
-        ("0", "numbered from 1"),
-        ("3..2", "runs backwards"),
-        ("x", "numbered from 1"),
-        ("9", "no frame 9 (it has 4)"),
-    ] {
+    for (arg, want) in
+        [("0", "numbered from 1"), ("3..2", "runs backwards"), ("x", "numbered from 1"), ("9", "no frame 9 (it has 4)")]
+    {
         let o = run(&["draw", p(&vcd), "--frame", arg]);
         assert_eq!(code(&o), 2, "{arg}");
         assert!(stderr(&o).contains(want), "{arg}: {}", stderr(&o));
@@ -295,7 +292,8 @@ fn ramp_table(frames: &[Frame], rise_ns: f64, fall_ns: f64) -> String {
         }
         csv.push_str(&format!("{}.{:09},{:.6},{:.6}\n", now / 1_000_000_000, now % 1_000_000_000, v[0], v[1]));
         for i in 0..2 {
-            v[i] = if want[i] { (v[i] + vdd * 20.0 / rise_ns).min(vdd) } else { (v[i] - vdd * 20.0 / fall_ns).max(0.0) };
+            v[i] =
+                if want[i] { (v[i] + vdd * 20.0 / rise_ns).min(vdd) } else { (v[i] - vdd * 20.0 / fall_ns).max(0.0) };
         }
         now += 20;
     }

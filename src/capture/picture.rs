@@ -106,7 +106,13 @@ pub struct Collect {
 impl Collect {
     pub fn new(ticks: Ticks, windows: Vec<(u64, u64)>) -> Self {
         let n = windows.len();
-        Collect { ticks, windows, levels: vec![Vec::new(); n], cut: vec![false; n], last: (Level::Unknown, Level::Unknown) }
+        Collect {
+            ticks,
+            windows,
+            levels: vec![Vec::new(); n],
+            cut: vec![false; n],
+            last: (Level::Unknown, Level::Unknown),
+        }
     }
 
     /// The levels of both lines from tick `t` on.

@@ -73,7 +73,11 @@ fn time_text(ps: u64, step: u64) -> String {
 
 /// A duration for people: `4.50 us`, `80 ns`, `950 ps`.
 fn span_text(ps: u64) -> String {
-    if ps < 1000 { format!("{ps} ps") } else { timing::show(Param::Low, ps) }
+    match ps {
+        0 => "0".into(),
+        1..1000 => format!("{ps} ps"),
+        _ => timing::show(Param::Low, ps),
+    }
 }
 
 /// 1, 2 or 5 times a power of ten, at least `raw`.
@@ -130,6 +134,9 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
     let widths: Vec<f64> = p.panels.iter().map(panel_width).collect();
     let notes = p.panels.iter().map(|p| p.violations.len().min(12) + usize::from(p.cut)).max().unwrap_or(0);
     let width = LEFT + widths.iter().sum::<f64>() + GAP * p.panels.len().saturating_sub(1) as f64 + 24.0;
+    // Wide enough for the subtitle too (about 6.7 px a character at 11 px).
+    let sub = p.how.chars().count() + p.file.chars().count().min(200) + 120;
+    let width = width.max(24.0 + 6.7 * sub as f64);
     let height = NOTES_Y + 16.0 * notes as f64 + 34.0;
     let mut s = String::with_capacity(1 << 16);
     let _ = write!(
@@ -163,10 +170,10 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
         (SCL_HI + SCL_LO) / 2.0 + 4.0,
         (SDA_HI + SDA_LO) / 2.0 + 4.0,
     );
-    let _ = write!(
+    let _ = writeln!(
         s,
         "<text x=\"12\" y=\"{:.0}\" fill=\"{INK}\" font-size=\"10\">S START · Sr repeated START · P STOP · \
-         A ACK · N NACK · amber stripes: timing violation · hover for measured times</text>\n",
+         A ACK · N NACK · amber stripes: timing violation · hover for measured times</text>",
         height - 10.0
     );
     let mut x0 = LEFT;
@@ -174,11 +181,11 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
         if i > 0 {
             let prev = &p.panels[i - 1];
             let idle = panel.frame.t.saturating_sub(prev.frame.t + prev.frame.outcome.bus_time);
-            let _ = write!(
+            let _ = writeln!(
                 s,
                 "<g><title>{} between the two transactions</title>\
                  <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"16\">≈</text>\
-                 <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"9\">+{}</text></g>\n",
+                 <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"9\">+{}</text></g>",
                 span_text(idle.as_nanos() as u64 * 1000),
                 x0 - GAP / 2.0,
                 (SCL_LO + SDA_HI) / 2.0 + 5.0,
@@ -211,12 +218,12 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
     if worst.is_empty() {
         worst.push_str("\nnothing measured");
     }
-    let _ = write!(
+    let _ = writeln!(
         s,
         "<g class=\"frame\" data-frame=\"{}\"><title>frame {}: worst values{}</title>\
          <rect x=\"{x0:.1}\" y=\"56\" width=\"{w:.1}\" height=\"36\" rx=\"5\" fill=\"#ece4d2\"/>\
          <text x=\"{:.1}\" y=\"71\" font-weight=\"bold\" fill=\"{INK}\">#{} {} · {} · {}</text>\
-         <text x=\"{:.1}\" y=\"86\" fill=\"{INK}\" font-size=\"10\">at {} · {}{}</text></g>\n",
+         <text x=\"{:.1}\" y=\"86\" fill=\"{INK}\" font-size=\"10\">at {} · {}{}</text></g>",
         f.seq,
         f.seq,
         worst,
@@ -239,10 +246,10 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
             _ => v.value,
         };
         let (a, b) = (x(at), x(at.saturating_add(len)));
-        let _ = write!(
+        let _ = writeln!(
             s,
             "<rect class=\"violation\" x=\"{:.1}\" y=\"{:.0}\" width=\"{:.1}\" height=\"{:.0}\" fill=\"url(#late)\" \
-             stroke=\"#c9731a\" stroke-width=\"0.8\"><title>{}</title></rect>\n",
+             stroke=\"#c9731a\" stroke-width=\"0.8\"><title>{}</title></rect>",
             a.min(b - 3.0).max(x0),
             SCL_HI - 8.0,
             (b - a).max(3.0),
@@ -300,11 +307,11 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
         }
         segment(&mut hover, &mut unknown, prev.0, p.to_ps, prev.1);
         let _ = write!(d, " H{:.1}", x(p.to_ps));
-        let _ = write!(
+        let _ = writeln!(
             s,
             "<line x1=\"{x0:.1}\" y1=\"{lo:.0}\" x2=\"{:.1}\" y2=\"{lo:.0}\" stroke=\"{FAINT}\" stroke-dasharray=\"2 3\"/>\
              <path class=\"{}\" d=\"{d}\" fill=\"none\" stroke=\"{ink}\" stroke-width=\"1.8\" stroke-linejoin=\"round\"/>\
-             {unknown}<g class=\"hover\">{hover}</g>\n",
+             {unknown}<g class=\"hover\">{hover}</g>",
             x0 + w,
             if line == 0 { "sda" } else { "scl" },
         );
@@ -319,12 +326,12 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
                     _ => ("P", TAG_STOP, "STOP"),
                 };
                 let cx = x(m.at);
-                let _ = write!(
+                let _ = writeln!(
                     s,
                     "<g class=\"condition\"><title>{name} at {}</title>\
                      <line x1=\"{cx:.1}\" y1=\"{:.0}\" x2=\"{cx:.1}\" y2=\"{:.0}\" stroke=\"{ink}\" stroke-dasharray=\"3 2\"/>\
                      <circle cx=\"{cx:.1}\" cy=\"{:.0}\" r=\"9\" fill=\"{ink}\"/>\
-                     <text x=\"{cx:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{PAPER}\" font-size=\"9\" font-weight=\"bold\">{tag}</text></g>\n",
+                     <text x=\"{cx:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{PAPER}\" font-size=\"9\" font-weight=\"bold\">{tag}</text></g>",
                     span_text(m.at),
                     SCL_HI - 6.0,
                     SDA_LO + 4.0,
@@ -352,13 +359,13 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
                     ByteRole::Data(Direction::Read) => "data read",
                 };
                 let (ak, ak_ink) = if ack { ("A", ACK_INK) } else { ("N", NACK_INK) };
-                let _ = write!(
+                let _ = writeln!(
                     s,
                     "<g class=\"byte\"><title>{what} 0x{value:02X} ({value:08b}), {}; bits from {} to {}, {} a bit</title>\
                      <rect x=\"{a:.1}\" y=\"{TILE_Y:.0}\" width=\"{:.1}\" height=\"{TILE_H:.0}\" rx=\"4\" fill=\"#fffaf0\" stroke=\"#9c8f78\"/>\
                      <rect x=\"{:.1}\" y=\"{TILE_Y:.0}\" width=\"{cell:.1}\" height=\"{TILE_H:.0}\" rx=\"4\" fill=\"{ak_ink}\"/>\
                      <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\">{label}</text>\
-                     <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{PAPER}\" font-weight=\"bold\">{ak}</text></g>\n",
+                     <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{PAPER}\" font-weight=\"bold\">{ak}</text></g>",
                     if ack { "ACK" } else { "NACK" },
                     span_text(m.at),
                     span_text(m.end),
@@ -375,19 +382,19 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
     }
     // The time axis, in absolute capture time.
     let step = nice_step((span / (w / 90.0)).ceil() as u64);
-    let _ = write!(
+    let _ = writeln!(
         s,
-        "<line x1=\"{x0:.1}\" y1=\"{AXIS_Y:.0}\" x2=\"{:.1}\" y2=\"{AXIS_Y:.0}\" stroke=\"{INK}\"/>\n",
+        "<line x1=\"{x0:.1}\" y1=\"{AXIS_Y:.0}\" x2=\"{:.1}\" y2=\"{AXIS_Y:.0}\" stroke=\"{INK}\"/>",
         x0 + w
     );
     let mut t = p.from_ps.div_ceil(step).saturating_mul(step);
     while t <= p.to_ps {
         let tx = x(t);
-        let _ = write!(
+        let _ = writeln!(
             s,
             "<line x1=\"{tx:.1}\" y1=\"{AXIS_Y:.0}\" x2=\"{tx:.1}\" y2=\"{:.0}\" stroke=\"{INK}\"/>\
              <line x1=\"{tx:.1}\" y1=\"{:.0}\" x2=\"{tx:.1}\" y2=\"{:.0}\" stroke=\"{FAINT}\" stroke-width=\"0.5\"/>\
-             <text x=\"{tx:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"9\">{}</text>\n",
+             <text x=\"{tx:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"9\">{}</text>",
             AXIS_Y + 4.0,
             SCL_HI - 2.0,
             SDA_LO + 2.0,
@@ -402,17 +409,17 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
     // Notes under the axis: violations, then a cut waveform.
     let mut y = NOTES_Y;
     for v in p.violations.iter().take(12) {
-        let _ = write!(
+        let _ = writeln!(
             s,
-            "<text class=\"violation-note\" x=\"{x0:.1}\" y=\"{y:.0}\" fill=\"{NACK_INK}\">✕ {}</text>\n",
+            "<text class=\"violation-note\" x=\"{x0:.1}\" y=\"{y:.0}\" fill=\"{NACK_INK}\">✕ {}</text>",
             esc(&violation_text(v))
         );
         y += 16.0;
     }
     if p.cut {
-        let _ = write!(
+        let _ = writeln!(
             s,
-            "<text x=\"{x0:.1}\" y=\"{y:.0}\" fill=\"{NACK_INK}\">waveform cut after {} level changes</text>\n",
+            "<text x=\"{x0:.1}\" y=\"{y:.0}\" fill=\"{NACK_INK}\">waveform cut after {} level changes</text>",
             super::picture::MAX_CHANGES
         );
     }

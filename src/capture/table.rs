@@ -48,27 +48,29 @@ struct Slope {
 impl Slope {
     /// The next sample; a finished edge as (rising, picoseconds, start).
     fn step(&mut self, t: u64, v: f64, lo: f64, hi: f64) -> Option<(bool, u64, u64)> {
-        let Some((tp, vp)) = self.prev.replace((t, v)) else { return None };
+        let (tp, vp) = self.prev.replace((t, v))?;
         let at = |th: f64| tp + ((t - tp) as f64 * (th - vp) / (v - vp)).round() as u64;
         if v > vp {
             if vp < lo && v >= lo {
                 self.from = Some((true, at(lo)));
             }
-            if vp < hi && v >= hi {
-                if let Some((true, a)) = self.from.take() {
-                    let b = at(hi);
-                    return Some((true, b.saturating_sub(a), a));
-                }
+            // Past the far point: an edge if it passed the near one going
+            // the same way (take: a turned-back edge is forgotten).
+            if vp < hi
+                && v >= hi
+                && let Some((true, a)) = self.from.take()
+            {
+                return Some((true, at(hi).saturating_sub(a), a));
             }
         } else if v < vp {
             if vp > hi && v <= hi {
                 self.from = Some((false, at(hi)));
             }
-            if vp > lo && v <= lo {
-                if let Some((false, a)) = self.from.take() {
-                    let b = at(lo);
-                    return Some((false, b.saturating_sub(a), a));
-                }
+            if vp > lo
+                && v <= lo
+                && let Some((false, a)) = self.from.take()
+            {
+                return Some((false, at(lo).saturating_sub(a), a));
             }
         }
         None

@@ -193,7 +193,7 @@ impl Checker {
             .iter()
             .filter_map(|&p| {
                 let s = tx.get(p)?;
-                let limit = p.limit(&limits)?;
+                let limit = p.limit(limits)?;
                 let bad = if p.worst_is_max() { s.value > limit * 1000 } else { s.value < limit * 1000 };
                 bad.then_some(Violation { frame, param: p, value: s.value, limit, at_ns: s.at_ns })
             })

@@ -130,11 +130,7 @@ impl Opened {
     }
 
     /// [`Opened::new`] for a capture already open (one made in memory).
-    pub(super) fn from_reader(
-        mut input: Box<dyn std::io::BufRead>,
-        file: &str,
-        read: &CaptureArgs,
-    ) -> Result<Opened> {
+    pub(super) fn from_reader(mut input: Box<dyn std::io::BufRead>, file: &str, read: &CaptureArgs) -> Result<Opened> {
         read.check()?;
         let file = file.to_string();
         let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
@@ -383,7 +379,7 @@ fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
     writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", "parameter", "worst", "limit", "at (ns)")?;
     let lim = c.mode.and_then(crate::electrical::limits::limits);
     for (p, s) in &c.worst {
-        let limit = lim.and_then(|l| p.limit(&l)).map_or_else(
+        let limit = lim.and_then(|l| p.limit(l)).map_or_else(
             || "-".to_string(),
             |v| if *p == Param::FScl { format!("{:.1} kHz", v as f64 / 1e3) } else { timing::show(*p, v * 1000) },
         );

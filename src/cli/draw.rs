@@ -62,12 +62,14 @@ impl Choice {
         let mut c = Choice::default();
         for a in args {
             for part in a.split(',').map(str::trim) {
-                let num = |t: &str| -> Result<u64> {
-                    let n: u64 = t.trim().parse().ok().filter(|&n| n > 0).with_context(|| {
-                        format!("--frame `{}`: frames are numbered from 1", super::shown(part))
-                    })?;
-                    Ok(n)
-                };
+                let num =
+                    |t: &str| -> Result<u64> {
+                        let n: u64 =
+                            t.trim().parse().ok().filter(|&n| n > 0).with_context(|| {
+                                format!("--frame `{}`: frames are numbered from 1", super::shown(part))
+                            })?;
+                        Ok(n)
+                    };
                 let (a, b) = match part.split_once("..") {
                     Some((a, b)) => (num(a)?, num(b)?),
                     None => (num(part)?, num(part)?),
@@ -208,9 +210,10 @@ fn modelled(a: &DrawArgs, choice: &Choice, file: &str) -> Result<(Vec<Panel>, Ch
     let (mut panels, checker, _) = gather(&open, &a.read, &|_| true)?;
     // The model starts the first frame a little after its own zero; the
     // recorded frames say when they ran.
-    let shift = frames.first().zip(panels.first()).map(|(f, p)| {
-        f.t.as_nanos() as i128 * 1000 - p.frame.t.as_nanos() as i128 * 1000
-    });
+    let shift = frames
+        .first()
+        .zip(panels.first())
+        .map(|(f, p)| f.t.as_nanos() as i128 * 1000 - p.frame.t.as_nanos() as i128 * 1000);
     for (p, f) in panels.iter_mut().zip(frames) {
         p.shift(shift.unwrap_or(0));
         p.frame = f;
@@ -229,7 +232,7 @@ fn vcd(a: &DrawArgs, choice: &Choice, file: &str) -> Result<u8> {
     let hz = r.header().speed_hz;
     let mut o = output(a, "the VCD")?;
     {
-        let mut v = synth::Renderer::new(shape(hz), &mut o).with_context(|| format!("{}", super::shown(file)))?;
+        let mut v = synth::Renderer::new(shape(hz), &mut o).with_context(|| super::shown(file))?;
         while let Some(rec) = r.next_record()? {
             if let Record::Frame(f) = rec
                 && choice.takes(f.seq)
