@@ -372,3 +372,31 @@ fn voltage_options_are_checked() {
     assert_eq!(code(&o), 2);
     assert!(stderr(&o).contains("--vdd must be above 0 V"), "{}", stderr(&o));
 }
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(200))]
+    /// Any voltages, any steps: no panic, and every rise or fall time
+    /// measured lies inside the table (starts at or after its first
+    /// sample, ends by its last).
+    #[test]
+    fn slopes_of_random_voltages_stay_inside_the_table(
+        rows in proptest::collection::vec((0u64..5_000, -1.0f64..5.0, -1.0f64..5.0), 1..400),
+        vdd in proptest::option::of(0.5f64..6.0),
+    ) {
+        use buscue::capture::table::{TableOptions, read_slopes};
+        let mut csv = String::from("t,sda,scl\n");
+        let mut t = 0u64;
+        for (dt, a, b) in &rows {
+            t += dt;
+            csv.push_str(&format!("0.{t:012},{a},{b}\n"));
+        }
+        let mut lines = buscue::capture::Lines::new(csv.as_bytes(), "r.csv");
+        let opts = TableOptions { sample_rate: None, thresholds: Some((0.99, 2.31)), vdd };
+        let mut seen = Vec::new();
+        let last = read_slopes(&mut lines, opts, |_, _, _| {}, |p, ps, at| seen.push((p, ps, at))).unwrap();
+        proptest::prop_assert_eq!(last, t);
+        for (_, ps, at) in seen {
+            proptest::prop_assert!(at + ps <= t, "{} + {} past {}", at, ps, t);
+        }
+    }
+}

@@ -441,11 +441,7 @@ fn extra(f: &crate::record::Frame) -> String {
 
 fn violation_text(v: &timing::Violation) -> String {
     let (cmp, limit) = if v.param.worst_is_max() { ("above", "max") } else { ("below", "min") };
-    let lim = if v.param == Param::FScl {
-        format!("{:.1} kHz", v.limit as f64 / 1e3)
-    } else {
-        timing::show(v.param, v.limit * 1000)
-    };
+    let lim = timing::show_limit(v.param, v.limit);
     format!(
         "{} {} at {}: {cmp} the {limit} {lim}",
         v.param.name(),

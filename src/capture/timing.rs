@@ -223,6 +223,12 @@ impl Checker {
     }
 }
 
+/// A limit as [`Param::limit`] gives it (Hz for fSCL, ns otherwise), for
+/// people: `400.0 kHz`, `100 ns`.
+pub fn show_limit(p: Param, limit: u64) -> String {
+    show(p, limit.saturating_mul(1000))
+}
+
 /// A value in its unit for people: `1.30 us`, `80 ns`, `402.1 kHz`.
 pub fn show(p: Param, value: u64) -> String {
     if p == Param::FScl {

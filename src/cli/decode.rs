@@ -14,7 +14,7 @@ use crate::adapter::{Capabilities, Identity, Snapshot};
 use crate::bus::{BusSpeed, Mode};
 use crate::capture::decode::{Decoder, Issue, Options};
 use crate::capture::table::{self, TableOptions};
-use crate::capture::timing::{self, Checker, Param};
+use crate::capture::timing::{self, Checker};
 use crate::capture::{self, Kind, Lines, vcd};
 use crate::electrical::limits::{SLOPE_HIGH, SLOPE_LOW, TIMING_SOURCE};
 use crate::record::{Record, Sink, Stats};
@@ -379,19 +379,12 @@ fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
     writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", "parameter", "worst", "limit", "at (ns)")?;
     let lim = c.mode.and_then(crate::electrical::limits::limits);
     for (p, s) in &c.worst {
-        let limit = lim.and_then(|l| p.limit(l)).map_or_else(
-            || "-".to_string(),
-            |v| if *p == Param::FScl { format!("{:.1} kHz", v as f64 / 1e3) } else { timing::show(*p, v * 1000) },
-        );
+        let limit = lim.and_then(|l| p.limit(l)).map_or_else(|| "-".to_string(), |v| timing::show_limit(*p, v));
         writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", p.name(), timing::show(*p, s.value), limit, s.at_ns)?;
     }
     writeln!(o, "  {} violations", c.violation_count)?;
     for v in &c.violations {
-        let limit = if v.param == Param::FScl {
-            format!("{:.1} kHz", v.limit as f64 / 1e3)
-        } else {
-            timing::show(v.param, v.limit * 1000)
-        };
+        let limit = timing::show_limit(v.param, v.limit);
         writeln!(
             o,
             "  violation: frame {} {} {} (limit {}) at {} ns",
