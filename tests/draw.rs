@@ -256,11 +256,30 @@ fn a_trace_is_drawn_modelled_at_its_speed_and_hostile_text_stays_text() {
 }
 
 #[test]
+fn hostile_signal_names_of_a_capture_stay_text() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut out = Vec::new();
+    render(&frames()[..1], shape(100_000), &mut out).unwrap();
+    let text = String::from_utf8(out).unwrap().replace("$scope module top $end", "$scope module <&\"'\u{7}> $end");
+    let vcd = dir.path().join("hostile.vcd");
+    std::fs::write(&vcd, text).unwrap();
+    let o = run(&["draw", p(&vcd), "--frame", "1"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let svg = stdout(&o);
+    let doc = roxmltree::Document::parse(&svg).expect("well-formed");
+    assert!(!svg.contains('\u{7}'));
+    let t = texts(&doc, "text");
+    // Made visible once, by the VCD reader, not twice.
+    assert!(t.iter().any(|x| x.contains("SDA <&\"'\\x07>.sda, SCL <&\"'\\x07>.scl)")), "{t:?}");
+}
+
+#[test]
 fn escaping_keeps_only_xml_characters() {
     use buscue::capture::svg::esc;
     assert_eq!(esc("a<b>&\"'"), "a&lt;b&gt;&amp;&quot;&apos;");
     assert_eq!(esc("\u{0}\u{1f}\u{fffe}\u{ffff}x"), "\\x00\\x1F\\u{FFFE}\\u{FFFF}x");
     assert_eq!(esc("Gewächshaus"), "Gewächshaus");
+    assert_eq!(buscue::capture::svg::esc_visible("a\\x07<\u{1b}\u{85}"), "a\\x07&lt;\\x1B\\x85");
 }
 
 /// A table of voltages from a synthetic capture: each edge a linear ramp

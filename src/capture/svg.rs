@@ -30,7 +30,9 @@ use crate::bus::{Direction, Mode, Operation};
 pub struct Picture<'a> {
     /// The input file, as the user named it.
     pub file: &'a str,
-    /// How the waveform came to be: "decoded from a capture", "modelled at 400 kHz".
+    /// How the waveform came to be: "decoded from a capture", "modelled at
+    /// 400 kHz"; text already made visible (it may name VCD signals),
+    /// written through [`esc_visible`].
     pub how: String,
     /// The mode violations were checked against, and whether it was inferred.
     pub mode: Option<(Mode, bool)>,
@@ -39,10 +41,19 @@ pub struct Picture<'a> {
 
 /// Text for an SVG text node or attribute; see the module contract.
 pub fn esc(s: &str) -> String {
-    let visible = crate::ascii::escape_controls(s);
+    esc_visible(&crate::ascii::escape_controls(s))
+}
+
+/// [`esc`] for text a reader has already made visible (VCD signal names
+/// are kept escaped by [`super::vcd`]): its backslashes are not doubled
+/// again, and a control character left in it is still written as `\xNN`.
+pub fn esc_visible(visible: &str) -> String {
     let mut out = String::with_capacity(visible.len() + 8);
     for c in visible.chars() {
         match c {
+            c if c.is_control() => {
+                let _ = write!(out, "\\x{:02X}", c as u32);
+            }
             '&' => out.push_str("&amp;"),
             '<' => out.push_str("&lt;"),
             '>' => out.push_str("&gt;"),
@@ -151,7 +162,7 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
          <path d=\"M0 4 L4 0\" stroke=\"{INK}\" stroke-width=\"0.6\"/></pattern></defs>\n\
          <rect width=\"100%\" height=\"100%\" fill=\"{PAPER}\"/>\n",
         esc(p.file),
-        esc(&p.how)
+        esc_visible(&p.how)
     );
     let mode = match p.mode {
         Some((m, inferred)) => {
@@ -165,7 +176,7 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
          <text x=\"12\" y=\"42\" fill=\"{INK}\">{} · {} · limits: UM10204 Table 10 (values from memory)</text>\n\
          <text x=\"12\" y=\"{:.0}\" fill=\"{INK}\">SCL</text><text x=\"12\" y=\"{:.0}\" fill=\"{INK}\">SDA</text>\n",
         esc(p.file),
-        esc(&p.how),
+        esc_visible(&p.how),
         esc(&mode),
         (SCL_HI + SCL_LO) / 2.0 + 4.0,
         (SDA_HI + SDA_LO) / 2.0 + 4.0,

@@ -206,6 +206,8 @@ fn modelled(a: &DrawArgs, choice: &Choice, file: &str) -> Result<(Vec<Panel>, Ch
     let (header, frames, total) = chosen_frames(&a.input, choice)?;
     let mut text = Vec::new();
     synth::render(&frames, shape(header.speed_hz), &mut text).with_context(|| format!("{file}: cannot model it"))?;
+    // Shared between the two passes, not copied.
+    let text: std::rc::Rc<[u8]> = text.into();
     let open = || Opened::from_reader(Box::new(Cursor::new(text.clone())), file, &a.read);
     let (mut panels, checker, _) = gather(&open, &a.read, &|_| true)?;
     // The model starts the first frame a little after its own zero; the
