@@ -116,7 +116,7 @@ const TAG_START: &str = "#11766f";
 const TAG_STOP: &str = "#5b4a7a";
 
 const LEFT: f64 = 64.0;
-const GAP: f64 = 44.0;
+const GAP: f64 = 64.0;
 const SCL_HI: f64 = 118.0;
 const SCL_LO: f64 = 150.0;
 const SDA_HI: f64 = 178.0;
