@@ -419,3 +419,30 @@ proptest::proptest! {
         }
     }
 }
+
+#[test]
+fn a_trace_time_beyond_a_vcd_is_refused_not_piled_up() {
+    let dir = tempfile::tempdir().unwrap();
+    let orig = bench_trace(dir.path());
+    let text = std::fs::read_to_string(&orig).unwrap();
+    let mut out = String::new();
+    let mut n = 0;
+    for line in text.lines() {
+        let mut v: serde_json::Value = serde_json::from_str(line).unwrap();
+        if v["kind"] == "frame" {
+            n += 1;
+            if n == 2 {
+                v["t_ns"] = u64::MAX.into();
+            }
+        }
+        out.push_str(&v.to_string());
+        out.push('\n');
+    }
+    let late = dir.path().join("late.jsonl");
+    std::fs::write(&late, out).unwrap();
+    for args in [&["--vcd"][..], &["--frame", "1..3"][..]] {
+        let o = run(&[&["draw", p(&late)][..], args].concat());
+        assert_eq!(code(&o), 2, "{args:?}");
+        assert!(stderr(&o).contains("frame 2 starts") && stderr(&o).contains("too late for a VCD"), "{}", stderr(&o));
+    }
+}

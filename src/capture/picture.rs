@@ -87,7 +87,7 @@ impl Want {
             .iter()
             .map(|&(_, a, b)| {
                 let m = (b - a) / 12 + 200;
-                let from = a.saturating_sub(m).saturating_mul(1_000_000) / ticks.fs;
+                let from = (a.saturating_sub(m) as u128 * 1_000_000 / ticks.fs as u128).min(u64::MAX as u128) as u64;
                 (from, ticks.ticks_ceil(b.saturating_add(m)))
             })
             .collect()
@@ -157,7 +157,8 @@ impl Collect {
             let (_, s_ns, e_ns) = want.found.get(i).copied().unwrap_or_default();
             // Marks of this transaction: from its START to its STOP (a
             // nanosecond of slack each side: the frame's times are whole ns).
-            let (s_ps, e_ps) = (s_ns.saturating_sub(1) * 1000, e_ns.saturating_add(1).saturating_mul(1000));
+            let (s_ps, e_ps) =
+                (s_ns.saturating_sub(1).saturating_mul(1000), e_ns.saturating_add(1).saturating_mul(1000));
             let marks = marks
                 .iter()
                 .map(|m| Mark { at: ticks.ps(m.at), end: ticks.ps(m.end), kind: m.kind })

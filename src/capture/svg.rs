@@ -91,6 +91,12 @@ fn span_text(ps: u64) -> String {
     }
 }
 
+/// A recorded duration in picoseconds, saturating (a hostile trace may
+/// give any time).
+fn ps_of(d: std::time::Duration) -> u64 {
+    d.as_nanos().saturating_mul(1000).min(u64::MAX as u128) as u64
+}
+
 /// 1, 2 or 5 times a power of ten, at least `raw`.
 fn nice_step(raw: u64) -> u64 {
     let mut p = 1u64;
@@ -197,12 +203,12 @@ pub fn write(p: &Picture<'_>, out: &mut impl Write) -> io::Result<()> {
                 "<g><title>{} between the two transactions</title>\
                  <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"16\">≈</text>\
                  <text x=\"{:.1}\" y=\"{:.0}\" text-anchor=\"middle\" fill=\"{INK}\" font-size=\"9\">+{}</text></g>",
-                span_text(idle.as_nanos() as u64 * 1000),
+                span_text(ps_of(idle)),
                 x0 - GAP / 2.0,
                 (SCL_LO + SDA_HI) / 2.0 + 5.0,
                 x0 - GAP / 2.0,
                 AXIS_Y + 4.0,
-                esc(&span_text(idle.as_nanos() as u64 * 1000)),
+                esc(&span_text(ps_of(idle))),
             );
         }
         draw_panel(&mut s, panel, x0, *w);
@@ -244,8 +250,8 @@ fn draw_panel(s: &mut String, p: &Panel, x0: f64, w: f64) {
         esc(&ops.join(", ")),
         esc(&result),
         x0 + 6.0,
-        esc(&span_text(f.t.as_nanos() as u64 * 1000)),
-        esc(&span_text(f.outcome.bus_time.as_nanos() as u64 * 1000)),
+        esc(&span_text(ps_of(f.t))),
+        esc(&span_text(ps_of(f.outcome.bus_time))),
         esc(&extra(f)),
     );
     // Violations under everything else: stripes over the measured span.

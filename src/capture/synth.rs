@@ -153,7 +153,21 @@ impl<'a, O: Write> Renderer<'a, O> {
         let t0 = *self.t0.get_or_insert(f.t);
         // The recorded gaps between frames are kept: a device that was
         // busy converting sees the same idle bus.
-        let due = (f.t.saturating_sub(t0).as_nanos() as u64).saturating_mul(1000);
+        let due = f.t.saturating_sub(t0).as_nanos().saturating_mul(1000);
+        // Far below u64::MAX picoseconds (213 days), so the frame's own
+        // edges still fit after it: a time past that is refused, not
+        // written as edges piled up at one saturated instant.
+        if due > (u64::MAX / 4) as u128 || w.t > u64::MAX / 4 {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidData,
+                format!(
+                    "frame {} starts {:?} after the first: too late for a VCD of picosecond ticks",
+                    f.seq,
+                    f.t.saturating_sub(t0)
+                ),
+            ));
+        }
+        let due = due as u64;
         if due > w.t {
             w.t = due;
         }
