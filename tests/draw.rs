@@ -213,6 +213,10 @@ fn a_bench_run_drawn_as_a_vcd_decodes_diffs_and_replays_clean() {
     assert!(stdout(&o).contains("\nsame: "), "{}", stdout(&o));
     let o = run(&["replay", p(&decoded), "--trace-out", p(&dir.path().join("again.jsonl"))]);
     assert_eq!(code(&o), 0, "{}{}", stdout(&o), stderr(&o));
+    // The decoded trace drawn alone is modelled, and points at its capture.
+    let o = run(&["draw", p(&decoded), "--frame", "1"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    assert!(stdout(&o).contains("bus.vcd: draw that file for the recorded levels"), "{}", stdout(&o));
     // The same VCD on standard output.
     let o = run(&["draw", p(&orig), "--vcd"]);
     assert_eq!(stdout(&o).as_bytes(), std::fs::read(&vcd).unwrap());

@@ -220,10 +220,15 @@ fn modelled(a: &DrawArgs, choice: &Choice, file: &str) -> Result<(Vec<Panel>, Ch
         p.shift(shift.unwrap_or(0));
         p.frame = f;
     }
-    let how = format!(
+    let mut how = format!(
         "modelled at {} Hz from the trace's frames: the waveform a controller at that speed puts on the bus, not a recording",
         header.speed_hz
     );
+    // A decoded capture: the recorded waveform is in the capture itself,
+    // which this command does not open on the trace's word.
+    if let Some(c) = &header.capture {
+        how.push_str(&format!("; decoded from {}: draw that file for the recorded levels", super::shown(&c.file)));
+    }
     Ok((panels, checker, how, total))
 }
 
