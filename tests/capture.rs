@@ -255,7 +255,7 @@ proptest! {
         let text = String::from_utf8_lossy(&soup).into_owned();
         let _ = decode_text(&text, None, Options::default());
         let mut lines = Lines::new(&soup[..], "t.csv");
-        let _ = buscue::capture::table::read(&mut lines, buscue::capture::table::TableOptions { sample_rate: None, thresholds: None }, |_, _, _| {});
+        let _ = buscue::capture::table::read(&mut lines, buscue::capture::table::TableOptions { sample_rate: None, thresholds: None, vdd: None }, |_, _, _| {});
     }
 
     #[test]

@@ -28,9 +28,10 @@ fuzz_target!(|data: &[u8]| {
         }
     }
     let mut lines = Lines::new(data, "f");
-    let mut dec = Decoder::new(table::TICKS, Options::default(), |_, _| {});
-    let opts = TableOptions { sample_rate: None, thresholds: Some((0.99, 2.31)) };
-    if let Err(e) = table::read(&mut lines, opts, |t, s, c| dec.levels(t, s, c)) {
+    let dec = std::cell::RefCell::new(Decoder::new(table::TICKS, Options::default(), |_, _| {}));
+    let opts = TableOptions { sample_rate: None, thresholds: Some((0.99, 2.31)), vdd: None };
+    let levels = |t, s, c| dec.borrow_mut().levels(t, s, c);
+    if let Err(e) = table::read_slopes(&mut lines, opts, levels, |p, ps, at| dec.borrow_mut().slope(p, ps, at)) {
         assert!(named(&e));
     }
 });

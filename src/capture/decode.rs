@@ -75,6 +75,42 @@ pub struct Issue {
     pub detail: String,
 }
 
+/// What a byte of a transaction was.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ByteRole {
+    /// A 7-bit address with R/W, or a 10-bit address's first byte.
+    Address(Direction),
+    /// A 10-bit address's second byte.
+    AddressLow,
+    Data(Direction),
+}
+
+/// An event the drawing marks on the waveform.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum MarkKind {
+    Start,
+    RepeatedStart,
+    Stop,
+    /// A byte: its value, whether the 9th bit was ACK, and what it was.
+    Byte {
+        value: u8,
+        ack: bool,
+        role: ByteRole,
+    },
+}
+
+/// A marked event; a byte runs from its first bit's SCL rise (`at`) to
+/// its ACK bit's (`end`), conditions have `end == at`. Times in ticks.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Mark {
+    pub at: u64,
+    pub end: u64,
+    pub kind: MarkKind,
+}
+
+/// Most marks kept for drawing (a picture of more is unreadable anyway).
+pub const MAX_MARKS: usize = 100_000;
+
 /// The decoder's limits, in nanoseconds.
 #[derive(Debug, Clone, Copy)]
 pub struct Options {
@@ -151,6 +187,13 @@ pub struct Decoder<F: FnMut(Frame, TxTiming)> {
     pub issues: Vec<Issue>,
     pub issue_count: u64,
     pub last_t: u64,
+    /// Marks inside these tick windows are kept in [`Decoder::marks`].
+    mark_windows: Vec<(u64, u64)>,
+    pub marks: Vec<Mark>,
+    first_bit: u64,
+    /// Rise and fall times seen between transactions, credited to the
+    /// next one (the START's own SDA fall comes before the START is told).
+    between: TxTiming,
     out: F,
 }
 
@@ -185,7 +228,33 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             issues: Vec::new(),
             issue_count: 0,
             last_t: 0,
+            mark_windows: Vec::new(),
+            marks: Vec::new(),
+            first_bit: 0,
+            between: TxTiming::default(),
             out,
+        }
+    }
+
+    /// Keeps the marks that fall inside `windows` (ticks, inclusive).
+    pub fn mark_within(&mut self, windows: Vec<(u64, u64)>) {
+        self.mark_windows = windows;
+    }
+
+    fn mark(&mut self, at: u64, end: u64, kind: MarkKind) {
+        if self.marks.len() < MAX_MARKS && self.mark_windows.iter().any(|&(a, b)| at >= a && at <= b) {
+            self.marks.push(Mark { at, end, kind });
+        }
+    }
+
+    /// A rise (`Param::Rise`) or fall time of `ps` picoseconds that began
+    /// at tick `at`, measured by a reader of voltages: the transaction
+    /// open at the time, or else the next one, keeps its worst.
+    pub fn slope(&mut self, p: Param, ps: u64, at: u64) {
+        let at_ns = self.ns(at);
+        match &mut self.b {
+            Some(b) if self.in_tx => b.timing.see(p, ps, at_ns),
+            _ => self.between.see(p, ps, at_ns),
         }
     }
 
@@ -385,6 +454,9 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             Level::Low => 0,
             Level::Unknown => return,
         };
+        if self.nbits == 0 {
+            self.first_bit = t;
+        }
         self.bits = (self.bits << 1) | bit;
         self.nbits += 1;
         if self.nbits == 9 {
@@ -392,6 +464,12 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             let ack = self.bits & 1 == 0;
             self.bits = 0;
             self.nbits = 0;
+            let role = match self.phase {
+                Phase::First => ByteRole::Address(if byte & 1 == 1 { Direction::Read } else { Direction::Write }),
+                Phase::Second { .. } => ByteRole::AddressLow,
+                Phase::Data(d) => ByteRole::Data(d),
+            };
+            self.mark(self.first_bit, t, MarkKind::Byte { value: byte, ack, role });
             self.byte(t, byte, ack);
         }
     }
@@ -437,8 +515,11 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
                 let (v, at) = (self.ticks.ps(t.saturating_sub(r)), self.ns(r));
                 self.see(Param::SuSta, v, at);
             }
+            self.mark(t, t, MarkKind::RepeatedStart);
         } else {
+            self.mark(t, t, MarkKind::Start);
             let mut b = Building::new(t);
+            b.timing = std::mem::take(&mut self.between);
             if let Some(s) = self.last_stop {
                 b.timing.see(Param::Buf, self.ticks.ps(t.saturating_sub(s)), self.ns(s));
             }
@@ -471,6 +552,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             let (v, at) = (self.ticks.ps(t.saturating_sub(r)), self.ns(r));
             self.see(Param::SuSto, v, at);
         }
+        self.mark(t, t, MarkKind::Stop);
         self.close(t);
         self.last_stop = Some(t);
     }

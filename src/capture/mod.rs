@@ -15,8 +15,13 @@
 //! - Unknown levels (`x`, `z`, a voltage between the thresholds at the
 //!   start) are reported as issues, never guessed as 0 or 1.
 //! - Every error of a file names the file and line ([`CaptureError`]).
+//! - Pictures: [`picture`] gathers chosen transactions in two passes
+//!   (memory for those transactions only) and [`svg`] draws them, every
+//!   text from a file XML-escaped.
 
 pub mod decode;
+pub mod picture;
+pub mod svg;
 pub mod synth;
 pub mod table;
 pub mod timing;

@@ -33,7 +33,7 @@ struct W<'a, O: Write> {
 
 impl<O: Write> W<'_, O> {
     fn at(&mut self, ps: u64) -> io::Result<()> {
-        self.t += ps;
+        self.t = self.t.saturating_add(ps);
         let ticks = (self.t as u128 * 1000 / self.shape.tick_fs as u128) as u64;
         writeln!(self.out, "#{ticks}")
     }
@@ -66,7 +66,7 @@ impl<O: Write> W<'_, O> {
         }
         self.bit(!ack, 0)?;
         if self.shape.stretch_ps > 0 {
-            self.t += self.shape.stretch_ps;
+            self.t = self.t.saturating_add(self.shape.stretch_ps);
         }
         Ok(())
     }
@@ -99,29 +99,75 @@ impl<O: Write> W<'_, O> {
 
 /// Writes `frames` as a VCD with wires `top.sda` (`d`) and `top.scl` (`c`).
 pub fn render<'a, O: Write>(frames: impl IntoIterator<Item = &'a Frame>, shape: Shape, out: &mut O) -> io::Result<()> {
-    let mut frames = frames.into_iter().peekable();
-    let scale = match shape.tick_fs {
-        1 => "1fs",
-        1000 => "1ps",
-        10_000 => "10ps",
-        1_000_000 => "1ns",
-        10_000_000 => "10ns",
-        _ => return Err(io::Error::new(io::ErrorKind::InvalidInput, "tick must be 1 fs, 1 ps, 10 ps, 1 ns or 10 ns")),
-    };
-    write!(
-        out,
-        "$comment greenhouse climate node bus $end\n$timescale {scale} $end\n$scope module top $end\n\
-         $var wire 1 d sda $end\n$var wire 1 c scl $end\n$upscope $end\n$enddefinitions $end\n\
-         $dumpvars\n1d\n1c\n$end\n"
-    )?;
-    let u = 1_000_000_000_000 / shape.hz / 20;
-    let mut w = W { out, t: 0, u, shape, sda: true, scl: true };
-    w.at(20 * u)?;
-    let t0 = frames.peek().map_or(std::time::Duration::ZERO, |f| f.t);
+    let mut r = Renderer::new(shape, out)?;
     for f in frames {
+        r.frame(f)?;
+    }
+    Ok(())
+}
+
+/// [`render`] one frame at a time, for a trace read as a stream.
+pub struct Renderer<'a, O: Write> {
+    w: W<'a, O>,
+    t0: Option<std::time::Duration>,
+}
+
+impl<'a, O: Write> Renderer<'a, O> {
+    /// Writes the header and the idle bus before the first frame.
+    pub fn new(shape: Shape, out: &'a mut O) -> io::Result<Self> {
+        let scale = match shape.tick_fs {
+            1 => "1fs",
+            1000 => "1ps",
+            10_000 => "10ps",
+            1_000_000 => "1ns",
+            10_000_000 => "10ns",
+            _ => {
+                return Err(io::Error::new(
+                    io::ErrorKind::InvalidInput,
+                    "tick must be 1 fs, 1 ps, 10 ps, 1 ns or 10 ns",
+                ));
+            }
+        };
+        // A twentieth of a period in picoseconds: at least 1.
+        if shape.hz == 0 || shape.hz > 50_000_000_000 {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidInput,
+                format!("no waveform at a bus speed of {} Hz", shape.hz),
+            ));
+        }
+        write!(
+            out,
+            "$comment greenhouse climate node bus $end\n$timescale {scale} $end\n$scope module top $end\n\
+             $var wire 1 d sda $end\n$var wire 1 c scl $end\n$upscope $end\n$enddefinitions $end\n\
+             $dumpvars\n1d\n1c\n$end\n"
+        )?;
+        let u = 1_000_000_000_000 / shape.hz / 20;
+        let mut w = W { out, t: 0, u, shape, sda: true, scl: true };
+        w.at(20 * u)?;
+        Ok(Renderer { w, t0: None })
+    }
+
+    /// Writes one frame.
+    pub fn frame(&mut self, f: &Frame) -> io::Result<()> {
+        let w = &mut self.w;
+        let t0 = *self.t0.get_or_insert(f.t);
         // The recorded gaps between frames are kept: a device that was
         // busy converting sees the same idle bus.
-        let due = (f.t.saturating_sub(t0).as_nanos() as u64).saturating_mul(1000);
+        let due = f.t.saturating_sub(t0).as_nanos().saturating_mul(1000);
+        // Far below u64::MAX picoseconds (213 days), so the frame's own
+        // edges still fit after it: a time past that is refused, not
+        // written as edges piled up at one saturated instant.
+        if due > (u64::MAX / 4) as u128 || w.t > u64::MAX / 4 {
+            return Err(io::Error::new(
+                io::ErrorKind::InvalidData,
+                format!(
+                    "frame {} starts {:?} after the first: too late for a VCD of picosecond ticks",
+                    f.seq,
+                    f.t.saturating_sub(t0)
+                ),
+            ));
+        }
+        let due = due as u64;
         if due > w.t {
             w.t = due;
         }
@@ -168,7 +214,6 @@ pub fn render<'a, O: Write>(frames: impl IntoIterator<Item = &'a Frame>, shape: 
                 }
             }
         }
-        w.stop()?;
+        w.stop()
     }
-    Ok(())
 }

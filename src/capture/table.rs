@@ -3,9 +3,18 @@
 //! index (with a sample rate); then SDA and SCL as 0/1 or as voltages read
 //! with thresholds (low at or below VIL, high at or above VIH, unchanged
 //! between: hysteresis, so a slow edge gives one change).
+//!
+//! With voltages, rise and fall times are measured as UM10204 Table 10
+//! defines tr and tf: between 30 % and 70 % of VDD (from memory). VDD is
+//! given, or taken as VIH / 0.7 (Table 9 sets VIH at 0.7 × VDD, from
+//! memory: thresholds given at the specification's levels name VDD). A
+//! crossing's time is interpolated linearly between the two samples
+//! around it, in integer picoseconds; an edge that turns back before the
+//! far threshold is no edge.
 
 use std::io::Read;
 
+use super::timing::Param;
 use super::{CaptureError, Level, Lines, Ticks};
 
 /// How the columns read.
@@ -15,6 +24,57 @@ pub struct TableOptions {
     pub sample_rate: Option<u64>,
     /// Thresholds in volts; None: the columns are 0/1.
     pub thresholds: Option<(f64, f64)>,
+    /// The supply, for rise and fall times; None: VIH / 0.7.
+    pub vdd: Option<f64>,
+}
+
+impl TableOptions {
+    /// The supply rise and fall times are measured against, when the
+    /// columns are voltages.
+    pub fn vdd(&self) -> Option<f64> {
+        let (_, vih) = self.thresholds?;
+        Some(self.vdd.unwrap_or(vih / crate::electrical::limits::SLOPE_HIGH))
+    }
+}
+
+/// One line's edge in progress: rising or falling, from the tick it
+/// passed its first threshold.
+#[derive(Default, Clone, Copy)]
+struct Slope {
+    prev: Option<(u64, f64)>,
+    from: Option<(bool, u64)>,
+}
+
+impl Slope {
+    /// The next sample; a finished edge as (rising, picoseconds, start).
+    fn step(&mut self, t: u64, v: f64, lo: f64, hi: f64) -> Option<(bool, u64, u64)> {
+        let (tp, vp) = self.prev.replace((t, v))?;
+        let at = |th: f64| tp + ((t - tp) as f64 * (th - vp) / (v - vp)).round() as u64;
+        if v > vp {
+            if vp < lo && v >= lo {
+                self.from = Some((true, at(lo)));
+            }
+            // Past the far point: an edge if it passed the near one going
+            // the same way (take: a turned-back edge is forgotten).
+            if vp < hi
+                && v >= hi
+                && let Some((true, a)) = self.from.take()
+            {
+                return Some((true, at(hi).saturating_sub(a), a));
+            }
+        } else if v < vp {
+            if vp > hi && v <= hi {
+                self.from = Some((false, at(hi)));
+            }
+            if vp > lo
+                && v <= lo
+                && let Some((false, a)) = self.from.take()
+            {
+                return Some((false, at(lo).saturating_sub(a), a));
+            }
+        }
+        None
+    }
 }
 
 /// Ticks of a table: picoseconds.
@@ -43,8 +103,23 @@ fn seconds_ps(t: &[u8]) -> Option<u64> {
 pub fn read<R: Read>(
     lines: &mut Lines<R>,
     opts: TableOptions,
-    mut levels: impl FnMut(u64, Level, Level),
+    levels: impl FnMut(u64, Level, Level),
 ) -> Result<u64, CaptureError> {
+    read_slopes(lines, opts, levels, |_, _, _| {})
+}
+
+/// [`read`], and with voltages each finished rise or fall time to
+/// `slopes` as (`Param::Rise` or `Param::Fall`, picoseconds, start tick),
+/// before the levels of the sample that finished it.
+pub fn read_slopes<R: Read>(
+    lines: &mut Lines<R>,
+    opts: TableOptions,
+    mut levels: impl FnMut(u64, Level, Level),
+    mut slopes: impl FnMut(Param, u64, u64),
+) -> Result<u64, CaptureError> {
+    let vdd = opts.vdd();
+    let bands = vdd.map(|v| (v * crate::electrical::limits::SLOPE_LOW, v * crate::electrical::limits::SLOPE_HIGH));
+    let mut edges = [Slope::default(); 2];
     if lines.next_line()?.is_none() {
         return Err(lines.err("empty table: a header line is needed"));
     }
@@ -70,9 +145,14 @@ pub fn read<R: Read>(
             return Err(lines.err("time goes backwards"));
         }
         last = Some(t);
-        let read = |f: &[u8], was: Level| -> Result<Level, String> {
+        let mut read = |f: &[u8], was: Level, i: usize| -> Result<Level, String> {
             let v = std::str::from_utf8(f).ok().and_then(|x| x.parse::<f64>().ok()).filter(|v| v.is_finite());
             let Some(v) = v else { return Err(format!("bad level `{}`", String::from_utf8_lossy(f))) };
+            if let Some((lo, hi)) = bands
+                && let Some((rising, ps, at)) = edges[i].step(t, v, lo, hi)
+            {
+                slopes(if rising { Param::Rise } else { Param::Fall }, ps, at);
+            }
             Ok(match opts.thresholds {
                 None if v == 0.0 => Level::Low,
                 None if v == 1.0 => Level::High,
@@ -82,8 +162,8 @@ pub fn read<R: Read>(
                 Some(_) => was,
             })
         };
-        s = read(a, s).map_err(|m| lines.err(format!("SDA: {}", crate::ascii::escape_controls(&m))))?;
-        c = read(b, c).map_err(|m| lines.err(format!("SCL: {}", crate::ascii::escape_controls(&m))))?;
+        s = read(a, s, 0).map_err(|m| lines.err(format!("SDA: {}", crate::ascii::escape_controls(&m))))?;
+        c = read(b, c, 1).map_err(|m| lines.err(format!("SCL: {}", crate::ascii::escape_controls(&m))))?;
         levels(t, s, c);
     }
     last.ok_or_else(|| lines.err("the table has no samples"))

@@ -13,7 +13,7 @@
 use serde::Serialize;
 
 use crate::bus::Mode;
-use crate::electrical::limits::{BusTiming, limits};
+use crate::electrical::limits::{ModeLimits, limits};
 
 /// A measured parameter; all but `FScl` are durations.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -38,10 +38,16 @@ pub enum Param {
     Buf,
     #[serde(rename = "stretch")]
     Stretch,
+    /// Rise time, 30 % to 70 % of VDD (tables of voltages only).
+    #[serde(rename = "tr")]
+    Rise,
+    /// Fall time, 70 % to 30 % of VDD.
+    #[serde(rename = "tf")]
+    Fall,
 }
 
 impl Param {
-    pub const ALL: [Param; 10] = [
+    pub const ALL: [Param; 12] = [
         Param::FScl,
         Param::Low,
         Param::High,
@@ -52,6 +58,8 @@ impl Param {
         Param::SuSto,
         Param::Buf,
         Param::Stretch,
+        Param::Rise,
+        Param::Fall,
     ];
 
     pub fn name(self) -> &'static str {
@@ -66,19 +74,26 @@ impl Param {
             Param::SuSto => "tSU;STO",
             Param::Buf => "tBUF",
             Param::Stretch => "stretch",
+            Param::Rise => "tr",
+            Param::Fall => "tf",
         }
     }
 
-    /// Whether the worst value is the largest (fSCL, stretching) rather
-    /// than the smallest.
+    /// Whether the worst value is the largest (fSCL, stretching, rise and
+    /// fall times: limits that are maximums) rather than the smallest.
     pub fn worst_is_max(self) -> bool {
-        matches!(self, Param::FScl | Param::Stretch)
+        matches!(self, Param::FScl | Param::Stretch | Param::Rise | Param::Fall)
     }
 
     /// The limit in the param's unit (Hz for fSCL, ns otherwise); None
-    /// where the table sets none.
-    pub fn limit(self, t: &BusTiming) -> Option<u64> {
+    /// where the table sets none. tr and tf are checked against their
+    /// maximums only (Table 10 also gives Fast-mode minimums of about
+    /// 20 ns, from memory; a too-fast edge is not flagged).
+    pub fn limit(self, l: &ModeLimits) -> Option<u64> {
+        let t = &l.timing;
         Some(match self {
+            Param::Rise => l.rise_max_ns as u64,
+            Param::Fall => t.fall_max_ns,
             Param::FScl => t.f_scl_max_hz as u64,
             Param::Low => t.low_ns,
             Param::High => t.high_ns,
@@ -104,7 +119,7 @@ pub struct Seen {
 /// The worst values of one transaction.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct TxTiming {
-    pub worst: [Option<Seen>; 10],
+    pub worst: [Option<Seen>; Param::ALL.len()],
 }
 
 impl TxTiming {
@@ -170,6 +185,21 @@ impl Checker {
             .unwrap_or(Mode::AboveFastPlus)
     }
 
+    /// The violations of one transaction's worst values, without keeping
+    /// them (the drawing marks them on its panel).
+    pub fn violations_of(&self, frame: u64, tx: &TxTiming) -> Vec<Violation> {
+        let Some(limits) = self.mode.and_then(limits) else { return Vec::new() };
+        Param::ALL
+            .iter()
+            .filter_map(|&p| {
+                let s = tx.get(p)?;
+                let limit = p.limit(limits)?;
+                let bad = if p.worst_is_max() { s.value > limit * 1000 } else { s.value < limit * 1000 };
+                bad.then_some(Violation { frame, param: p, value: s.value, limit, at_ns: s.at_ns })
+            })
+            .collect()
+    }
+
     /// Checks one transaction's worst values.
     pub fn check(&mut self, frame: u64, tx: &TxTiming) {
         if self.mode.is_none()
@@ -179,23 +209,24 @@ impl Checker {
             self.inferred = true;
         }
         for p in Param::ALL {
-            let Some(s) = tx.get(p) else { continue };
-            self.all.see(p, s.value, s.at_ns);
-            let Some(limits) = self.mode.and_then(limits) else { continue };
-            let Some(limit) = p.limit(&limits.timing) else { continue };
-            let bad = match p {
-                Param::FScl => s.value > limit * 1000,
-                _ => s.value < limit * 1000,
-            };
-            if bad {
-                self.violation_count += 1;
-                if self.violations.len() < super::MAX_KEPT {
-                    self.violations.push(Violation { frame, param: p, value: s.value, limit, at_ns: s.at_ns });
-                }
+            if let Some(s) = tx.get(p) {
+                self.all.see(p, s.value, s.at_ns);
+            }
+        }
+        for v in self.violations_of(frame, tx) {
+            self.violation_count += 1;
+            if self.violations.len() < super::MAX_KEPT {
+                self.violations.push(v);
             }
         }
         self.worst = Param::ALL.iter().filter_map(|&p| self.all.get(p).map(|s| (p, s))).collect();
     }
+}
+
+/// A limit as [`Param::limit`] gives it (Hz for fSCL, ns otherwise), for
+/// people: `400.0 kHz`, `100 ns`.
+pub fn show_limit(p: Param, limit: u64) -> String {
+    show(p, limit.saturating_mul(1000))
 }
 
 /// A value in its unit for people: `1.30 us`, `80 ns`, `402.1 kHz`.

@@ -14,9 +14,9 @@ use crate::adapter::{Capabilities, Identity, Snapshot};
 use crate::bus::{BusSpeed, Mode};
 use crate::capture::decode::{Decoder, Issue, Options};
 use crate::capture::table::{self, TableOptions};
-use crate::capture::timing::{self, Checker, Param};
+use crate::capture::timing::{self, Checker};
 use crate::capture::{self, Kind, Lines, vcd};
-use crate::electrical::limits::TIMING_SOURCE;
+use crate::electrical::limits::{SLOPE_HIGH, SLOPE_LOW, TIMING_SOURCE};
 use crate::record::{Record, Sink, Stats};
 use crate::trace::{CaptureInfo, Header, TraceWriter};
 
@@ -30,24 +30,31 @@ pub struct DecodeArgs {
     /// Overwrite the trace if it exists.
     #[arg(long)]
     pub force: bool,
-    /// The SDA signal: hierarchical name, last name part or identifier code (default: the one named sda).
-    #[arg(long)]
-    pub sda: Option<String>,
-    /// The SCL signal (default: the one named scl).
-    #[arg(long)]
-    pub scl: Option<String>,
     /// List the signals of a VCD and stop.
     #[arg(long)]
     pub signals: bool,
-    /// Speed mode to check against (default: inferred from the first transaction's clock).
-    #[arg(long, value_enum)]
-    pub mode: Option<ModeArg>,
     /// Check timing against the mode's limits; exit 1 on a violation or bus error.
     #[arg(long)]
     pub timing: bool,
     /// The report as JSON on standard output.
     #[arg(long)]
     pub json: bool,
+    #[command(flatten)]
+    pub read: CaptureArgs,
+}
+
+/// How a capture is read: shared by `decode` and `draw`.
+#[derive(Args, Debug, Clone)]
+pub struct CaptureArgs {
+    /// The SDA signal: hierarchical name, last name part or identifier code (default: the one named sda).
+    #[arg(long)]
+    pub sda: Option<String>,
+    /// The SCL signal (default: the one named scl).
+    #[arg(long)]
+    pub scl: Option<String>,
+    /// Speed mode to check against (default: inferred from the first transaction's clock).
+    #[arg(long, value_enum)]
+    pub mode: Option<ModeArg>,
     /// Spike limit tSP in ns: shorter pulses are dropped (default 50, UM10204 Fast-mode).
     #[arg(long, value_name = "NS", default_value_t = 50)]
     pub spike: u64,
@@ -60,12 +67,137 @@ pub struct DecodeArgs {
     /// Tables: the first column is a sample index at this many samples per second.
     #[arg(long, value_name = "HZ")]
     pub sample_rate: Option<u64>,
-    /// Tables: voltages, low at or below this (needs --vih).
+    /// Tables: voltages, low at or below this (needs --vih); also measures rise and fall times.
     #[arg(long, requires = "vih", value_name = "VOLTS")]
     pub vil: Option<f64>,
     /// Tables: voltages, high at or above this.
     #[arg(long, requires = "vil", value_name = "VOLTS")]
     pub vih: Option<f64>,
+    /// Tables of voltages: the supply tr and tf are measured against, 30 % to 70 % of it (default: VIH / 0.7).
+    #[arg(long, requires = "vih", value_name = "VOLTS")]
+    pub vdd: Option<f64>,
+}
+
+impl CaptureArgs {
+    pub(super) fn options(&self) -> Options {
+        Options {
+            spike_ns: self.spike,
+            stuck_ns: self.stuck.saturating_mul(1000),
+            high_ns: self.high.saturating_mul(1000),
+        }
+    }
+
+    pub(super) fn table(&self) -> TableOptions {
+        TableOptions { sample_rate: self.sample_rate, thresholds: self.vil.zip(self.vih), vdd: self.vdd }
+    }
+
+    pub(super) fn mode(&self) -> Option<Mode> {
+        self.mode.map(ModeArg::mode)
+    }
+
+    /// Refuses thresholds and supplies no table could be read with.
+    fn check(&self) -> Result<()> {
+        for (name, v) in [("--vil", self.vil), ("--vih", self.vih), ("--vdd", self.vdd)] {
+            if let Some(v) = v {
+                anyhow::ensure!(v.is_finite() && v >= 0.0, "{name} {v}: a voltage of zero or more is needed");
+            }
+        }
+        if let (Some(l), Some(h)) = (self.vil, self.vih) {
+            anyhow::ensure!(l < h, "--vil {l} must be below --vih {h}");
+        }
+        if let Some(d) = self.vdd {
+            anyhow::ensure!(d > 0.0, "--vdd must be above 0 V");
+        }
+        Ok(())
+    }
+}
+
+/// A capture opened and its header read, ready for [`Opened::body`].
+pub(super) struct Opened {
+    pub lines: Lines<Box<dyn std::io::BufRead>>,
+    pub ticks: capture::Ticks,
+    /// The names of SDA and SCL as the trace header records them.
+    pub names: (String, String),
+    vcd: Option<(vcd::Header, String, String)>,
+    table: TableOptions,
+}
+
+impl Opened {
+    /// Opens `path`; a VCD's signals are picked from `read`'s names.
+    pub(super) fn new(path: &std::path::Path, read: &CaptureArgs) -> Result<Opened> {
+        let input = capture::open(path)?;
+        Opened::from_reader(input, &path.display().to_string(), read)
+    }
+
+    /// [`Opened::new`] for a capture already open (one made in memory).
+    pub(super) fn from_reader(mut input: Box<dyn std::io::BufRead>, file: &str, read: &CaptureArgs) -> Result<Opened> {
+        read.check()?;
+        let file = file.to_string();
+        let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
+        let mut lines = Lines::new(input, &file);
+        Ok(match kind {
+            Kind::Vcd => {
+                let h = vcd::header(&mut lines)?;
+                let (sda, scl) = vcd::pick(&h, &vcd::Select { sda: read.sda.clone(), scl: read.scl.clone() }, &file)?;
+                let names = (name_of(&h, &sda), name_of(&h, &scl));
+                Opened { lines, ticks: h.ticks, names, vcd: Some((h, sda, scl)), table: read.table() }
+            }
+            Kind::Table => Opened {
+                lines,
+                ticks: table::TICKS,
+                names: ("column 2".to_string(), "column 3".to_string()),
+                vcd: None,
+                table: read.table(),
+            },
+        })
+    }
+
+    /// Reads the rest into `dec`; returns the last tick.
+    pub(super) fn body<F: FnMut(crate::record::Frame, timing::TxTiming)>(
+        &mut self,
+        dec: &mut Decoder<F>,
+        mut levels: impl FnMut(u64, capture::Level, capture::Level),
+    ) -> Result<u64> {
+        let dec = std::cell::RefCell::new(dec);
+        let last = match &self.vcd {
+            Some((h, sda, scl)) => vcd::body(&mut self.lines, h, sda, scl, |t, s, c| {
+                levels(t, s, c);
+                dec.borrow_mut().levels(t, s, c)
+            })?,
+            None => table::read_slopes(
+                &mut self.lines,
+                self.table,
+                |t, s, c| {
+                    levels(t, s, c);
+                    dec.borrow_mut().levels(t, s, c)
+                },
+                |p, ps, at| dec.borrow_mut().slope(p, ps, at),
+            )?,
+        };
+        dec.into_inner().finish(last);
+        Ok(last)
+    }
+
+    /// The rise-and-fall report's supply, when the table has voltages.
+    pub(super) fn slopes(&self) -> Option<Slopes> {
+        let vdd = self.vcd.is_none().then(|| self.table.vdd()).flatten()?;
+        Some(Slopes {
+            vdd_v: vdd,
+            vdd_given: self.table.vdd.is_some(),
+            low_v: vdd * SLOPE_LOW,
+            high_v: vdd * SLOPE_HIGH,
+        })
+    }
+}
+
+/// How rise and fall times were measured.
+#[derive(Serialize)]
+pub(super) struct Slopes {
+    pub vdd_v: f64,
+    /// false: VDD taken as VIH / 0.7.
+    pub vdd_given: bool,
+    pub low_v: f64,
+    pub high_v: f64,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -96,6 +228,10 @@ struct Report<'a> {
     timing: Option<&'a Checker>,
     #[serde(skip_serializing_if = "Option::is_none")]
     limits_source: Option<&'static str>,
+    /// With `--timing`: how tr and tf were measured; absent when the
+    /// capture has no voltages to measure them from.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    rise_fall: Option<Slopes>,
 }
 
 /// The trace header of a decoded capture.
@@ -125,31 +261,21 @@ pub fn decode(a: DecodeArgs) -> Result<u8> {
     if let Some(p) = &a.output {
         outputs::check(p, "the trace", &[(&a.capture, "the capture")])?;
     }
-    let mut input = capture::open(&a.capture)?;
-    let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
-    let mut lines = Lines::new(input, &file);
-    let (ticks, names, vcd_header) = match kind {
-        Kind::Vcd => {
-            let h = vcd::header(&mut lines)?;
-            if a.signals {
-                let mut o = out::locked();
-                for s in &h.signals {
-                    writeln!(o, "{}  {}  {} bit", shown(&s.code), shown(&s.name), s.width)?;
-                }
-                return Ok(exit::OK);
-            }
-            let (sda, scl) = vcd::pick(&h, &vcd::Select { sda: a.sda.clone(), scl: a.scl.clone() }, &file)?;
-            let names = (name_of(&h, &sda), name_of(&h, &scl));
-            (h.ticks, names, Some((h, sda, scl)))
+    if a.signals {
+        a.read.check()?;
+        let mut input = capture::open(&a.capture)?;
+        let kind = capture::sniff(&mut input).with_context(|| format!("cannot read {file}"))?;
+        anyhow::ensure!(kind == Kind::Vcd, "{file}: --signals lists the signals of a VCD; a table's are its columns");
+        let h = vcd::header(&mut Lines::new(input, &file))?;
+        let mut o = out::locked();
+        for s in &h.signals {
+            writeln!(o, "{}  {}  {} bit", shown(&s.code), shown(&s.name), s.width)?;
         }
-        Kind::Table => {
-            anyhow::ensure!(!a.signals, "{file}: --signals lists the signals of a VCD; a table's are its columns");
-            (table::TICKS, ("column 2".to_string(), "column 3".to_string()), None)
-        }
-    };
-    let opts =
-        Options { spike_ns: a.spike, stuck_ns: a.stuck.saturating_mul(1000), high_ns: a.high.saturating_mul(1000) };
-    let mut checker = Checker::new(a.mode.map(ModeArg::mode));
+        return Ok(exit::OK);
+    }
+    let mut opened = Opened::new(&a.capture, &a.read)?;
+    let names = opened.names.clone();
+    let mut checker = Checker::new(a.read.mode());
     let mut writer: Option<TraceWriter> = None;
     let mut stats = Stats::default();
     let mut failure: Option<std::io::Error> = None;
@@ -177,26 +303,9 @@ pub fn decode(a: DecodeArgs) -> Result<u8> {
                 }
             }
         };
-        let mut dec = Decoder::new(ticks, opts, &mut on_frame);
-        let last = match &vcd_header {
-            Some((h, sda, scl)) => vcd::body(&mut lines, h, sda, scl, |t, s, c| dec.levels(t, s, c))?,
-            None => {
-                let t = TableOptions { sample_rate: a.sample_rate, thresholds: a.vil.zip(a.vih) };
-                table::read(&mut lines, t, |t, s, c| dec.levels(t, s, c))?
-            }
-        };
-        dec.finish(last);
-        let report = Report {
-            file: file.clone(),
-            transactions: 0,
-            glitches_suppressed: dec.glitches,
-            issues: &dec.issues,
-            issue_count: dec.issue_count,
-            timing: None,
-            limits_source: None,
-        };
-        // Moved out of the decoder's borrow below.
-        let (issues, issue_count, glitches) = (report.issues.to_vec(), report.issue_count, report.glitches_suppressed);
+        let mut dec = Decoder::new(opened.ticks, a.read.options(), &mut on_frame);
+        opened.body(&mut dec, |_, _, _| {})?;
+        let (issues, issue_count, glitches) = (std::mem::take(&mut dec.issues), dec.issue_count, dec.glitches);
         drop(dec);
         if let Some(e) = failure {
             let p = a.output.as_deref().unwrap_or(a.capture.as_path());
@@ -223,6 +332,7 @@ pub fn decode(a: DecodeArgs) -> Result<u8> {
             issue_count,
             timing: a.timing.then_some(&checker),
             limits_source: a.timing.then_some(TIMING_SOURCE),
+            rise_fall: if a.timing { opened.slopes() } else { None },
         };
         let mut o = out::locked();
         if a.json {
@@ -269,19 +379,12 @@ fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
     writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", "parameter", "worst", "limit", "at (ns)")?;
     let lim = c.mode.and_then(crate::electrical::limits::limits);
     for (p, s) in &c.worst {
-        let limit = lim.and_then(|l| p.limit(&l.timing)).map_or_else(
-            || "-".to_string(),
-            |v| if *p == Param::FScl { format!("{:.1} kHz", v as f64 / 1e3) } else { timing::show(*p, v * 1000) },
-        );
+        let limit = lim.and_then(|l| p.limit(l)).map_or_else(|| "-".to_string(), |v| timing::show_limit(*p, v));
         writeln!(o, "  {:<9} {:>12} {:>12}  {:>14}", p.name(), timing::show(*p, s.value), limit, s.at_ns)?;
     }
     writeln!(o, "  {} violations", c.violation_count)?;
     for v in &c.violations {
-        let limit = if v.param == Param::FScl {
-            format!("{:.1} kHz", v.limit as f64 / 1e3)
-        } else {
-            timing::show(v.param, v.limit * 1000)
-        };
+        let limit = timing::show_limit(v.param, v.limit);
         writeln!(
             o,
             "  violation: frame {} {} {} (limit {}) at {} ns",
@@ -291,6 +394,17 @@ fn write_text(o: &mut impl Write, r: &Report<'_>) -> std::io::Result<()> {
             limit,
             v.at_ns
         )?;
+    }
+    match &r.rise_fall {
+        Some(s) => writeln!(
+            o,
+            "  tr/tf between {:.3} V and {:.3} V: 30 % and 70 % of VDD {:.3} V ({})",
+            s.low_v,
+            s.high_v,
+            s.vdd_v,
+            if s.vdd_given { "--vdd" } else { "taken as VIH / 0.7; give --vdd to change it" }
+        )?,
+        None => writeln!(o, "  tr/tf: not measured (they need a table of voltages, --vil/--vih)")?,
     }
     writeln!(o, "  limits: {TIMING_SOURCE}")
 }

@@ -18,6 +18,7 @@ pub mod watchdog;
 
 mod console;
 mod decode;
+mod draw;
 mod fixtures;
 mod ports;
 mod progress;
@@ -92,6 +93,8 @@ pub enum Command {
     View(view::ViewArgs),
     /// Decode a logic capture (VCD or CSV, gzip too) into a trace; check its timing.
     Decode(decode::DecodeArgs),
+    /// Draw transactions of a trace or capture as an SVG timing diagram, or a trace as a VCD.
+    Draw(draw::DrawArgs),
 }
 
 /// Options every bus-facing command takes.
@@ -408,6 +411,7 @@ pub fn dispatch(cli: Cli) -> Result<u8> {
         Command::Console(a) => console::run(a),
         Command::View(a) => view::view(a),
         Command::Decode(a) => decode::decode(a),
+        Command::Draw(a) => draw::draw(a),
     }
 }
 

@@ -35,6 +35,14 @@ pub const SOURCE: &str =
 /// Named in every timing report.
 pub const TIMING_SOURCE: &str = "UM10204 rev. 7: Table 10 (fSCL, tHD;STA, tLOW, tHIGH, tSU;STA, tHD;DAT, tSU;DAT, tSU;STO, tBUF, tr, tf, tSP); values from memory";
 
+/// The fractions of VDD rise and fall times are measured between: tr
+/// from 0.3 × VDD to 0.7 × VDD, tf back (UM10204 rev. 7 Table 10, the
+/// note on tr and tf; the same fractions are VIL(max) and VIH(min) of
+/// Table 9; from memory). The limits are [`ModeLimits::rise_max_ns`] and
+/// [`BusTiming::fall_max_ns`].
+pub const SLOPE_LOW: f64 = 0.3;
+pub const SLOPE_HIGH: f64 = 0.7;
+
 /// Rise time from 0.3 × VDD to 0.7 × VDD of an RC line, as a multiple of
 /// R × C: ln(0.7 / 0.3) = 0.8473 (UM10204 §7.1).
 pub const RISE_FACTOR: f64 = 0.8473;
