@@ -9,7 +9,7 @@ use std::time::Duration;
 use buscue::ascii::EscapeMemo;
 use buscue::bus::{Address, Direction, Fault, OpOutcome, Operation, Outcome};
 use buscue::record::Level;
-use buscue::record::{Frame, Origin, PecMark, Purpose, Record, Sink, write_line_with};
+use buscue::record::{FieldValue, Frame, Origin, PecMark, Purpose, Record, Sink, write_line_with};
 use buscue::trace::{Header, Trace, TraceWriter};
 use proptest::prelude::*;
 
@@ -81,18 +81,19 @@ fn frame() -> impl Strategy<Value = Frame> {
         .prop_map(|(acks, data)| OpOutcome { acks, data });
     let pec = (0usize..3, 0usize..40, any::<u8>(), proptest::option::of(any::<u8>()), any::<bool>())
         .prop_map(|(op, index, expected, received, ok)| PecMark { op, index, expected, received, ok });
+    let value = (any_text(), any::<u32>(), any_text()).prop_map(|(name, raw, shown)| FieldValue { name, raw, shown });
     (
         (any::<u64>(), 0u64..1u64 << 50, address(), proptest::collection::vec(op, 1..4)),
         (proptest::collection::vec(done, 0..4), 0u64..1 << 40, proptest::option::of(0u64..1 << 40), fault()),
         (1u32..5, 1u32..9, proptest::option::of(purpose()), proptest::option::of((any_text(), 1u32..5000))),
-        (proptest::option::of(any_text()), proptest::option::of(pec)),
+        (proptest::option::of(any_text()), proptest::option::of(pec), proptest::collection::vec(value, 0..3)),
     )
         .prop_map(
             |(
                 (seq, t, address, ops),
                 (outs, bus, measured, fault),
                 (attempt, attempts, purpose, origin),
-                (decoded, pec),
+                (decoded, pec, values),
             )| {
                 Frame {
                     seq,
@@ -110,6 +111,7 @@ fn frame() -> impl Strategy<Value = Frame> {
                     purpose: purpose.map(|p| Purpose::from_name(&p)),
                     origin: origin.map(|(file, line)| Origin { file: file.into(), line }),
                     decoded,
+                    values,
                     pec,
                 }
             },

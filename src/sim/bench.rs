@@ -522,9 +522,11 @@ fn build_device(
             let dir = std::path::Path::new(cx.file).parent().unwrap_or(std::path::Path::new(""));
             let path = dir.join(&s.map);
             let max_at = if pointer_bytes == 2 { 0xFFFF } else { 0xFF };
-            let map = crate::regmap::lua::load_file(&path, register_bytes, max_at)
+            let loaded = crate::regmap::lua::load_file(&path, register_bytes, max_at)
                 .map_err(|e| cx.err(Some(n), "map", e.to_string()))?;
-            Box::new(MappedDevice::new(name, address, map, pointer_bytes, big_endian))
+            let device = MappedDevice::from_loaded(name, address, loaded, pointer_bytes, big_endian)
+                .map_err(|e| cx.err(Some(n), "map", e))?;
+            Box::new(device)
         }
         m => {
             return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));

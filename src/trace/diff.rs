@@ -126,6 +126,7 @@ impl FrameLine<'_> {
             purpose: self.purpose,
             origin: None,
             decoded: self.decoded,
+            values: Vec::new(),
             pec: None,
         })
     }

@@ -652,6 +652,7 @@ mod tests {
             purpose: None,
             origin: Some(Origin { file: "e.lua".into(), line: 9 }),
             decoded: None,
+            values: Vec::new(),
             pec: None,
         }
     }
