@@ -92,7 +92,7 @@ pub struct FieldValue {
     pub name: String,
     pub raw: u32,
     /// What it means: an enum name, a scaled value with its unit, or the
-    /// raw number in decimal.
+    /// raw number (`3`, `0x5E11`).
     pub shown: String,
 }
 

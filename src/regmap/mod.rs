@@ -205,10 +205,11 @@ pub enum Decoded {
 
 impl Decoded {
     /// The meaning alone, short, as frames carry it: `4Hz`, `25.5 degC`,
-    /// `3` (a raw value in decimal).
+    /// a raw value as `3` (0 to 9) or `0x5E11`.
     pub fn shown(&self) -> String {
         match self {
-            Decoded::Raw(v) => v.to_string(),
+            Decoded::Raw(v) if *v < 10 => v.to_string(),
+            Decoded::Raw(v) => format!("0x{v:X}"),
             Decoded::Named(n, _) => n.clone(),
             Decoded::Scaled { value, unit, .. } if unit.is_empty() => number(*value),
             Decoded::Scaled { value, unit, .. } => format!("{} {unit}", number(*value)),
