@@ -332,8 +332,19 @@ impl Hooks {
 /// sandboxed state with the map limits ([`super::sandbox`]).
 pub fn load_file(path: &Path, default_bytes: usize, max_at: u32) -> Result<Loaded, MapError> {
     let file = path.display().to_string();
+    let text = std::fs::read_to_string(path).map_err(|e| MapError {
+        file: Some(file.clone()),
+        line: None,
+        what: "map".into(),
+        message: format!("cannot read: {e}"),
+    })?;
+    load_text(text, &file, default_bytes, max_at)
+}
+
+/// [`load_file`] for a map's text in hand, `file` the name errors give.
+pub fn load_text(text: String, file: &str, default_bytes: usize, max_at: u32) -> Result<Loaded, MapError> {
+    let file = file.to_string();
     let whole = |m: String| MapError { file: Some(file.clone()), line: None, what: "map".into(), message: m };
-    let text = std::fs::read_to_string(path).map_err(|e| whole(format!("cannot read: {e}")))?;
     let lua = Rc::new(MapLua::new(&file)?);
     let value: Value = lua.run(LOAD_INSTRUCTIONS, |l| {
         l.load(&text).set_name(format!("@{file}")).set_mode(mlua::ChunkMode::Text).eval()

@@ -239,7 +239,7 @@ impl fmt::Display for Decoded {
         match self {
             Decoded::Raw(v) => write!(f, "{v} (0x{v:X})"),
             Decoded::Named(n, v) => write!(f, "{n} ({v})"),
-            Decoded::Scaled { value, unit, raw } => write!(f, "{value} {unit} (raw 0x{raw:X})"),
+            Decoded::Scaled { value, unit, raw } => write!(f, "{} {unit} (raw 0x{raw:X})", number(*value)),
             Decoded::Failed { raw, why } => write!(f, "0x{raw:X} (scaling failed: {why})"),
         }
     }

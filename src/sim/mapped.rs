@@ -117,7 +117,7 @@ impl MappedDevice {
         let map = Rc::new(loaded.map);
         let mut d = Self::build(name, address, map.clone(), pointer_bytes, big_endian, None);
         if !loaded.hooks.is_empty() {
-            let dev = dev_object(loaded.lua.lua(), &map, &d.state).map_err(|e| loaded.lua.error(e).to_string())?;
+            let dev = dev_object(loaded.lua.lua(), loaded.lua.file(), &map, &d.state).map_err(|e| loaded.lua.error(e).to_string())?;
             d.behaviour = Some(Behaviour { lua: loaded.lua, hooks: loaded.hooks, dev });
         }
         Ok(d)
@@ -232,6 +232,9 @@ impl MappedDevice {
                     let t = self.state.borrow().now;
                     match self.call("on_read", &f, (r.name.as_str(), ms(t))) {
                         Some(Value::Integer(v)) if (0..=r.max() as i64).contains(&v) => {
+                            self.state.borrow_mut().values.insert(r.at, v as u32);
+                        }
+                        Some(Value::Number(v)) if v.fract() == 0.0 && (0.0..=r.max() as f64).contains(&v) => {
                             self.state.borrow_mut().values.insert(r.at, v as u32);
                         }
                         None | Some(Value::Nil) => {}
@@ -369,26 +372,36 @@ fn place<'m>(map: &'m Map, path: &str) -> Result<(&'m Register, u32, u32), Strin
 }
 
 /// The `dev` object hooks get: `get`, `put`, `after`.
-fn dev_object(lua: &Lua, map: &Rc<Map>, state: &Rc<RefCell<State>>) -> mlua::Result<Table> {
+fn dev_object(lua: &Lua, file: &str, map: &Rc<Map>, state: &Rc<RefCell<State>>) -> mlua::Result<Table> {
     let dev = lua.create_table()?;
-    let err = |m: String| mlua::Error::RuntimeError(m);
+    // Errors say where in the map the hook called: `file:line: ...`.
+    let file: Rc<str> = file.into();
+    let at = move |lua: &Lua, m: String| {
+        let line = lua.inspect_stack(1, |d| d.current_line()).flatten();
+        mlua::Error::RuntimeError(match line {
+            Some(l) => format!("{file}:{l}: {m}"),
+            None => m,
+        })
+    };
+    let err = at.clone();
     let (m, st) = (map.clone(), state.clone());
     dev.set(
         "get",
-        lua.create_function(move |_, (_, path): (Value, String)| {
-            let (r, lsb, width) = place(&m, &path).map_err(err)?;
+        lua.create_function(move |lua, (_, path): (Value, String)| {
+            let (r, lsb, width) = place(&m, &path).map_err(|e| err(lua, e))?;
             let v = st.borrow().values.get(&r.at).copied().unwrap_or(0);
             Ok(((v as u64 >> lsb) & ((1u64 << width) - 1)) as i64)
         })?,
     )?;
-    let (m, st) = (map.clone(), state.clone());
+    let (m, st, err) = (map.clone(), state.clone(), at.clone());
     dev.set(
         "put",
-        lua.create_function(move |_, (_, path, v): (Value, String, i64)| {
-            let (r, lsb, width) = place(&m, &path).map_err(err)?;
+        lua.create_function(move |lua, (_, path, v): (Value, String, i64)| {
+            let (r, lsb, width) = place(&m, &path).map_err(|e| err(lua, e))?;
             let max = (1i64 << width) - 1;
             if !(0..=max).contains(&v) {
-                return Err(err(format!("dev:put(\"{path}\", {v}): {path} holds 0-{max}")));
+                let path = crate::ascii::escape_controls(&path);
+                return Err(err(lua, format!("dev:put(\"{path}\", {v}): {path} holds 0-{max}")));
             }
             let mask = (max as u32) << lsb;
             let mut s = st.borrow_mut();
@@ -400,9 +413,9 @@ fn dev_object(lua: &Lua, map: &Rc<Map>, state: &Rc<RefCell<State>>) -> mlua::Res
     let st = state.clone();
     dev.set(
         "after",
-        lua.create_function(move |_, (_, delay, f): (Value, f64, Function)| {
+        lua.create_function(move |lua, (_, delay, f): (Value, f64, Function)| {
             if !delay.is_finite() || !(0.0..=3.6e6).contains(&delay) {
-                return Err(err(format!("dev:after({delay}): a delay in ms, 0 to 3600000")));
+                return Err(at(lua, format!("dev:after({delay}): a delay in ms, 0 to 3600000")));
             }
             let mut s = st.borrow_mut();
             let due = s.now + Duration::from_nanos((delay * 1e6).round() as u64);
