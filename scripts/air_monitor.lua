@@ -25,5 +25,5 @@ check_eq(air:read("STATUS.OVER"), 1, "the fifth reading pushed the oldest out")
 check_eq(air:read("STATUS.DEPTH"), 4, "four readings wait")
 for _ = 1, 4 do air:read("FIFO") end
 air:set("STATUS", { OVER = 1 })            -- write 1 to clear
-log(air:explain("STATUS"))
+for line in air:explain("STATUS"):gmatch("[^\n]+") do log(line) end
 log(string.format("drift %.1f %s", air:read("DRIFT")))

@@ -39,4 +39,4 @@ step("decoded by the gauge's map")
 local gauge = bus.device(GAUGE, { width = 16, order = "little", map = require("maps.battery_gauge") })
 local celsius = gauge:read("CELL_TEMP")
 check(math.abs(celsius - (kelvin10 / 10 - 273.15)) < 1, "the map's Celsius matches the arithmetic above")
-log(gauge:explain("STATUS"))
+for line in gauge:explain("STATUS"):gmatch("[^\n]+") do log(line) end

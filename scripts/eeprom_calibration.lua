@@ -50,4 +50,4 @@ end
 check_eq(cal:read("CAL_MAGIC"), "v1", "record format")
 local trim, unit = cal:read("TEMP_TRIM")
 check_eq(string.format("%.2f %s", trim, unit), "-0.50 degC", "temperature trim: 0xFFCE = -50 x 0.01")
-log(cal:dump())
+for line in cal:dump():gmatch("[^\n]+") do log(line) end

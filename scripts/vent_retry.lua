@@ -3,15 +3,15 @@
 -- a frame in the log.
 
 bus.retry({ attempts = param("attempts", 6), delay_ms = 2, backoff = 2 })
-local vent = bus.device(0x11, { map = require("maps.vent") })
+local vent = bus.device(0x11)
 
 step("identify")
-check_eq(vent:get("ID"), 0xA7, "vent controller ID")
+check_eq(vent:get(0x00), 0xA7, "vent controller ID")
 
 step("sweep")
 for pos = 0, 100, 25 do
-  vent:set("POSITION", pos)                 -- raw steps; frames show % open
-  check_eq(vent:get("POSITION"), pos, "vent position read back")
+  vent:set(0x01, pos)
+  check_eq(vent:get(0x01), pos, "vent position read back")
 end
 
 local s = bus.stats()
