@@ -415,10 +415,8 @@ fn a_hooks_data_ready_bit_sets_exactly_when_the_map_says() {
         assert!(o.is_ok(), "{:?}", o.fault);
         let now = a.now();
         a.delay(Duration::from_micros(s_us) - now);
-        let o = a.execute(&Transaction::new(
-            Address::Seven(0x3A),
-            vec![Operation::Write(vec![0x02]), Operation::Read(2)],
-        ));
+        let o =
+            a.execute(&Transaction::new(Address::Seven(0x3A), vec![Operation::Write(vec![0x02]), Operation::Read(2)]));
         assert!(o.is_ok(), "{:?}", o.fault);
         o.ops[1].data[1]
     };
@@ -469,7 +467,9 @@ fn hook_run(map: &str) -> std::process::Output {
 #[test]
 fn a_hook_that_loops_or_fails_is_stopped_naming_the_map_file_and_line() {
     let head = "local map = { CONTROL = { at = 0x01, width = 16 } }\n";
-    let looping = format!("{head}function map.on_write(dev, reg, v, t)\n  local n = 0\n  while true do n = n + 1 end\nend\nreturn map\n");
+    let looping = format!(
+        "{head}function map.on_write(dev, reg, v, t)\n  local n = 0\n  while true do n = n + 1 end\nend\nreturn map\n"
+    );
     let out = hook_run(&looping);
     assert_eq!(code(&out), 4, "an adapter failure: {}", stderr(&out));
     let e = stderr(&out);
@@ -482,9 +482,8 @@ fn a_hook_that_loops_or_fails_is_stopped_naming_the_map_file_and_line() {
     let e = stderr(&hook_run(&failing));
     assert!(e.contains("hooked.lua:3: on_write: no register `NOPE` in the map"), "{e}");
 
-    let timer = format!(
-        "{head}function map.on_write(dev)\n  dev:after(1, function() error('late') end)\nend\nreturn map\n"
-    );
+    let timer =
+        format!("{head}function map.on_write(dev)\n  dev:after(1, function() error('late') end)\nend\nreturn map\n");
     let dir = tempfile::tempdir().unwrap();
     let path = dir.path().join("hooked.lua");
     std::fs::write(&path, timer).unwrap();

@@ -27,7 +27,8 @@ use super::sandbox::{CALL_INSTRUCTIONS, LOAD_INSTRUCTIONS, MapLua};
 use super::{Access, Convert, Converter, Field, Map, MapError, Meaning, Register, Scale, Source};
 
 const REGISTER_KEYS: &[&str] = &[
-    "at", "width", "access", "reset", "doc", "guard", "fields", "values", "scale", "unscale", "offset", "unit", "signed",
+    "at", "width", "access", "reset", "doc", "guard", "fields", "values", "scale", "unscale", "offset", "unit",
+    "signed",
 ];
 const FIELD_KEYS: &[&str] =
     &["bit", "lsb", "width", "access", "values", "scale", "unscale", "offset", "unit", "signed", "doc"];
@@ -43,13 +44,7 @@ pub fn from_table(t: &Table, source: Source, default_bytes: usize, max_at: u32) 
     read_table(t, source, default_bytes, max_at, &None)
 }
 
-fn read_table(
-    t: &Table,
-    source: Source,
-    default_bytes: usize,
-    max_at: u32,
-    runner: &Runner,
-) -> Result<Map, MapError> {
+fn read_table(t: &Table, source: Source, default_bytes: usize, max_at: u32, runner: &Runner) -> Result<Map, MapError> {
     let mut regs = Vec::new();
     for pair in t.pairs::<Value, Value>() {
         let (k, v) = pair.map_err(|e| MapError::at(&source, "map", None, e.to_string()))?;

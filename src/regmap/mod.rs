@@ -198,9 +198,16 @@ impl Field {
 pub enum Decoded {
     Raw(u32),
     Named(String, u32),
-    Scaled { value: f64, unit: String, raw: u32 },
+    Scaled {
+        value: f64,
+        unit: String,
+        raw: u32,
+    },
     /// The map's scaling function failed on this value.
-    Failed { raw: u32, why: String },
+    Failed {
+        raw: u32,
+        why: String,
+    },
 }
 
 impl Decoded {
@@ -219,9 +226,10 @@ impl Decoded {
 
     pub fn raw(&self) -> u32 {
         match self {
-            Decoded::Raw(r) | Decoded::Named(_, r) | Decoded::Scaled { raw: r, .. } | Decoded::Failed { raw: r, .. } => {
-                *r
-            }
+            Decoded::Raw(r)
+            | Decoded::Named(_, r)
+            | Decoded::Scaled { raw: r, .. }
+            | Decoded::Failed { raw: r, .. } => *r,
         }
     }
 }

@@ -148,9 +148,7 @@ mod tests {
     fn a_loop_is_stopped_with_its_file_and_line_even_under_pcall() {
         let m = MapLua::new("maps/spin.lua").unwrap();
         let text = "local n = 0\nwhile true do\n  pcall(function() while true do n = n + 1 end end)\nend\n";
-        let e = m
-            .run(CALL_INSTRUCTIONS, |lua| lua.load(text).set_name("@maps/spin.lua").exec())
-            .unwrap_err();
+        let e = m.run(CALL_INSTRUCTIONS, |lua| lua.load(text).set_name("@maps/spin.lua").exec()).unwrap_err();
         assert_eq!(e.file.as_deref(), Some("maps/spin.lua"));
         assert!(matches!(e.line, Some(2 | 3)), "{e}");
         assert!(e.message.contains("ran past 1000000 instructions"), "{e}");

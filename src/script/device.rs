@@ -25,9 +25,9 @@ use crate::bus::{Address, Operation, Transaction};
 use super::Ctx;
 use super::api::{located, run_error, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
+use crate::player::Request;
 use crate::player::RunError;
 use crate::player::retry::RetryPolicy;
-use crate::player::Request;
 use crate::record::{FieldValue, Purpose};
 
 use crate::regmap::{self, Access, Decoded, Map, Register, Source};

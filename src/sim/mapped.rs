@@ -117,7 +117,8 @@ impl MappedDevice {
         let map = Rc::new(loaded.map);
         let mut d = Self::build(name, address, map.clone(), pointer_bytes, big_endian, None);
         if !loaded.hooks.is_empty() {
-            let dev = dev_object(loaded.lua.lua(), loaded.lua.file(), &map, &d.state).map_err(|e| loaded.lua.error(e).to_string())?;
+            let dev = dev_object(loaded.lua.lua(), loaded.lua.file(), &map, &d.state)
+                .map_err(|e| loaded.lua.error(e).to_string())?;
             d.behaviour = Some(Behaviour { lua: loaded.lua, hooks: loaded.hooks, dev });
         }
         Ok(d)
@@ -218,7 +219,9 @@ impl MappedDevice {
         }
         self.state.borrow_mut().now = now;
         let file = self.behaviour.as_ref().map_or("", |b| b.lua.file()).to_string();
-        self.fail(format!("{file}: timers ran {TIMERS_PER_EVENT} times at one instant (a timer that re-arms itself at once?)"));
+        self.fail(format!(
+            "{file}: timers ran {TIMERS_PER_EVENT} times at one instant (a timer that re-arms itself at once?)"
+        ));
     }
 
     fn load(&mut self) {

@@ -322,10 +322,8 @@ pub fn register_lines(f: &Frame) -> Vec<Line<'static>> {
         return vec![Line::from("register: no map known")];
     };
     let name = escape_controls(d).into_owned();
-    let mut v = vec![Line::from(vec![
-        Span::raw("register "),
-        Span::styled(name.clone(), Style::new().fg(Color::Cyan)),
-    ])];
+    let mut v =
+        vec![Line::from(vec![Span::raw("register "), Span::styled(name.clone(), Style::new().fg(Color::Cyan))])];
     if f.values.is_empty() {
         return v;
     }
