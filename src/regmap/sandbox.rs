@@ -96,9 +96,7 @@ impl MapLua {
             let line = debug.current_line().map_or(String::new(), |l| format!("{l}:"));
             let message = format!("{file}:{line} ran past {instructions} instructions (a loop that never ends?)");
             let again = message.clone();
-            lua.set_hook(HookTriggers::new().every_nth_instruction(1), move |_, _| {
-                Err(mlua::Error::RuntimeError(again.clone()))
-            })?;
+            fail_from_now_on(lua, move || mlua::Error::RuntimeError(again.clone()))?;
             Err(mlua::Error::RuntimeError(message))
         })
     }
@@ -107,6 +105,14 @@ impl MapLua {
     pub fn error(&self, e: mlua::Error) -> MapError {
         lua_error(&self.file, e)
     }
+}
+
+/// Makes every further instruction of `lua` fail with `error()`: once a
+/// limit has stopped a chunk, a `pcall` in it must not swallow the stop
+/// and go on. Scripts (`script::install_hook`) and maps share this rule;
+/// the next entry installs its own hook again.
+pub fn fail_from_now_on(lua: &Lua, error: impl Fn() -> mlua::Error + 'static) -> mlua::Result<()> {
+    lua.set_hook(HookTriggers::new().every_nth_instruction(1), move |_, _| Err(error()))
 }
 
 /// A Lua error in a map file, with the line Lua gives.
