@@ -494,3 +494,13 @@ fn a_hook_that_loops_or_fails_is_stopped_naming_the_map_file_and_line() {
     assert_eq!(code(&out), 4, "{}", stderr(&out));
     assert!(stderr(&out).contains("hooked.lua:3: timer: late"), "{}", stderr(&out));
 }
+
+#[test]
+fn bad_hooks_and_scaling_functions_are_refused_by_name() {
+    let e = map_error("return {\n  A = { at = 1 },\n  on_write = 5,\n}\n");
+    assert!(e.contains("/bad.lua:3: on_write: must be a function, got 5"), "{e}");
+    let e = map_error("return {\n  A = { at = 1, scale = function(r) return r end, offset = 3 },\n}\n");
+    assert!(e.contains("/bad.lua:2: A: `offset` goes with a scale factor"), "{e}");
+    let e = map_error("return {\n  A = { at = 1, unscale = function(v) return v end },\n}\n");
+    assert!(e.contains("/bad.lua:2: A: `unscale` goes with a scale function"), "{e}");
+}

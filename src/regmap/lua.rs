@@ -153,6 +153,8 @@ fn shown(v: &Value) -> String {
     match v {
         Value::String(s) => format!("\"{}\"", crate::ascii::escape_controls(&s.to_string_lossy())),
         Value::Number(n) => n.to_string(),
+        Value::Integer(i) => i.to_string(),
+        Value::Boolean(b) => b.to_string(),
         other => format!("a {}", other.type_name()),
     }
 }
