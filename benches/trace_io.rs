@@ -53,6 +53,7 @@ fn frame(seq: u64, i: u64, attempt: u32, nack: bool) -> Frame {
         purpose: None,
         origin: Some(Origin { file: "scripts/climate_bringup.lua".into(), line: 20 + (i % 9) as u32 }),
         decoded: Some(["ID", "CONTROL", "STATUS", "TEMPERATURE", "HUMIDITY", "TEMP_HIGH"][reg as usize].into()),
+        values: Vec::new(),
         pec: None,
     }
 }

@@ -49,6 +49,7 @@ fn frame(seq: u64) -> Frame {
         purpose: None,
         origin: Some(Origin { file: "scripts/climate_bringup.lua".into(), line: 12 }),
         decoded: Some(["ID", "CONTROL", "STATUS", "TEMPERATURE", "HUMIDITY", "TEMP_HIGH"][reg as usize].into()),
+        values: Vec::new(),
         pec: None,
     }
 }

@@ -32,3 +32,11 @@ step("alarm threshold")
 local alarm = smbus.read_byte(GAUGE, 0x10)
 smbus.write_byte(GAUGE, 0x10, alarm)
 check_eq(smbus.read_byte(GAUGE, 0x10), alarm, "alarm threshold unchanged")
+
+step("decoded by the gauge's map")
+-- The same values through the register helper and scripts/maps/battery_gauge.lua
+-- (plain reads, no PEC): the map turns them into units and names.
+local gauge = bus.device(GAUGE, { width = 16, order = "little", map = require("maps.battery_gauge") })
+local celsius = gauge:read("CELL_TEMP")
+check(math.abs(celsius - (kelvin10 / 10 - 273.15)) < 1, "the map's Celsius matches the arithmetic above")
+for line in gauge:explain("STATUS"):gmatch("[^\n]+") do log(line) end

@@ -36,3 +36,18 @@ local total = 0
 for _, b in ipairs(back) do total = (total + b) % 256 end
 check_eq(total, 0, "block checksum")
 log("calibration block verified")
+
+step("the node's calibration record, by its map")
+-- The record's layout is scripts/maps/config_eeprom.lua; each value is one
+-- write (raw), then the write cycle; frames and the dump show the values
+-- in units (LIGHT_GAIN is stored as an exponent: raw 32 is 2x).
+local cal = bus.device(EEPROM, { pointer = 16, map = require("maps.config_eeprom") })
+local record = { { "CAL_MAGIC", 0xCA11 }, { "TEMP_TRIM", 0xFFCE }, { "HUM_GAIN", 0x8000 }, { "LIGHT_GAIN", 32 } }
+for _, r in ipairs(record) do
+  cal:set(r[1], r[2])
+  bus.wait_ack(EEPROM, { timeout_ms = 10 })
+end
+check_eq(cal:read("CAL_MAGIC"), "v1", "record format")
+local trim, unit = cal:read("TEMP_TRIM")
+check_eq(string.format("%.2f %s", trim, unit), "-0.50 degC", "temperature trim: 0xFFCE = -50 x 0.01")
+for line in cal:dump():gmatch("[^\n]+") do log(line) end

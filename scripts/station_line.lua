@@ -4,22 +4,22 @@
 --   buscue run scripts/station_line.lua --report junit:line.xml
 --   buscue station scripts/station_line.lua --fixture a=sim --fixture b=sim
 
-local light = bus.device(0x2B, { width = 16, order = "little" })
-local vent = bus.device(0x11)
+local light = bus.device(0x2B, { width = 16, order = "little", map = require("maps.canopy_light") })
+local vent = bus.device(0x11, { map = require("maps.vent") })
 bus.retry({ attempts = 8, delay_ms = 1 })
 
 step("identify", function()
-  check_eq(light:get(0x00), 0x1C5A, "light sensor ID")
-  check_eq(vent:get(0x00), 0xA7, "vent controller ID")
+  check_eq(light:get("ID"), 0x1C5A, "light sensor ID")
+  check_eq(vent:get("ID"), 0xA7, "vent controller ID")
 end)
 
 step("configure", function()
-  light:set(0x01, 0x0003)
-  check_eq(light:get(0x01), 0x0003, "light CONTROL read back")
-  vent:set(0x01, param("vent_open", 25))
+  light:set("CONTROL", 0x0003)             -- GAIN x64, as the line's lamp needs
+  check_eq(light:get("CONTROL"), 0x0003, "light CONTROL read back")
+  vent:set("POSITION", param("vent_open", 25))
 end)
 
 step("measure", function()
-  measure("visible_counts", light:get(0x02), { low = 5000, high = 40000, unit = "counts" })
-  measure("infrared_counts", light:get(0x03), { low = 1000, high = 10000, unit = "counts" })
+  measure("visible_counts", light:get("VISIBLE"), { low = 5000, high = 40000, unit = "counts" })
+  measure("infrared_counts", light:get("INFRARED"), { low = 1000, high = 10000, unit = "counts" })
 end)

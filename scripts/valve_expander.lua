@@ -1,11 +1,11 @@
 -- The irrigation valve I/O expander sits on a 10-bit address.
-local valves = bus.device(bus.ten(0x2A5))
+local valves = bus.device(bus.ten(0x2A5), { map = require("maps.valve_expander") })
 
 step("configure")
-valves:set(0x02, 0xF0)                     -- DIRECTION: low nibble outputs
-check_eq(valves:get(0x02), 0xF0, "direction")
+valves:set("DIRECTION", 0xF0)              -- low nibble outputs
+check_eq(valves:read("DIRECTION.LOW"), "outputs", "direction")
 
 step("open valves 1 and 3")
-valves:update(0x01, 0x0F, 0x05)            -- OUTPUT bits 0 and 2
-check_eq(valves:get(0x01) & 0x0F, 0x05, "valve outputs")
-log("float switches: " .. hex(valves:get(0x00) >> 4))
+valves:update("OUTPUT", 0x0F, 0x05)        -- VALVE1 and VALVE3
+check_eq(valves:get("OUTPUT") & 0x0F, 0x05, "valve outputs")
+log("float switches: " .. hex(valves:read("INPUT.FLOATS")))

@@ -9,8 +9,12 @@ fn battery_demo_checks_every_pec() {
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let f = frames(&o);
     assert!(f.len() >= 10);
-    for x in &f {
-        assert_eq!(x["pec"]["ok"], true, "every exchange carries a good PEC: {x}");
+    // The SMBus exchanges (named by their protocol); the script's last
+    // step reads through the gauge's map with plain register reads.
+    let smbus: Vec<_> = f.iter().filter(|x| x["values"].is_null()).collect();
+    assert!(smbus.len() >= 10 && smbus.len() < f.len(), "{}", f.len());
+    for x in smbus {
+        assert_eq!(x["pec"]["ok"], true, "every SMBus exchange carries a good PEC: {x}");
     }
     let name = f.iter().find(|x| x["decoded"] == "Block Read 0x30").unwrap();
     assert!(name["ops"][1]["read-counted"].is_object(), "a Block Read is one counted read: {name}");

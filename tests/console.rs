@@ -32,7 +32,7 @@ fn stdin_runs_line_by_line_with_values_frames_and_multi_line_chunks() {
     let text = stdout(&out);
     assert_eq!(code(&out), 0, "{text}{}", stderr(&out));
     // The demo sensor's ID, 0x5E11 = 24081, after the frame that read it.
-    let frame = text.find("[ID]").expect("the ID read's frame");
+    let frame = text.find("[ID 0x5E11]").expect("the ID read's frame, with the value it read");
     let value = text.find("= 0x5E11 (24081)").expect("the value in hex and decimal");
     assert!(frame < value, "{text}");
     assert!(text.contains("= 0x2A (42)"), "a function defined over three lines, then called: {text}");

@@ -80,7 +80,7 @@ fn the_frame_log_and_stderr_show_escapes_instead_of_sending_them() {
     assert_inert("standard error", &err);
     assert!(out.contains(&format!("note   {SHOWN}\n")), "{out}");
     assert!(out.contains("== step\\x1B[2J =="), "{out}");
-    assert!(out.contains("[ID\\x1B[2J]"), "the map's register name: {out}");
+    assert!(out.contains("[ID\\x1B[2J 0x5E11]"), "the map's register name and the value read: {out}");
     assert!(out.contains("evil\\x1B[2J.lua:5"), "the origin's file name: {out}");
     assert!(err.contains(&format!("boom {SHOWN}")), "{err}");
     assert!(err.contains("  at ") && err.contains("evil\\x1B[2J.lua:6"), "the traceback: {err}");
@@ -96,7 +96,7 @@ fn the_frame_log_and_stderr_show_escapes_instead_of_sending_them() {
     assert!(out.contains("\u{1b}[2m"), "colour is on: {out:?}");
     let bare = without_our_colours(&out);
     assert_inert("the colour log without its colours", &bare);
-    assert!(bare.contains(SHOWN) && bare.contains("[ID\\x1B[2J]"), "{bare}");
+    assert!(bare.contains(SHOWN) && bare.contains("[ID\\x1B[2J 0x5E11]"), "{bare}");
 }
 
 #[test]
@@ -167,7 +167,7 @@ fn replay_and_diff_reports_show_recorded_text_escaped() {
     assert_inert("diff's output", &out);
     assert_inert("diff's messages", &err);
     assert!(out.contains("B = ") && out.contains("b\\x1B]0;x\\x07.jsonl"), "{out}");
-    assert!(out.lines().any(|l| l.starts_with("  B ") && l.contains("[ID\\x1B[2J]")), "{out}");
+    assert!(out.lines().any(|l| l.starts_with("  B ") && l.contains("[ID\\x1B[2J 0x5E11]")), "{out}");
     assert!(err.contains("tool\\x1B[2J"), "{err}");
 }
 

@@ -243,3 +243,264 @@ fn a_bench_naming_a_bad_map_names_the_map_file_and_line() {
     let e = stderr(&out);
     assert!(e.contains("soil.lua:3: B: address 0x01 is also `A`'s"), "{e}");
 }
+
+// ---- decoded values in frames, --json records and traces ----
+
+#[test]
+fn frames_carry_decoded_values_of_reads_and_writes() {
+    // FLAGS reads 0x13 at reset: DONE = 1, FAULT = 1, MODE = 1 (bits 4..5),
+    // which the map names by no enum: raw "1". LEVEL 0xEC is -20 as 8-bit
+    // two's complement; -20 * 0.5 - 10 = -20 kPa.
+    let (_d, out) = bench_and_map(
+        "local d = bus.device(0x22, { map = require('flagmap') })\n\
+         d:get('FLAGS')\n\
+         d:set('LEVEL', 0xEC)\n\
+         d:set('FLAGS', { MODE = 'burst' })\n",
+    );
+    assert_eq!(code(&out), 0, "{}", stderr(&out));
+    let f = frames(&out);
+    let values = |i: usize| f[i]["values"].clone();
+    assert_eq!(
+        values(0),
+        serde_json::json!([
+            { "name": "MODE", "raw": 1, "shown": "1" },
+            { "name": "FAULT", "raw": 1, "shown": "1" },
+            { "name": "DONE", "raw": 1, "shown": "1" },
+        ]),
+        "fields from the most significant down"
+    );
+    assert_eq!(values(1), serde_json::json!([{ "name": "LEVEL", "raw": 0xEC, "shown": "-20 kPa" }]));
+    // The write of the read-modify-write: MODE = burst (3), the flags 0.
+    assert_eq!(written(&f[3]), vec![0x02, 0x30]);
+    assert_eq!(values(3)[0], serde_json::json!({ "name": "MODE", "raw": 3, "shown": "burst" }));
+}
+
+#[test]
+fn the_trace_and_the_line_log_carry_the_values_and_diff_shows_them() {
+    let (dir, bench) = common::script("bench.toml", BENCH);
+    std::fs::write(dir.path().join("flagmap.lua"), MAP).unwrap();
+    let path = dir.path().join("t.lua");
+    std::fs::write(&path, "bus.device(0x22, { map = require('flagmap') }):get('FLAGS')\n").unwrap();
+    let adapter = format!("sim:{}", bench.display());
+    let a = dir.path().join("a.jsonl");
+    let out = run_path(&path, &["--adapter", &adapter, "--plain", "--trace", a.to_str().unwrap()]);
+    assert_eq!(code(&out), 0, "{}", stderr(&out));
+    // Off a terminal the line is whole: the values follow the name.
+    assert!(stdout(&out).contains("[FLAGS MODE=1 FAULT=1 DONE=1]"), "{}", stdout(&out));
+    let text = std::fs::read_to_string(&a).unwrap();
+    assert!(text.lines().next().unwrap().contains(r#""version":"1.3""#), "{text}");
+    assert!(text.contains(r#""values":[{"name":"MODE","raw":1,"shown":"1"}"#), "{text}");
+    // The same script against a board whose FLAGS reads 0x33: MODE = 3.
+    let other = dir.path().join("other.toml");
+    std::fs::write(&other, BENCH.replace("reset = 0x13", "reset = 0x33")).unwrap();
+    let b = dir.path().join("b.jsonl");
+    let adapter = format!("sim:{}", other.display());
+    assert_eq!(code(&run_path(&path, &["--adapter", &adapter, "--trace", b.to_str().unwrap()])), 0);
+    let out = run(&["diff", a.to_str().unwrap(), b.to_str().unwrap()]);
+    let d = stdout(&out);
+    assert!(d.contains("[FLAGS MODE=1 FAULT=1 DONE=1]") && d.contains("[FLAGS MODE=burst FAULT=1 DONE=1]"), "{d}");
+}
+
+#[test]
+fn a_trace_of_the_previous_minor_version_still_reads() {
+    let (dir, bench) = common::script("bench.toml", BENCH);
+    std::fs::write(dir.path().join("flagmap.lua"), MAP).unwrap();
+    let path = dir.path().join("t.lua");
+    std::fs::write(&path, "bus.device(0x22, { map = require('flagmap') }):get('FLAGS')\n").unwrap();
+    let a = dir.path().join("a.jsonl");
+    let adapter = format!("sim:{}", bench.display());
+    assert_eq!(code(&run_path(&path, &["--adapter", &adapter, "--trace", a.to_str().unwrap()])), 0);
+    // As a 1.2 writer would have written it: no `values`.
+    let text = std::fs::read_to_string(&a).unwrap().replacen(r#""version":"1.3""#, r#""version":"1.2""#, 1);
+    let text: String = text
+        .lines()
+        .map(|l| {
+            let mut v: serde_json::Value = serde_json::from_str(l).unwrap();
+            v.as_object_mut().unwrap().remove("values");
+            v.to_string()
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    assert!(!text.contains("values"), "{text}");
+    let old = dir.path().join("old.jsonl");
+    std::fs::write(&old, text + "\n").unwrap();
+    let out = run(&["view", old.to_str().unwrap(), "--plain"]);
+    assert_eq!(code(&out), 0, "{}", stderr(&out));
+    assert!(stdout(&out).contains("[FLAGS]"), "names only, as 1.2 recorded them: {}", stdout(&out));
+}
+
+// ---- scaling by a Lua function ----
+
+const CURVE_MAP: &str = r#"return {
+  LEVEL = { at = 0x03, fields = {
+    -- A square law: units = raw^2 / 4; back: 2 * sqrt(units).
+    DEPTH = { lsb = 0, width = 6, unit = "mm",
+              scale = function(raw) return raw * raw / 4 end,
+              unscale = function(mm) return math.floor(2 * math.sqrt(mm) + 0.5) end },
+    ON    = { bit = 7 },
+  } },
+  FLAGS = { at = 0x02, scale = function(raw) error("no curve for " .. raw) end },
+}
+"#;
+
+#[test]
+fn a_field_scaled_by_a_lua_function_reads_and_writes_in_units() {
+    let (dir, bench) = common::script("bench.toml", BENCH);
+    std::fs::write(dir.path().join("curve.lua"), CURVE_MAP).unwrap();
+    let path = dir.path().join("t.lua");
+    // 36 mm: 2 * sqrt(36) = 12 = 0x0C raw; read back 12^2 / 4 = 36.
+    std::fs::write(
+        &path,
+        "local d = bus.device(0x22, { map = require('curve') })\n\
+         d:set('LEVEL', { DEPTH = 36, ON = 1 })\n\
+         local v, unit = d:read('LEVEL.DEPTH')\n\
+         check_eq(v, 36.0, 'raw 12 is 12^2 / 4 mm')\n\
+         check_eq(unit, 'mm')\n\
+         check_eq(d:get('LEVEL'), 0x8C, 'ON and raw 12')\n\
+         local ok, e = pcall(d.read, d, 'FLAGS')\n\
+         check(not ok and tostring(e):find('no curve for 19'), tostring(e))\n",
+    )
+    .unwrap();
+    let adapter = format!("sim:{}", bench.display());
+    let out = run_path(&path, &["--adapter", &adapter, "--json"]);
+    assert_eq!(code(&out), 0, "{}{}", stdout(&out), stderr(&out));
+    let f = frames(&out);
+    assert_eq!(written(&f[1]), vec![0x03, 0x8C]);
+    assert_eq!(f[1]["values"][1], serde_json::json!({ "name": "DEPTH", "raw": 12, "shown": "36 mm" }));
+    // The scaling that fails: the frame still carries the raw value, and says so.
+    let flags = f.iter().rev().find(|x| x["decoded"] == "FLAGS").unwrap();
+    assert_eq!(flags["values"][0]["shown"], "19 (scaling failed)", "{flags}");
+}
+
+// ---- Lua hooks on mapped devices ----
+
+/// A bench at 100 kHz with the demo's air monitor, simulated from the demo
+/// map file itself.
+fn air_bench(dir: &std::path::Path, map: &std::path::Path) -> std::path::PathBuf {
+    let bench = dir.join("air.toml");
+    std::fs::write(
+        &bench,
+        format!(
+            "format = \"buscue-bench/1\"\nname = \"air\"\nspeed = \"100k\"\n\n[[device]]\nname = \"air\"\n\
+             model = \"mapped\"\naddress = 0x3A\nregister_bits = 16\nmap = \"{}\"\n",
+            map.display()
+        ),
+    )
+    .unwrap();
+    bench
+}
+
+// The data-ready timing against a hand calculation (bus-time model in
+// src/bus/timing.rs, UM10204 Table 10 minimums; 100 kHz: one clock 10 us,
+// a byte 9 clocks = 90 us, START held 5 us, Sr 15 us):
+// - CONTROL = 0x0001 (START, MODE quick: 4 ms) written at 0 us: START 5,
+//   address 90 (95), pointer 90 (185), 0x00 90 (275), 0x01 90 (365). The
+//   value is complete at the end of its second byte's ACK clock, 365 us;
+//   on_write arms the 4 ms timer there: DRDY sets at 4365 us.
+// - a STATUS read W 02 | R 2 starting at s: START 5, address 90, pointer
+//   90, Sr 15, address+R 90: the device is selected and loads STATUS at
+//   s + 290 us. s = 4075 loads at 4365 us (ready); s = 4074 at 4364 us.
+#[test]
+fn a_hooks_data_ready_bit_sets_exactly_when_the_map_says() {
+    use buscue::adapter::Adapter;
+    use buscue::bus::{Address, Operation, Transaction};
+    use std::time::Duration;
+    let dir = tempfile::tempdir().unwrap();
+    let bench = air_bench(dir.path(), &root().join("scripts/maps/air_monitor.lua"));
+    let status_at = |s_us: u64| -> u8 {
+        let text = std::fs::read_to_string(&bench).unwrap();
+        let b = buscue::sim::Bench::from_str(&text, bench.to_str().unwrap()).expect("the bench loads");
+        let mut a = buscue::sim::SimAdapter::new(b, false);
+        let o = a.execute(&Transaction::new(Address::Seven(0x3A), vec![Operation::Write(vec![0x01, 0x00, 0x01])]));
+        assert!(o.is_ok(), "{:?}", o.fault);
+        let now = a.now();
+        a.delay(Duration::from_micros(s_us) - now);
+        let o =
+            a.execute(&Transaction::new(Address::Seven(0x3A), vec![Operation::Write(vec![0x02]), Operation::Read(2)]));
+        assert!(o.is_ok(), "{:?}", o.fault);
+        o.ops[1].data[1]
+    };
+    // STATUS low byte: bit 0 DRDY, bit 1 BUSY, bits 4..6 DEPTH.
+    assert_eq!(status_at(4_074), 0x02, "busy at 4364 us");
+    assert_eq!(status_at(4_075), 0x11, "ready at 4365 us, one reading in the FIFO");
+}
+
+#[test]
+fn the_demo_air_monitor_measures_on_the_demo_bench() {
+    let o = run(&["run", "scripts/air_monitor.lua", "--json", "--set", "mode=fine"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let f = frames(&o);
+    // The CO2 code 1024 + floor(512 sin(t / 60 s)) stays near 1024 over a
+    // run of tens of ms; the map's curve: 400 + 1024 / 4 + 1024^2 / 65536 =
+    // 400 + 256 + 16 = 672 ppm (code 1025: 672.266...).
+    let co2 = f.iter().find(|x| x["decoded"] == "CO2").expect("a CO2 read");
+    let raw = co2["values"][0]["raw"].as_u64().unwrap();
+    assert!((1024..1030).contains(&raw), "{co2}");
+    if raw == 1024 {
+        assert_eq!(co2["values"][0]["shown"], "672 ppm");
+    }
+    // mode=fine: 16 ms from START to DRDY; the first poll that sees DRDY
+    // comes at least 16 ms after the START write.
+    let start = f.iter().position(|x| x["decoded"] == "CONTROL" && x["ops"].as_array().unwrap().len() == 1).unwrap();
+    let ready = f
+        .iter()
+        .position(|x| {
+            x["decoded"] == "STATUS"
+                && x["values"].as_array().is_some_and(|v| v.iter().any(|y| y["name"] == "DRDY" && y["raw"] == 1))
+        })
+        .unwrap();
+    let t = |i: usize| f[i]["t_ns"].as_u64().unwrap();
+    assert!(t(ready) - t(start) >= 16_000_000, "{} ns", t(ready) - t(start));
+}
+
+fn hook_run(map: &str) -> std::process::Output {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("hooked.lua");
+    std::fs::write(&path, map).unwrap();
+    let bench = air_bench(dir.path(), &path);
+    let script = dir.path().join("t.lua");
+    std::fs::write(&script, "bus.write(0x3A, { 0x01, 0x00, 0x01 })\n").unwrap();
+    let adapter = format!("sim:{}", bench.display());
+    run_path(&script, &["--adapter", &adapter, "--json"])
+}
+
+#[test]
+fn a_hook_that_loops_or_fails_is_stopped_naming_the_map_file_and_line() {
+    let head = "local map = { CONTROL = { at = 0x01, width = 16 } }\n";
+    let looping = format!(
+        "{head}function map.on_write(dev, reg, v, t)\n  local n = 0\n  while true do n = n + 1 end\nend\nreturn map\n"
+    );
+    let out = hook_run(&looping);
+    assert_eq!(code(&out), 4, "an adapter failure: {}", stderr(&out));
+    let e = stderr(&out);
+    assert!(e.contains("hooked.lua:4: on_write: ran past 1000000 instructions"), "{e}");
+    let f = frames(&out);
+    assert_eq!(f.len(), 1, "the run stops at the failed transaction");
+    assert_eq!(f[0]["outcome"]["fault"]["kind"], "adapter");
+
+    let failing = format!("{head}function map.on_write(dev, reg, v, t)\n  dev:put(\"NOPE\", 1)\nend\nreturn map\n");
+    let e = stderr(&hook_run(&failing));
+    assert!(e.contains("hooked.lua:3: on_write: no register `NOPE` in the map"), "{e}");
+
+    let timer =
+        format!("{head}function map.on_write(dev)\n  dev:after(1, function() error('late') end)\nend\nreturn map\n");
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("hooked.lua");
+    std::fs::write(&path, timer).unwrap();
+    let bench = air_bench(dir.path(), &path);
+    let script = dir.path().join("t.lua");
+    std::fs::write(&script, "bus.write(0x3A, { 0x01, 0x00, 0x01 })\nsleep_ms(2)\nbus.write(0x3A, { 0x01 })\n").unwrap();
+    let out = run_path(&script, &["--adapter", &format!("sim:{}", bench.display())]);
+    assert_eq!(code(&out), 4, "{}", stderr(&out));
+    assert!(stderr(&out).contains("hooked.lua:3: timer: late"), "{}", stderr(&out));
+}
+
+#[test]
+fn bad_hooks_and_scaling_functions_are_refused_by_name() {
+    let e = map_error("return {\n  A = { at = 1 },\n  on_write = 5,\n}\n");
+    assert!(e.contains("/bad.lua:3: on_write: must be a function, got 5"), "{e}");
+    let e = map_error("return {\n  A = { at = 1, scale = function(r) return r end, offset = 3 },\n}\n");
+    assert!(e.contains("/bad.lua:2: A: `offset` goes with a scale factor"), "{e}");
+    let e = map_error("return {\n  A = { at = 1, unscale = function(v) return v end },\n}\n");
+    assert!(e.contains("/bad.lua:2: A: `unscale` goes with a scale function"), "{e}");
+}

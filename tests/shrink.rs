@@ -298,7 +298,15 @@ fn to_script_writes_waits_smbus_calls_and_only_the_handles_it_uses() {
     assert_eq!(code(&o), 0, "the masked one passes: {}", stderr(&o));
     // An SMBus word is one value: a mask over one of its bytes leaves it unchecked.
     let word = dir.path().join("word.lua");
-    let o = run(&["to-script", rec.to_str().unwrap(), "--checks", "--mask", "0x0B,bytes=0-0", "-o", word.to_str().unwrap()]);
+    let o = run(&[
+        "to-script",
+        rec.to_str().unwrap(),
+        "--checks",
+        "--mask",
+        "0x0B,bytes=0-0",
+        "-o",
+        word.to_str().unwrap(),
+    ]);
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let text = std::fs::read_to_string(&word).unwrap();
     assert!(!text.contains("check_eq(smbus.read_word"), "{text}");

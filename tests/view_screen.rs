@@ -28,6 +28,7 @@ fn frame(seq: u64, ops: Vec<Operation>, outs: Vec<OpOutcome>, fault: Option<Faul
         purpose: None,
         origin: Some(Origin { file: "greenhouse.lua".into(), line: 10 + seq as u32 }),
         decoded: decoded.map(str::to_string),
+        values: Vec::new(),
         pec: None,
     })
 }

@@ -665,6 +665,7 @@ impl<F: FnMut(Frame, TxTiming)> Decoder<F> {
             purpose: None,
             origin: None,
             decoded: address.reserved().map(|r| r.describe().to_string()),
+            values: Vec::new(),
             pec: None,
         };
         (self.out)(frame, b.timing);

@@ -11,4 +11,4 @@ pub mod retry;
 pub mod session;
 
 pub use retry::{PolicyError, RetryPolicy};
-pub use session::{Marker, Probe, Request, RunError, ScanPlan, Session, TEN_BIT_SKIPPED, scan_range};
+pub use session::{Explainer, Marker, Probe, Request, RunError, ScanPlan, Session, TEN_BIT_SKIPPED, scan_range};

@@ -25,7 +25,7 @@ use thiserror::Error;
 
 use crate::adapter::{Adapter, AdapterError, Recovery};
 use crate::bus::{Address, Fault, Operation, Outcome, ShapeError, Transaction};
-use crate::record::{Frame, Origin, Record, Sink};
+use crate::record::{FieldValue, Frame, Origin, Record, Sink};
 use crate::record::{Level, PecMark, Purpose, Stats};
 
 use super::retry::RetryPolicy;
@@ -96,6 +96,10 @@ pub struct Session {
 
 /// Works out the PEC mark of an attempt's outcome for its frame.
 pub type Marker<'a> = dyn Fn(&Outcome) -> Option<PecMark> + 'a;
+
+/// Works out what a register map reads in an attempt's bytes, for its
+/// frame (the register helper: it knows the map, the session does not).
+pub type Explainer<'a> = dyn Fn(&Outcome) -> Vec<FieldValue> + 'a;
 
 /// What a transaction request carries besides the transaction.
 #[derive(Debug, Clone, Default)]
@@ -244,9 +248,21 @@ impl Session {
     /// [`Session::transact`], with `pec` working out each attempt's PEC
     /// mark for its frame before the frame is emitted.
     pub fn transact_marked(&mut self, tx: &Transaction, req: &Request, pec: &Marker<'_>) -> Result<Outcome, RunError> {
+        self.transact_explained(tx, req, pec, &|_| Vec::new())
+    }
+
+    /// [`Session::transact_marked`], with `explain` working out the
+    /// register values each attempt's frame carries.
+    pub fn transact_explained(
+        &mut self,
+        tx: &Transaction,
+        req: &Request,
+        pec: &Marker<'_>,
+        explain: &Explainer<'_>,
+    ) -> Result<Outcome, RunError> {
         self.check(tx, req)?;
         let policy = req.retry.unwrap_or(self.default_retry);
-        self.attempts_from(tx, req, policy, 1, pec)
+        self.attempts_from(tx, req, policy, 1, (pec, explain))
     }
 
     /// Shape, reserved-address and adapter checks before anything is sent.
@@ -273,14 +289,14 @@ impl Session {
         req: &Request,
         policy: RetryPolicy,
         mut attempt: u32,
-        pec: &Marker<'_>,
+        (pec, explain): (&Marker<'_>, &Explainer<'_>),
     ) -> Result<Outcome, RunError> {
         loop {
             self.check_stop()?;
             let t = self.adapter.now();
             let outcome = self.adapter.execute(tx);
-            let mark = pec(&outcome);
-            let outcome = self.record(tx, req, (attempt, policy.attempts), t, outcome, mark);
+            let marks = (pec(&outcome), explain(&outcome));
+            let outcome = self.record(tx, req, (attempt, policy.attempts), t, outcome, marks);
             match self.verdict(tx, outcome, attempt, policy) {
                 Verdict::Done(o) => return Ok(o),
                 Verdict::Retry => {
@@ -300,7 +316,7 @@ impl Session {
         (attempt, attempts): (u32, u32),
         t: Duration,
         outcome: Outcome,
-        pec: Option<PecMark>,
+        (pec, values): (Option<PecMark>, Vec<FieldValue>),
     ) -> Outcome {
         self.seq += 1;
         let mut ops = std::mem::take(&mut self.frame_ops);
@@ -316,6 +332,7 @@ impl Session {
             purpose: req.purpose.clone(),
             origin: req.origin.clone(),
             decoded: req.decoded.clone(),
+            values,
             pec,
         };
         self.stats.add_frame(&frame);
@@ -364,7 +381,7 @@ impl Session {
         for ((tx, req), o) in items.iter().zip(outcomes) {
             let policy = req.retry.unwrap_or(self.default_retry);
             let took = o.bus_time;
-            first.push(self.record(tx, req, (1, policy.attempts), t, o, None));
+            first.push(self.record(tx, req, (1, policy.attempts), t, o, (None, Vec::new())));
             t += took;
         }
         let mut done = Vec::with_capacity(items.len());
@@ -374,7 +391,7 @@ impl Session {
                 Verdict::Done(o) => done.push(o),
                 Verdict::Retry => {
                     self.delay(policy.delay_before(2))?;
-                    done.push(self.attempts_from(tx, req, policy, 2, &|_| None)?);
+                    done.push(self.attempts_from(tx, req, policy, 2, (&|_| None, &|_| Vec::new()))?);
                 }
                 Verdict::Fail(e) => return Err(e),
             }

@@ -89,6 +89,22 @@ fn frame(f: &Frame, out: &mut Vec<u8>, files: &mut EscapeMemo) {
         out.extend_from_slice(b",\"decoded\":");
         string(d, out);
     }
+    if !f.values.is_empty() {
+        out.extend_from_slice(b",\"values\":[");
+        for (i, v) in f.values.iter().enumerate() {
+            if i > 0 {
+                out.push(b',');
+            }
+            out.extend_from_slice(b"{\"name\":");
+            string(&v.name, out);
+            out.extend_from_slice(b",\"raw\":");
+            number(v.raw as u64, out);
+            out.extend_from_slice(b",\"shown\":");
+            string(&v.shown, out);
+            out.push(b'}');
+        }
+        out.push(b']');
+    }
     if let Some(pec) = &f.pec {
         out.extend_from_slice(b",\"pec\":");
         serde_with(pec, out);

@@ -52,6 +52,11 @@ pub struct Frame {
     /// Register or field names, where a register map is known.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub decoded: Option<String>,
+    /// The values the register map reads in the register's bytes: each
+    /// field (or the whole register) with its raw value and its meaning
+    /// (trace 1.3; empty, and not written, without a map).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub values: Vec<FieldValue>,
     /// The SMBus PEC byte of the frame, where it carried one.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub pec: Option<PecMark>,
@@ -73,8 +78,30 @@ impl Frame {
             purpose: None,
             origin: None,
             decoded: None,
+            values: Vec::new(),
             pec: None,
         }
+    }
+}
+
+/// One value of a frame as the register map reads it.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct FieldValue {
+    /// The field's name (`RATE`), or the register's for a register that is
+    /// one value.
+    pub name: String,
+    pub raw: u32,
+    /// What it means: an enum name, a scaled value with its unit, or the
+    /// raw number (`3`, `0x5E11`).
+    pub shown: String,
+}
+
+impl FieldValue {
+    /// `NAME=shown`, the form frame lines and the view write.
+    pub fn push_to(&self, out: &mut String) {
+        crate::ascii::push_escaped(out, &self.name);
+        out.push('=');
+        crate::ascii::push_escaped(out, &self.shown);
     }
 }
 
@@ -357,6 +384,7 @@ mod tests {
             purpose: None,
             origin: Some(Origin { file: "a.lua".into(), line: 4 }),
             decoded: None,
+            values: vec![FieldValue { name: "RATE".into(), raw: 1, shown: "4Hz".into() }],
             pec: None,
         });
         let text = serde_json::to_string(&f).unwrap();
@@ -380,6 +408,7 @@ mod tests {
             purpose,
             origin: None,
             decoded: None,
+            values: Vec::new(),
             pec: None,
         };
         let mut s = Stats::default();

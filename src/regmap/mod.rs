@@ -13,13 +13,19 @@
 //!   caller sets them, so writing back a value read never clears a flag by
 //!   accident; bits of other fields and bits no field covers keep what was
 //!   read.
-//! - Decoding never fails: a value no enum name stands for is shown raw.
+//! - Decoding never fails: a value no enum name stands for is shown raw; a
+//!   scaling function that fails gives [`Decoded::Failed`], which says why.
+//! - A scaling is linear (`raw * scale + offset`) or a function of the
+//!   map's own ([`Convert`], a Lua function in [`lua`]); the model only
+//!   calls it, so it stays free of Lua.
 
 pub mod dump;
 pub mod lua;
+pub mod sandbox;
 
 use std::collections::HashMap;
 use std::fmt;
+use std::rc::Rc;
 
 use thiserror::Error;
 
@@ -65,14 +71,61 @@ impl Access {
     }
 }
 
-/// A linear scaling to engineering units: `raw * factor + offset`, the raw
-/// value taken as two's complement of the field's width when `signed`.
+/// A scaling to engineering units: `raw * factor + offset`, or `by` a
+/// function of the map's, the raw value taken as two's complement of the
+/// field's width when `signed`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Scale {
     pub factor: f64,
     pub offset: f64,
     pub unit: String,
     pub signed: bool,
+    /// A scaling function; `factor` and `offset` are then not used.
+    pub by: Option<Converter>,
+}
+
+impl Scale {
+    /// The value in units of a raw number (already sign-extended).
+    pub fn to_units(&self, raw: i64) -> Result<f64, String> {
+        match &self.by {
+            Some(c) => c.0.to_units(raw),
+            None => Ok(raw as f64 * self.factor + self.offset),
+        }
+    }
+
+    /// The raw number for a value in units; a function without an inverse
+    /// cannot be written in units.
+    pub fn to_raw(&self, value: f64) -> Result<f64, String> {
+        match &self.by {
+            Some(c) => c.0.to_raw(value).map(|r| r as f64),
+            None => Ok(((value - self.offset) / self.factor).round()),
+        }
+    }
+}
+
+/// A scaling the map works out in code: raw to units and, where the map
+/// gives one, back.
+pub trait Convert {
+    fn to_units(&self, raw: i64) -> Result<f64, String>;
+    /// The raw value for a value in units; an error when the map gives no
+    /// inverse or it fails.
+    fn to_raw(&self, value: f64) -> Result<i64, String>;
+}
+
+/// A shared [`Convert`]; two are equal when they are the same one.
+#[derive(Clone)]
+pub struct Converter(pub Rc<dyn Convert>);
+
+impl fmt::Debug for Converter {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("Converter")
+    }
+}
+
+impl PartialEq for Converter {
+    fn eq(&self, other: &Self) -> bool {
+        Rc::ptr_eq(&self.0, &other.0)
+    }
 }
 
 /// What a field's raw value means.
@@ -124,7 +177,7 @@ impl Field {
     /// a raw number; refused when it does not fit the field.
     pub fn raw_of_number(&self, n: f64) -> Result<u32, String> {
         let raw = match &self.meaning.scale {
-            Some(s) => ((n - s.offset) / s.factor).round(),
+            Some(s) => s.to_raw(n).map_err(|m| format!("{}: {m}", self.name))?,
             None => n,
         };
         let signed = self.meaning.scale.as_ref().is_some_and(|s| s.signed);
@@ -145,7 +198,48 @@ impl Field {
 pub enum Decoded {
     Raw(u32),
     Named(String, u32),
-    Scaled { value: f64, unit: String, raw: u32 },
+    Scaled {
+        value: f64,
+        unit: String,
+        raw: u32,
+    },
+    /// The map's scaling function failed on this value.
+    Failed {
+        raw: u32,
+        why: String,
+    },
+}
+
+impl Decoded {
+    /// The meaning alone, short, as frames carry it: `4Hz`, `25.5 degC`,
+    /// a raw value as `3` (0 to 9) or `0x5E11`.
+    pub fn shown(&self) -> String {
+        match self {
+            Decoded::Raw(v) if *v < 10 => v.to_string(),
+            Decoded::Raw(v) => format!("0x{v:X}"),
+            Decoded::Named(n, _) => n.clone(),
+            Decoded::Scaled { value, unit, .. } if unit.is_empty() => number(*value),
+            Decoded::Scaled { value, unit, .. } => format!("{} {unit}", number(*value)),
+            Decoded::Failed { raw, .. } => format!("{raw} (scaling failed)"),
+        }
+    }
+
+    pub fn raw(&self) -> u32 {
+        match self {
+            Decoded::Raw(r)
+            | Decoded::Named(_, r)
+            | Decoded::Scaled { raw: r, .. }
+            | Decoded::Failed { raw: r, .. } => *r,
+        }
+    }
+}
+
+/// A scaled value as people write it: at most six decimals, no trailing
+/// zeros (0.1 steps give `2.3`, not `2.3000000000000003`).
+pub fn number(v: f64) -> String {
+    let s = format!("{v:.6}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" { "0".into() } else { s.to_string() }
 }
 
 impl fmt::Display for Decoded {
@@ -153,7 +247,8 @@ impl fmt::Display for Decoded {
         match self {
             Decoded::Raw(v) => write!(f, "{v} (0x{v:X})"),
             Decoded::Named(n, v) => write!(f, "{n} ({v})"),
-            Decoded::Scaled { value, unit, raw } => write!(f, "{value} {unit} (raw 0x{raw:X})"),
+            Decoded::Scaled { value, unit, raw } => write!(f, "{} {unit} (raw 0x{raw:X})", number(*value)),
+            Decoded::Failed { raw, why } => write!(f, "0x{raw:X} (scaling failed: {why})"),
         }
     }
 }
@@ -170,8 +265,11 @@ fn decode(m: &Meaning, raw: u32, width: u32) -> Decoded {
     }
     match &m.scale {
         Some(s) => {
-            let r = if s.signed { sign_extend(raw, width) as f64 } else { raw as f64 };
-            Decoded::Scaled { value: r * s.factor + s.offset, unit: s.unit.clone(), raw }
+            let r = if s.signed { sign_extend(raw, width) } else { raw as i64 };
+            match s.to_units(r) {
+                Ok(value) => Decoded::Scaled { value, unit: s.unit.clone(), raw },
+                Err(why) => Decoded::Failed { raw, why },
+            }
         }
         None => Decoded::Raw(raw),
     }
@@ -227,6 +325,15 @@ impl Register {
     /// The whole value decoded.
     pub fn decode(&self, raw: u32) -> Decoded {
         decode(&self.whole, raw, self.bits())
+    }
+
+    /// What a value of the register means, as frames carry it: each field
+    /// (name, decoded), or the register itself when it has no fields.
+    pub fn readings(&self, raw: u32) -> Vec<(&str, Decoded)> {
+        if self.fields.is_empty() {
+            return vec![(self.name.as_str(), self.decode(raw))];
+        }
+        self.fields.iter().rev().map(|f| (f.name.as_str(), f.decode(f.extract(raw)))).collect()
     }
 
     /// Bits a write-back must write 0 (unless set on purpose): those of
@@ -403,6 +510,7 @@ fn check_meaning(m: &Meaning, width: u32) -> Result<(), String> {
         }
     }
     if let Some(s) = &m.scale
+        && s.by.is_none()
         && (!s.factor.is_finite() || s.factor == 0.0 || !s.offset.is_finite())
     {
         return Err("scale must be a non-zero number and offset a number".into());
@@ -452,7 +560,7 @@ mod tests {
     #[test]
     fn signed_and_scaled_decode_matches_hand_calculation() {
         let mut f = field("T", 0, 12, Access::ReadOnly);
-        f.meaning.scale = Some(Scale { factor: 0.0625, offset: 0.0, unit: "degC".into(), signed: true });
+        f.meaning.scale = Some(Scale { factor: 0.0625, offset: 0.0, unit: "degC".into(), signed: true, by: None });
         // 0xE70 as 12-bit two's complement is 3696 - 4096 = -400; -400 * 0.0625 = -25.0.
         assert_eq!(f.decode(0xE70), Decoded::Scaled { value: -25.0, unit: "degC".into(), raw: 0xE70 });
         assert_eq!(f.raw_of_number(-25.0), Ok(0xE70));

@@ -25,9 +25,10 @@ use crate::bus::{Address, Operation, Transaction};
 use super::Ctx;
 use super::api::{located, run_error, transact};
 use super::convert::{self, CallOptions, LuaResult, bad, call_options, check_keys, ms_option};
+use crate::player::Request;
 use crate::player::RunError;
 use crate::player::retry::RetryPolicy;
-use crate::record::Purpose;
+use crate::record::{FieldValue, Purpose};
 
 use crate::regmap::{self, Access, Decoded, Map, Register, Source};
 
@@ -163,12 +164,10 @@ impl DeviceHandle {
     /// A register value from the bytes read; an adapter that answered
     /// with fewer bytes than asked for is an error, not a panic.
     fn decode(&self, reg: u32, b: &[u8]) -> LuaResult<u32> {
-        let n = self.bytes_of(reg);
-        if b.len() < n {
-            return Err(bad(format!("{}: a {}-bit register read returned {} byte(s)", self.address, n * 8, b.len())));
-        }
-        let fold = |acc: u32, x: &u8| (acc << 8) | *x as u32;
-        Ok(if self.big_endian { b[..n].iter().fold(0, fold) } else { b[..n].iter().rev().fold(0, fold) })
+        self.value_of(reg, b).ok_or_else(|| {
+            let n = self.bytes_of(reg);
+            bad(format!("{}: a {}-bit register read returned {} byte(s)", self.address, n * 8, b.len()))
+        })
     }
 
     fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<Purpose>) -> LuaResult<u32> {
@@ -176,7 +175,13 @@ impl DeviceHandle {
             self.address,
             vec![Operation::Write(self.pointer(reg)), Operation::Read(self.bytes_of(reg))],
         );
-        let out = transact(lua, &self.ctx, &tx, &self.options(), purpose, name)?;
+        let explain = |o: &crate::bus::Outcome| match (self.map.at(reg), o.fault.is_none()) {
+            (Some(r), true) => {
+                o.ops.last().and_then(|d| self.value_of(reg, &d.data)).map_or_else(Vec::new, |v| readings(r, v))
+            }
+            _ => Vec::new(),
+        };
+        let out = self.transact(lua, &tx, purpose, name, &explain)?;
         // The read is the last operation, so its bytes are all the reply
         // holds: taken in place rather than gathered into a new vector.
         self.decode(reg, out.ops.last().map_or(&[], |o| o.data.as_slice()))
@@ -191,7 +196,9 @@ impl DeviceHandle {
         let data = self.encode(reg, value);
         bytes.extend(&data);
         let tx = Transaction::new(self.address, vec![Operation::Write(bytes)]);
-        transact(lua, &self.ctx, &tx, &self.options(), None, name.clone())?;
+        // What the write puts in the register, whether or not it was taken.
+        let explain = |_: &crate::bus::Outcome| self.map.at(reg).map_or_else(Vec::new, |r| readings(r, value));
+        self.transact(lua, &tx, None, name.clone(), &explain)?;
         self.note_guarded(lua, &name, &data);
         Ok(())
     }
@@ -215,6 +222,30 @@ impl DeviceHandle {
             unlocked_by,
             origin: super::origin(lua),
         });
+    }
+
+    /// A register transaction through the session, its frames carrying
+    /// what the map reads in the register's bytes.
+    fn transact(
+        &self,
+        lua: &Lua,
+        tx: &Transaction,
+        purpose: Option<Purpose>,
+        decoded: Option<String>,
+        explain: &crate::player::Explainer<'_>,
+    ) -> LuaResult<crate::bus::Outcome> {
+        let o = self.options();
+        let req = Request { retry: o.retry, origin: super::origin(lua), purpose, decoded, allow_reserved: o.reserved };
+        let result = self.ctx.session.borrow_mut().transact_explained(tx, &req, &|_| None, explain);
+        result.map_err(|e| run_error(lua, e))
+    }
+
+    /// The register value in bytes read, when there are enough of them.
+    fn value_of(&self, reg: u32, b: &[u8]) -> Option<u32> {
+        let n = self.bytes_of(reg);
+        let b = b.get(..n)?;
+        let fold = |acc: u32, x: &u8| (acc << 8) | *x as u32;
+        Some(if self.big_endian { b.iter().fold(0, fold) } else { b.iter().rev().fold(0, fold) })
     }
 
     /// The value a read-modify-write starts from: the register read, or its
@@ -317,7 +348,16 @@ fn decoded_values(lua: &Lua, d: Decoded) -> LuaResult<mlua::MultiValue> {
         Decoded::Raw(v) => v.into_lua_multi(lua),
         Decoded::Named(n, _) => n.into_lua_multi(lua),
         Decoded::Scaled { value, unit, .. } => (value, unit).into_lua_multi(lua),
+        Decoded::Failed { why, .. } => Err(bad(why)),
     }
+}
+
+/// What a register value means, as a frame carries it.
+fn readings(r: &Register, value: u32) -> Vec<FieldValue> {
+    r.readings(value)
+        .into_iter()
+        .map(|(name, d)| FieldValue { name: name.to_string(), raw: d.raw(), shown: d.shown() })
+        .collect()
 }
 
 fn unlock_option(t: &Option<Table>) -> LuaResult<bool> {

@@ -472,9 +472,7 @@ pub(crate) fn install_hook(lua: &Lua, ctx: &Rc<Ctx>, interrupt: Arc<AtomicBool>)
             return Ok(VmState::Continue);
         };
         let again = abort.clone();
-        lua.set_hook(HookTriggers::new().every_nth_instruction(1), move |_, _| {
-            Err(mlua::Error::external(again.clone()))
-        })?;
+        crate::regmap::sandbox::fail_from_now_on(lua, move || mlua::Error::external(again.clone()))?;
         Err(mlua::Error::external(abort))
     })
 }

@@ -32,6 +32,16 @@ use super::signal::{CountRange, RegisterSignal, Signal, SignalSpec};
 pub const DEMO_BENCH_NAME: &str = "adapters/greenhouse.toml";
 pub const DEMO_BENCH: &str = include_str!("../../adapters/greenhouse.toml");
 
+/// The demo maps a bench's mapped devices use, built in: a bench naming
+/// `.../scripts/maps/NAME.lua` that is not there (the demo bench run from
+/// another folder, or copied elsewhere) gets the copy built into buscue.
+const BUILTIN_MAPS: &[(&str, &str)] =
+    &[("scripts/maps/air_monitor.lua", include_str!("../../scripts/maps/air_monitor.lua"))];
+
+fn builtin_map(map: &str) -> Option<(&'static str, &'static str)> {
+    BUILTIN_MAPS.iter().copied().find(|(name, _)| map == *name || map.ends_with(&format!("/{name}")))
+}
+
 /// The format tag a bench file must carry; the major version is checked.
 pub const FORMAT: &str = "buscue-bench/1";
 
@@ -522,9 +532,16 @@ fn build_device(
             let dir = std::path::Path::new(cx.file).parent().unwrap_or(std::path::Path::new(""));
             let path = dir.join(&s.map);
             let max_at = if pointer_bytes == 2 { 0xFFFF } else { 0xFF };
-            let map = crate::regmap::lua::load_file(&path, register_bytes, max_at)
-                .map_err(|e| cx.err(Some(n), "map", e.to_string()))?;
-            Box::new(MappedDevice::new(name, address, map, pointer_bytes, big_endian))
+            let loaded = match builtin_map(&s.map) {
+                Some((name, text)) if !path.exists() => {
+                    crate::regmap::lua::load_text(text.to_string(), name, register_bytes, max_at)
+                }
+                _ => crate::regmap::lua::load_file(&path, register_bytes, max_at),
+            };
+            let loaded = loaded.map_err(|e| cx.err(Some(n), "map", e.to_string()))?;
+            let device = MappedDevice::from_loaded(name, address, loaded, pointer_bytes, big_endian)
+                .map_err(|e| cx.err(Some(n), "map", e))?;
+            Box::new(device)
         }
         m => {
             return Err(cx.err(Some(n), "model", format!("unknown model \"{m}\"; known: {}", MODELS.join(", "))));

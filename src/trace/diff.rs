@@ -32,7 +32,7 @@ use crate::bus::{Address, Fault, Operation, Outcome};
 use super::ignore::{Collapse, Ignore};
 use super::mask::{Masks, RegisterNames};
 use super::{Header, TraceError, TraceReader};
-use crate::record::{Frame, Purpose, Stats};
+use crate::record::{FieldValue, Frame, Purpose, Stats};
 
 /// Edit-distance bound per aligned region; see the module contract.
 pub const MAX_EDITS: usize = 20_000;
@@ -110,6 +110,8 @@ struct FrameLine<'a> {
     purpose: Option<Purpose>,
     #[serde(default)]
     decoded: Option<String>,
+    #[serde(default)]
+    values: Vec<FieldValue>,
 }
 
 impl FrameLine<'_> {
@@ -129,6 +131,7 @@ impl FrameLine<'_> {
             purpose: self.purpose,
             origin: None,
             decoded: self.decoded,
+            values: self.values,
             pec: None,
         })
     }

@@ -24,8 +24,9 @@ pub const VERSION_MAJOR: u32 = 1;
 /// 1.1 added the fault kind `nack` (a NACK the adapter does not place);
 /// 1.2 the end record's `link` (the native link's statistics), the
 /// header's `capture` and the source `capture` (a trace decoded from a
-/// logic capture).
-pub const VERSION_MINOR: u32 = 2;
+/// logic capture); 1.3 the frame's `values` (what the register map reads
+/// in a mapped register's bytes).
+pub const VERSION_MINOR: u32 = 3;
 
 /// The logic capture a trace was decoded from, for `source = "capture"`.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]

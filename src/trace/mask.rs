@@ -263,6 +263,7 @@ mod tests {
             purpose: None,
             origin: None,
             decoded: decoded.map(str::to_string),
+            values: Vec::new(),
             pec: None,
         }
     }

@@ -311,17 +311,38 @@ fn frame_detail(f: &Frame) -> Vec<Line<'static>> {
 }
 
 /// The register and field meaning of a frame's bytes, as far as the frame
-/// carries it. Today a frame holds its register/field names as one text
-/// (`decoded`); a frame that carries decoded field values adds its lines
-/// here, one per field.
+/// carries it: the register (or SMBus command) name, which operation holds
+/// the register pointer and which its value, and one line per field (or
+/// one for a register that is one value) with its decoded value and raw
+/// number. Where the bytes split is only said where the frame's shape
+/// tells it: a write-then-read is pointer | value; a single write is the
+/// pointer, then the value (the pointer's width is not recorded).
 pub fn register_lines(f: &Frame) -> Vec<Line<'static>> {
-    match &f.decoded {
-        Some(d) => vec![Line::from(vec![
-            Span::raw("register "),
-            Span::styled(escape_controls(d).into_owned(), Style::new().fg(Color::Cyan)),
-        ])],
-        None => vec![Line::from("register: no map known")],
+    let Some(d) = &f.decoded else {
+        return vec![Line::from("register: no map known")];
+    };
+    let name = escape_controls(d).into_owned();
+    let mut v =
+        vec![Line::from(vec![Span::raw("register "), Span::styled(name.clone(), Style::new().fg(Color::Cyan))])];
+    if f.values.is_empty() {
+        return v;
     }
+    match f.ops.as_slice() {
+        [Operation::Write(p), Operation::Read(_) | Operation::ReadCounted { .. }] => {
+            v.push(Line::from(format!("  op 0 ({} byte(s)) points at {name} · op 1 is its value", p.len())));
+        }
+        [Operation::Write(_)] => v.push(Line::from(format!("  op 0 points at {name}, then writes its value"))),
+        _ => {}
+    }
+    let width = f.values.iter().map(|x| escape_controls(&x.name).chars().count()).max().unwrap_or(0);
+    for x in &f.values {
+        v.push(Line::from(vec![
+            Span::raw(format!("  {:<width$}  ", escape_controls(&x.name))),
+            Span::styled(escape_controls(&x.shown).into_owned(), Style::new().add_modifier(Modifier::BOLD)),
+            Span::styled(format!("  raw {} (0x{:X})", x.raw, x.raw), Style::new().fg(Color::DarkGray)),
+        ]));
+    }
+    v
 }
 
 /// The legend: keys and the symbols of the wire line.
@@ -349,4 +370,45 @@ fn draw_legend(s: &mut Screen, area: Rect) {
     s.render_widget(Clear, r);
     let lines: Vec<Line> = LEGEND.iter().map(|l| Line::from(*l)).collect();
     s.render_widget(Paragraph::new(lines).block(Block::bordered().title(" legend · any key closes ")), r);
+}
+
+#[cfg(test)]
+mod tests {
+    use std::time::Duration;
+
+    use super::*;
+    use crate::bus::{Address, OpOutcome, Outcome};
+    use crate::record::FieldValue;
+
+    fn text(l: &Line) -> String {
+        l.spans.iter().map(|s| s.content.as_ref()).collect()
+    }
+
+    #[test]
+    fn register_lines_name_the_pointer_the_value_and_each_field() {
+        let mut f = Frame::single(
+            1,
+            Duration::ZERO,
+            Address::Seven(0x40),
+            vec![Operation::Write(vec![0x01]), Operation::Read(1)],
+            Outcome {
+                ops: vec![OpOutcome { acks: vec![true], data: vec![] }, OpOutcome { acks: vec![], data: vec![0x15] }],
+                bus_time: Duration::ZERO,
+                measured: None,
+                fault: None,
+            },
+        );
+        f.decoded = Some("CONTROL".into());
+        f.values = vec![
+            FieldValue { name: "RATE".into(), raw: 1, shown: "4Hz".into() },
+            FieldValue { name: "EN\u{1b}[2J".into(), raw: 1, shown: "1".into() },
+        ];
+        let lines: Vec<String> = register_lines(&f).iter().map(text).collect();
+        assert_eq!(lines[0], "register CONTROL");
+        assert_eq!(lines[1], "  op 0 (1 byte(s)) points at CONTROL · op 1 is its value");
+        assert!(lines[2].starts_with("  RATE") && lines[2].contains("4Hz") && lines[2].ends_with("raw 1 (0x1)"));
+        assert!(!lines[3].contains('\u{1b}'), "a map's names stay text on screen: {:?}", lines[3]);
+        f.values.clear();
+        assert_eq!(register_lines(&f).len(), 1, "names only: the register line alone");
+    }
 }

@@ -97,7 +97,11 @@ impl Term {
         match (self, r) {
             (Term::Text(t), Record::Log { text, .. }) => text.to_lowercase().contains(t),
             (Term::Text(t), Record::Step { name, .. }) => name.to_lowercase().contains(t),
-            (Term::Text(t), Record::Frame(f)) => f.decoded.as_ref().is_some_and(|d| d.to_lowercase().contains(t)),
+            // A word finds register names and what the map read (`drdy`, `open`, `degc`).
+            (Term::Text(t), Record::Frame(f)) => {
+                f.decoded.as_ref().is_some_and(|d| d.to_lowercase().contains(t))
+                    || f.values.iter().any(|v| v.name.to_lowercase().contains(t) || v.shown.to_lowercase().contains(t))
+            }
             (_, Record::Frame(f)) => self.matches_frame(f),
             _ => false,
         }
@@ -181,5 +185,19 @@ mod tests {
         assert!(contains(&[1, 0x0A, 9, 0x3C], &[Some(0x0A), None, Some(0x3C)]));
         assert!(!contains(&[0x0A, 0x3C], &[Some(0x0A), None, Some(0x3C)]));
         assert!(!contains(&[0x0A, 9, 0x3D], &[Some(0x0A), None, Some(0x3C)]));
+    }
+
+    #[test]
+    fn a_word_finds_what_the_map_read() {
+        use crate::bus::{Address, Operation, Outcome};
+        use crate::record::FieldValue;
+        let outcome = Outcome { ops: vec![], bus_time: Default::default(), measured: None, fault: None };
+        let mut f = Frame::single(1, Default::default(), Address::Seven(0x2A), vec![Operation::Read(1)], outcome);
+        f.decoded = Some("OUTPUT".into());
+        f.values = vec![FieldValue { name: "VALVE1".into(), raw: 1, shown: "open".into() }];
+        let r = Record::Frame(f);
+        assert!(Filter::parse("Open").unwrap().matches(&r), "a decoded value, any case");
+        assert!(Filter::parse("valve1").unwrap().matches(&r), "a field name");
+        assert!(!Filter::parse("closed").unwrap().matches(&r));
     }
 }

@@ -384,7 +384,10 @@ pub fn frame_line(f: &Frame, layout: &Layout) -> String {
 pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout, files: &mut EscapeMemo) {
     let p = Palette::of(layout.colour);
     let start = s.len();
-    let mut codes = write_fields(s, f, p, usize::MAX);
+    // Decoded values make a line long: on a fitted line (a terminal) they
+    // are left to the view's detail pane; the whole form has them.
+    let values = layout.width.is_none();
+    let mut codes = write_fields(s, f, p, usize::MAX, values);
     if let Some(width) = layout.width
         && !layout.all_bytes
         && columns(s, start, codes) > width
@@ -400,7 +403,7 @@ pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout, files: &mut 
         let mut keep = longest.saturating_sub((excess + 10).div_ceil(3)).max(2);
         while keep < longest {
             s.truncate(start);
-            codes = write_fields(s, f, p, keep);
+            codes = write_fields(s, f, p, keep, values);
             if keep == 2 || columns(s, start, codes) <= width {
                 break;
             }
@@ -412,7 +415,7 @@ pub fn write_frame_line(s: &mut String, f: &Frame, layout: &Layout, files: &mut 
 
 /// Writes every field but the script line; returns the bytes of colour
 /// codes written.
-fn write_fields(s: &mut String, f: &Frame, p: &Palette, keep: usize) -> usize {
+fn write_fields(s: &mut String, f: &Frame, p: &Palette, keep: usize, values: bool) -> usize {
     let mut codes = code(s, p.dim);
     push_seconds(s, f.t);
     codes += code(s, p.reset);
@@ -475,6 +478,18 @@ fn write_fields(s: &mut String, f: &Frame, p: &Palette, keep: usize) -> usize {
     if let Some(d) = &f.decoded {
         s.push_str(" [");
         push_escaped(s, d);
+        if values {
+            // A register that is one value is not named twice.
+            let register = d.split_once('.').map_or(d.as_str(), |(r, _)| r);
+            for v in &f.values {
+                s.push(' ');
+                if v.name == register {
+                    push_escaped(s, &v.shown);
+                } else {
+                    v.push_to(s);
+                }
+            }
+        }
         s.push(']');
     }
     codes
@@ -652,6 +667,7 @@ mod tests {
             purpose: None,
             origin: Some(Origin { file: "e.lua".into(), line: 9 }),
             decoded: None,
+            values: Vec::new(),
             pec: None,
         }
     }
