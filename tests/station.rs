@@ -258,7 +258,7 @@ fn a_dry_run_report_lists_the_writes_and_a_report_that_cannot_be_written_fails_t
     assert_eq!(code(&o), 0, "{}", stderr(&o));
     let writes = json(&j)["fixtures"][0]["dry_run_writes"].clone();
     assert_eq!(writes.as_array().map(Vec::len), Some(8), "{writes}");
-    assert_eq!(writes[5], "#6 0x11 write 01 19 (attempt 2)");
+    assert_eq!(writes[5], "#6 0x11 write 01 19 (attempt 2)  POSITION");
     // A report into a folder that is not there: the run has no record, exit 6.
     let gone = dir.path().join("gone/r.json");
     let o = run_path(&root().join(LINE), &["--dry-run", "-q", "--report", &format!("json:{}", gone.display())]);
