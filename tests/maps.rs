@@ -299,6 +299,24 @@ fn the_trace_and_the_line_log_carry_the_values_and_diff_shows_them() {
     let out = run(&["diff", a.to_str().unwrap(), b.to_str().unwrap()]);
     let d = stdout(&out);
     assert!(d.contains("[FLAGS MODE=1 FAULT=1 DONE=1]") && d.contains("[FLAGS MODE=burst FAULT=1 DONE=1]"), "{d}");
+    // A replay keeps the recorded values where the board read the same
+    // bytes, and drops them where it read others (they would be wrong).
+    for (board, keeps) in [(&bench, true), (&other, false)] {
+        let out_trace = dir.path().join(format!("replayed-{keeps}.jsonl"));
+        let o = run(&[
+            "replay",
+            a.to_str().unwrap(),
+            "--adapter",
+            &format!("sim:{}", board.display()),
+            "--no-stop",
+            "--trace-out",
+            out_trace.to_str().unwrap(),
+        ]);
+        assert_eq!(code(&o), if keeps { 0 } else { 5 }, "{}", stderr(&o));
+        let text = std::fs::read_to_string(&out_trace).unwrap();
+        assert_eq!(text.contains(r#""values":[{"name":"MODE","raw":1"#), keeps, "{text}");
+        assert!(text.contains(r#""decoded":"FLAGS""#), "the names stay: {text}");
+    }
 }
 
 #[test]

@@ -4,7 +4,9 @@
 //! - Every recorded frame (each attempt, retries included) is put on the
 //!   bus once, in order, through [`Session::transact`] with a one-try
 //!   policy, so a write that failed in the recording is sent again as
-//!   recorded. Step records are passed on to the sinks; log lines are not
+//!   recorded (loosened by [`ReplayOptions::ignore`] and `skip_writes`,
+//!   docs/traces.md). A replayed frame carries the recorded register
+//!   values where it moved the same bytes as the recording. Step records are passed on to the sinks; log lines are not
 //!   (their text speaks of the recorded values).
 //! - Gaps between frames are kept on the adapter clock: frame n starts at
 //!   `start + (t_n - clock_0) × scale`, where `clock_0` is the header's
@@ -627,9 +629,17 @@ fn replay_from(
             allow_reserved: true,
         };
         let tx = Transaction::new(f.address, f.ops.clone());
+        // The recorded register values hold for the replayed frame where
+        // it moved the same bytes (a write, a read that matched); a read
+        // that differs keeps its names and loses values that no longer say
+        // what it read (the map that made them is not in the trace).
+        let explain = |o: &Outcome| {
+            let same = o.ops.len() == f.outcome.ops.len() && o.ops.iter().zip(&f.outcome.ops).all(|(a, b)| a == b);
+            if same { f.values.clone() } else { Vec::new() }
+        };
         let (stop, done, divs, masked) = loop {
             last.borrow_mut().take();
-            let result = session.transact(&tx, &req);
+            let result = session.transact_explained(&tx, &req, &|_| None, &explain);
             let stop = match result {
                 Ok(_) | Err(RunError::Bus { .. }) => None,
                 Err(e) => Some(e),
