@@ -25,6 +25,14 @@ use super::source::Source;
 /// records arrive.
 pub const REDRAW_GAP: Duration = Duration::from_millis(33);
 
+/// The least time between two redraws that only follow a growing run: ten
+/// a second. Records arriving by the thousand a second cannot be read as
+/// they pass anyway, and every redraw of a scrolled list rewrites most of
+/// the screen: drawing it less often leaves the host's time to the run
+/// (the view's thread shares the cores with it). A key's answer is drawn
+/// at once whatever the gap.
+pub const FOLLOW_GAP: Duration = Duration::from_millis(100);
+
 /// Whether the terminal is ours now (raw, alternate screen).
 static ACTIVE: AtomicBool = AtomicBool::new(false);
 static HOOKS: Once = Once::new();
@@ -127,7 +135,8 @@ pub fn run(src: &mut dyn Source, app: &mut App, opts: Options) -> io::Result<()>
         if wall_end.is_none() && !src.growing() {
             wall_end = Some(opened.elapsed());
         }
-        let due = last_draw.is_none_or(|t| t.elapsed() >= REDRAW_GAP);
+        let gap = if src.growing() { FOLLOW_GAP } else { REDRAW_GAP };
+        let due = last_draw.is_none_or(|t| t.elapsed() >= gap);
         if dirty && due {
             let wall = wall_end.unwrap_or_else(|| opened.elapsed());
             let cx = Context { wall: opts.wall.then_some(wall), script: opts.script.clone() };
