@@ -31,6 +31,7 @@ use crate::bus::Address;
 use crate::cli::{exit, out};
 use crate::script::console::Console;
 use crate::script::{self, Abort, RunConfig, Session};
+use crate::trace::to_script::lua_string;
 use crate::trace::{Header, TraceWriter};
 use crate::tui::live::LiveSource;
 use crate::tui::{App, term};
@@ -263,23 +264,6 @@ impl State {
         f.write_all(self.script().as_bytes())?;
         Ok(self.saved.len())
     }
-}
-
-/// A Lua string literal that holds `s` exactly.
-fn lua_string(s: &str) -> String {
-    let mut o = String::from("\"");
-    for b in s.bytes() {
-        match b {
-            b'"' | b'\\' => {
-                o.push('\\');
-                o.push(b as char)
-            }
-            0x20..=0x7E => o.push(b as char),
-            _ => o.push_str(&format!("\\{b:03}")),
-        }
-    }
-    o.push('"');
-    o
 }
 
 /// Completion of API, method, register and field names.

@@ -73,7 +73,9 @@ fn lua_bytes(b: &[u8]) -> String {
     format!("{{ {} }}", items.join(", "))
 }
 
-fn lua_string(s: &str) -> String {
+/// A Lua string literal that reads back as exactly `s` (tested for every
+/// character up to U+00FF below); the one writer of Lua literals.
+pub fn lua_string(s: &str) -> String {
     let mut out = String::with_capacity(s.len() + 2);
     out.push('"');
     for c in s.chars() {
