@@ -167,27 +167,40 @@ pub(super) fn view_label(session: &Session) -> String {
     format!("{} {} @ {}", snap.identity.driver, snap.identity.target, snap.speed)
 }
 
-/// The full-screen view of a run, on its own thread, fed by a sink the
-/// session writes to. Quitting it stops the run as Ctrl-C does.
+/// The full-screen view of a run, on its own thread, reading the run's
+/// trace as it is written (`trace`), or without one fed by a sink the
+/// session writes to (`tui::live`). Quitting it stops the run as Ctrl-C
+/// does.
 fn open_view(
     session: &mut Session,
     name: &str,
+    trace: Option<&Path>,
     interrupt: std::sync::Arc<std::sync::atomic::AtomicBool>,
-) -> (LiveFinisher, std::thread::JoinHandle<std::io::Result<()>>) {
-    let (sink, mut source) = live::feed(view_label(session));
-    let done = sink.finisher();
-    session.add_sink(Box::new(sink));
+) -> Result<(LiveFinisher, std::thread::JoinHandle<std::io::Result<()>>)> {
+    let label = view_label(session);
+    let (mut source, done): (Box<dyn crate::tui::source::Source + Send>, LiveFinisher) = match trace {
+        Some(path) => {
+            let (source, done) = live::follow_trace(path, label)?;
+            (Box::new(source), done)
+        }
+        None => {
+            let (sink, source) = live::feed(label);
+            let done = sink.finisher();
+            session.add_sink(Box::new(sink));
+            (Box::new(source), done)
+        }
+    };
     let script: std::sync::Arc<str> = name.into();
     let view = std::thread::spawn(move || {
         let mut app = App::new(true);
         let stop = move || interrupt.store(true, std::sync::atomic::Ordering::SeqCst);
         term::run(
-            &mut source,
+            source.as_mut(),
             &mut app,
             term::Options { stop_run: Some(Box::new(stop)), script: Some(script), wall: true },
         )
     });
-    (done, view)
+    Ok((done, view))
 }
 
 pub fn run(a: RunArgs) -> Result<u8> {
@@ -255,7 +268,7 @@ pub fn run(a: RunArgs) -> Result<u8> {
     if a.json {
         session.add_sink(Box::new(JsonLines::new(out::stdout())));
     } else if !a.plain && !a.quiet && std::io::stdout().is_terminal() {
-        live = Some(open_view(&mut session, &name, interrupt.clone()));
+        live = Some(open_view(&mut session, &name, trace_path.as_deref(), interrupt.clone())?);
     } else {
         let log = out::frame_log();
         log_flush = Some(log.flusher());

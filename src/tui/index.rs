@@ -106,6 +106,9 @@ impl TraceIndex {
                 self.end = Some(i);
             }
             self.counts.add(fl);
+            if fl.has(Flags::FRAME) {
+                self.counts.bus_ns += line_bus_ns(&self.line).unwrap_or(0);
+            }
             self.offsets.push(offset);
             self.flags.push(fl);
         }
@@ -153,6 +156,17 @@ pub fn line_flags(line: &[u8]) -> Flags {
         }
     }
     serde_json::from_slice::<Record>(line).map(|r| Flags::of(&r)).unwrap_or_default()
+}
+
+/// A frame line's modelled bus time, read off the line without parsing
+/// it: the digits after the outcome's `"bus_ns":` key (the record writer
+/// puts the outcome's fields before the attempt numbers, and no string
+/// value holds the key unescaped). `None` when it is not there.
+pub fn line_bus_ns(line: &[u8]) -> Option<u64> {
+    const KEY: &[u8] = br#""bus_ns":"#;
+    let at = find(line, KEY)? + KEY.len();
+    let digits = line[at..].iter().take_while(|b| b.is_ascii_digit()).count();
+    std::str::from_utf8(&line[at..at + digits]).ok()?.parse().ok()
 }
 
 fn find(hay: &[u8], needle: &[u8]) -> Option<usize> {

@@ -1,16 +1,31 @@
-//! The live view's feed: a [`Sink`] the run writes records into and a
-//! [`Source`] the view reads them from, sharing one bounded buffer. The
-//! run's side takes the lock once per record and copies the record in,
-//! nothing more; the view takes what arrived when it redraws. The oldest
-//! records leave the buffer past [`LIVE_KEEP`] (the trace keeps them all).
+//! The live view's feeds.
+//!
+//! - A run that writes a trace is shown from that file ([`follow_trace`]):
+//!   the view's thread indexes the lines as the trace writer appends them
+//!   (each line is in the file once the writer returns), so the run pays
+//!   nothing for the view on its own thread.
+//! - A run without a trace (`--no-trace`, the console) gets [`feed`]: a
+//!   [`Sink`] the run writes records into and a [`Source`] the view reads
+//!   them from, sharing one bounded buffer. The run's side takes the lock
+//!   once per record and copies the record in, nothing more; the view
+//!   takes what arrived when it redraws. The oldest records leave the
+//!   buffer past [`LIVE_KEEP`].
+//!
+//! Either way the run's side says when the run is over
+//! ([`LiveFinisher::finish`]), end record or not: the view then stops
+//! following.
 
 use std::borrow::Cow;
 use std::collections::VecDeque;
+use std::path::Path;
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex, MutexGuard};
 
 use crate::record::{Record, Sink};
 
+use super::index::TraceIndex;
 use super::source::{Counts, Ending, Flags, Source};
+use crate::trace::TraceError;
 
 /// Records the live view keeps: at a few hundred bytes each, well under
 /// 100 MB however long the run.
@@ -71,16 +86,85 @@ impl LiveSink {
 
     /// A handle that can mark the run over after the sink went to the session.
     pub fn finisher(&self) -> LiveFinisher {
-        LiveFinisher(self.shared.clone())
+        LiveFinisher(Finish::Feed(self.shared.clone()))
     }
 }
 
-/// Marks the run over; see [`LiveSink::finisher`].
-pub struct LiveFinisher(Arc<Mutex<Shared>>);
+/// Marks the run over; see [`LiveSink::finisher`] and [`follow_trace`].
+pub struct LiveFinisher(Finish);
+
+enum Finish {
+    Feed(Arc<Mutex<Shared>>),
+    Trace(Arc<AtomicBool>),
+}
 
 impl LiveFinisher {
     pub fn finish(&self) {
-        lock(&self.0).done = true;
+        match &self.0 {
+            Finish::Feed(s) => lock(s).done = true,
+            Finish::Trace(done) => done.store(true, Ordering::SeqCst),
+        }
+    }
+}
+
+/// A run's trace file as the live view's source (see the module doc);
+/// `adapter` is the status line's adapter text.
+pub fn follow_trace(path: &Path, adapter: String) -> Result<(FollowedTrace, LiveFinisher), TraceError> {
+    let done = Arc::new(AtomicBool::new(false));
+    let index = TraceIndex::open(path, true)?;
+    Ok((FollowedTrace { index, adapter, done: done.clone(), drained: false }, LiveFinisher(Finish::Trace(done))))
+}
+
+/// The view's end of [`follow_trace`].
+pub struct FollowedTrace {
+    index: TraceIndex,
+    adapter: String,
+    done: Arc<AtomicBool>,
+    /// The run was over at a refresh: nothing more will come.
+    drained: bool,
+}
+
+impl Source for FollowedTrace {
+    fn len(&self) -> usize {
+        self.index.len()
+    }
+
+    fn record(&mut self, i: usize) -> Option<Cow<'_, Record>> {
+        self.index.record(i)
+    }
+
+    fn flags(&self, i: usize) -> Flags {
+        self.index.flags(i)
+    }
+
+    fn refresh(&mut self) -> bool {
+        // Read the flag first: whatever the run wrote before it said so is
+        // in the file by then, so this pass takes the last of it.
+        let over = self.done.load(Ordering::SeqCst);
+        let grew = self.index.refresh();
+        let newly_over = over && !self.drained;
+        self.drained |= over;
+        grew || newly_over
+    }
+
+    fn counts(&self) -> Counts {
+        self.index.counts()
+    }
+
+    fn adapter(&self) -> String {
+        self.adapter.clone()
+    }
+
+    fn current_step(&self) -> Option<String> {
+        self.index.current_step()
+    }
+
+    fn ending(&self) -> Option<Ending> {
+        self.index.ending()
+    }
+
+    fn growing(&self) -> bool {
+        self.index.growing() && !self.drained
     }
 }
 
@@ -157,5 +241,55 @@ impl Source for LiveSource {
 
     fn growing(&self) -> bool {
         !self.done
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::adapter::Adapter as _;
+    use crate::bus::{Address, OpOutcome, Operation, Outcome};
+    use crate::record::{Frame, Sink};
+    use crate::trace::{Header, TraceWriter};
+    use std::time::Duration;
+
+    fn frame(seq: u64) -> Record {
+        let outcome = Outcome {
+            ops: vec![OpOutcome { acks: vec![true], data: vec![] }],
+            bus_time: Duration::from_micros(90),
+            measured: None,
+            fault: None,
+        };
+        Record::Frame(Frame::single(
+            seq,
+            Duration::ZERO,
+            Address::Seven(0x2B),
+            vec![Operation::Write(vec![1])],
+            outcome,
+        ))
+    }
+
+    // The view follows the run's trace as it is written, counts its bus
+    // time off the lines, and stops following once the run says it is
+    // over, whether or not an end record came (a trace that could not be
+    // finished must not keep the view waiting).
+    #[test]
+    fn a_followed_trace_grows_with_the_file_and_stops_when_the_run_is_over() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("t.jsonl");
+        let header = Header::new("run", crate::sim::SimAdapter::demo().snapshot());
+        let mut w = TraceWriter::create(&path, &header).unwrap();
+        let (mut src, done) = follow_trace(&path, "sim".into()).unwrap();
+        assert_eq!(src.len(), 0);
+        w.record(&frame(1)).unwrap();
+        w.record(&frame(2)).unwrap();
+        assert!(src.refresh(), "two lines appended");
+        assert_eq!((src.len(), src.counts().frames, src.counts().bus_ns), (2, 2, 180_000));
+        assert!(src.growing());
+        assert!(!src.refresh(), "nothing new");
+        done.finish();
+        assert!(src.refresh(), "the end of the run is news");
+        assert!(!src.growing(), "no end record, and still over");
+        assert!(matches!(src.record(1).as_deref(), Some(Record::Frame(f)) if f.seq == 2));
     }
 }
