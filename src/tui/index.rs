@@ -25,12 +25,16 @@ pub struct TraceIndex {
     input: BufReader<File>,
     offsets: Vec<u64>,
     flags: Vec<Flags>,
+    /// The position of the first record still indexed (see [`TraceIndex::keeping`]).
+    base: usize,
+    keep: Option<usize>,
     /// Where the next unindexed line starts.
     scanned: u64,
     line: Vec<u8>,
     counts: Counts,
-    last_step: Option<usize>,
-    end: Option<usize>,
+    /// Byte offsets of the last step record and of the end record.
+    last_step: Option<u64>,
+    end: Option<u64>,
     follow: bool,
     cache: Vec<(usize, Record)>,
 }
@@ -53,6 +57,8 @@ impl TraceIndex {
             input,
             offsets: Vec::new(),
             flags: Vec::new(),
+            base: 0,
+            keep: None,
             scanned: first.len() as u64,
             line: Vec::with_capacity(512),
             counts: Counts::default(),
@@ -73,9 +79,30 @@ impl TraceIndex {
         &self.path
     }
 
+    /// Keeps only about the newest `n` records indexed (between `n` and
+    /// `2n`): a run followed for days must not grow the index without
+    /// bound. Older records stay in the file; their positions read as
+    /// gone (`None`), as a live feed's dropped records do.
+    pub fn keeping(mut self, n: usize) -> TraceIndex {
+        self.keep = Some(n.max(1));
+        self.trim();
+        self
+    }
+
+    fn trim(&mut self) {
+        if let Some(k) = self.keep
+            && self.offsets.len() >= 2 * k
+        {
+            let drop = self.offsets.len() - k;
+            self.offsets.drain(..drop);
+            self.flags.drain(..drop);
+            self.base += drop;
+        }
+    }
+
     /// The byte offset of record `i`'s line.
     pub fn offset(&self, i: usize) -> Option<u64> {
-        self.offsets.get(i).copied()
+        self.offsets.get(i.checked_sub(self.base)?).copied()
     }
 
     /// Indexes the lines written since the last pass.
@@ -98,12 +125,11 @@ impl TraceIndex {
                 continue;
             }
             let fl = line_flags(&self.line);
-            let i = self.offsets.len();
             if fl.has(Flags::STEP) {
-                self.last_step = Some(i);
+                self.last_step = Some(offset);
             }
             if fl.has(Flags::END) {
-                self.end = Some(i);
+                self.end = Some(offset);
             }
             self.counts.add(fl);
             if fl.has(Flags::FRAME) {
@@ -112,11 +138,13 @@ impl TraceIndex {
             self.offsets.push(offset);
             self.flags.push(fl);
         }
-        Ok(self.offsets.len() > before)
+        let grew = self.offsets.len() > before;
+        self.trim();
+        Ok(grew)
     }
 
     fn parse(&mut self, i: usize) -> Option<Record> {
-        let off = *self.offsets.get(i)?;
+        let off = self.offset(i)?;
         self.input.seek(SeekFrom::Start(off)).ok()?;
         self.line.clear();
         self.input.read_until(b'\n', &mut self.line).ok()?;
@@ -175,7 +203,7 @@ fn find(hay: &[u8], needle: &[u8]) -> Option<usize> {
 
 impl Source for TraceIndex {
     fn len(&self) -> usize {
-        self.offsets.len()
+        self.base + self.offsets.len()
     }
 
     fn record(&mut self, i: usize) -> Option<Cow<'_, Record>> {
@@ -191,7 +219,7 @@ impl Source for TraceIndex {
     }
 
     fn flags(&self, i: usize) -> Flags {
-        self.flags.get(i).copied().unwrap_or_default()
+        i.checked_sub(self.base).and_then(|j| self.flags.get(j)).copied().unwrap_or_default()
     }
 
     fn refresh(&mut self) -> bool {
@@ -208,10 +236,10 @@ impl Source for TraceIndex {
     }
 
     fn current_step(&self) -> Option<String> {
-        let i = self.last_step?;
+        let at = self.last_step?;
         // Not through the cache: `&self`. One small line.
         let mut f = File::open(&self.path).ok()?;
-        f.seek(SeekFrom::Start(self.offsets[i])).ok()?;
+        f.seek(SeekFrom::Start(at)).ok()?;
         let mut line = Vec::new();
         BufReader::new(f).read_until(b'\n', &mut line).ok()?;
         match serde_json::from_slice(&line).ok()? {
@@ -221,9 +249,9 @@ impl Source for TraceIndex {
     }
 
     fn ending(&self) -> Option<Ending> {
-        let i = self.end?;
+        let at = self.end?;
         let mut f = File::open(&self.path).ok()?;
-        f.seek(SeekFrom::Start(self.offsets[i])).ok()?;
+        f.seek(SeekFrom::Start(at)).ok()?;
         let mut line = Vec::new();
         BufReader::new(f).read_until(b'\n', &mut line).ok()?;
         match serde_json::from_slice(&line).ok()? {

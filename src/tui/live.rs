@@ -3,7 +3,8 @@
 //! - A run that writes a trace is shown from that file ([`follow_trace`]):
 //!   the view's thread indexes the lines as the trace writer appends them
 //!   (each line is in the file once the writer returns), so the run pays
-//!   nothing for the view on its own thread.
+//!   nothing for the view on its own thread. The index keeps about the
+//!   newest [`LIVE_KEEP`] records (9 bytes each), as the buffer does.
 //! - A run without a trace (`--no-trace`, the console) gets [`feed`]: a
 //!   [`Sink`] the run writes records into and a [`Source`] the view reads
 //!   them from, sharing one bounded buffer. The run's side takes the lock
@@ -111,7 +112,7 @@ impl LiveFinisher {
 /// `adapter` is the status line's adapter text.
 pub fn follow_trace(path: &Path, adapter: String) -> Result<(FollowedTrace, LiveFinisher), TraceError> {
     let done = Arc::new(AtomicBool::new(false));
-    let index = TraceIndex::open(path, true)?;
+    let index = TraceIndex::open(path, true)?.keeping(LIVE_KEEP);
     Ok((FollowedTrace { index, adapter, done: done.clone(), drained: false }, LiveFinisher(Finish::Trace(done))))
 }
 
@@ -291,5 +292,28 @@ mod tests {
         assert!(src.refresh(), "the end of the run is news");
         assert!(!src.growing(), "no end record, and still over");
         assert!(matches!(src.record(1).as_deref(), Some(Record::Frame(f)) if f.seq == 2));
+    }
+
+    // A followed run keeps only about the newest records indexed: the
+    // index of a run followed for days stays bounded; positions stay
+    // absolute, the oldest read as gone, the counts cover every record.
+    #[test]
+    fn a_followed_index_keeps_the_newest_records() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("t.jsonl");
+        let header = Header::new("run", crate::sim::SimAdapter::demo().snapshot());
+        let mut w = TraceWriter::create(&path, &header).unwrap();
+        let mut ix = TraceIndex::open(&path, true).unwrap().keeping(3);
+        for seq in 1..=7 {
+            w.record(&frame(seq)).unwrap();
+        }
+        assert!(ix.refresh());
+        assert_eq!(ix.len(), 7);
+        assert_eq!(ix.counts().frames, 7);
+        assert!(ix.record(0).is_none(), "the oldest are dropped");
+        assert!(matches!(ix.record(6).as_deref(), Some(Record::Frame(f)) if f.seq == 7));
+        assert!(matches!(ix.record(4).as_deref(), Some(Record::Frame(f)) if f.seq == 5));
+        assert_eq!(ix.flags(6), Flags(Flags::FRAME));
+        assert_eq!(ix.flags(0), Flags::default());
     }
 }
