@@ -22,9 +22,7 @@ use std::time::Duration;
 
 use crate::bus::address::TEN_BIT_PREFIX;
 use crate::bus::timing::EventTimes;
-use crate::bus::{
-    Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, PhaseTracker, Transaction,
-};
+use crate::bus::{Address, BusSpeed, Direction, Event, Fault, LineFault, Outcome, PhaseTracker, Transaction};
 
 use super::clock::Clock;
 use super::device::{Answer, Device};
@@ -116,17 +114,25 @@ impl SimBus {
     /// the [`Wire`] steps, so whole-transaction and primitive-level callers
     /// see the same devices, faults and bus time.
     pub fn execute(&mut self, tx: &Transaction) -> Outcome {
+        let mut out = Outcome::default();
+        self.execute_into(tx, &mut out);
+        out
+    }
+
+    /// [`SimBus::execute`] into `out`, reusing its buffers (see
+    /// [`Adapter::execute_into`](crate::adapter::Adapter::execute_into)).
+    pub fn execute_into(&mut self, tx: &Transaction, out: &mut Outcome) {
         let mut w = Wire::default();
+        out.reset(tx.ops.len());
+        let mut ops = std::mem::take(&mut out.ops);
         // Sized for what each operation moves, so recording a byte never
-        // has to grow a vector.
-        let mut ops: Vec<OpOutcome> = tx
-            .ops
-            .iter()
-            .map(|o| match o.direction() {
-                Direction::Write => OpOutcome { acks: Vec::with_capacity(o.len()), data: Vec::new() },
-                Direction::Read => OpOutcome { acks: Vec::new(), data: Vec::with_capacity(o.len()) },
-            })
-            .collect();
+        // has to grow a vector (a recycled outcome usually has the room).
+        for (o, r) in tx.ops.iter().zip(ops.iter_mut()) {
+            match o.direction() {
+                Direction::Write => r.acks.reserve(o.len()),
+                Direction::Read => r.data.reserve(o.len()),
+            }
+        }
         let mut last_op = 0usize;
         let mut phase = PhaseTracker::default();
         let mut fault = self.wire_start(&mut w).err();
@@ -198,7 +204,7 @@ impl SimBus {
         if let Some(detail) = target.and_then(|i| self.slots[i].device.take_failure()) {
             fault = Some(Fault::Adapter { detail });
         }
-        Outcome { ops, bus_time, measured: None, fault }
+        *out = Outcome { ops, bus_time, measured: None, fault };
     }
 
     /// START. Fails when a device holds SDA low (the controller cannot
