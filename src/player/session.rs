@@ -651,6 +651,28 @@ mod tests {
         assert_eq!(s.stats.attempts, before, "a bad transaction keeps the whole batch off the bus");
     }
 
+    // A handed-back outcome is what the next transaction is written into:
+    // same buffers, new contents (the demo EEPROM at 0x50, 16-bit word
+    // address, reads back what was written to it).
+    #[test]
+    fn recycled_outcomes_carry_the_next_transaction() {
+        let mut s = session();
+        let eeprom = Address::Seven(0x50);
+        let write = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x40, 0xA1, 0xB2])]);
+        s.transact(&write, &Request::default()).unwrap();
+        s.delay(Duration::from_millis(6)).unwrap(); // its 5 ms write cycle (demo bench)
+        let read = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x40]), Operation::Read(2)]);
+        let first = s.transact(&read, &Request::default()).unwrap();
+        assert_eq!(first.read_bytes(), [0xA1, 0xB2]);
+        let buffers = first.ops.as_ptr();
+        s.recycle(first);
+        let again = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x41]), Operation::Read(2)]);
+        let second = s.transact(&again, &Request::default()).unwrap();
+        assert_eq!(second.ops.as_ptr(), buffers, "the recycled outcome's buffers are reused");
+        assert_eq!(second.read_bytes()[0], 0xB2, "the second read starts one byte further on");
+        assert_eq!(second.ops[0].acks, [true, true]);
+    }
+
     #[test]
     fn reserved_addresses_are_refused() {
         let mut s = session();
