@@ -60,6 +60,10 @@ pub struct SimBus {
     /// The event list of the transaction in progress, kept between
     /// transactions so `execute` does not allocate one each time.
     events: Vec<Event>,
+    /// The event times at the speed they were worked out for: the same
+    /// for every transaction until the speed changes, and working them out
+    /// takes divisions.
+    times: Option<(BusSpeed, EventTimes)>,
 }
 
 impl SimBus {
@@ -70,7 +74,7 @@ impl SimBus {
         stretch_timeout: Duration,
         arbitration: Option<(f64, SplitMix64)>,
     ) -> Self {
-        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None, events: Vec::new() }
+        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None, events: Vec::new(), times: None }
     }
 
     pub fn slots(&self) -> &[Slot] {
@@ -84,6 +88,18 @@ impl SimBus {
 
     fn find(&self, address: Address) -> Option<usize> {
         self.slots.iter().position(|s| s.device.address() == address)
+    }
+
+    /// The event times at the current speed.
+    fn times(&mut self) -> EventTimes {
+        match self.times {
+            Some((speed, times)) if speed == self.speed => times,
+            _ => {
+                let times = EventTimes::new(self.speed);
+                self.times = Some((self.speed, times));
+                times
+            }
+        }
     }
 
     pub fn sda_held(&self) -> bool {
@@ -210,7 +226,7 @@ impl SimBus {
     /// START. Fails when a device holds SDA low (the controller cannot
     /// make a START).
     pub fn wire_start(&mut self, w: &mut Wire) -> Result<(), Fault> {
-        *w = Wire { start: self.clock.now(), times: EventTimes::new(self.speed), ..Wire::default() };
+        *w = Wire { start: self.clock.now(), times: self.times(), ..Wire::default() };
         w.step(&Event::Start);
         if self.sda_held_by.is_some() {
             return Err(Fault::Bus { line: LineFault::SdaStuckLow });
@@ -425,5 +441,22 @@ mod tests {
             assert_eq!(buffers(&out), first);
             assert_eq!((out.ops[0].acks.len(), out.ops[1].data.len()), (2, 4));
         }
+    }
+
+    // The event times are kept between transactions; a speed change must
+    // still reach the next one: a bus switched to 400 kHz after a
+    // transaction times the next as one that ran at 400 kHz from the start.
+    #[test]
+    fn kept_event_times_follow_a_speed_change() {
+        let fast = "400k".parse().unwrap();
+        let tx = Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![0x00, 0x00]), Operation::Read(2)]);
+        let mut switched = SimAdapter::demo();
+        let before = switched.execute(&tx).bus_time;
+        switched.set_speed(fast).unwrap();
+        let after = switched.execute(&tx).bus_time;
+        let mut from_start = SimAdapter::demo();
+        from_start.set_speed(fast).unwrap();
+        assert_eq!(after, from_start.execute(&tx).bus_time);
+        assert_ne!(after, before, "the demo bench runs at 100 kHz");
     }
 }

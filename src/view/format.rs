@@ -256,7 +256,11 @@ fn pad_from(out: &mut String, start: usize, width: usize) {
 
 /// Appends a colour code and returns its length (codes take no columns).
 fn code(out: &mut String, c: &str) -> usize {
-    out.push_str(c);
+    // Without colour every code is empty: skipped rather than copied (a
+    // copy of unknown length is a `memcpy` call, four per frame line).
+    if !c.is_empty() {
+        out.push_str(c);
+    }
     c.len()
 }
 
