@@ -9,6 +9,8 @@
 //!   after which the bus state is unknown and callers stop.
 //! - A transaction is validated by the caller against
 //!   [`Capabilities::max_bytes_per_op`] before it is passed in.
+//! - [`Adapter::execute_into`] is `execute` into a recycled outcome, for
+//!   drivers that can reuse its buffers; the result is the same.
 //! - [`Adapter::execute_batch`] runs independent transactions in order; a
 //!   driver may pipeline them, but the outcomes come back in order and a
 //!   NACK in one does not stop the others.
@@ -159,6 +161,14 @@ pub trait Adapter {
     /// Sets the SCL frequency; returns the frequency actually used.
     fn set_speed(&mut self, speed: BusSpeed) -> Result<BusSpeed, AdapterError>;
     fn execute(&mut self, tx: &Transaction) -> Outcome;
+    /// [`Adapter::execute`] into `out`, which may hold an earlier outcome:
+    /// afterwards `out` is exactly what `execute` would have returned, and
+    /// a driver may reuse its buffers (the session hands back the outcomes
+    /// it is done with, so the default path allocates none). The default
+    /// calls `execute`.
+    fn execute_into(&mut self, tx: &Transaction, out: &mut Outcome) {
+        *out = self.execute(tx);
+    }
     fn execute_batch(&mut self, txs: &[Transaction]) -> Vec<Outcome> {
         txs.iter().map(|t| self.execute(t)).collect()
     }

@@ -154,8 +154,10 @@ impl FaultClass {
     }
 }
 
-/// The result of one transaction.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+/// The result of one transaction. The default is an empty outcome (no
+/// operations, no time, no fault): a buffer for
+/// [`Adapter::execute_into`](crate::adapter::Adapter::execute_into) to fill.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Outcome {
     pub ops: Vec<OpOutcome>,
     /// Modelled time on the wire, clock stretching included.
@@ -181,6 +183,22 @@ impl Outcome {
             measured: None,
             fault: Some(Fault::Adapter { detail: detail.into() }),
         }
+    }
+
+    /// Empties the outcome for `n` operations, keeping the buffers it has:
+    /// `n` operation outcomes with no ACKs and no data, no time, no fault.
+    /// An adapter filling a recycled outcome starts here, so a run of
+    /// transactions of one shape allocates nothing for its outcomes.
+    pub fn reset(&mut self, n: usize) {
+        self.ops.truncate(n);
+        for o in &mut self.ops {
+            o.acks.clear();
+            o.data.clear();
+        }
+        self.ops.resize_with(n, OpOutcome::default);
+        self.bus_time = Duration::ZERO;
+        self.measured = None;
+        self.fault = None;
     }
 
     /// All bytes read, in order, across the read operations.

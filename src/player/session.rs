@@ -92,6 +92,9 @@ pub struct Session {
     /// next frame copies its transaction's operations into these buffers
     /// instead of allocating new ones.
     frame_ops: Vec<Operation>,
+    /// An outcome the caller is done with ([`Session::recycle`]): the next
+    /// attempt has the adapter fill it, reusing its buffers.
+    spare: Outcome,
 }
 
 /// Works out the PEC mark of an attempt's outcome for its frame.
@@ -125,6 +128,7 @@ impl Session {
             record_failure: None,
             warnings: Vec::new(),
             frame_ops: Vec::new(),
+            spare: Outcome::default(),
         }
     }
 
@@ -240,6 +244,14 @@ impl Session {
         Ok(())
     }
 
+    /// Hands back an outcome the caller has read: the next transaction's
+    /// outcome is written into its buffers instead of new ones
+    /// ([`Adapter::execute_into`]). Optional; an outcome not handed back
+    /// only costs the next one its allocations.
+    pub fn recycle(&mut self, outcome: Outcome) {
+        self.spare = outcome;
+    }
+
     /// Puts a transaction on the bus with retries; see the module contract.
     pub fn transact(&mut self, tx: &Transaction, req: &Request) -> Result<Outcome, RunError> {
         self.transact_marked(tx, req, &|_| None)
@@ -294,12 +306,14 @@ impl Session {
         loop {
             self.check_stop()?;
             let t = self.adapter.now();
-            let outcome = self.adapter.execute(tx);
+            let mut outcome = std::mem::take(&mut self.spare);
+            self.adapter.execute_into(tx, &mut outcome);
             let marks = (pec(&outcome), explain(&outcome));
             let outcome = self.record(tx, req, (attempt, policy.attempts), t, outcome, marks);
             match self.verdict(tx, outcome, attempt, policy) {
                 Verdict::Done(o) => return Ok(o),
-                Verdict::Retry => {
+                Verdict::Retry(o) => {
+                    self.spare = o;
                     attempt += 1;
                     self.delay(policy.delay_before(attempt))?;
                 }
@@ -347,7 +361,7 @@ impl Session {
         match &outcome.fault {
             None => Verdict::Done(outcome),
             Some(Fault::Adapter { detail }) => Verdict::Fail(RunError::Adapter(AdapterError::Failed(detail.clone()))),
-            Some(f) if f.is_nack() && attempt < policy.attempts => Verdict::Retry,
+            Some(f) if f.is_nack() && attempt < policy.attempts => Verdict::Retry(outcome),
             Some(f) => Verdict::Fail(RunError::Bus {
                 address: tx.address,
                 fault: f.clone(),
@@ -389,7 +403,8 @@ impl Session {
             let policy = req.retry.unwrap_or(self.default_retry);
             match self.verdict(tx, o, 1, policy) {
                 Verdict::Done(o) => done.push(o),
-                Verdict::Retry => {
+                Verdict::Retry(o) => {
+                    self.spare = o;
                     self.delay(policy.delay_before(2))?;
                     done.push(self.attempts_from(tx, req, policy, 2, (&|_| None, &|_| Vec::new()))?);
                 }
@@ -516,7 +531,8 @@ fn link_report(c: &crate::adapter::LinkCounters) -> crate::record::LinkReport {
 /// What to do after an attempt.
 enum Verdict {
     Done(Outcome),
-    Retry,
+    /// Try again; the failed outcome, for its buffers.
+    Retry(Outcome),
     Fail(RunError),
 }
 
@@ -633,6 +649,28 @@ mod tests {
         let before = s.stats.attempts;
         assert!(matches!(s.transact_batch(&bad), Err(RunError::Shape(ShapeError::EmptyRead { .. }))));
         assert_eq!(s.stats.attempts, before, "a bad transaction keeps the whole batch off the bus");
+    }
+
+    // A handed-back outcome is what the next transaction is written into:
+    // same buffers, new contents (the demo EEPROM at 0x50, 16-bit word
+    // address, reads back what was written to it).
+    #[test]
+    fn recycled_outcomes_carry_the_next_transaction() {
+        let mut s = session();
+        let eeprom = Address::Seven(0x50);
+        let write = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x40, 0xA1, 0xB2])]);
+        s.transact(&write, &Request::default()).unwrap();
+        s.delay(Duration::from_millis(6)).unwrap(); // its 5 ms write cycle (demo bench)
+        let read = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x40]), Operation::Read(2)]);
+        let first = s.transact(&read, &Request::default()).unwrap();
+        assert_eq!(first.read_bytes(), [0xA1, 0xB2]);
+        let buffers = first.ops.as_ptr();
+        s.recycle(first);
+        let again = Transaction::new(eeprom, vec![Operation::Write(vec![0x00, 0x41]), Operation::Read(2)]);
+        let second = s.transact(&again, &Request::default()).unwrap();
+        assert_eq!(second.ops.as_ptr(), buffers, "the recycled outcome's buffers are reused");
+        assert_eq!(second.read_bytes()[0], 0xB2, "the second read starts one byte further on");
+        assert_eq!(second.ops[0].acks, [true, true]);
     }
 
     #[test]

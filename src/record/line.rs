@@ -13,8 +13,10 @@
 //! `frame_lines_are_the_bytes_serde_writes` (tests/traces.rs) checks whole
 //! frames against serde_json byte for byte.
 
+use std::cell::RefCell;
+
 use crate::ascii::EscapeMemo;
-use crate::bus::{OpOutcome, Operation};
+use crate::bus::{Address, OpOutcome, Operation};
 
 use super::{Frame, Origin, Record};
 
@@ -35,6 +37,27 @@ pub fn write_line_with(record: &Record, out: &mut Vec<u8>, files: &mut EscapeMem
     out.push(b'\n');
 }
 
+/// Hands `address`'s display text ([`Address::text`]) to `use_it`, from a
+/// one-entry memo per thread: a run's frames name the same target one
+/// after another, and spelling it out and checking it as text cost more
+/// than the rest of the address's share of a frame line and record
+/// together. A different address replaces the memo (no allocation once
+/// the memo's string has room for the longest spelling).
+pub fn with_address_text<R>(address: Address, use_it: impl FnOnce(&str) -> R) -> R {
+    thread_local! {
+        static LAST: RefCell<(Option<Address>, String)> = const { RefCell::new((None, String::new())) };
+    }
+    LAST.with(|memo| {
+        let mut memo = memo.borrow_mut();
+        if memo.0 != Some(address) {
+            memo.1.clear();
+            memo.1.push_str(address.text().as_str());
+            memo.0 = Some(address);
+        }
+        use_it(&memo.1)
+    })
+}
+
 fn serde_with<T: serde::Serialize + ?Sized>(value: &T, out: &mut Vec<u8>) {
     let _ = serde_json::to_writer(out, value);
 }
@@ -45,7 +68,7 @@ fn frame(f: &Frame, out: &mut Vec<u8>, files: &mut EscapeMemo) {
     out.extend_from_slice(b",\"t_ns\":");
     number(f.t.as_nanos() as u64, out);
     out.extend_from_slice(b",\"address\":\"");
-    out.extend_from_slice(f.address.text().as_str().as_bytes());
+    with_address_text(f.address, |a| out.extend_from_slice(a.as_bytes()));
     out.extend_from_slice(b"\",\"ops\":[");
     for (i, op) in f.ops.iter().enumerate() {
         if i > 0 {
@@ -277,6 +300,25 @@ mod tests {
             let mut v = Vec::new();
             write_line(r, &mut v);
             assert_eq!(v, serde_line(r));
+        }
+    }
+
+    // The memo answers for the address asked about, never the one before:
+    // alternating targets, 7- and 10-bit, and a 10-bit address whose low
+    // byte equals a 7-bit one.
+    #[test]
+    fn address_text_memo_follows_the_address() {
+        use crate::bus::Address;
+        let addresses = [
+            Address::Seven(0x20),
+            Address::Seven(0x20),
+            Address::Ten(0x20),
+            Address::Seven(0x7F),
+            Address::Ten(0x3FF),
+            Address::Seven(0x20),
+        ];
+        for a in addresses {
+            assert_eq!(super::with_address_text(a, str::to_string), a.text().as_str());
         }
     }
 }

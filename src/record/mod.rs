@@ -13,7 +13,7 @@ use crate::bus::outcome::nanos;
 use crate::bus::{Address, Operation, Outcome};
 
 mod line;
-pub use line::{write_line, write_line_with};
+pub use line::{with_address_text, write_line, write_line_with};
 
 /// Where in a script something happened.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]

@@ -85,7 +85,8 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
     add(lua, &bus, "bus.write", move |lua, (addr, data, opts): (Value, Value, Option<Table>)| {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Write(convert::bytes(&data, "write")?)]);
-        transact(lua, &c, &tx, &o, None, None)?;
+        let out = transact(lua, &c, &tx, &o, None, None)?;
+        c.session.borrow_mut().recycle(out);
         Ok(())
     })?;
 
@@ -94,7 +95,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         let (o, _) = call_options(opts, default_retry(&c), &[])?;
         let tx = Transaction::new(convert::address(&addr)?, vec![Operation::Read(convert::count(&n, "read count")?)]);
         let out = transact(lua, &c, &tx, &o, None, None)?;
-        convert::byte_table(lua, &out.read_bytes())
+        let bytes = convert::byte_table(lua, &out.read_bytes());
+        c.session.borrow_mut().recycle(out);
+        bytes
     })?;
 
     let c = ctx.clone();
@@ -103,7 +106,9 @@ pub fn install(lua: &Lua, ctx: Rc<Ctx>) -> mlua::Result<()> {
         let ops =
             vec![Operation::Write(convert::bytes(&data, "write")?), Operation::Read(convert::count(&n, "read count")?)];
         let out = transact(lua, &c, &Transaction::new(convert::address(&addr)?, ops), &o, None, None)?;
-        convert::byte_table(lua, &out.read_bytes())
+        let bytes = convert::byte_table(lua, &out.read_bytes());
+        c.session.borrow_mut().recycle(out);
+        bytes
     })?;
 
     let c = ctx.clone();

@@ -46,6 +46,10 @@ pub struct DeviceHandle {
     map: Map,
     retry: Option<RetryPolicy>,
     reserved: bool,
+    /// The register read's transaction, kept between reads so each one
+    /// rewrites its pointer and length in place instead of allocating
+    /// (`None` while a read has it out).
+    scratch: std::cell::Cell<Option<Transaction>>,
 }
 
 fn width_bits(v: Value, key: &str, default: usize) -> LuaResult<usize> {
@@ -83,7 +87,17 @@ impl DeviceHandle {
             }
             other => return Err(bad(format!("device option map must be a table, got {}", other.type_name()))),
         };
-        Ok(DeviceHandle { ctx, address, pointer_bytes, width, big_endian, map, retry: o.retry, reserved: o.reserved })
+        Ok(DeviceHandle {
+            ctx,
+            address,
+            pointer_bytes,
+            width,
+            big_endian,
+            map,
+            retry: o.retry,
+            reserved: o.reserved,
+            scratch: std::cell::Cell::new(None),
+        })
     }
 
     /// The register map the handle reads with (empty without one).
@@ -170,21 +184,39 @@ impl DeviceHandle {
         })
     }
 
+    /// `W pointer | R width` for register `reg`, in the scratch
+    /// transaction's buffers when it has them.
+    fn read_tx(&self, reg: u32) -> Transaction {
+        let mut tx = self.scratch.take().unwrap_or_else(|| {
+            Transaction::new(self.address, vec![Operation::Write(Vec::with_capacity(2)), Operation::Read(0)])
+        });
+        if let [Operation::Write(pointer), Operation::Read(n)] = tx.ops.as_mut_slice() {
+            pointer.clear();
+            if self.pointer_bytes == 2 {
+                pointer.push((reg >> 8) as u8);
+            }
+            pointer.push(reg as u8);
+            *n = self.bytes_of(reg);
+        }
+        tx
+    }
+
     fn read_reg(&self, lua: &Lua, reg: u32, name: Option<String>, purpose: Option<Purpose>) -> LuaResult<u32> {
-        let tx = Transaction::new(
-            self.address,
-            vec![Operation::Write(self.pointer(reg)), Operation::Read(self.bytes_of(reg))],
-        );
+        let tx = self.read_tx(reg);
         let explain = |o: &crate::bus::Outcome| match (self.map.at(reg), o.fault.is_none()) {
             (Some(r), true) => {
                 o.ops.last().and_then(|d| self.value_of(reg, &d.data)).map_or_else(Vec::new, |v| readings(r, v))
             }
             _ => Vec::new(),
         };
-        let out = self.transact(lua, &tx, purpose, name, &explain)?;
+        let out = self.transact(lua, &tx, purpose, name, &explain);
+        self.scratch.set(Some(tx));
+        let out = out?;
         // The read is the last operation, so its bytes are all the reply
         // holds: taken in place rather than gathered into a new vector.
-        self.decode(reg, out.ops.last().map_or(&[], |o| o.data.as_slice()))
+        let value = self.decode(reg, out.ops.last().map_or(&[], |o| o.data.as_slice()));
+        self.ctx.session.borrow_mut().recycle(out);
+        value
     }
 
     fn write_reg(&self, lua: &Lua, reg: u32, name: Option<String>, value: u32, unlock: bool) -> LuaResult<()> {

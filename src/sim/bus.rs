@@ -22,9 +22,7 @@ use std::time::Duration;
 
 use crate::bus::address::TEN_BIT_PREFIX;
 use crate::bus::timing::EventTimes;
-use crate::bus::{
-    Address, BusSpeed, Direction, Event, Fault, LineFault, OpOutcome, Outcome, PhaseTracker, Transaction,
-};
+use crate::bus::{Address, BusSpeed, Direction, Event, Fault, LineFault, Outcome, PhaseTracker, Transaction};
 
 use super::clock::Clock;
 use super::device::{Answer, Device};
@@ -62,6 +60,10 @@ pub struct SimBus {
     /// The event list of the transaction in progress, kept between
     /// transactions so `execute` does not allocate one each time.
     events: Vec<Event>,
+    /// The event times at the speed they were worked out for: the same
+    /// for every transaction until the speed changes, and working them out
+    /// takes divisions.
+    times: Option<(BusSpeed, EventTimes)>,
 }
 
 impl SimBus {
@@ -72,7 +74,7 @@ impl SimBus {
         stretch_timeout: Duration,
         arbitration: Option<(f64, SplitMix64)>,
     ) -> Self {
-        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None, events: Vec::new() }
+        SimBus { slots, clock, speed, stretch_timeout, arbitration, sda_held_by: None, events: Vec::new(), times: None }
     }
 
     pub fn slots(&self) -> &[Slot] {
@@ -86,6 +88,18 @@ impl SimBus {
 
     fn find(&self, address: Address) -> Option<usize> {
         self.slots.iter().position(|s| s.device.address() == address)
+    }
+
+    /// The event times at the current speed.
+    fn times(&mut self) -> EventTimes {
+        match self.times {
+            Some((speed, times)) if speed == self.speed => times,
+            _ => {
+                let times = EventTimes::new(self.speed);
+                self.times = Some((self.speed, times));
+                times
+            }
+        }
     }
 
     pub fn sda_held(&self) -> bool {
@@ -116,17 +130,25 @@ impl SimBus {
     /// the [`Wire`] steps, so whole-transaction and primitive-level callers
     /// see the same devices, faults and bus time.
     pub fn execute(&mut self, tx: &Transaction) -> Outcome {
+        let mut out = Outcome::default();
+        self.execute_into(tx, &mut out);
+        out
+    }
+
+    /// [`SimBus::execute`] into `out`, reusing its buffers (see
+    /// [`Adapter::execute_into`](crate::adapter::Adapter::execute_into)).
+    pub fn execute_into(&mut self, tx: &Transaction, out: &mut Outcome) {
         let mut w = Wire::default();
+        out.reset(tx.ops.len());
+        let mut ops = std::mem::take(&mut out.ops);
         // Sized for what each operation moves, so recording a byte never
-        // has to grow a vector.
-        let mut ops: Vec<OpOutcome> = tx
-            .ops
-            .iter()
-            .map(|o| match o.direction() {
-                Direction::Write => OpOutcome { acks: Vec::with_capacity(o.len()), data: Vec::new() },
-                Direction::Read => OpOutcome { acks: Vec::new(), data: Vec::with_capacity(o.len()) },
-            })
-            .collect();
+        // has to grow a vector (a recycled outcome usually has the room).
+        for (o, r) in tx.ops.iter().zip(ops.iter_mut()) {
+            match o.direction() {
+                Direction::Write => r.acks.reserve(o.len()),
+                Direction::Read => r.data.reserve(o.len()),
+            }
+        }
         let mut last_op = 0usize;
         let mut phase = PhaseTracker::default();
         let mut fault = self.wire_start(&mut w).err();
@@ -198,13 +220,13 @@ impl SimBus {
         if let Some(detail) = target.and_then(|i| self.slots[i].device.take_failure()) {
             fault = Some(Fault::Adapter { detail });
         }
-        Outcome { ops, bus_time, measured: None, fault }
+        *out = Outcome { ops, bus_time, measured: None, fault };
     }
 
     /// START. Fails when a device holds SDA low (the controller cannot
     /// make a START).
     pub fn wire_start(&mut self, w: &mut Wire) -> Result<(), Fault> {
-        *w = Wire { start: self.clock.now(), times: EventTimes::new(self.speed), ..Wire::default() };
+        *w = Wire { start: self.clock.now(), times: self.times(), ..Wire::default() };
         w.step(&Event::Start);
         if self.sda_held_by.is_some() {
             return Err(Fault::Bus { line: LineFault::SdaStuckLow });
@@ -360,5 +382,81 @@ impl Wire {
         let seen = self.start + self.stretch + Duration::from_nanos(self.bus_ns + self.times.seen_ns(e));
         self.bus_ns += self.times.event_ns(e);
         seen
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::adapter::Adapter;
+    use crate::bus::{Address, Operation, Outcome, Transaction};
+    use crate::sim::SimAdapter;
+
+    /// Writes, reads, a write-then-read, an absent target (address NACK)
+    /// and the demo vent controller, which NACKs its address at random
+    /// (seeded), so the recycled outcome is reused after successes and
+    /// after cut-short faults alike.
+    fn mixed() -> Vec<Transaction> {
+        let tx = |a: u8, ops: Vec<Operation>| Transaction::new(Address::Seven(a), ops);
+        let mut v = Vec::new();
+        for i in 0..40u8 {
+            v.push(tx(0x50, vec![Operation::Write(vec![0x00, i]), Operation::Read(1 + (i as usize % 5))]));
+            v.push(tx(0x13, vec![Operation::Write(vec![i])]));
+            v.push(tx(0x11, vec![Operation::Write(vec![0x00]), Operation::Read(1)]));
+            v.push(tx(0x50, vec![Operation::Read(3)]));
+            v.push(tx(0x50, vec![Operation::Write(vec![0x00, 0x10, i, i ^ 0xFF])]));
+        }
+        v
+    }
+
+    // The contract of `Adapter::execute_into`: whatever the outcome held
+    // before, afterwards it is what `execute` returns, and the bus
+    // (clock, devices, fault dice) moved the same way.
+    #[test]
+    fn execute_into_a_recycled_outcome_equals_execute() {
+        let (mut fresh, mut recycled) = (SimAdapter::demo(), SimAdapter::demo());
+        let mut out = Outcome::default();
+        let mut faults = 0;
+        for tx in mixed() {
+            let want = fresh.execute(&tx);
+            recycled.execute_into(&tx, &mut out);
+            assert_eq!(out, want, "{tx:?}");
+            assert_eq!(recycled.now(), fresh.now());
+            faults += want.fault.is_some() as usize;
+        }
+        assert!(faults >= 40, "the absent target NACKs every time: {faults} faults");
+    }
+
+    // What the recycling is for: transactions of one shape reuse the
+    // outcome's buffers instead of allocating new ones.
+    #[test]
+    fn a_recycled_outcome_keeps_its_buffers() {
+        let mut sim = SimAdapter::demo();
+        let tx = Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![0x00, 0x00]), Operation::Read(4)]);
+        let mut out = Outcome::default();
+        sim.execute_into(&tx, &mut out);
+        let buffers = |o: &Outcome| (o.ops.as_ptr(), o.ops[0].acks.as_ptr(), o.ops[1].data.as_ptr());
+        let first = buffers(&out);
+        for _ in 0..10 {
+            sim.execute_into(&tx, &mut out);
+            assert_eq!(buffers(&out), first);
+            assert_eq!((out.ops[0].acks.len(), out.ops[1].data.len()), (2, 4));
+        }
+    }
+
+    // The event times are kept between transactions; a speed change must
+    // still reach the next one: a bus switched to 400 kHz after a
+    // transaction times the next as one that ran at 400 kHz from the start.
+    #[test]
+    fn kept_event_times_follow_a_speed_change() {
+        let fast = "400k".parse().unwrap();
+        let tx = Transaction::new(Address::Seven(0x50), vec![Operation::Write(vec![0x00, 0x00]), Operation::Read(2)]);
+        let mut switched = SimAdapter::demo();
+        let before = switched.execute(&tx).bus_time;
+        switched.set_speed(fast).unwrap();
+        let after = switched.execute(&tx).bus_time;
+        let mut from_start = SimAdapter::demo();
+        from_start.set_speed(fast).unwrap();
+        assert_eq!(after, from_start.execute(&tx).bus_time);
+        assert_ne!(after, before, "the demo bench runs at 100 kHz");
     }
 }

@@ -100,6 +100,14 @@ impl Adapter for SimAdapter {
         self.bus.execute(tx)
     }
 
+    fn execute_into(&mut self, tx: &Transaction, out: &mut Outcome) {
+        if tx.address.is_ten_bit() && !self.caps.ten_bit {
+            *out = Outcome::adapter_failure("this bench has 10-bit addressing turned off");
+            return;
+        }
+        self.bus.execute_into(tx, out)
+    }
+
     fn recover(&mut self) -> Result<Recovery, AdapterError> {
         let (pulses, released) = self.bus.recover();
         Ok(Recovery { pulses, released })

@@ -122,9 +122,14 @@ pub fn seconds(t: Duration) -> String {
     s
 }
 
+/// `t` in seconds with six decimals, rounded half up to the microsecond.
+/// Worked from whole seconds and the nanoseconds after them rather than
+/// from `as_nanos`, whose 128-bit divisions cost more than the digits:
+/// rounding the fraction can only carry one second into the whole part.
 fn push_seconds(out: &mut String, t: Duration) {
-    let us = (t.as_nanos() + 500) / 1_000;
-    push_uint(out, saturating(us / 1_000_000), 1);
+    let us = (t.subsec_nanos() + 500) / 1_000;
+    let carry = us / 1_000_000;
+    push_uint(out, t.as_secs().saturating_add(carry as u64), 1);
     out.push('.');
     push_uint(out, (us % 1_000_000) as u64, 6);
 }
@@ -136,12 +141,25 @@ fn saturating(v: u128) -> u64 {
 /// `ns` in units of `scale` nanoseconds, rounded half up to `decimals`
 /// places.
 fn push_fixed(out: &mut String, ns: u128, scale: u128, decimals: u32) {
-    let q = 10u128.pow(decimals);
-    let v = (ns.saturating_mul(q) + scale / 2) / scale;
-    push_uint(out, saturating(v / q), 1);
+    // In 64 bits when everything fits (any duration under about 58 years
+    // at one decimal): the same numbers without 128-bit divisions, which
+    // cost more than the digits on a frame line.
+    let small = (decimals < 20)
+        .then(|| Some((u64::try_from(ns).ok()?, u64::try_from(scale).ok().filter(|&s| s > 0)?, 10u64.pow(decimals))))
+        .flatten()
+        .and_then(|(ns, scale, q)| Some((ns.checked_mul(q)?.checked_add(scale / 2)? / scale, q)));
+    let (whole, fraction) = match small {
+        Some((v, q)) => (v / q, v % q),
+        None => {
+            let q = 10u128.pow(decimals);
+            let v = (ns.saturating_mul(q) + scale / 2) / scale;
+            (saturating(v / q), (v % q) as u64)
+        }
+    };
+    push_uint(out, whole, 1);
     if decimals > 0 {
         out.push('.');
-        push_uint(out, (v % q) as u64, decimals as usize);
+        push_uint(out, fraction, decimals as usize);
     }
 }
 
@@ -238,7 +256,11 @@ fn pad_from(out: &mut String, start: usize, width: usize) {
 
 /// Appends a colour code and returns its length (codes take no columns).
 fn code(out: &mut String, c: &str) -> usize {
-    out.push_str(c);
+    // Without colour every code is empty: skipped rather than copied (a
+    // copy of unknown length is a `memcpy` call, four per frame line).
+    if !c.is_empty() {
+        out.push_str(c);
+    }
     c.len()
 }
 
@@ -423,7 +445,7 @@ fn write_fields(s: &mut String, f: &Frame, p: &Palette, keep: usize, values: boo
     push_uint_left(s, f.seq, SEQ_COLUMNS);
     s.push(' ');
     let at = s.len();
-    s.push_str(f.address.text().as_str());
+    crate::record::with_address_text(f.address, |a| s.push_str(a));
     pad_from(s, at, ADDRESS_COLUMNS);
     s.push(' ');
     let at = s.len();
@@ -652,6 +674,48 @@ pub fn cell_diff(cells: &[(usize, String, String)], colour: bool) -> Vec<String>
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // The 64-bit and whole-seconds arithmetic of the frame line's times
+    // against the 128-bit formulas it replaced, at the edges: rounding
+    // half up, a fraction that rounds into the next second, values past
+    // 64 bits of nanoseconds, and the largest duration.
+    #[test]
+    fn times_print_as_the_128_bit_formulas_did() {
+        let reference_seconds = |t: Duration| {
+            let us = (t.as_nanos() + 500) / 1_000;
+            format!("{}.{:06}", saturating(us / 1_000_000), us % 1_000_000)
+        };
+        let reference_fixed = |ns: u128, scale: u128, decimals: u32| {
+            let q = 10u128.pow(decimals);
+            let v = (ns.saturating_mul(q) + scale / 2) / scale;
+            if decimals == 0 {
+                format!("{}", saturating(v / q))
+            } else {
+                format!("{}.{:0w$}", saturating(v / q), v % q, w = decimals as usize)
+            }
+        };
+        let mut times: Vec<Duration> = [0u64, 1, 499, 500, 999, 1_000, 38_500, 999_999_499, 999_999_500, 1_999_999_999]
+            .iter()
+            .map(|&n| Duration::from_nanos(n))
+            .collect();
+        times.extend([
+            Duration::from_nanos(u64::MAX),
+            Duration::new(u64::MAX, 999_999_499),
+            Duration::new(u64::MAX, 999_999_500),
+            Duration::MAX,
+            Duration::new(1 << 40, 123_456_789),
+        ]);
+        for t in times {
+            let mut s = String::new();
+            push_seconds(&mut s, t);
+            assert_eq!(s, reference_seconds(t), "{t:?}");
+            for (scale, decimals) in [(1_000u128, 1u32), (1, 0), (1_000_000, 3), (1_000_000_000, 6), (1, 9)] {
+                let mut s = String::new();
+                push_fixed(&mut s, t.as_nanos(), scale, decimals);
+                assert_eq!(s, reference_fixed(t.as_nanos(), scale, decimals), "{t:?} {scale} {decimals}");
+            }
+        }
+    }
     use crate::bus::{Address, Fault, OpOutcome};
     use crate::record::{Origin, Purpose};
 
