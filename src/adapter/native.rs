@@ -202,6 +202,11 @@ struct Pending {
     /// Extra time the adapter needs (a DELAY).
     extra: Duration,
     reply: Option<(u8, Vec<u8>)>,
+    /// Bytes of this request and its expected reply on the wire.
+    wire: usize,
+    /// Bytes it waited behind at its last send (its own and those of the
+    /// requests in flight before it): what its round trip grows with.
+    load: usize,
     sent_at: Instant,
     /// Order of this request's last send among all sends of the exchange.
     send_no: u64,
@@ -211,6 +216,36 @@ struct Pending {
     /// Times this request's own timer ran out (its tries).
     expiries: u32,
     first_sent: Option<Instant>,
+}
+
+/// One request for [`NativeAdapter::exchange`].
+struct Request {
+    kind: u8,
+    body: Vec<u8>,
+    /// Extra time the adapter needs (a DELAY).
+    extra: Duration,
+    /// Body bytes of the reply it should get.
+    reply_len: usize,
+}
+
+/// Bytes a frame with a body of `body` bytes takes on the wire: header,
+/// CRC, a COBS code byte per 254 and the two delimiters.
+fn wire_len(body: usize) -> usize {
+    let raw = HEADER_LEN + body + CRC_LEN;
+    raw + raw / 254 + 1 + 2
+}
+
+/// Wire bytes of the requests in `p` still without a reply: what a
+/// request sent now waits behind.
+fn in_flight(p: &[Pending]) -> usize {
+    p.iter().filter(|q| q.reply.is_none() && q.sends > 0).map(|q| q.wire).sum()
+}
+
+/// Where a request's timer starts and the bytes it covers: its send and
+/// all it waited behind, or, when a reply has come since, that reply and
+/// its own bytes.
+fn timer_start(p: &Pending, progress: Instant) -> (Instant, usize) {
+    if progress > p.sent_at { (progress, p.wire) } else { (p.sent_at, p.load) }
 }
 
 /// Why a request goes out again.
@@ -236,7 +271,8 @@ impl NativeAdapter {
         // room to spare, never above the ceiling; it does not back off: a
         // HELLO runs nothing, so a repeat costs the adapter nothing, and
         // whichever answer arrives first is taken (they are all alike).
-        let mut timer = RetransmitTimer::new(RTO_FLOOR, settings.timeout);
+        let mut timer = RetransmitTimer::new(RTO_FLOOR, settings.timeout)
+            .assuming_byte_time(Duration::from_secs_f64(10.0 / settings.baud.max(1) as f64));
         let wait = hello_wait(settings.baud).min(settings.timeout);
         let give_up = Instant::now() + settings.silence;
         let mut expiries = 0u32;
@@ -357,8 +393,9 @@ impl NativeAdapter {
         self.link.path().to_string()
     }
 
-    fn send(&mut self, p: &mut Pending, seq: u16, send_no: &mut u64, why: Resend) -> Result<(), NativeError> {
+    fn send(&mut self, p: &mut Pending, ahead: usize, seq: u16, send_no: &mut u64, why: Resend) -> Result<(), NativeError> {
         let h = Header { version: VERSION, kind: p.kind, seq, session: self.session };
+        p.load = ahead + p.wire;
         self.link.send(h, &p.body)?;
         let now = Instant::now();
         p.sent_at = now;
@@ -382,7 +419,7 @@ impl NativeAdapter {
     }
 
     /// Sends requests pipelined and collects their replies in order.
-    fn exchange(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+    fn exchange(&mut self, reqs: Vec<Request>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
         if let Some(e) = &self.failed {
             return Err(e.clone());
         }
@@ -393,7 +430,7 @@ impl NativeAdapter {
         r
     }
 
-    fn exchange_inner(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+    fn exchange_inner(&mut self, reqs: Vec<Request>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
         let n = reqs.len();
         let base = self.next_seq;
         self.next_seq = self.next_seq.wrapping_add(n as u16);
@@ -401,8 +438,10 @@ impl NativeAdapter {
         let now = Instant::now();
         let mut p: Vec<Pending> = reqs
             .into_iter()
-            .map(|(kind, body, extra)| Pending {
+            .map(|Request { kind, body, extra, reply_len }| Pending {
                 kind,
+                wire: wire_len(body.len()) + wire_len(reply_len),
+                load: 0,
                 body,
                 extra,
                 reply: None,
@@ -416,15 +455,23 @@ impl NativeAdapter {
         let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
         // When the adapter was last heard from; the wait starts now.
         let mut heard = now;
+        // When the last new reply came.
+        let mut progress = now;
         let mut dropped_before = self.link.stats.frames_dropped;
         let seq = |i: usize| base.wrapping_add(i as u16);
         while done < n {
             while sent < n && sent < done + self.window_size.size() {
-                self.send(&mut p[sent], seq(sent), &mut send_no, Resend::First)?;
+                let ahead = in_flight(&p[done..sent]);
+                self.send(&mut p[sent], ahead, seq(sent), &mut send_no, Resend::First)?;
                 sent += 1;
             }
+            // The timer runs from the oldest request's send or from the
+            // last new reply, whichever is later (RFC 6298 §5.3: restart
+            // on progress): on a slow line the replies before it were
+            // what it waited behind.
             let oldest = &p[done];
-            let timer = oldest.sent_at + self.timer.backed_off(oldest.expiries) + oldest.extra;
+            let (start, bytes) = timer_start(oldest, progress);
+            let timer = start + self.timer.backed_off_sized(oldest.expiries, bytes) + oldest.extra;
             // A DELAY keeps the adapter quiet for as long as it asked.
             let give_up = heard + self.settings.silence + oldest.extra;
             let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
@@ -432,9 +479,12 @@ impl NativeAdapter {
                 if now >= give_up {
                     return Err(NativeError::Silent { path: self.path(), waited_ms: (now - heard).as_millis() });
                 }
-                // The oldest request's own timer ran out: one try. Go back
-                // to it and send everything from there again (the adapter
-                // dropped what came after a lost request).
+                // The oldest request's own timer ran out: one try. It goes
+                // again, with every later one whose own timer (from its own
+                // send, over all it waited behind) has run out too: sending
+                // the rest as well would queue duplicates on a slow line and
+                // make the next timers expire in turn (measured at 115200
+                // baud: the link collapsed into repeats).
                 p[done].expiries += 1;
                 if let Some(limit) = self.settings.tries
                     && p[done].expiries >= limit
@@ -443,9 +493,12 @@ impl NativeAdapter {
                     return Err(NativeError::NoReply { path: self.path(), tries: p[done].expiries, waited_ms: waited });
                 }
                 self.lost(now);
+                let mut ahead = 0;
                 for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
-                    if q.reply.is_none() {
-                        self.send(q, seq(i), &mut send_no, Resend::Timer)?;
+                    let due = i == done || q.sent_at + self.timer.backed_off_sized(q.expiries, q.load) + q.extra <= now;
+                    if q.reply.is_none() && due {
+                        self.send(q, ahead, seq(i), &mut send_no, Resend::Timer)?;
+                        ahead += q.wire;
                     }
                 }
                 continue;
@@ -476,9 +529,10 @@ impl NativeAdapter {
                     let Some(j) = trigger.filter(|&j| j < sent) else { continue };
                     let limit = p[j].send_no;
                     let mut resent = false;
+                    let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
                         if q.reply.is_none() && q.send_no <= limit {
-                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
                             resent = true;
                         }
                     }
@@ -499,9 +553,11 @@ impl NativeAdapter {
                     p[idx].reply = Some((k, body));
                     // Karn's rule: a reply to a repeated request could
                     // answer any of its sends, so it is no sample; nor is
-                    // one that includes a DELAY's wait.
+                    // one that includes a DELAY's wait. Timed as its timer
+                    // runs: from its send or the reply before it.
                     if p[idx].sends == 1 && p[idx].extra.is_zero() {
-                        self.timer.sample(now - p[idx].sent_at);
+                        let (start, bytes) = timer_start(&p[idx], progress);
+                        self.timer.sample_sized(now.saturating_duration_since(start), bytes);
                         self.batch_size.clean();
                         self.window_size.clean();
                     }
@@ -510,15 +566,17 @@ impl NativeAdapter {
                     // lost its reply on the way: ask again at once.
                     let limit = p[idx].send_no;
                     let mut resent = false;
+                    let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
                         if q.reply.is_none() && q.send_no < limit {
-                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
                             resent = true;
                         }
                     }
                     if resent {
                         self.lost(now);
                     }
+                    progress = now;
                     while done < n && p[done].reply.is_some() {
                         done += 1;
                     }
@@ -545,7 +603,7 @@ impl NativeAdapter {
     /// One control request with a small reply; returns the body after the
     /// adapter time.
     fn control(&mut self, k: u8, body: Vec<u8>, extra: Duration) -> Result<Vec<u8>, NativeError> {
-        let mut r = self.exchange(vec![(k, body, extra)])?;
+        let mut r = self.exchange(vec![Request { kind: k, body, extra, reply_len: 8 + 5 }])?;
         let (_, body) = r.pop().ok_or_else(|| NativeError::Malformed { path: self.path(), kind: k })?;
         Ok(body.get(8..).unwrap_or_default().to_vec())
     }
@@ -611,7 +669,15 @@ impl NativeAdapter {
     fn round(&mut self, txs: &[Transaction], batch: usize, out: &mut Vec<Outcome>) -> Result<(), NativeError> {
         let groups =
             self.pack(txs, batch).map_err(|_| NativeError::Malformed { path: self.path(), kind: kind::RUN })?;
-        let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
+        let reqs = groups
+            .iter()
+            .map(|g| Request {
+                kind: kind::RUN,
+                body: encode_run(&txs[g.clone()]),
+                extra: Duration::ZERO,
+                reply_len: 8 + txs[g.clone()].iter().map(|t| TX_REPORT_LEN + t.byte_counts().1).sum::<usize>(),
+            })
+            .collect();
         let replies = self.exchange(reqs)?;
         for (g, (_, body)) in groups.iter().zip(&replies) {
             let mut r = Reader::new(body);

@@ -18,6 +18,14 @@
 //!   sent once is a sample.
 //! - [`RetransmitTimer::backed_off`] doubles per expiry (§5.5) up to
 //!   [`MAX_BACKOFF`]; a new sample ends the backoff (§5.7).
+//! - Frame length: on a slow UART the round trip grows with the bytes a
+//!   request waits behind. A sample may carry its byte count x
+//!   ([`RetransmitTimer::sample_sized`]); the timer fits R = F + b·x (an
+//!   exponentially weighted least-squares slope b, weight 1/8, never
+//!   negative) and runs the RFC 6298 formulas above on the fixed part
+//!   F = R − b·x. The RTO of a request of x bytes is the fixed-part RTO
+//!   (floor and ceiling apply to it) plus b·x. With x = 0 throughout this
+//!   is RFC 6298 exactly.
 //! - [`FrameSizer`] sizes batches and windows to the loss. It starts at
 //!   one and grows by one per clean reply until the first loss (slow
 //!   start, as TCP's: a clean link reaches the adapter's limit within a
@@ -47,23 +55,94 @@ pub const MAX_BACKOFF: u32 = 1;
 pub const MAX_BACKED_OFF: Duration = Duration::from_secs(2);
 
 /// The smoothed round-trip estimate of one link.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct RetransmitTimer {
     srtt: Option<Duration>,
     rttvar: Duration,
     rto: Duration,
     floor: Duration,
     ceiling: Duration,
+    fit: ByteFit,
+    /// Time per byte (ns) assumed until the samples teach one.
+    prior_ns_per_byte: f64,
+}
+
+/// Exponentially weighted least squares of round trip (ns) on bytes.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+struct ByteFit {
+    samples: u32,
+    mean_x: f64,
+    mean_y: f64,
+    var_x: f64,
+    cov_xy: f64,
+}
+
+/// Weight of a new sample in [`ByteFit`], the same 1/8 as SRTT's.
+const FIT_WEIGHT: f64 = 1.0 / 8.0;
+
+/// Longest believable time per byte: 10 ms, a 1,000-baud line.
+const MAX_NS_PER_BYTE: f64 = 10_000_000.0;
+
+impl ByteFit {
+    fn add(&mut self, x: f64, y: f64) {
+        if self.samples == 0 {
+            (self.mean_x, self.mean_y) = (x, y);
+        } else {
+            // West's weighted incremental mean and (co)variance.
+            let (dx, dy) = (x - self.mean_x, y - self.mean_y);
+            self.mean_x += FIT_WEIGHT * dx;
+            self.mean_y += FIT_WEIGHT * dy;
+            self.var_x = (1.0 - FIT_WEIGHT) * (self.var_x + FIT_WEIGHT * dx * dx);
+            self.cov_xy = (1.0 - FIT_WEIGHT) * (self.cov_xy + FIT_WEIGHT * dx * dy);
+        }
+        self.samples = self.samples.saturating_add(1);
+    }
+
+    /// Nanoseconds per byte; `prior` until the samples differ in length
+    /// by a few bytes (a slope from equal lengths is noise).
+    fn ns_per_byte(&self, prior: f64) -> f64 {
+        if self.var_x < 4.0 {
+            return prior;
+        }
+        (self.cov_xy / self.var_x).clamp(0.0, MAX_NS_PER_BYTE)
+    }
 }
 
 impl RetransmitTimer {
     /// A timer with no sample yet: its RTO is the ceiling.
     pub fn new(floor: Duration, ceiling: Duration) -> Self {
         let ceiling = ceiling.max(floor);
-        RetransmitTimer { srtt: None, rttvar: Duration::ZERO, rto: ceiling, floor, ceiling }
+        RetransmitTimer { srtt: None, rttvar: Duration::ZERO, rto: ceiling, floor, ceiling, fit: ByteFit::default(), prior_ns_per_byte: 0.0 }
     }
 
-    /// Takes one round-trip sample (a reply to a request sent once).
+    /// Assumes `per_byte` on the wire until samples of different lengths
+    /// teach the real figure: the configured baud rate's byte time, so
+    /// the first long frames on a slow UART are not resent before they
+    /// could have crossed (which Karn's rule would then never correct).
+    pub fn assuming_byte_time(mut self, per_byte: Duration) -> Self {
+        self.prior_ns_per_byte = (per_byte.as_nanos() as f64).min(MAX_NS_PER_BYTE);
+        self
+    }
+
+    /// Takes one round-trip sample (a reply to a request sent once) of a
+    /// request that waited behind `bytes` bytes on the wire, its own
+    /// included.
+    pub fn sample_sized(&mut self, r: Duration, bytes: usize) {
+        self.fit.add(bytes as f64, r.as_nanos() as f64);
+        self.sample(r.saturating_sub(self.byte_time(bytes)));
+    }
+
+    /// The learned wire time of `bytes` bytes.
+    pub fn byte_time(&self, bytes: usize) -> Duration {
+        Duration::from_nanos((self.fit.ns_per_byte(self.prior_ns_per_byte) * bytes as f64) as u64)
+    }
+
+    /// The learned time per byte on the wire.
+    pub fn per_byte(&self) -> Duration {
+        self.byte_time(1000) / 1000
+    }
+
+    /// Takes one round-trip sample of the fixed part (no byte count).
     pub fn sample(&mut self, r: Duration) {
         match self.srtt {
             None => {
@@ -92,8 +171,19 @@ impl RetransmitTimer {
 
     /// The wait for a request that has timed out `expiries` times.
     pub fn backed_off(&self, expiries: u32) -> Duration {
-        let doubled = self.rto.saturating_mul(1 << expiries.min(MAX_BACKOFF));
-        doubled.min(MAX_BACKED_OFF.max(self.ceiling))
+        self.backed_off_sized(expiries, 0)
+    }
+
+    /// The RTO of a request that waits behind `bytes` bytes.
+    pub fn rto_sized(&self, bytes: usize) -> Duration {
+        self.rto + self.byte_time(bytes)
+    }
+
+    /// [`Self::backed_off`] for a request that waits behind `bytes` bytes:
+    /// the caps apply to the fixed part, the bytes' wire time is added.
+    pub fn backed_off_sized(&self, expiries: u32, bytes: usize) -> Duration {
+        let doubled = self.rto_sized(bytes).saturating_mul(1 << expiries.min(MAX_BACKOFF));
+        doubled.min(MAX_BACKED_OFF.max(self.ceiling) + self.byte_time(bytes))
     }
 }
 
@@ -209,6 +299,33 @@ mod tests {
         let mut slow = RetransmitTimer::new(ms(2.0), ms(1800.0));
         slow.sample(ms(1700.0));
         assert_eq!(slow.backed_off(3), MAX_BACKED_OFF, "and never past the cap");
+    }
+
+    // A 115200-baud line, 10 bits a byte: 86.8 µs per byte, plus 1 ms
+    // fixed. Samples of 40 to 400 bytes (the sizes a growing batch sends)
+    // teach the slope, so a 600-byte request gets a timer that covers its
+    // 52 ms of wire time, where the fixed-size RTO learned from the same
+    // samples would fire before the reply could arrive.
+    #[test]
+    fn the_timer_learns_the_time_per_byte() {
+        let per_byte = 10.0 / 115_200.0 * 1000.0; // ms
+        let mut t = RetransmitTimer::new(ms(2.0), ms(100.0));
+        for i in 0..60 {
+            let x = 40 + (i % 10) * 40;
+            t.sample_sized(ms(1.0 + per_byte * x as f64), x);
+        }
+        let b = t.per_byte().as_secs_f64() * 1e6;
+        assert!((b - 86.8).abs() < 1.0, "µs per byte: {b}");
+        let wire = ms(per_byte * 600.0);
+        assert!(t.rto_sized(600) > ms(1.0) + wire, "{:?}", t.rto_sized(600));
+        assert!(t.rto_sized(600) < ms(1.0) + wire + ms(3.0), "and not much more: {:?}", t.rto_sized(600));
+        assert!(t.rto() < ms(3.1), "the fixed part alone: {:?}", t.rto());
+        // Equal lengths teach no slope: RFC 6298 as before.
+        let mut same = RetransmitTimer::new(ms(2.0), ms(100.0));
+        same.sample_sized(ms(10.0), 100);
+        same.sample_sized(ms(14.0), 100);
+        assert_eq!(same.per_byte(), Duration::ZERO);
+        assert!(close(same.rto(), ms(29.5)), "{:?}", same.rto());
     }
 
     #[test]
