@@ -281,7 +281,8 @@ fn a_link_silent_past_the_limit_fails_with_exit_4_and_keeps_the_trace() {
     let end = end_record(&trace);
     assert_eq!((end["kind"].as_str(), end["exit"].as_u64()), (Some("end"), Some(4)));
     assert!(end["link"]["timeouts"].as_u64().unwrap() > 0, "{end}");
-    assert!(end["link"]["rto_ns"].as_u64().unwrap() >= 5_000_000, "the RTO floor is 5 ms: {end}");
+    let floor = buscue::adapter::rto::RTO_FLOOR.as_nanos() as u64;
+    assert!(end["link"]["rto_ns"].as_u64().unwrap() >= floor, "never below the RTO floor: {end}");
     let frames = std::fs::read_to_string(&trace).unwrap().lines().filter(|l| l.contains("\"kind\":\"frame\"")).count();
     assert!(frames >= 10, "what was done before the line died is kept ({frames} frames)");
 }

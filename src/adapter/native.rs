@@ -202,8 +202,9 @@ struct Pending {
     /// Extra time the adapter needs (a DELAY).
     extra: Duration,
     reply: Option<(u8, Vec<u8>)>,
-    /// Bytes of this request and its expected reply on the wire.
+    /// Bytes of this request and of its expected reply on the wire.
     wire: usize,
+    reply_wire: usize,
     /// Bytes it waited behind at its last send (its own and those of the
     /// requests in flight before it): what its round trip grows with.
     load: usize,
@@ -216,6 +217,9 @@ struct Pending {
     /// Times this request's own timer ran out (its tries).
     expiries: u32,
     first_sent: Option<Instant>,
+    /// The adapter said it keeps this request until the gap before it
+    /// fills (selective repeat): it needs no resend for that gap.
+    held: bool,
 }
 
 /// One request for [`NativeAdapter::exchange`].
@@ -235,18 +239,22 @@ fn wire_len(body: usize) -> usize {
     raw + raw / 254 + 1 + 2
 }
 
-/// Wire bytes of the requests in `p` still without a reply: what a
-/// request sent now waits behind.
+/// Wire bytes of the replies still to come for the requests in `p`: what
+/// the reply to a request sent now waits behind (the request line runs
+/// beside the reply line).
 fn in_flight(p: &[Pending]) -> usize {
-    p.iter().filter(|q| q.reply.is_none() && q.sends > 0).map(|q| q.wire).sum()
+    p.iter().filter(|q| q.reply.is_none() && q.sends > 0).map(|q| q.reply_wire).sum()
 }
 
 /// Where a request's timer starts and the bytes it covers: its send and
 /// all it waited behind, or, when a reply has come since, that reply and
-/// its own bytes.
+/// its own reply's bytes (its request has crossed meanwhile).
 fn timer_start(p: &Pending, progress: Instant) -> (Instant, usize) {
-    if progress > p.sent_at { (progress, p.wire) } else { (p.sent_at, p.load) }
+    if progress > p.sent_at { (progress, p.reply_wire) } else { (p.sent_at, p.load) }
 }
+
+/// Fewest tries of one request within the silence limit.
+const SILENCE_TRIES: u32 = 30;
 
 /// Why a request goes out again.
 #[derive(Clone, Copy, PartialEq, Eq)]
@@ -393,7 +401,14 @@ impl NativeAdapter {
         self.link.path().to_string()
     }
 
-    fn send(&mut self, p: &mut Pending, ahead: usize, seq: u16, send_no: &mut u64, why: Resend) -> Result<(), NativeError> {
+    fn send(
+        &mut self,
+        p: &mut Pending,
+        ahead: usize,
+        seq: u16,
+        send_no: &mut u64,
+        why: Resend,
+    ) -> Result<(), NativeError> {
         let h = Header { version: VERSION, kind: p.kind, seq, session: self.session };
         p.load = ahead + p.wire;
         self.link.send(h, &p.body)?;
@@ -441,6 +456,7 @@ impl NativeAdapter {
             .map(|Request { kind, body, extra, reply_len }| Pending {
                 kind,
                 wire: wire_len(body.len()) + wire_len(reply_len),
+                reply_wire: wire_len(reply_len),
                 load: 0,
                 body,
                 extra,
@@ -450,6 +466,7 @@ impl NativeAdapter {
                 sends: 0,
                 expiries: 0,
                 first_sent: None,
+                held: false,
             })
             .collect();
         let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
@@ -471,7 +488,11 @@ impl NativeAdapter {
             // what it waited behind.
             let oldest = &p[done];
             let (start, bytes) = timer_start(oldest, progress);
-            let timer = start + self.timer.backed_off_sized(oldest.expiries, bytes) + oldest.extra;
+            // However far backed off, the silence limit sees at least
+            // `SILENCE_TRIES` tries: an adapter speaks only when spoken to,
+            // so a long wait would let a working but lossy link go quiet.
+            let wait = self.timer.backed_off_sized(oldest.expiries, bytes).min(self.settings.silence / SILENCE_TRIES);
+            let timer = start + wait + oldest.extra;
             // A DELAY keeps the adapter quiet for as long as it asked.
             let give_up = heard + self.settings.silence + oldest.extra;
             let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
@@ -495,10 +516,11 @@ impl NativeAdapter {
                 self.lost(now);
                 let mut ahead = 0;
                 for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
-                    let due = i == done || q.sent_at + self.timer.backed_off_sized(q.expiries, q.load) + q.extra <= now;
+                    let due = i == done
+                        || (!q.held && q.sent_at + self.timer.backed_off_sized(q.expiries, q.load) + q.extra <= now);
                     if q.reply.is_none() && due {
                         self.send(q, ahead, seq(i), &mut send_no, Resend::Timer)?;
-                        ahead += q.wire;
+                        ahead += q.reply_wire;
                     }
                 }
                 continue;
@@ -521,17 +543,26 @@ impl NativeAdapter {
             let idx = h.seq.wrapping_sub(base) as usize;
             match h.kind {
                 kind::GAP => {
-                    // The adapter dropped a request because it still waits
-                    // for number `h.seq`; the request that triggered the
-                    // notice is named in the body.
+                    // The adapter still waits for number `h.seq`; the request
+                    // that triggered the notice is named in the body, and an
+                    // adapter that keeps early requests (flag REORDER) adds
+                    // whether it kept that one. Every request from `h.seq`
+                    // up to it that is neither answered nor kept, and not
+                    // re-sent since it went, was lost: the line keeps order,
+                    // so it would have arrived first.
                     self.stats.gaps += 1;
-                    let trigger = Reader::new(&body).u16().map(|s| s.wrapping_sub(base) as usize);
+                    let mut r = Reader::new(&body);
+                    let trigger = r.u16().map(|s| s.wrapping_sub(base) as usize);
+                    let kept = self.wire.has(flag::REORDER) && r.u8() == Some(1);
                     let Some(j) = trigger.filter(|&j| j < sent) else { continue };
+                    if kept {
+                        p[j].held = true;
+                    }
                     let limit = p[j].send_no;
                     let mut resent = false;
                     let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
-                        if q.reply.is_none() && q.send_no <= limit {
+                        if q.reply.is_none() && !q.held && q.send_no <= limit {
                             self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
                             resent = true;
                         }
@@ -555,7 +586,12 @@ impl NativeAdapter {
                     // answer any of its sends, so it is no sample; nor is
                     // one that includes a DELAY's wait. Timed as its timer
                     // runs: from its send or the reply before it.
-                    if p[idx].sends == 1 && p[idx].extra.is_zero() {
+                    // Nor is one that waited behind a repair: a request
+                    // re-sent after it went out runs first, so its reply
+                    // includes that resend's round trip (Karn's reasoning,
+                    // extended to the pipeline).
+                    let repaired = p[done..idx].iter().any(|q| q.sends > 1 && q.send_no > p[idx].send_no);
+                    if p[idx].sends == 1 && p[idx].extra.is_zero() && !p[idx].held && !repaired {
                         let (start, bytes) = timer_start(&p[idx], progress);
                         self.timer.sample_sized(now.saturating_duration_since(start), bytes);
                         self.batch_size.clean();
