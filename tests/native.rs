@@ -193,6 +193,20 @@ fn exactly_once_through(lose: f64, flip: f64, seed: u64) -> (usize, usize) {
     (smallest, max)
 }
 
+// The served adapter keeps requests that arrive after a lost one
+// (selective repeat, flag REORDER in adapters/PROTOCOL.md section 3) and
+// the host says so; the lossy tests below then run through it and count
+// executions at the board.
+#[test]
+fn the_served_adapter_keeps_early_requests() {
+    let (path, stop, h) = serve_in_process(LinkFaults::default());
+    let a = NativeAdapter::open(&path, NativeSettings::default()).expect("handshake");
+    assert!(a.identity().description.contains("keeps early requests"), "{}", a.identity().description);
+    drop(a);
+    stop.store(true, Ordering::Relaxed);
+    h.join().unwrap();
+}
+
 #[test]
 fn one_percent_flipped_bits_lose_nothing_at_the_defaults() {
     exactly_once_through(0.0, 0.01, 11);

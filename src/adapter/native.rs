@@ -338,11 +338,12 @@ impl NativeAdapter {
             driver: "native".into(),
             target: path.into(),
             description: format!(
-                "native protocol v{VERSION}, session {:04X}, window {}, frames up to {} bytes{}",
+                "native protocol v{VERSION}, session {:04X}, window {}, frames up to {} bytes{}{}",
                 h.session,
                 wire.window,
                 wire.max_frame,
-                if wire.has(flag::PRECISE) { ", per-byte results" } else { "" }
+                if wire.has(flag::PRECISE) { ", per-byte results" } else { "" },
+                if wire.has(flag::REORDER) { ", keeps early requests" } else { "" }
             ),
         };
         let speed = BusSpeed::from_hz(wire.speed_hz as u64).unwrap_or(BusSpeed::STANDARD);
