@@ -88,7 +88,7 @@ fn run(case: &Case) {
     let rate = case.n as f64 / secs;
     let bus_rate = case.n as f64 / bus.as_secs_f64();
     println!(
-        "| {} | {} | {:.3} | {:.0} | {:.1} % | {:.3} | {} | {} | {}/{} |",
+        "| {} | {} | {:.3} | {:.0} | {:.1} % | {:.3} | {} ({} timer, {} fast, {} gaps) | {} | {}/{} | {:.2} ms |",
         case.name,
         case.n,
         secs,
@@ -96,9 +96,13 @@ fn run(case: &Case) {
         100.0 * rate / bus_rate,
         requests as f64 / case.n as f64,
         c.retransmissions,
+        c.timeouts,
+        c.fast_resends,
+        c.gaps,
         c.frames_dropped,
         c.batch,
-        c.batch_max
+        c.batch_max,
+        c.rto.as_secs_f64() * 1000.0
     );
 }
 
@@ -114,10 +118,13 @@ fn main() {
         Case { name: "clean, 1000000 baud", faults: f(0.0, 0.0, Some(1_000_000)), n },
     ];
     println!(
-        "| case | transactions | seconds | transactions/s | of the 400 kHz bus rate | request frames/tx | retransmissions | frames dropped | batch at end |"
+        "| case | transactions | seconds | transactions/s | of the 400 kHz bus rate | request frames/tx | retransmissions (timer, fast, gaps) | frames dropped | batch at end | RTO at end |"
     );
-    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|");
-    for c in &cases {
+    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|");
+    // BUSCUE_BENCH_CASES=flip,115200 runs only the cases whose name has one of the words.
+    let only = std::env::var("BUSCUE_BENCH_CASES").unwrap_or_default();
+    let words: Vec<&str> = only.split(',').filter(|w| !w.is_empty()).collect();
+    for c in cases.iter().filter(|c| words.is_empty() || words.iter().any(|w| c.name.contains(w))) {
         run(c);
     }
 }

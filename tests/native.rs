@@ -193,6 +193,20 @@ fn exactly_once_through(lose: f64, flip: f64, seed: u64) -> (usize, usize) {
     (smallest, max)
 }
 
+// The served adapter keeps requests that arrive after a lost one
+// (selective repeat, flag REORDER in adapters/PROTOCOL.md section 3) and
+// the host says so; the lossy tests below then run through it and count
+// executions at the board.
+#[test]
+fn the_served_adapter_keeps_early_requests() {
+    let (path, stop, h) = serve_in_process(LinkFaults::default());
+    let a = NativeAdapter::open(&path, NativeSettings::default()).expect("handshake");
+    assert!(a.identity().description.contains("keeps early requests"), "{}", a.identity().description);
+    drop(a);
+    stop.store(true, Ordering::Relaxed);
+    h.join().unwrap();
+}
+
 #[test]
 fn one_percent_flipped_bits_lose_nothing_at_the_defaults() {
     exactly_once_through(0.0, 0.01, 11);
@@ -281,7 +295,8 @@ fn a_link_silent_past_the_limit_fails_with_exit_4_and_keeps_the_trace() {
     let end = end_record(&trace);
     assert_eq!((end["kind"].as_str(), end["exit"].as_u64()), (Some("end"), Some(4)));
     assert!(end["link"]["timeouts"].as_u64().unwrap() > 0, "{end}");
-    assert!(end["link"]["rto_ns"].as_u64().unwrap() >= 5_000_000, "the RTO floor is 5 ms: {end}");
+    let floor = buscue::adapter::rto::RTO_FLOOR.as_nanos() as u64;
+    assert!(end["link"]["rto_ns"].as_u64().unwrap() >= floor, "never below the RTO floor: {end}");
     let frames = std::fs::read_to_string(&trace).unwrap().lines().filter(|l| l.contains("\"kind\":\"frame\"")).count();
     assert!(frames >= 10, "what was done before the line died is kept ({frames} frames)");
 }

@@ -202,6 +202,12 @@ struct Pending {
     /// Extra time the adapter needs (a DELAY).
     extra: Duration,
     reply: Option<(u8, Vec<u8>)>,
+    /// Bytes of this request and of its expected reply on the wire.
+    wire: usize,
+    reply_wire: usize,
+    /// Bytes it waited behind at its last send (its own and those of the
+    /// requests in flight before it): what its round trip grows with.
+    load: usize,
     sent_at: Instant,
     /// Order of this request's last send among all sends of the exchange.
     send_no: u64,
@@ -211,7 +217,44 @@ struct Pending {
     /// Times this request's own timer ran out (its tries).
     expiries: u32,
     first_sent: Option<Instant>,
+    /// The adapter said it keeps this request until the gap before it
+    /// fills (selective repeat): it needs no resend for that gap.
+    held: bool,
 }
+
+/// One request for [`NativeAdapter::exchange`].
+struct Request {
+    kind: u8,
+    body: Vec<u8>,
+    /// Extra time the adapter needs (a DELAY).
+    extra: Duration,
+    /// Body bytes of the reply it should get.
+    reply_len: usize,
+}
+
+/// Bytes a frame with a body of `body` bytes takes on the wire: header,
+/// CRC, a COBS code byte per 254 and the two delimiters.
+fn wire_len(body: usize) -> usize {
+    let raw = HEADER_LEN + body + CRC_LEN;
+    raw + raw / 254 + 1 + 2
+}
+
+/// Wire bytes of the replies still to come for the requests in `p`: what
+/// the reply to a request sent now waits behind (the request line runs
+/// beside the reply line).
+fn in_flight(p: &[Pending]) -> usize {
+    p.iter().filter(|q| q.reply.is_none() && q.sends > 0).map(|q| q.reply_wire).sum()
+}
+
+/// Where a request's timer starts and the bytes it covers: its send and
+/// all it waited behind, or, when a reply has come since, that reply and
+/// its own reply's bytes (its request has crossed meanwhile).
+fn timer_start(p: &Pending, progress: Instant) -> (Instant, usize) {
+    if progress > p.sent_at { (progress, p.reply_wire) } else { (p.sent_at, p.load) }
+}
+
+/// Fewest tries of one request within the silence limit.
+const SILENCE_TRIES: u32 = 30;
 
 /// Why a request goes out again.
 #[derive(Clone, Copy, PartialEq, Eq)]
@@ -236,7 +279,8 @@ impl NativeAdapter {
         // room to spare, never above the ceiling; it does not back off: a
         // HELLO runs nothing, so a repeat costs the adapter nothing, and
         // whichever answer arrives first is taken (they are all alike).
-        let mut timer = RetransmitTimer::new(RTO_FLOOR, settings.timeout);
+        let mut timer = RetransmitTimer::new(RTO_FLOOR, settings.timeout)
+            .assuming_byte_time(Duration::from_secs_f64(10.0 / settings.baud.max(1) as f64));
         let wait = hello_wait(settings.baud).min(settings.timeout);
         let give_up = Instant::now() + settings.silence;
         let mut expiries = 0u32;
@@ -294,11 +338,12 @@ impl NativeAdapter {
             driver: "native".into(),
             target: path.into(),
             description: format!(
-                "native protocol v{VERSION}, session {:04X}, window {}, frames up to {} bytes{}",
+                "native protocol v{VERSION}, session {:04X}, window {}, frames up to {} bytes{}{}",
                 h.session,
                 wire.window,
                 wire.max_frame,
-                if wire.has(flag::PRECISE) { ", per-byte results" } else { "" }
+                if wire.has(flag::PRECISE) { ", per-byte results" } else { "" },
+                if wire.has(flag::REORDER) { ", keeps early requests" } else { "" }
             ),
         };
         let speed = BusSpeed::from_hz(wire.speed_hz as u64).unwrap_or(BusSpeed::STANDARD);
@@ -357,8 +402,16 @@ impl NativeAdapter {
         self.link.path().to_string()
     }
 
-    fn send(&mut self, p: &mut Pending, seq: u16, send_no: &mut u64, why: Resend) -> Result<(), NativeError> {
+    fn send(
+        &mut self,
+        p: &mut Pending,
+        ahead: usize,
+        seq: u16,
+        send_no: &mut u64,
+        why: Resend,
+    ) -> Result<(), NativeError> {
         let h = Header { version: VERSION, kind: p.kind, seq, session: self.session };
+        p.load = ahead + p.wire;
         self.link.send(h, &p.body)?;
         let now = Instant::now();
         p.sent_at = now;
@@ -382,7 +435,7 @@ impl NativeAdapter {
     }
 
     /// Sends requests pipelined and collects their replies in order.
-    fn exchange(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+    fn exchange(&mut self, reqs: Vec<Request>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
         if let Some(e) = &self.failed {
             return Err(e.clone());
         }
@@ -393,7 +446,7 @@ impl NativeAdapter {
         r
     }
 
-    fn exchange_inner(&mut self, reqs: Vec<(u8, Vec<u8>, Duration)>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
+    fn exchange_inner(&mut self, reqs: Vec<Request>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
         let n = reqs.len();
         let base = self.next_seq;
         self.next_seq = self.next_seq.wrapping_add(n as u16);
@@ -401,8 +454,11 @@ impl NativeAdapter {
         let now = Instant::now();
         let mut p: Vec<Pending> = reqs
             .into_iter()
-            .map(|(kind, body, extra)| Pending {
+            .map(|Request { kind, body, extra, reply_len }| Pending {
                 kind,
+                wire: wire_len(body.len()) + wire_len(reply_len),
+                reply_wire: wire_len(reply_len),
+                load: 0,
                 body,
                 extra,
                 reply: None,
@@ -411,20 +467,33 @@ impl NativeAdapter {
                 sends: 0,
                 expiries: 0,
                 first_sent: None,
+                held: false,
             })
             .collect();
         let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
         // When the adapter was last heard from; the wait starts now.
         let mut heard = now;
+        // When the last new reply came.
+        let mut progress = now;
         let mut dropped_before = self.link.stats.frames_dropped;
         let seq = |i: usize| base.wrapping_add(i as u16);
         while done < n {
             while sent < n && sent < done + self.window_size.size() {
-                self.send(&mut p[sent], seq(sent), &mut send_no, Resend::First)?;
+                let ahead = in_flight(&p[done..sent]);
+                self.send(&mut p[sent], ahead, seq(sent), &mut send_no, Resend::First)?;
                 sent += 1;
             }
+            // The timer runs from the oldest request's send or from the
+            // last new reply, whichever is later (RFC 6298 §5.3: restart
+            // on progress): on a slow line the replies before it were
+            // what it waited behind.
             let oldest = &p[done];
-            let timer = oldest.sent_at + self.timer.backed_off(oldest.expiries) + oldest.extra;
+            let (start, bytes) = timer_start(oldest, progress);
+            // However far backed off, the silence limit sees at least
+            // `SILENCE_TRIES` tries: an adapter speaks only when spoken to,
+            // so a long wait would let a working but lossy link go quiet.
+            let wait = self.timer.backed_off_sized(oldest.expiries, bytes).min(self.settings.silence / SILENCE_TRIES);
+            let timer = start + wait + oldest.extra;
             // A DELAY keeps the adapter quiet for as long as it asked.
             let give_up = heard + self.settings.silence + oldest.extra;
             let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
@@ -432,9 +501,12 @@ impl NativeAdapter {
                 if now >= give_up {
                     return Err(NativeError::Silent { path: self.path(), waited_ms: (now - heard).as_millis() });
                 }
-                // The oldest request's own timer ran out: one try. Go back
-                // to it and send everything from there again (the adapter
-                // dropped what came after a lost request).
+                // The oldest request's own timer ran out: one try. It goes
+                // again, with every later one whose own timer (from its own
+                // send, over all it waited behind) has run out too: sending
+                // the rest as well would queue duplicates on a slow line and
+                // make the next timers expire in turn (measured at 115200
+                // baud: the link collapsed into repeats).
                 p[done].expiries += 1;
                 if let Some(limit) = self.settings.tries
                     && p[done].expiries >= limit
@@ -443,9 +515,13 @@ impl NativeAdapter {
                     return Err(NativeError::NoReply { path: self.path(), tries: p[done].expiries, waited_ms: waited });
                 }
                 self.lost(now);
+                let mut ahead = 0;
                 for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
-                    if q.reply.is_none() {
-                        self.send(q, seq(i), &mut send_no, Resend::Timer)?;
+                    let due = i == done
+                        || (!q.held && q.sent_at + self.timer.backed_off_sized(q.expiries, q.load) + q.extra <= now);
+                    if q.reply.is_none() && due {
+                        self.send(q, ahead, seq(i), &mut send_no, Resend::Timer)?;
+                        ahead += q.reply_wire;
                     }
                 }
                 continue;
@@ -468,17 +544,27 @@ impl NativeAdapter {
             let idx = h.seq.wrapping_sub(base) as usize;
             match h.kind {
                 kind::GAP => {
-                    // The adapter dropped a request because it still waits
-                    // for number `h.seq`; the request that triggered the
-                    // notice is named in the body.
+                    // The adapter still waits for number `h.seq`; the request
+                    // that triggered the notice is named in the body, and an
+                    // adapter that keeps early requests (flag REORDER) adds
+                    // whether it kept that one. Every request from `h.seq`
+                    // up to it that is neither answered nor kept, and not
+                    // re-sent since it went, was lost: the line keeps order,
+                    // so it would have arrived first.
                     self.stats.gaps += 1;
-                    let trigger = Reader::new(&body).u16().map(|s| s.wrapping_sub(base) as usize);
+                    let mut r = Reader::new(&body);
+                    let trigger = r.u16().map(|s| s.wrapping_sub(base) as usize);
+                    let kept = self.wire.has(flag::REORDER) && r.u8() == Some(1);
                     let Some(j) = trigger.filter(|&j| j < sent) else { continue };
+                    if kept {
+                        p[j].held = true;
+                    }
                     let limit = p[j].send_no;
                     let mut resent = false;
+                    let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
-                        if q.reply.is_none() && q.send_no <= limit {
-                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                        if q.reply.is_none() && !q.held && q.send_no <= limit {
+                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
                             resent = true;
                         }
                     }
@@ -499,9 +585,16 @@ impl NativeAdapter {
                     p[idx].reply = Some((k, body));
                     // Karn's rule: a reply to a repeated request could
                     // answer any of its sends, so it is no sample; nor is
-                    // one that includes a DELAY's wait.
-                    if p[idx].sends == 1 && p[idx].extra.is_zero() {
-                        self.timer.sample(now - p[idx].sent_at);
+                    // one that includes a DELAY's wait. Timed as its timer
+                    // runs: from its send or the reply before it.
+                    // Nor is one that waited behind a repair: a request
+                    // re-sent after it went out runs first, so its reply
+                    // includes that resend's round trip (Karn's reasoning,
+                    // extended to the pipeline).
+                    let repaired = p[done..idx].iter().any(|q| q.sends > 1 && q.send_no > p[idx].send_no);
+                    if p[idx].sends == 1 && p[idx].extra.is_zero() && !p[idx].held && !repaired {
+                        let (start, bytes) = timer_start(&p[idx], progress);
+                        self.timer.sample_sized(now.saturating_duration_since(start), bytes);
                         self.batch_size.clean();
                         self.window_size.clean();
                     }
@@ -510,15 +603,17 @@ impl NativeAdapter {
                     // lost its reply on the way: ask again at once.
                     let limit = p[idx].send_no;
                     let mut resent = false;
+                    let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
                         if q.reply.is_none() && q.send_no < limit {
-                            self.send(q, seq(i), &mut send_no, Resend::Fast)?;
+                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
                             resent = true;
                         }
                     }
                     if resent {
                         self.lost(now);
                     }
+                    progress = now;
                     while done < n && p[done].reply.is_some() {
                         done += 1;
                     }
@@ -545,7 +640,7 @@ impl NativeAdapter {
     /// One control request with a small reply; returns the body after the
     /// adapter time.
     fn control(&mut self, k: u8, body: Vec<u8>, extra: Duration) -> Result<Vec<u8>, NativeError> {
-        let mut r = self.exchange(vec![(k, body, extra)])?;
+        let mut r = self.exchange(vec![Request { kind: k, body, extra, reply_len: 8 + 5 }])?;
         let (_, body) = r.pop().ok_or_else(|| NativeError::Malformed { path: self.path(), kind: k })?;
         Ok(body.get(8..).unwrap_or_default().to_vec())
     }
@@ -611,7 +706,15 @@ impl NativeAdapter {
     fn round(&mut self, txs: &[Transaction], batch: usize, out: &mut Vec<Outcome>) -> Result<(), NativeError> {
         let groups =
             self.pack(txs, batch).map_err(|_| NativeError::Malformed { path: self.path(), kind: kind::RUN })?;
-        let reqs = groups.iter().map(|g| (kind::RUN, encode_run(&txs[g.clone()]), Duration::ZERO)).collect();
+        let reqs = groups
+            .iter()
+            .map(|g| Request {
+                kind: kind::RUN,
+                body: encode_run(&txs[g.clone()]),
+                extra: Duration::ZERO,
+                reply_len: 8 + txs[g.clone()].iter().map(|t| TX_REPORT_LEN + t.byte_counts().1).sum::<usize>(),
+            })
+            .collect();
         let replies = self.exchange(reqs)?;
         for (g, (_, body)) in groups.iter().zip(&replies) {
             let mut r = Reader::new(body);

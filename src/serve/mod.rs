@@ -195,7 +195,7 @@ pub const SERVED_WINDOW: usize = 8;
 
 /// The native protocol over a simulated bench.
 pub struct NativeServer {
-    bridge: Box<Bridge<SERVED_FRAME, SERVED_WINDOW>>,
+    bridge: Box<Bridge<SERVED_FRAME, SERVED_WINDOW, SERVED_WINDOW>>,
     pub board: SimBoard,
     caps: Caps,
     sessions: SplitMix64,

@@ -6,14 +6,19 @@
 //!   number is the expected one runs, and its reply is cached; a repeat of
 //!   one of the last `WINDOW` requests gets its cached reply again without
 //!   touching the bus; a request from ahead of the expected number is
-//!   dropped and answered with `GAP` naming the number expected, so the
-//!   host can go back to it at once.
+//!   answered with `GAP` naming the number expected, so the host can go
+//!   back to it at once. With `HOLD > 0` such a request (up to `HOLD`
+//!   ahead) is kept, not dropped, and runs as soon as the requests before
+//!   it have; the adapter then advertises
+//!   [`flag::REORDER`](crate::wire::flag::REORDER), its `GAP` says whether
+//!   the request was kept, and after running kept requests it names the
+//!   next missing one with a `GAP` at once.
 //! - `HELLO` restarts the numbering (the next request is HELLO's number
 //!   plus one) and forgets the cache; it is answered at any time.
 //! - Frames with a bad CRC or broken COBS are dropped silently; the
 //!   decoder resynchronises on the next delimiter.
 //! - No allocation: buffers are `FRAME` bytes each; RAM is about
-//!   `(WINDOW + 1) * FRAME` bytes plus a few hundred bytes of stack.
+//!   `(WINDOW + HOLD + 1) * FRAME` bytes plus a few hundred bytes of stack.
 //! - No number from the host wraps or panics: a wrap in firmware is a
 //!   field failure. Sequence numbers are compared modulo 2^16 on purpose;
 //!   every other count, length and time from a request is checked before
@@ -142,15 +147,25 @@ struct Slot<const FRAME: usize> {
     body: [u8; FRAME],
 }
 
+/// One request kept until the requests before it have run.
+struct Held<const FRAME: usize> {
+    valid: bool,
+    seq: u16,
+    kind: u8,
+    len: usize,
+    body: [u8; FRAME],
+}
+
 /// Everything but the receive decoder, so a decoded frame (borrowed from
 /// the decoder) can be handled without copying it.
-struct Core<const FRAME: usize, const WINDOW: usize> {
+struct Core<const FRAME: usize, const WINDOW: usize, const HOLD: usize> {
     caps: Caps,
     session: u16,
     greeted: bool,
     expected: u16,
     slots: [Slot<FRAME>; WINDOW],
     next_slot: usize,
+    held: [Held<FRAME>; HOLD],
     executed: u64,
     dropped: u64,
 }
@@ -165,19 +180,28 @@ pub struct BridgeStats {
 }
 
 /// The adapter: `FRAME` is the largest frame in bytes (before COBS),
-/// `WINDOW` the number of requests the host may pipeline.
-pub struct Bridge<const FRAME: usize, const WINDOW: usize> {
+/// `WINDOW` the number of requests the host may pipeline, `HOLD` the
+/// number of early requests it keeps while one before them is missing
+/// (0: none, the go-back-N behaviour of the first adapters; `WINDOW`
+/// covers every request the host may have in flight).
+pub struct Bridge<const FRAME: usize, const WINDOW: usize, const HOLD: usize = 0> {
     rx: Decoder<FRAME>,
-    core: Core<FRAME, WINDOW>,
+    core: Core<FRAME, WINDOW, HOLD>,
 }
 
-impl<const FRAME: usize, const WINDOW: usize> Bridge<FRAME, WINDOW> {
+impl<const FRAME: usize, const WINDOW: usize, const HOLD: usize> Bridge<FRAME, WINDOW, HOLD> {
     /// A bridge with the board's capabilities and a session id that should
     /// differ from the previous boot's (a boot counter or a random number),
     /// so the host can tell that the adapter restarted. `max_frame` and
     /// `window` in `caps` are clamped to `FRAME` and `WINDOW`, and
-    /// `max_ops_per_tx` to [`MAX_OPS`].
+    /// `max_ops_per_tx` to [`MAX_OPS`]; the `REORDER` flag is set exactly
+    /// when `HOLD > 0`.
     pub fn new(mut caps: Caps, session: u16) -> Self {
+        if HOLD > 0 {
+            caps.flags |= flag::REORDER;
+        } else {
+            caps.flags &= !flag::REORDER;
+        }
         caps.max_frame = caps.max_frame.min(FRAME.min(u16::MAX as usize) as u16);
         caps.window = caps.window.clamp(1, WINDOW.clamp(1, 255) as u8);
         caps.max_ops_per_tx = caps.max_ops_per_tx.clamp(1, MAX_OPS as u8);
@@ -191,6 +215,7 @@ impl<const FRAME: usize, const WINDOW: usize> Bridge<FRAME, WINDOW> {
                 expected: 0,
                 slots: core::array::from_fn(|_| Slot { valid: false, seq: 0, kind: 0, len: 0, body: [0; FRAME] }),
                 next_slot: 0,
+                held: core::array::from_fn(|_| Held { valid: false, seq: 0, kind: 0, len: 0, body: [0; FRAME] }),
                 executed: 0,
                 dropped: 0,
             },
@@ -249,7 +274,7 @@ fn send<L: Link>(link: &mut L, h: Header, body: &[u8]) -> Result<(), L::Error> {
     link.flush()
 }
 
-impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
+impl<const FRAME: usize, const WINDOW: usize, const HOLD: usize> Core<FRAME, WINDOW, HOLD> {
     fn header(&self, kind: u8, seq: u16) -> Header {
         Header { version: VERSION, kind, seq, session: self.session }
     }
@@ -272,6 +297,9 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
             for s in &mut self.slots {
                 s.valid = false;
             }
+            for s in &mut self.held {
+                s.valid = false;
+            }
             let mut out = [0u8; 8 + wire::CAPS_LEN];
             let mut w = Writer::new(&mut out);
             w.u64(target.now_ns());
@@ -285,7 +313,11 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
         // Sequence numbers live modulo 2^16: the wrap is the protocol's.
         let ahead = h.seq.wrapping_sub(self.expected) as i16;
         if ahead > 0 {
-            return send(link, self.header(kind::GAP, self.expected), &h.seq.to_le_bytes());
+            let kept = self.hold(h.seq, h.kind, body, ahead as usize);
+            let [a, b] = h.seq.to_le_bytes();
+            let gap = [a, b, kept as u8];
+            let n = if HOLD > 0 { 3 } else { 2 };
+            return send(link, self.header(kind::GAP, self.expected), &gap[..n]);
         }
         if ahead < 0 {
             if let Some(s) = self.slots.iter().find(|s| s.valid && s.seq == h.seq) {
@@ -294,7 +326,61 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
             // Older than the cache: the host has long had its reply.
             return Ok(());
         }
-        // The expected request: run it once, cache the reply, send it.
+        self.run_expected(h.seq, h.kind, None, body, link, target)?;
+        // A kept copy of a request that just ran directly is stale.
+        let expected = self.expected;
+        for s in self.held.iter_mut().filter(|s| s.valid && (s.seq.wrapping_sub(expected) as i16) < 0) {
+            s.valid = false;
+        }
+        // Requests kept while this one was missing run now, in order.
+        let mut ran_kept = false;
+        while let Some(k) = self.held.iter().position(|s| s.valid && s.seq == self.expected) {
+            self.held[k].valid = false;
+            let (seq, kind) = (self.held[k].seq, self.held[k].kind);
+            self.run_expected(seq, kind, Some(k), &[], link, target)?;
+            ran_kept = true;
+        }
+        // Still holding later ones: the next request is missing too. Say so
+        // at once rather than wait for the host's timer.
+        if ran_kept
+            && let Some(first) =
+                self.held.iter().filter(|s| s.valid).map(|s| s.seq).min_by_key(|&q| q.wrapping_sub(self.expected))
+        {
+            let [a, b] = first.to_le_bytes();
+            return send(link, self.header(kind::GAP, self.expected), &[a, b, 1]);
+        }
+        Ok(())
+    }
+
+    /// Keeps a request `ahead` of the expected one, if there is room and
+    /// it is not kept already; whether it is kept now.
+    fn hold(&mut self, seq: u16, kind: u8, body: &[u8], ahead: usize) -> bool {
+        if ahead > HOLD {
+            return false;
+        }
+        if self.held.iter().any(|s| s.valid && s.seq == seq) {
+            return true;
+        }
+        let Some(slot) = self.held.iter_mut().find(|s| !s.valid) else { return false };
+        if body.len() > slot.body.len() {
+            return false;
+        }
+        slot.body[..body.len()].copy_from_slice(body);
+        (slot.valid, slot.seq, slot.kind, slot.len) = (true, seq, kind, body.len());
+        true
+    }
+
+    /// Runs the expected request once, caches its reply and sends it; its
+    /// body is `body`, or that of kept request `held`.
+    fn run_expected<L: Link, T: Target>(
+        &mut self,
+        seq: u16,
+        req_kind: u8,
+        held: Option<usize>,
+        body: &[u8],
+        link: &mut L,
+        target: &mut T,
+    ) -> Result<(), L::Error> {
         let i = self.next_slot;
         self.next_slot = (self.next_slot + 1) % WINDOW;
         self.expected = self.expected.wrapping_add(1);
@@ -303,8 +389,12 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
             let caps = self.caps;
             let slot = &mut self.slots[i];
             slot.valid = false;
-            match execute(&caps, h.kind, body, &mut slot.body, target) {
-                Ok(n) => (h.kind | kind::REPLY, n),
+            let body = match held {
+                Some(k) => &self.held[k].body[..self.held[k].len],
+                None => body,
+            };
+            match execute(&caps, req_kind, body, &mut slot.body, target) {
+                Ok(n) => (req_kind | kind::REPLY, n),
                 Err(why) => {
                     slot.body[0] = why;
                     slot.body[1] = VERSION;
@@ -312,7 +402,7 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
                 }
             }
         };
-        if h.kind == kind::SPEED && reply_kind == (kind::SPEED | kind::REPLY) {
+        if req_kind == kind::SPEED && reply_kind == (kind::SPEED | kind::REPLY) {
             let b = &self.slots[i].body;
             if b[8] == 0 {
                 self.caps.speed_hz = u32::from_le_bytes([b[9], b[10], b[11], b[12]]);
@@ -320,10 +410,10 @@ impl<const FRAME: usize, const WINDOW: usize> Core<FRAME, WINDOW> {
         }
         let slot = &mut self.slots[i];
         slot.valid = true;
-        slot.seq = h.seq;
+        slot.seq = seq;
         slot.kind = reply_kind;
         slot.len = len;
-        let hdr = Header { version: VERSION, kind: reply_kind, seq: h.seq, session: self.session };
+        let hdr = Header { version: VERSION, kind: reply_kind, seq, session: self.session };
         send(link, hdr, &self.slots[i].body[..len])
     }
 }

@@ -59,6 +59,11 @@ pub mod flag {
     /// Results carry the exact failing operation and byte, and modelled
     /// bus time (the board has a side channel beyond embedded-hal).
     pub const PRECISE: u8 = 1 << 3;
+    /// The adapter keeps requests that arrive ahead of a missing one (up
+    /// to its window) and runs them once the gap fills, so the host
+    /// re-sends only what is missing (selective repeat); its `GAP`
+    /// notices then carry a third byte saying whether the request was kept.
+    pub const REORDER: u8 = 1 << 4;
 }
 
 /// A frame header.

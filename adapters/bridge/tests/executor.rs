@@ -112,17 +112,26 @@ const CAPS: Caps = Caps {
     stretch_timeout_us: 10_000,
 };
 
-struct Rig {
-    bridge: Bridge<512, 4>,
+struct Rig<const HOLD: usize = 0> {
+    bridge: Bridge<512, 4, HOLD>,
     link: VecLink,
     board: FakeBoard,
 }
 
-impl Rig {
+impl Rig<0> {
     fn new() -> Self {
         Rig { bridge: Bridge::new(CAPS, 0x5151), link: VecLink::default(), board: FakeBoard::default() }
     }
+}
 
+impl Rig<4> {
+    /// A bridge that keeps up to 4 early requests (selective repeat).
+    fn reordering() -> Self {
+        Rig { bridge: Bridge::new(CAPS, 0x5151), link: VecLink::default(), board: FakeBoard::default() }
+    }
+}
+
+impl<const HOLD: usize> Rig<HOLD> {
     /// Sends one frame and returns every frame the bridge answered.
     fn ask(&mut self, h: Header, body: &[u8]) -> Vec<(Header, Vec<u8>)> {
         let Ok(()) = wire::emit_frame(h, body, |p: &[u8]| {
@@ -202,6 +211,47 @@ fn a_request_from_ahead_is_dropped_with_a_gap_notice() {
     rig.ask(req(kind::RUN, 0xFFFF), &write_read(0x2B, 1));
     rig.ask(req(kind::RUN, 0x0000), &write_read(0x2B, 1));
     assert_eq!(rig.board.bus.transactions, 2, "in order across the wrap");
+}
+
+// Selective repeat (adapters/PROTOCOL.md section 3): requests ahead of a
+// missing one are kept, not dropped, and run in order once it arrives;
+// each exactly once.
+#[test]
+fn early_requests_are_kept_and_run_in_order_once_the_gap_fills() {
+    let mut rig = Rig::reordering();
+    let caps = rig.hello(10);
+    assert!(caps.has(flag::REORDER), "advertised");
+    assert!(!Rig::new().hello(10).has(flag::REORDER), "and only when the bridge keeps requests");
+    for seq in [12, 13] {
+        let r = rig.ask(req(kind::RUN, seq), &write_read(0x2B, 1));
+        assert_eq!((r.len(), r[0].0.kind, r[0].0.seq), (1, kind::GAP, 11));
+        assert_eq!(r[0].1, [seq as u8, 0, 1], "names the request and says it was kept");
+    }
+    assert_eq!(rig.ask(req(kind::RUN, 13), &write_read(0x2B, 1))[0].1, [13, 0, 1], "a repeat is kept once");
+    assert_eq!(rig.board.bus.transactions, 0, "nothing runs out of order");
+    let r = rig.ask(req(kind::RUN, 11), &write_read(0x2B, 1));
+    let seqs: Vec<(u8, u16)> = r.iter().map(|(h, _)| (h.kind, h.seq)).collect();
+    let run = kind::RUN | kind::REPLY;
+    assert_eq!(seqs, [(run, 11), (run, 12), (run, 13)], "the gap filled: all three, in order");
+    assert_eq!(rig.board.bus.transactions, 3);
+    rig.ask(req(kind::RUN, 12), &write_read(0x2B, 1));
+    assert_eq!(rig.board.bus.transactions, 3, "a repeat of a kept request comes from the cache");
+
+    // Two holes: after the first fills, the next is named at once.
+    rig.ask(req(kind::RUN, 15), &write_read(0x2B, 1));
+    rig.ask(req(kind::RUN, 17), &write_read(0x2B, 1));
+    let r = rig.ask(req(kind::RUN, 14), &write_read(0x2B, 1));
+    let seqs: Vec<(u8, u16)> = r.iter().map(|(h, _)| (h.kind, h.seq)).collect();
+    assert_eq!(seqs, [(run, 14), (run, 15), (kind::GAP, 16)]);
+    assert_eq!(r[2].1, [17, 0, 1]);
+    let r = rig.ask(req(kind::RUN, 16), &write_read(0x2B, 1));
+    assert_eq!(r.iter().map(|(h, _)| h.seq).collect::<Vec<_>>(), [16, 17]);
+    assert_eq!(rig.board.bus.transactions, 7);
+
+    // Further ahead than it keeps: dropped, and the GAP says so.
+    let r = rig.ask(req(kind::RUN, 18 + 5), &write_read(0x2B, 1));
+    assert_eq!((r[0].0.kind, r[0].1.as_slice()), (kind::GAP, &[23u8, 0, 0][..]));
+    assert_eq!(rig.bridge.stats().executed, 7);
 }
 
 #[test]
