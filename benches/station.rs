@@ -12,15 +12,21 @@
 //! fixture (user + system, from wait4's rusage). Every fixture must pass
 //! and its report must count every transaction, so a fast wrong run
 //! cannot pass.
+//!
+//! Two links in the same run: the bare pseudo-terminal (answers as fast
+//! as the two processes can turn them round, so the host's CPU is all
+//! there is to wait for), and the same paced like a 115200-baud UART
+//! (`serve --baud 115200`), as a fixture's USB-serial adapter would be.
 
 use std::path::Path;
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
 
-fn serve() -> (Child, String) {
+fn serve(baud: Option<u32>) -> (Child, String) {
     use std::io::{BufRead, BufReader};
     let mut child = Command::new(env!("CARGO_BIN_EXE_buscue"))
         .args(["serve", "--bench", "sim"])
+        .args(baud.map(|b| vec!["--baud".to_string(), b.to_string()]).unwrap_or_default())
         .stdout(Stdio::piped())
         .stderr(Stdio::null())
         .spawn()
@@ -31,9 +37,9 @@ fn serve() -> (Child, String) {
 }
 
 /// Runs the station over `n` served fixtures: wall time and CPU time.
-fn station(n: usize, script: &Path, dir: &Path, reads: usize) -> (Duration, Duration) {
-    let served: Vec<_> = (0..n).map(|_| serve()).collect();
-    let out = dir.join(format!("out-{n}"));
+fn station(n: usize, script: &Path, dir: &Path, reads: usize, baud: Option<u32>) -> (Duration, Duration) {
+    let served: Vec<_> = (0..n).map(|_| serve(baud)).collect();
+    let out = dir.join(format!("out-{n}-{}", baud.unwrap_or(0)));
     let mut cmd = Command::new(env!("CARGO_BIN_EXE_buscue"));
     cmd.current_dir(env!("CARGO_MANIFEST_DIR")).arg("station").arg(script).arg("--out").arg(&out);
     for (i, (_, path)) in served.iter().enumerate() {
@@ -84,15 +90,17 @@ fn main() {
         format!("{demo}\nstep(\"soak\", function()\n  for _ = 1, {reads} do light:get(0x02) end\nend)\n"),
     )
     .unwrap();
-    let (one, one_cpu) = station(1, &script, dir.path(), reads);
-    let (eight, eight_cpu) = station(8, &script, dir.path(), reads);
-    println!("station, {} transactions per fixture over pseudo-terminals (native protocol):", 7 + reads);
-    println!("  1 fixture : wall {:8.1} ms, CPU {:7.1} ms", one.as_secs_f64() * 1e3, one_cpu.as_secs_f64() * 1e3);
-    println!(
-        "  8 fixtures: wall {:8.1} ms, CPU {:7.1} ms ({:.1} ms per fixture)",
-        eight.as_secs_f64() * 1e3,
-        eight_cpu.as_secs_f64() * 1e3,
-        eight_cpu.as_secs_f64() * 1e3 / 8.0
-    );
-    println!("  8 / 1 wall time: {:.2} (goal: under 1.5)", eight.as_secs_f64() / one.as_secs_f64());
+    for (link, baud) in [("pseudo-terminals", None), ("pseudo-terminals paced at 115200 baud", Some(115_200))] {
+        let (one, one_cpu) = station(1, &script, dir.path(), reads, baud);
+        let (eight, eight_cpu) = station(8, &script, dir.path(), reads, baud);
+        println!("station, {} transactions per fixture over {link} (native protocol):", 7 + reads);
+        println!("  1 fixture : wall {:8.1} ms, CPU {:7.1} ms", one.as_secs_f64() * 1e3, one_cpu.as_secs_f64() * 1e3);
+        println!(
+            "  8 fixtures: wall {:8.1} ms, CPU {:7.1} ms ({:.1} ms per fixture)",
+            eight.as_secs_f64() * 1e3,
+            eight_cpu.as_secs_f64() * 1e3,
+            eight_cpu.as_secs_f64() * 1e3 / 8.0
+        );
+        println!("  8 / 1 wall time: {:.2} (goal: under 1.5)", eight.as_secs_f64() / one.as_secs_f64());
+    }
 }

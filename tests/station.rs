@@ -507,6 +507,10 @@ fn a_fixture_past_its_time_limit_ends_alone_with_whole_reports() {
         let trace = std::fs::read_to_string(out.join(format!("{name}.trace.jsonl"))).unwrap();
         let last: serde_json::Value = serde_json::from_str(trace.lines().last().unwrap()).unwrap();
         assert_eq!(last["kind"], "end", "{name}: {last}");
+        // The report counts what the trace holds, the stuck fixture's too.
+        let frames = trace.lines().filter(|l| l.starts_with(r#"{"kind":"frame""#)).count() as u64;
+        assert_eq!(f["stats"]["attempts"].as_u64(), Some(frames), "{name}: {}", f["stats"]);
+        assert_eq!(f["stats"]["bus_ns"], last["stats"]["bus_ns"], "{name}");
     }
     assert_eq!(r["fixtures"][2]["passed"], true);
 }
@@ -562,4 +566,26 @@ fn on_a_terminal_each_fixture_has_one_line_redrawn_in_place() {
     assert!(!text.contains("fixture bay1: step"), "{text}");
     assert!(String::from_utf8_lossy(&bytes).contains("\x1b[2A"), "the cursor went back up two lines");
     assert!(text.contains("station: 2 of 2 fixture(s) passed"), "{text}");
+}
+
+/// Off a terminal each finished step gets its line, nested ones indented
+/// under the outer, and the count covers nested steps in what is done and
+/// in what is planned alike (the plan read off the text cannot tell
+/// nesting), so it never reads "3/2".
+#[test]
+fn plain_progress_counts_nested_steps_in_done_and_planned_alike() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_d, script) = common::script(
+        "nested.lua",
+        "step('outer', function()\n  step('inner', function() bus.write_read(0x2B, {0}, 2) end)\nend)\n\
+         step('last', function() end)\n",
+    );
+    let out = dir.path().join("out");
+    let o =
+        run(&["station", script.to_str().unwrap(), "--fixture", "a=sim", "--out", out.to_str().unwrap(), "--plain"]);
+    assert_eq!(code(&o), 0, "{}", stderr(&o));
+    let err = stderr(&o);
+    assert!(err.contains("fixture a:   step 1/3 outer/inner passed"), "{err}");
+    assert!(err.contains("fixture a: step 2/3 outer passed"), "{err}");
+    assert!(err.contains("fixture a: step 3/3 last passed"), "{err}");
 }

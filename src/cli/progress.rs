@@ -34,7 +34,8 @@ struct Line {
 
 pub struct Progress {
     lines: Vec<Line>,
-    /// Top-level steps the script's text plans (0: not known).
+    /// Steps with a body the script's text plans, nested ones included
+    /// (0: not known).
     planned: usize,
     live: bool,
     /// Lines drawn last time, to move back over.
@@ -59,17 +60,17 @@ impl Progress {
                 if r.status != Status::Passed {
                     line.failing = true;
                 }
-                if ev.depth > 0 {
-                    return self.redraw();
-                }
+                // Every step with a body counts, nested ones too: the plan
+                // read off the script's text cannot tell nesting either.
                 line.done += 1;
                 line.current = None;
                 if !self.live {
                     let of = if self.planned >= line.done { format!("/{}", self.planned) } else { String::new() };
                     let _ = writeln!(
                         std::io::stderr(),
-                        "fixture {}: step {}{of} {} {} ({} transactions)",
+                        "fixture {}: {}step {}{of} {} {} ({} transactions)",
                         line.name,
+                        "  ".repeat(ev.depth as usize),
                         line.done,
                         shown(&r.name),
                         r.status.word(),

@@ -547,6 +547,11 @@ fn stuck_fixture(
     let mut r = failed_fixture(&f.name, script, &why);
     r.adapter = f.written.clone();
     r.stats.transactions = w.transactions;
+    // The trace's own counts of what it holds, where the fixture has one:
+    // the same numbers its end record gets.
+    if let Some(t) = &w.rescue {
+        r.stats = t.stats();
+    }
     let mut steps = std::mem::take(&mut w.ended);
     for name in w.open.drain(..).rev() {
         steps.push(crate::report::StepResult {

@@ -119,6 +119,11 @@ fn lock(m: &Mutex<Written>) -> MutexGuard<'_, Written> {
 }
 
 impl TraceRescue {
+    /// The counts of the frames written so far (what an end record would say).
+    pub fn stats(&self) -> Stats {
+        lock(&self.shared).stats.clone()
+    }
+
     /// Ends the trace now, unless it has ended: an end record with `exit`,
     /// `error` and the counts of the frames written, then a sync.
     pub fn end(&self, exit: u8, error: &str) -> io::Result<()> {
