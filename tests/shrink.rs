@@ -444,4 +444,10 @@ fn a_reset_script_runs_before_every_trial() {
     assert_ne!(code(&o), 0);
     assert!(stderr(&o).contains("reset script") && stderr(&o).contains("relay did not answer"), "{}", stderr(&o));
     assert!(stderr(&o).contains(":3"), "the line of the failure: {}", stderr(&o));
+    // A reset stuck in one long library call (out of the hook's reach)
+    // still ends at the search's time limit.
+    std::fs::write(&reset, "string.rep('a', 500):find('.-.-.-b')\n").unwrap();
+    let o = run(&["shrink", rec.to_str().unwrap(), "--reset", reset.to_str().unwrap(), "--max-time", "2s"]);
+    assert_eq!(code(&o), 2, "{}", stderr(&o));
+    assert!(stderr(&o).contains("time limit") && stderr(&o).contains("did not stop"), "{}", stderr(&o));
 }

@@ -48,7 +48,7 @@ pub struct ShrinkArgs {
     /// A Lua script run on the board before every trial, to put it in the
     /// same starting state (power-cycle a fixture, write a reset register);
     /// its transactions are not part of the trial. Limits as for `run`'s
-    /// defaults, and at most 60 s per reset.
+    /// defaults, and at most 60 s per reset (or what is left of --max-time).
     #[arg(long, value_name = "SCRIPT")]
     pub reset: Option<PathBuf>,
     /// After shrinking, try shortening each kept gap between transactions
@@ -111,6 +111,9 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
     let bus = a.bus.clone();
     let interrupt = interrupt_flag()?;
     let reset_interrupt = interrupt.clone();
+    // The search's own time limit bounds its resets too.
+    let started = std::time::Instant::now();
+    let max_time = (!a.max_time.is_zero()).then_some(a.max_time);
     let mut open = move || -> Result<Box<dyn crate::adapter::Adapter>, AdapterError> {
         let mut adapter = bus.open().map_err(|e| AdapterError::Input(e.to_string()))?;
         if let Some(s) = speed {
@@ -121,8 +124,15 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
             }
         }
         if let Some(cfg) = &reset {
-            let session = crate::script::Session::new(adapter, reset_interrupt.clone());
+            let mut session = crate::script::Session::new(adapter, reset_interrupt.clone());
+            let left = max_time.map(|m| m.saturating_sub(started.elapsed()).max(Duration::from_millis(1)));
+            session.set_time_limit(cfg.timeout.into_iter().chain(left).min());
+            // What the script's hook cannot stop (one long library call)
+            // still ends at the limit, as in `run`.
+            let none = super::watchdog::Outputs { trace: None, trace_path: None, log: None };
+            let dog = super::watchdog::Watchdog::start(session.deadline(), reset_interrupt.clone(), none);
             let report = crate::script::run(session, cfg, reset_interrupt.clone());
+            dog.disarm();
             if let Some(abort) = report.abort {
                 // Not a trial's result: the search cannot go on from an unknown state.
                 return Err(AdapterError::Input(format!("the reset script {} failed: {abort}", cfg.script.display())));
@@ -134,7 +144,7 @@ pub fn shrink(a: ShrinkArgs) -> Result<u8> {
     let opts = ShrinkOptions {
         replay: ReplayOptions { time_scale: Some(1.0), keep_going: false, masks, ..Default::default() },
         max_trials: a.max_trials.max(1),
-        max_time: (!a.max_time.is_zero()).then_some(a.max_time),
+        max_time,
         quick_passes: !a.ddmin_only,
         shorter_gaps: a.shorter_gaps,
     };
