@@ -209,7 +209,7 @@ pub struct NativeServer {
 impl NativeServer {
     pub fn new(sim: SimAdapter, seed: u64) -> Self {
         let c = sim.capabilities().clone();
-        let mut flags = flag::PRECISE;
+        let mut flags = flag::PRECISE | flag::SHORT;
         for (on, f) in
             [(c.ten_bit, flag::TEN_BIT), (c.line_readback, flag::LINE_READBACK), (c.recovery, flag::RECOVERY)]
         {

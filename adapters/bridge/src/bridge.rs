@@ -424,7 +424,8 @@ fn execute<T: Target>(caps: &Caps, k: u8, body: &[u8], out: &mut [u8], target: &
     let room = out.len().saturating_sub(HEADER_LEN + wire::CRC_LEN);
     let out = &mut out[..room];
     match k {
-        kind::RUN => run(caps, &mut r, out, target),
+        kind::RUN => run(caps, &mut r, out, target, false),
+        kind::RUN_SHORT if caps.has(flag::SHORT) => run(caps, &mut r, out, target, true),
         kind::SPEED => {
             let hz = r.u32().ok_or(refusal::MALFORMED)?;
             let allowed = (caps.min_speed_hz.max(1)..=caps.max_speed_hz).contains(&hz);
@@ -481,7 +482,11 @@ struct OpDesc {
     len: usize,
 }
 
-fn run<T: Target>(caps: &Caps, r: &mut Reader<'_>, out: &mut [u8], target: &mut T) -> Result<usize, u8> {
+/// Runs a `RUN` (or, `short`, a `RUN_SHORT`) request into `out`. Each
+/// result is laid out at full length first, so the room check before the
+/// bus is touched holds for both forms; a short result then moves its
+/// read data down over the header bytes it does not need.
+fn run<T: Target>(caps: &Caps, r: &mut Reader<'_>, out: &mut [u8], target: &mut T, short: bool) -> Result<usize, u8> {
     let body = r.bytes(r.remaining()).ok_or(refusal::MALFORMED)?;
     let mut r = Reader::new(body);
     let count = r.u8().ok_or(refusal::MALFORMED)?;
@@ -528,16 +533,23 @@ fn run<T: Target>(caps: &Caps, r: &mut Reader<'_>, out: &mut [u8], target: &mut 
             transact(target, ten, addr, &ops[..nops], body, &mut out[pos + TX_REPORT_LEN..data_at])
         };
         let mut head = [0u8; TX_REPORT_LEN];
-        report.write(&mut head);
-        out[pos..pos + TX_REPORT_LEN].copy_from_slice(&head);
+        let head_len = if short {
+            report.write_short(&mut head)
+        } else {
+            report.write(&mut head);
+            TX_REPORT_LEN
+        };
         // Keep only the read data the host expects for this result.
-        let mut end = pos + TX_REPORT_LEN;
+        let mut data = 0;
         for (i, o) in ops[..nops.min(MAX_OPS)].iter().enumerate() {
             if o.read && report.has_data_of(i) && report.status != Status::Refused {
-                end += o.len;
+                data += o.len;
             }
         }
-        pos = end;
+        let from = pos + TX_REPORT_LEN;
+        out.copy_within(from..from + data, pos + head_len);
+        out[pos..pos + head_len].copy_from_slice(&head[..head_len]);
+        pos += head_len + data;
     }
     if r.remaining() != 0 {
         return Err(refusal::MALFORMED);

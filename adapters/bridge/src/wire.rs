@@ -36,6 +36,9 @@ pub mod kind {
     pub const RECOVER: u8 = 0x04;
     pub const LINES: u8 = 0x05;
     pub const DELAY: u8 = 0x06;
+    /// `RUN` whose reply carries short results ([`super::TxReport::write_short`]);
+    /// only to an adapter with [`super::flag::SHORT`].
+    pub const RUN_SHORT: u8 = 0x07;
     pub const REPLY: u8 = 0x80;
     pub const BOOT: u8 = 0xC0;
     pub const REFUSED: u8 = 0xC1;
@@ -64,7 +67,14 @@ pub mod flag {
     /// re-sends only what is missing (selective repeat); its `GAP`
     /// notices then carry a third byte saying whether the request was kept.
     pub const REORDER: u8 = 1 << 4;
+    /// The adapter answers `RUN_SHORT`: a successful transaction's result
+    /// is its status byte and two varint times, not the 16-byte header,
+    /// so a reply of register reads is about half as long on the wire.
+    pub const SHORT: u8 = 1 << 5;
 }
+
+/// Bytes of a varint of a `u32`, at most.
+pub const VARINT_U32_MAX: usize = 5;
 
 /// A frame header.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -156,6 +166,15 @@ impl<'a> Writer<'a> {
     pub fn u64(&mut self, v: u64) {
         self.bytes(&v.to_le_bytes());
     }
+    /// An unsigned LEB128 varint: seven bits a byte, low bits first, bit
+    /// 7 set on every byte but the last.
+    pub fn varint(&mut self, mut v: u32) {
+        while v >= 0x80 {
+            self.u8(v as u8 | 0x80);
+            v >>= 7;
+        }
+        self.u8(v as u8);
+    }
     pub fn len(&self) -> usize {
         self.pos
     }
@@ -198,6 +217,19 @@ impl<'a> Reader<'a> {
         let mut a = [0u8; 8];
         a.copy_from_slice(b);
         Some(u64::from_le_bytes(a))
+    }
+    /// A varint of a `u32` ([`Writer::varint`]); `None` when it is cut
+    /// off, longer than five bytes, or past `u32::MAX`.
+    pub fn varint(&mut self) -> Option<u32> {
+        let mut v = 0u64;
+        for i in 0..VARINT_U32_MAX {
+            let b = self.u8()?;
+            v |= u64::from(b & 0x7F) << (7 * i);
+            if b & 0x80 == 0 {
+                return u32::try_from(v).ok();
+            }
+        }
+        None
     }
     pub fn position(&self) -> usize {
         self.pos
@@ -426,6 +458,38 @@ impl TxReport {
         Failure::decode(self.status, self.info)
     }
 
+    /// The short form of a `RUN_SHORT` reply: a successful transaction
+    /// is `status` (0), then `bus_ns` and `measured_ns` as varints; any
+    /// other status is the full 16-byte header. Returns the bytes
+    /// written, at most [`TX_REPORT_LEN`].
+    pub fn write_short(&self, out: &mut [u8; TX_REPORT_LEN]) -> usize {
+        if self.status != Status::Ok {
+            self.write(out);
+            return TX_REPORT_LEN;
+        }
+        let mut w = Writer::new(out);
+        w.u8(Status::Ok as u8);
+        w.varint(self.bus_ns);
+        w.varint(self.measured_ns);
+        w.len()
+    }
+
+    /// Reads a result written by [`TxReport::write_short`].
+    pub fn read_short(r: &mut Reader<'_>) -> Option<TxReport> {
+        let status = Status::from_u8(r.u8()?)?;
+        if status != Status::Ok {
+            return Some(TxReport {
+                status,
+                op: r.u8()?,
+                index: r.u16()?,
+                info: r.u32()?,
+                bus_ns: r.u32()?,
+                measured_ns: r.u32()?,
+            });
+        }
+        Some(TxReport { bus_ns: r.varint()?, measured_ns: r.varint()?, ..TxReport::OK })
+    }
+
     pub fn read(r: &mut Reader<'_>) -> Option<TxReport> {
         Some(TxReport {
             status: Status::from_u8(r.u8()?)?,
@@ -580,5 +644,48 @@ mod tests {
         assert_eq!(TxReport::read(&mut Reader::new(&b)), Some(t));
         b[0] = 99;
         assert_eq!(TxReport::read(&mut Reader::new(&b)), None, "unknown status codes are refused");
+    }
+
+    // Unsigned LEB128 as the DWARF 5 standard defines it (section 7.6,
+    // table 7.8 of its examples; values from memory of that table):
+    // 2 -> 02, 127 -> 7F, 128 -> 80 01, 129 -> 81 01, 12857 -> B9 64.
+    #[test]
+    fn varints_are_unsigned_leb128() {
+        for (v, bytes) in [
+            (2u32, &[0x02u8][..]),
+            (127, &[0x7F]),
+            (128, &[0x80, 0x01]),
+            (129, &[0x81, 0x01]),
+            (12857, &[0xB9, 0x64]),
+            (u32::MAX, &[0xFF, 0xFF, 0xFF, 0xFF, 0x0F]),
+        ] {
+            let mut buf = [0u8; VARINT_U32_MAX];
+            let mut w = Writer::new(&mut buf);
+            w.varint(v);
+            let n = w.ok().unwrap();
+            assert_eq!(&buf[..n], bytes, "{v}");
+            assert_eq!(Reader::new(bytes).varint(), Some(v));
+        }
+        assert_eq!(Reader::new(&[0x80, 0x80]).varint(), None, "cut off");
+        assert_eq!(Reader::new(&[0xFF, 0xFF, 0xFF, 0xFF, 0x1F]).varint(), None, "past u32::MAX");
+        assert_eq!(Reader::new(&[0x80, 0x80, 0x80, 0x80, 0x80, 0x01]).varint(), None, "longer than five bytes");
+    }
+
+    // A short result is 1 + two varints for a success, the full header for
+    // anything else, and reads back the same.
+    #[test]
+    fn short_reports_roundtrip() {
+        // 75,000 = 0x124F8: 78|80, 49|80, 04; 300 = 0x12C: 2C|80, 02.
+        let ok = TxReport { bus_ns: 75_000, measured_ns: 300, ..TxReport::OK };
+        let mut b = [0u8; TX_REPORT_LEN];
+        assert_eq!(ok.write_short(&mut b), 1 + 3 + 2);
+        assert_eq!(&b[..6], [0, 0xF8, 0xC9, 0x04, 0xAC, 0x02]);
+        assert_eq!(TxReport::read_short(&mut Reader::new(&b[..6])), Some(ok));
+        let worst = TxReport { bus_ns: UNKNOWN_NS, measured_ns: u32::MAX, ..TxReport::OK };
+        assert_eq!(worst.write_short(&mut b), 11, "never longer than the full header");
+        let nack = TxReport::failed(Failure::DataNack, 1, 2, 900);
+        assert_eq!(nack.write_short(&mut b), TX_REPORT_LEN);
+        assert_eq!(TxReport::read_short(&mut Reader::new(&b)), Some(nack));
+        assert_eq!(TxReport::read_short(&mut Reader::new(&b[..5])), None, "cut off");
     }
 }

@@ -254,6 +254,36 @@ fn early_requests_are_kept_and_run_in_order_once_the_gap_fills() {
     assert_eq!(rig.bridge.stats().executed, 7);
 }
 
+// RUN_SHORT runs like RUN and answers a success with the short result
+// (status, two varints), a failure with the full header; only a bridge
+// that advertises flag SHORT takes it.
+#[test]
+fn short_results_carry_the_same_outcome_in_fewer_bytes() {
+    let mut rig = Rig::new();
+    rig.hello(1);
+    let r = rig.ask(req(kind::RUN_SHORT, 2), &write_read(0x2B, 3));
+    assert_eq!((r[0].0.kind, r[0].1[0]), (kind::REFUSED, refusal::UNKNOWN_KIND), "not advertised");
+    assert_eq!(rig.board.bus.transactions, 0);
+    let mut rig = Rig { bridge: Bridge::new(Caps { flags: CAPS.flags | flag::SHORT, ..CAPS }, 0x5151), ..Rig::new() };
+    assert!(rig.hello(1).has(flag::SHORT));
+    let long = rig.ask(req(kind::RUN, 2), &write_read(0x2B, 3));
+    let short = rig.ask(req(kind::RUN_SHORT, 3), &write_read(0x2B, 3));
+    assert_eq!(short[0].0.kind, kind::RUN_SHORT | kind::REPLY);
+    let mut r = Reader::new(&short[0].1);
+    r.u64().unwrap();
+    assert_eq!(TxReport::read_short(&mut r).unwrap().status, Status::Ok);
+    assert_eq!(r.bytes(3).unwrap(), &[0xA5; 3]);
+    assert_eq!(r.remaining(), 0);
+    assert!(short[0].1.len() + 8 <= long[0].1.len(), "{} vs {}", short[0].1.len(), long[0].1.len());
+    // A failure keeps every field: the full header, no data.
+    let nack = rig.ask(req(kind::RUN_SHORT, 4), &write_read(0x13, 1));
+    let mut r = Reader::new(&nack[0].1);
+    r.u64().unwrap();
+    assert_eq!(TxReport::read_short(&mut r).unwrap().status, Status::AddressNack);
+    assert_eq!(r.remaining(), 0);
+    assert_eq!(rig.board.bus.transactions, 3);
+}
+
 #[test]
 fn refusals_name_the_reason() {
     let mut rig = Rig::new();
