@@ -333,11 +333,16 @@ proptest! {
         while rig.bridge.poll(&mut rig.link, &mut rig.board).unwrap() > 0 {}
     }
 
-    // Well-framed requests with arbitrary bodies (good CRC, any kind) are
-    // answered or refused, never a panic.
+    // Well-framed requests with arbitrary bodies (good CRC, any kind, short
+    // results on or off) are answered or refused, never a panic.
     #[test]
-    fn arbitrary_bodies_never_panic(k in 0u8..8, body in proptest::collection::vec(any::<u8>(), 0..600)) {
-        let mut rig = Rig::new();
+    fn arbitrary_bodies_never_panic(
+        k in 0u8..9,
+        short in any::<bool>(),
+        body in proptest::collection::vec(any::<u8>(), 0..600),
+    ) {
+        let flags = if short { CAPS.flags | flag::SHORT } else { CAPS.flags };
+        let mut rig = Rig { bridge: Bridge::new(Caps { flags, ..CAPS }, 0x5151), ..Rig::new() };
         rig.hello(0);
         let r = rig.ask(req(k, 1), &body);
         prop_assert!(r.len() <= 1);
