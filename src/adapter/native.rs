@@ -734,12 +734,12 @@ impl NativeAdapter {
             for tx in &txs[g.clone()] {
                 let rep = if short { TxReport::read_short(&mut r) } else { TxReport::read(&mut r) };
                 let o = rep.and_then(|rep| outcome_of(tx, &rep, &mut r, self.speed));
-                out.push(o.ok_or_else(|| NativeError::Malformed { path: self.path(), kind: kind::RUN })?);
+                out.push(o.ok_or_else(|| NativeError::Malformed { path: self.path(), kind: run_kind })?);
             }
             // More results or data bytes than the request asked for: the
             // reply answers something else.
             if r.remaining() != 0 {
-                return Err(NativeError::Malformed { path: self.path(), kind: kind::RUN });
+                return Err(NativeError::Malformed { path: self.path(), kind: run_kind });
             }
         }
         Ok(())

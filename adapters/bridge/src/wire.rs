@@ -478,27 +478,19 @@ impl TxReport {
     pub fn read_short(r: &mut Reader<'_>) -> Option<TxReport> {
         let status = Status::from_u8(r.u8()?)?;
         if status != Status::Ok {
-            return Some(TxReport {
-                status,
-                op: r.u8()?,
-                index: r.u16()?,
-                info: r.u32()?,
-                bus_ns: r.u32()?,
-                measured_ns: r.u32()?,
-            });
+            return Self::read_after_status(status, r);
         }
         Some(TxReport { bus_ns: r.varint()?, measured_ns: r.varint()?, ..TxReport::OK })
     }
 
     pub fn read(r: &mut Reader<'_>) -> Option<TxReport> {
-        Some(TxReport {
-            status: Status::from_u8(r.u8()?)?,
-            op: r.u8()?,
-            index: r.u16()?,
-            info: r.u32()?,
-            bus_ns: r.u32()?,
-            measured_ns: r.u32()?,
-        })
+        let status = Status::from_u8(r.u8()?)?;
+        Self::read_after_status(status, r)
+    }
+
+    /// The full header's fields after its status byte.
+    fn read_after_status(status: Status, r: &mut Reader<'_>) -> Option<TxReport> {
+        Some(TxReport { status, op: r.u8()?, index: r.u16()?, info: r.u32()?, bus_ns: r.u32()?, measured_ns: r.u32()? })
     }
 
     /// Whether the read data of operation `op` is in the reply: all reads
