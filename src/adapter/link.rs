@@ -168,7 +168,9 @@ impl SerialLink {
             if now >= deadline {
                 return Ok(None);
             }
-            let wait = (deadline - now).max(Duration::from_millis(1));
+            // The wait as asked: a sub-millisecond retransmission timer
+            // must not sleep a millisecond (poll times in nanoseconds).
+            let wait = (deadline - now).max(Duration::from_micros(10));
             self.port.set_timeout(wait).map_err(|e| self.gone(e))?;
             self.inbox.resize(4096, 0);
             match self.port.read(&mut self.inbox) {
