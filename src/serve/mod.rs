@@ -361,8 +361,17 @@ pub fn serve<S: Server>(
                 Ok(0) => break,
                 Ok(n) => {
                     open = true;
-                    let ready = pace_in.as_mut().map(|p| p.carry(n));
-                    if tx.send(Incoming::Bytes(buf[..n].to_vec(), ready)).is_err() {
+                    // A paced line delivers each frame once its own last
+                    // byte has crossed: one read can hold several frames,
+                    // and the first must not wait for the last (a frame
+                    // ends at its delimiter).
+                    let gone = match pace_in.as_mut() {
+                        None => tx.send(Incoming::Bytes(buf[..n].to_vec(), None)).is_err(),
+                        Some(pace) => buf[..n].split_inclusive(|&b| b == 0).any(|piece| {
+                            tx.send(Incoming::Bytes(piece.to_vec(), Some(pace.carry(piece.len())))).is_err()
+                        }),
+                    };
+                    if gone {
                         break;
                     }
                 }
