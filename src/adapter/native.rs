@@ -12,19 +12,25 @@
 //!   touching the bus.
 //! - [`Adapter::execute_batch`] packs independent transactions into
 //!   requests (up to `batch` per request and the frame size) and pipelines
-//!   the requests, in rounds of a few windows' worth so the batch and
-//!   window follow the loss between rounds.
+//!   the requests, in rounds of a few windows' worth so the batch
+//!   follows the loss between rounds.
 //! - Timing is learned from the link ([`super::rto`], RFC 6298): a request
-//!   is sent again when its timer (the RTO, doubled per expiry) runs out,
-//!   or at once when a later reply or a `GAP` shows it missing. Only a
-//!   timer expiry is a try; duplicate replies are harmless.
-//! - Batch and window shrink by half when frames are lost and grow back
-//!   by one per clean round ([`super::rto::FrameSizer`]); a script's
-//!   batch resolves whatever sizes went on the wire.
-//! - The link fails when no valid frame has come for `silence` (default
+//!   is sent again when its timer runs out (first a probe timeout of
+//!   twice the smoothed round trip, then the RTO, doubled per expiry), or
+//!   at once when a later reply or a `GAP` shows it missing. Only a timer
+//!   expiry is a try; duplicate replies are harmless, and a second reply
+//!   to a request sent twice times the first send (the resend was
+//!   needless), so a timer that fell short learns the longer round trip.
+//! - The batch follows the loss ([`super::rto::FrameSizer`]): it starts
+//!   at one and grows per clean reply, and once frames are lost it is the
+//!   size that moves the most transactions through the loss measured;
+//!   the window stays at its limit. A script's batch resolves whatever
+//!   sizes went on the wire.
+//! - The link fails when no new answer has come for `silence` (default
 //!   3 s; `tries` adds a count of timer expiries, off by default), so a
-//!   slow but working link never aborts a run. The handshake follows the
-//!   same timing and give-up rules.
+//!   slow but working link never aborts a run, and one that only repeats
+//!   itself ends. The handshake follows the same timing and give-up
+//!   rules.
 //! - A reply must carry exactly what its request asked for: more results
 //!   or data bytes is a malformed reply.
 //! - Time is the adapter's: [`Adapter::now`] is the adapter clock as of its
@@ -45,7 +51,7 @@ use thiserror::Error;
 
 use super::link::{LinkError, SerialLink};
 use super::native_fault;
-use super::rto::{FrameSizer, RTO_FLOOR, RetransmitTimer};
+use super::rto::{FrameCost, FrameSizer, RTO_FLOOR, RetransmitTimer};
 use super::{Adapter, AdapterError, Capabilities, Identity, LineLevels, LinkCounters, Recovery};
 use crate::bus::timing::{breakdown_events, transaction_time};
 use crate::bus::{BusSpeed, Direction, OpOutcome, Operation, Outcome, Transaction};
@@ -61,7 +67,7 @@ pub struct NativeSettings {
     /// Longest wait for the first try of a request: the ceiling of the
     /// learned retransmission timeout.
     pub timeout: Duration,
-    /// How long the link may go without one valid frame from the adapter
+    /// How long the link may go without a new answer from the adapter
     /// before it counts as failed.
     pub silence: Duration,
     /// Timer expiries of one request before the adapter counts as not
@@ -118,7 +124,7 @@ pub enum NativeError {
     Link(String),
     #[error("no reply from the adapter on {path} after {tries} tries ({waited_ms} ms)")]
     NoReply { path: String, tries: u32, waited_ms: u128 },
-    #[error("no valid frame from the adapter on {path} for {waited_ms} ms (silence_ms): the link is down")]
+    #[error("no answer from the adapter on {path} for {waited_ms} ms (silence_ms): the link is down")]
     Silent { path: String, waited_ms: u128 },
     #[error("the adapter on {path} speaks native protocol version {theirs}; this buscue speaks version {VERSION}")]
     Version { path: String, theirs: u8 },
@@ -176,6 +182,8 @@ pub struct NativeStats {
     /// Frames received from the adapter during exchanges (replies,
     /// repeats of replies, notices).
     pub received: u64,
+    /// Round-trip samples taken from a repeated reply (a needless resend).
+    pub late_samples: u64,
 }
 
 pub struct NativeAdapter {
@@ -191,7 +199,8 @@ pub struct NativeAdapter {
     failed: Option<NativeError>,
     timer: RetransmitTimer,
     batch_size: FrameSizer,
-    window_size: FrameSizer,
+    /// Requests in flight at most.
+    window: usize,
     pub stats: NativeStats,
 }
 
@@ -217,6 +226,15 @@ struct Pending {
     /// Times this request's own timer ran out (its tries).
     expiries: u32,
     first_sent: Option<Instant>,
+    /// [`Self::load`] and [`Self::send_no`] of the first send.
+    first_load: usize,
+    first_send_no: u64,
+    /// It has given the timer its sample.
+    sampled: bool,
+    /// Replies received (a needless resend is answered twice).
+    answers: u32,
+    /// When the first reply came (a later one is a repeat).
+    answered_at: Option<Instant>,
     /// The adapter said it keeps this request until the gap before it
     /// fills (selective repeat): it needs no resend for that gap.
     held: bool,
@@ -363,7 +381,7 @@ impl NativeAdapter {
             failed: None,
             timer,
             batch_size: FrameSizer::new(batch),
-            window_size: FrameSizer::full(window),
+            window,
             stats: NativeStats::default(),
         })
     }
@@ -373,30 +391,21 @@ impl NativeAdapter {
         self.batch_size.size()
     }
 
-    /// Requests in flight now allowed (shrinks under loss).
+    /// Requests in flight allowed: the limit throughout (how many are in
+    /// flight does not change the chance that one crosses).
     pub fn window_in_use(&self) -> usize {
-        self.window_size.size()
+        self.window
     }
 
     /// The most transactions per request and requests in flight: the
     /// adapter's limits, or the user's if lower.
     pub fn limits(&self) -> (usize, usize) {
-        (self.batch_size.max(), self.window_size.max())
+        (self.batch_size.max(), self.window)
     }
 
     /// The retransmission timeout now in use.
     pub fn rto(&self) -> Duration {
         self.timer.rto()
-    }
-
-    /// A frame was lost: frames get shorter. The window stays: how many
-    /// requests are in flight does not change the chance that one frame
-    /// crosses, and on a noisy line more in flight means more chances per
-    /// round trip (a request dropped behind a lost one is re-sent at once
-    /// on the `GAP`).
-    fn lost(&mut self, now: Instant) {
-        let rtt = self.timer.srtt().unwrap_or(self.timer.rto());
-        self.batch_size.lost(now, rtt);
     }
 
     fn path(&self) -> String {
@@ -416,7 +425,9 @@ impl NativeAdapter {
         self.link.send(h, &p.body)?;
         let now = Instant::now();
         p.sent_at = now;
-        p.first_sent.get_or_insert(now);
+        if p.first_sent.is_none() {
+            (p.first_sent, p.first_load, p.first_send_no) = (Some(now), p.load, *send_no + 1);
+        }
         p.sends += 1;
         *send_no += 1;
         p.send_no = *send_no;
@@ -468,18 +479,23 @@ impl NativeAdapter {
                 sends: 0,
                 expiries: 0,
                 first_sent: None,
+                first_load: 0,
+                first_send_no: 0,
+                answered_at: None,
+                sampled: false,
+                answers: 0,
                 held: false,
             })
             .collect();
         let (mut done, mut sent, mut send_no) = (0usize, 0usize, 0u64);
-        // When the adapter was last heard from; the wait starts now.
-        let mut heard = now;
-        // When the last new reply came.
+        // When the last new reply came; the wait starts now. The link
+        // gives up `silence` after it: frames that answer nothing new (a
+        // repeat, a gap notice) show an adapter alive but not a run that
+        // moves, and a run that does not move must end, not hang.
         let mut progress = now;
-        let mut dropped_before = self.link.stats.frames_dropped;
         let seq = |i: usize| base.wrapping_add(i as u16);
         while done < n {
-            while sent < n && sent < done + self.window_size.size() {
+            while sent < n && sent < done + self.window {
                 let ahead = in_flight(&p[done..sent]);
                 self.send(&mut p[sent], ahead, seq(sent), &mut send_no, Resend::First)?;
                 sent += 1;
@@ -493,14 +509,20 @@ impl NativeAdapter {
             // However far backed off, the silence limit sees at least
             // `SILENCE_TRIES` tries: an adapter speaks only when spoken to,
             // so a long wait would let a working but lossy link go quiet.
-            let wait = self.timer.backed_off_sized(oldest.expiries, bytes).min(self.settings.silence / SILENCE_TRIES);
+            // Its first resend comes after a probe timeout, the later ones
+            // after the RTO, backed off.
+            let wait = match oldest.expiries {
+                0 => self.timer.probe_sized(bytes),
+                e => self.timer.backed_off_sized(e - 1, bytes),
+            }
+            .min(self.settings.silence / SILENCE_TRIES);
             let timer = start + wait + oldest.extra;
             // A DELAY keeps the adapter quiet for as long as it asked.
-            let give_up = heard + self.settings.silence + oldest.extra;
+            let give_up = progress + self.settings.silence + oldest.extra;
             let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
                 let now = Instant::now();
                 if now >= give_up {
-                    return Err(NativeError::Silent { path: self.path(), waited_ms: (now - heard).as_millis() });
+                    return Err(NativeError::Silent { path: self.path(), waited_ms: (now - progress).as_millis() });
                 }
                 // The oldest request's own timer ran out: one try. It goes
                 // again, with every later one whose own timer (from its own
@@ -515,7 +537,6 @@ impl NativeAdapter {
                     let waited = p[done].first_sent.map_or(0, |t| t.elapsed().as_millis());
                     return Err(NativeError::NoReply { path: self.path(), tries: p[done].expiries, waited_ms: waited });
                 }
-                self.lost(now);
                 let mut ahead = 0;
                 for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
                     let due = i == done
@@ -528,12 +549,6 @@ impl NativeAdapter {
                 continue;
             };
             self.stats.received += 1;
-            // A damaged frame on the way here is a loss as much as a
-            // timer expiry: frames shrink before the timer would say so.
-            if self.link.stats.frames_dropped > dropped_before {
-                dropped_before = self.link.stats.frames_dropped;
-                self.lost(Instant::now());
-            }
             if h.kind == kind::BOOT {
                 return Err(NativeError::Reset { path: self.path(), why: "it announced a new boot" });
             }
@@ -541,7 +556,6 @@ impl NativeAdapter {
                 continue; // a stale frame from before the handshake
             }
             let now = Instant::now();
-            heard = now;
             let idx = h.seq.wrapping_sub(base) as usize;
             match h.kind {
                 kind::GAP => {
@@ -561,16 +575,11 @@ impl NativeAdapter {
                         p[j].held = true;
                     }
                     let limit = p[j].send_no;
-                    let mut resent = false;
                     let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
                         if q.reply.is_none() && !q.held && q.send_no <= limit {
                             self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
-                            resent = true;
                         }
-                    }
-                    if resent {
-                        self.lost(now);
                     }
                 }
                 kind::REFUSED if body.first() == Some(&refusal::SESSION) => {
@@ -584,6 +593,11 @@ impl NativeAdapter {
                 }
                 k if idx < sent && p[idx].reply.is_none() && (k == kind::REFUSED || k == p[idx].kind | kind::REPLY) => {
                     p[idx].reply = Some((k, body));
+                    p[idx].answered_at = Some(now);
+                    p[idx].answers = 1;
+                    // Every try but one (so far) was lost: what frames
+                    // of this length go through (sizes follow the loss).
+                    self.batch_size.tried(p[idx].sends, 1, p[idx].wire);
                     // Karn's rule: a reply to a repeated request could
                     // answer any of its sends, so it is no sample; nor is
                     // one that includes a DELAY's wait. Timed as its timer
@@ -596,28 +610,51 @@ impl NativeAdapter {
                     if p[idx].sends == 1 && p[idx].extra.is_zero() && !p[idx].held && !repaired {
                         let (start, bytes) = timer_start(&p[idx], progress);
                         self.timer.sample_sized(now.saturating_duration_since(start), bytes);
+                        p[idx].sampled = true;
                         self.batch_size.clean();
-                        self.window_size.clean();
                     }
                     // Replies come in request order, so a request before
                     // this one still without a reply (and sent before it)
                     // lost its reply on the way: ask again at once.
                     let limit = p[idx].send_no;
-                    let mut resent = false;
                     let ahead = in_flight(&p[done..sent]);
                     for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
                         if q.reply.is_none() && q.send_no < limit {
                             self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
-                            resent = true;
                         }
-                    }
-                    if resent {
-                        self.lost(now);
                     }
                     progress = now;
                     while done < n && p[done].reply.is_some() {
                         done += 1;
                     }
+                }
+                // A second reply to a request sent twice: both sends
+                // reached the adapter and both answers came back, so the
+                // first answer was to the first send (the line keeps
+                // order, and the adapter answers in arrival order) and
+                // the resend was needless. That answer times the link
+                // after all: without it, a timer that fell short (a host
+                // busy for a while) would never learn the longer round
+                // trip, since every reply would follow a resend (the
+                // duplicate-reply detection of RFC 3708 §2, in place of
+                // TCP's D-SACK).
+                k if idx < sent && k == p[idx].kind | kind::REPLY && p[idx].answers < p[idx].sends => {
+                    // Not a loss after all: that try was answered too.
+                    p[idx].answers += 1;
+                    self.batch_size.tried(0, 1, 0);
+                    let q = &p[idx];
+                    let repaired = p[..idx].iter().any(|r| r.sends > 1 && r.send_no > q.first_send_no);
+                    if q.sends == 2
+                        && q.extra.is_zero()
+                        && !q.held
+                        && !q.sampled
+                        && !repaired
+                        && let (Some(sent_at), Some(at)) = (q.first_sent, q.answered_at)
+                    {
+                        self.timer.sample_sized(at.saturating_duration_since(sent_at), q.first_load);
+                        self.stats.late_samples += 1;
+                    }
+                    p[idx].sampled = true;
                 }
                 _ => {} // a repeat reply we already have
             }
@@ -663,7 +700,7 @@ impl NativeAdapter {
                 ));
             }
             let (w, r) = tx.byte_counts();
-            let (tq, tr) = (3 + 2 * tx.ops.len() + w, TX_REPORT_LEN + r);
+            let (tq, tr) = encoded_len(tx, TX_REPORT_LEN);
             if 1 + tq > room || 8 + tr > room || tx.ops.len() > self.wire.max_ops_per_tx as usize {
                 return Err(format!(
                     "transaction {} ({} operations, {w} bytes out, {r} in) does not fit one frame of this adapter \
@@ -702,11 +739,41 @@ fn hello_wait(baud: u32) -> Duration {
 /// 16 µs to 2 ms). A longer one only makes a timer a little short.
 const SHORT_REPORT_GUESS: usize = 7;
 
+/// Transactions [`NativeAdapter::frame_cost`] looks at to learn what one
+/// adds to a frame: enough for a mix, few enough to be cheap.
+const COST_SAMPLE: usize = 64;
+
 /// Windows' worth of requests per round of [`Adapter::execute_batch`]:
 /// enough to keep the pipe full, few enough that the sizes adapt soon.
 const ROUND_WINDOWS: usize = 4;
 
 impl NativeAdapter {
+    /// What a request of these transactions costs on the wire and in
+    /// time, for the batch size ([`FrameSizer::choose`]).
+    fn frame_cost(&self, txs: &[Transaction]) -> FrameCost {
+        let report = if self.wire.has(flag::SHORT) { SHORT_REPORT_GUESS } else { TX_REPORT_LEN };
+        let sample = &txs[..txs.len().min(COST_SAMPLE)];
+        let per_tx = sample
+            .iter()
+            .map(|t| {
+                let (q, r) = encoded_len(t, report);
+                q + r
+            })
+            .sum::<usize>() as f64
+            / sample.len().max(1) as f64;
+        // A request's count byte, the reply's adapter time, and framing
+        // both ways; COBS adds about one byte in 254.
+        let fixed = wire_len(1) + wire_len(8);
+        let srtt = self.timer.srtt().unwrap_or(self.timer.rto());
+        FrameCost {
+            fixed_bytes: fixed as f64,
+            bytes_per_tx: per_tx * 255.0 / 254.0,
+            // The requests in flight share the fixed part of a round trip.
+            fixed_time: srtt / self.window.max(1) as u32,
+            per_byte: self.timer.per_byte(),
+        }
+    }
+
     /// Runs one round of a batch: packs, exchanges and decodes, pushing
     /// one outcome per transaction onto `out`.
     fn round(&mut self, txs: &[Transaction], batch: usize, out: &mut Vec<Outcome>) -> Result<(), NativeError> {
@@ -724,7 +791,7 @@ impl NativeAdapter {
                 kind: run_kind,
                 body: encode_run(&txs[g.clone()]),
                 extra: Duration::ZERO,
-                reply_len: 8 + txs[g.clone()].iter().map(|t| report_len + t.byte_counts().1).sum::<usize>(),
+                reply_len: 8 + txs[g.clone()].iter().map(|t| encoded_len(t, report_len).1).sum::<usize>(),
             })
             .collect();
         let replies = self.exchange(reqs)?;
@@ -746,8 +813,16 @@ impl NativeAdapter {
     }
 }
 
+/// Bytes one transaction takes in a `RUN` request (address, count, a
+/// length per operation, the bytes written) and in its reply (a result
+/// header of `report` bytes and the bytes read).
+fn encoded_len(tx: &Transaction, report: usize) -> (usize, usize) {
+    let (w, r) = tx.byte_counts();
+    (3 + 2 * tx.ops.len() + w, report + r)
+}
+
 fn encode_run(txs: &[Transaction]) -> Vec<u8> {
-    let size = 1 + txs.iter().map(|t| 3 + 2 * t.ops.len() + t.byte_counts().0).sum::<usize>();
+    let size = 1 + txs.iter().map(|t| encoded_len(t, 0).0).sum::<usize>();
     let mut buf = vec![0u8; size];
     let mut w = Writer::new(&mut buf);
     w.u8(txs.len() as u8);
@@ -865,12 +940,13 @@ impl Adapter for NativeAdapter {
             return (0..txs.len()).map(|_| Outcome::adapter_failure(msg.clone())).collect();
         }
         let mut out = Vec::with_capacity(txs.len());
-        // Rounds of a few windows' worth, so the batch and window in use
-        // follow the loss: each round is packed at the sizes of its start.
+        // Rounds of a few windows' worth, so the batch in use follows
+        // the loss: each round is packed at the size of its start.
         while out.len() < txs.len() {
             let at = out.len();
-            let batch = self.batch_size.size();
-            let end = txs.len().min(at + batch * self.window_size.size() * ROUND_WINDOWS);
+            let cost = self.frame_cost(&txs[at..]);
+            let batch = self.batch_size.choose(cost);
+            let end = txs.len().min(at + batch * self.window * ROUND_WINDOWS);
             if let Err(e) = self.round(&txs[at..end], batch, &mut out) {
                 self.failed = Some(e.clone());
                 out.resize_with(txs.len(), || Outcome::adapter_failure(e.to_string()));
@@ -923,8 +999,8 @@ impl Adapter for NativeAdapter {
             rto: self.timer.rto(),
             batch: self.batch_size.size() as u32,
             batch_max: self.batch_size.max() as u32,
-            window: self.window_size.size() as u32,
-            window_max: self.window_size.max() as u32,
+            window: self.window as u32,
+            window_max: self.window as u32,
         })
     }
 
