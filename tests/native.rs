@@ -381,6 +381,91 @@ fn a_port_nobody_answers_on_fails_the_handshake() {
     assert_eq!(out.status.code(), Some(4), "an unreachable adapter is the adapter/link exit code");
 }
 
+// An adapter that answers every request with a gap notice and never with
+// a reply: frames keep coming, none answers anything. The link fails on
+// the silence limit, counted from the last new answer (the handshake's),
+// instead of waiting for ever on a line that only repeats itself.
+#[test]
+fn an_adapter_that_only_repeats_itself_fails_on_the_silence_limit() {
+    use buscue_bridge::cobs::Decoder;
+    use buscue_bridge::wire::{self, Caps, Header, Writer, kind};
+    use std::io::{Read, Write};
+    let (mut master, slave, path) = pty().unwrap();
+    let stop = Arc::new(AtomicBool::new(false));
+    let done = stop.clone();
+    let fake = std::thread::spawn(move || {
+        let _keep = slave;
+        let session = 0x5EED;
+        let caps = Caps {
+            max_frame: 256,
+            max_bytes_per_op: 64,
+            max_ops_per_tx: 4,
+            max_tx_per_request: 8,
+            window: 4,
+            flags: 0,
+            min_speed_hz: 10_000,
+            max_speed_hz: 400_000,
+            speed_hz: 100_000,
+            stretch_timeout_us: 1000,
+        };
+        let mut d = Decoder::<256>::new();
+        let mut buf = [0u8; 256];
+        let (mut gaps, mut answer) = (0u64, Vec::new());
+        serialport::SerialPort::set_timeout(&mut master, Duration::from_millis(50)).unwrap();
+        while !done.load(Ordering::Relaxed) {
+            let n = master.read(&mut buf).unwrap_or(0);
+            for &b in &buf[..n] {
+                let Some(Ok(f)) = d.push(b) else { continue };
+                let Ok((h, _)) = wire::parse_frame(f) else { continue };
+                let (reply, body) = if h.kind == kind::HELLO {
+                    let mut out = [0u8; 8 + wire::CAPS_LEN];
+                    let mut w = Writer::new(&mut out);
+                    w.u64(0);
+                    caps.write(&mut w);
+                    let len = w.len();
+                    (
+                        Header { version: wire::VERSION, kind: kind::HELLO | kind::REPLY, seq: h.seq, session },
+                        out[..len].to_vec(),
+                    )
+                } else {
+                    // "Still waiting for a number before this one": never true, never answered.
+                    gaps += 1;
+                    let [a, b] = h.seq.to_le_bytes();
+                    (
+                        Header { version: wire::VERSION, kind: kind::GAP, seq: h.seq.wrapping_sub(1), session },
+                        vec![a, b],
+                    )
+                };
+                answer.clear();
+                answer.push(0);
+                let Ok(()) = wire::emit_frame(reply, &body, |p: &[u8]| {
+                    answer.extend_from_slice(p);
+                    Ok::<(), std::convert::Infallible>(())
+                });
+                if master.write_all(&answer).is_err() {
+                    return gaps;
+                }
+            }
+        }
+        gaps
+    });
+    let settings = NativeSettings { silence: Duration::from_millis(500), ..NativeSettings::default() };
+    let mut a = NativeAdapter::open(&path, settings).expect("the handshake is answered");
+    let started = std::time::Instant::now();
+    let read = Transaction::new(Address::Seven(0x2B), vec![Operation::Write(vec![0x01]), Operation::Read(2)]);
+    let out = a.execute(&read);
+    let took = started.elapsed();
+    stop.store(true, Ordering::Relaxed);
+    let detail = format!("{:?}", out.fault);
+    assert!(detail.contains("no answer from the adapter") && detail.contains("silence_ms"), "{detail}");
+    assert!(took >= Duration::from_millis(500), "gave up before the silence limit: {took:?}");
+    // The margin only catches a run that waits on instead.
+    assert!(took < Duration::from_secs(10), "{took:?}");
+    assert!(a.stats.gaps > 0, "the adapter kept talking: {:?}", a.stats);
+    drop(a);
+    assert!(fake.join().unwrap() > 0);
+}
+
 #[test]
 fn a_wrong_protocol_version_is_named() {
     use buscue_bridge::cobs::Decoder;
