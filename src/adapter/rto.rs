@@ -295,7 +295,8 @@ impl FrameSizer {
     /// times and `answered` of those tries came back (a request re-sent
     /// needlessly is answered twice).
     pub fn tried(&mut self, tries: u32, answered: u32, bytes: usize) {
-        let keep = (1.0 - 1.0 / LOSS_MEMORY).powi(tries.max(answered) as i32);
+        // Past a few thousand tries the old counts weigh nothing anyway.
+        let keep = (1.0 - 1.0 / LOSS_MEMORY).powi(tries.max(answered).min(1 << 16) as i32);
         self.tries = self.tries * keep + tries as f64;
         self.answered = (self.answered * keep + answered as f64).min(self.tries);
         self.bytes = self.bytes * keep + tries as f64 * bytes as f64;
@@ -479,6 +480,10 @@ mod tests {
         }
         assert!(s.loss_per_byte() < 1e-6, "{}", s.loss_per_byte());
         assert_eq!(s.choose(cost(Duration::ZERO)), 32, "back at the limit");
+        // However many tries a request took, the estimate stays finite.
+        let mut huge = FrameSizer::new(32);
+        huge.tried(u32::MAX, 1, 100);
+        assert!(huge.loss_per_byte().is_finite() && huge.loss_per_byte() > 0.0, "{}", huge.loss_per_byte());
         // A needless resend answered twice is no loss.
         let mut d = FrameSizer::new(8);
         d.tried(2, 1, 50);
