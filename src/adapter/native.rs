@@ -182,8 +182,6 @@ pub struct NativeStats {
     /// Frames received from the adapter during exchanges (replies,
     /// repeats of replies, notices).
     pub received: u64,
-    /// Round-trip samples taken from a repeated reply (a needless resend).
-    pub late_samples: u64,
 }
 
 pub struct NativeAdapter {
@@ -229,8 +227,6 @@ struct Pending {
     /// [`Self::load`] and [`Self::send_no`] of the first send.
     first_load: usize,
     first_send_no: u64,
-    /// It has given the timer its sample.
-    sampled: bool,
     /// Replies received (a needless resend is answered twice).
     answers: u32,
     /// When the first reply came (a later one is a repeat).
@@ -482,7 +478,6 @@ impl NativeAdapter {
                 first_load: 0,
                 first_send_no: 0,
                 answered_at: None,
-                sampled: false,
                 answers: 0,
                 held: false,
             })
@@ -610,7 +605,6 @@ impl NativeAdapter {
                     if p[idx].sends == 1 && p[idx].extra.is_zero() && !p[idx].held && !repaired {
                         let (start, bytes) = timer_start(&p[idx], progress);
                         self.timer.sample_sized(now.saturating_duration_since(start), bytes);
-                        p[idx].sampled = true;
                         self.batch_size.clean();
                     }
                     // Replies come in request order, so a request before
@@ -644,17 +638,15 @@ impl NativeAdapter {
                     self.batch_size.tried(0, 1, 0);
                     let q = &p[idx];
                     let repaired = p[..idx].iter().any(|r| r.sends > 1 && r.send_no > q.first_send_no);
+                    // Sent twice, it gets here once (answers 1 -> 2).
                     if q.sends == 2
                         && q.extra.is_zero()
                         && !q.held
-                        && !q.sampled
                         && !repaired
                         && let (Some(sent_at), Some(at)) = (q.first_sent, q.answered_at)
                     {
                         self.timer.sample_sized(at.saturating_duration_since(sent_at), q.first_load);
-                        self.stats.late_samples += 1;
                     }
-                    p[idx].sampled = true;
                 }
                 _ => {} // a repeat reply we already have
             }
