@@ -81,6 +81,7 @@ fn run(case: &Case) {
     let secs = started.elapsed().as_secs_f64();
     let c = a.link_counters().unwrap();
     let requests = a.stats.sends - sent0;
+    let probes = a.stats.probes;
     drop(a);
     stop.store(true, Ordering::Relaxed);
     let executed = server.join().unwrap();
@@ -88,7 +89,7 @@ fn run(case: &Case) {
     let rate = case.n as f64 / secs;
     let bus_rate = case.n as f64 / bus.as_secs_f64();
     println!(
-        "| {} | {} | {:.3} | {:.0} | {:.1} % | {:.3} | {} ({} timer, {} fast, {} gaps) | {} | {}/{} | {:.2} ms |",
+        "| {} | {} | {:.3} | {:.0} | {:.1} % | {:.3} | {} ({} timer, {} fast, {} gaps) | {} | {} | {}/{} | {:.2} ms |",
         case.name,
         case.n,
         secs,
@@ -100,6 +101,7 @@ fn run(case: &Case) {
         c.fast_resends,
         c.gaps,
         c.frames_dropped,
+        probes,
         c.batch,
         c.batch_max,
         c.rto.as_secs_f64() * 1000.0
@@ -118,9 +120,9 @@ fn main() {
         Case { name: "clean, 1000000 baud", faults: f(0.0, 0.0, Some(1_000_000)), n },
     ];
     println!(
-        "| case | transactions | seconds | transactions/s | of the 400 kHz bus rate | request frames/tx | retransmissions (timer, fast, gaps) | frames dropped | batch at end | RTO at end |"
+        "| case | transactions | seconds | transactions/s | of the 400 kHz bus rate | request frames/tx | retransmissions (timer, fast, gaps) | frames dropped | status probes | batch at end | RTO at end |"
     );
-    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|");
+    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|");
     // BUSCUE_BENCH_CASES=flip,115200 runs only the cases whose name has one of the words.
     let only = std::env::var("BUSCUE_BENCH_CASES").unwrap_or_default();
     let words: Vec<&str> = only.split(',').filter(|w| !w.is_empty()).collect();

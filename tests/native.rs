@@ -183,13 +183,14 @@ fn exactly_once_through(lose: f64, flip: f64, seed: u64) -> (usize, usize) {
             smallest = smallest.min(a.batch_in_use());
         }
     }
-    let (repeats, timeouts) = (a.stats.repeats, a.stats.timeouts);
+    let (repeats, timeouts, probes) = (a.stats.repeats, a.stats.timeouts, a.stats.probes);
     drop(a);
     stop.store(true, Ordering::Relaxed);
     let (_, executions, dropped) = h.join().unwrap();
     assert_eq!(done, 2 * n as u64);
     assert_eq!(executions, done, "every transaction ran exactly once on the board");
     assert!(repeats > 0, "the faults did hit the link ({repeats} repeats, {timeouts} on timeout, {dropped} drops)");
+    assert!(probes > 0, "a noisy line is probed");
     (smallest, max)
 }
 
@@ -385,69 +386,93 @@ fn a_port_nobody_answers_on_fails_the_handshake() {
 // a reply: frames keep coming, none answers anything. The link fails on
 // the silence limit, counted from the last new answer (the handshake's),
 // instead of waiting for ever on a line that only repeats itself.
-#[test]
-fn an_adapter_that_only_repeats_itself_fails_on_the_silence_limit() {
+/// A scripted adapter on a pseudo-terminal, for what the served one never
+/// does on its own. It answers `HELLO` (session 0x5EED, `caps`), first
+/// sending `garbage` corrupt frames (a noisy line); every later request
+/// goes to `answer`, which returns the frames to send back. The thread
+/// ends with the count of requests `answer` saw.
+fn fake_adapter<F>(
+    caps: buscue_bridge::wire::Caps,
+    garbage: usize,
+    mut answer: F,
+) -> (String, Arc<AtomicBool>, std::thread::JoinHandle<u64>)
+where
+    F: FnMut(buscue_bridge::wire::Header, &[u8]) -> Vec<(buscue_bridge::wire::Header, Vec<u8>)> + Send + 'static,
+{
     use buscue_bridge::cobs::Decoder;
-    use buscue_bridge::wire::{self, Caps, Header, Writer, kind};
+    use buscue_bridge::wire::{self, Header, Writer, kind};
     use std::io::{Read, Write};
     let (mut master, slave, path) = pty().unwrap();
     let stop = Arc::new(AtomicBool::new(false));
     let done = stop.clone();
     let fake = std::thread::spawn(move || {
         let _keep = slave;
-        let session = 0x5EED;
-        let caps = Caps {
-            max_frame: 256,
-            max_bytes_per_op: 64,
-            max_ops_per_tx: 4,
-            max_tx_per_request: 8,
-            window: 4,
-            flags: 0,
-            min_speed_hz: 10_000,
-            max_speed_hz: 400_000,
-            speed_hz: 100_000,
-            stretch_timeout_us: 1000,
-        };
         let mut d = Decoder::<256>::new();
         let mut buf = [0u8; 256];
-        let (mut gaps, mut answer) = (0u64, Vec::new());
+        let (mut seen, mut out) = (0u64, Vec::new());
         serialport::SerialPort::set_timeout(&mut master, Duration::from_millis(50)).unwrap();
         while !done.load(Ordering::Relaxed) {
             let n = master.read(&mut buf).unwrap_or(0);
             for &b in &buf[..n] {
                 let Some(Ok(f)) = d.push(b) else { continue };
-                let Ok((h, _)) = wire::parse_frame(f) else { continue };
-                let (reply, body) = if h.kind == kind::HELLO {
-                    let mut out = [0u8; 8 + wire::CAPS_LEN];
-                    let mut w = Writer::new(&mut out);
+                let Ok((h, body)) = wire::parse_frame(f) else { continue };
+                out.clear();
+                let replies = if h.kind == kind::HELLO {
+                    // A COBS block that promises more bytes than come: dropped as corrupt.
+                    for _ in 0..garbage {
+                        out.extend_from_slice(&[0, 0x40, 0x11, 0x22, 0]);
+                    }
+                    let mut hello = [0u8; 8 + wire::CAPS_LEN];
+                    let mut w = Writer::new(&mut hello);
                     w.u64(0);
                     caps.write(&mut w);
                     let len = w.len();
-                    (
-                        Header { version: wire::VERSION, kind: kind::HELLO | kind::REPLY, seq: h.seq, session },
-                        out[..len].to_vec(),
-                    )
+                    let reply =
+                        Header { version: wire::VERSION, kind: kind::HELLO | kind::REPLY, seq: h.seq, session: 0x5EED };
+                    vec![(reply, hello[..len].to_vec())]
                 } else {
-                    // "Still waiting for a number before this one": never true, never answered.
-                    gaps += 1;
-                    let [a, b] = h.seq.to_le_bytes();
-                    (
-                        Header { version: wire::VERSION, kind: kind::GAP, seq: h.seq.wrapping_sub(1), session },
-                        vec![a, b],
-                    )
+                    seen += 1;
+                    answer(h, body)
                 };
-                answer.clear();
-                answer.push(0);
-                let Ok(()) = wire::emit_frame(reply, &body, |p: &[u8]| {
-                    answer.extend_from_slice(p);
-                    Ok::<(), std::convert::Infallible>(())
-                });
-                if master.write_all(&answer).is_err() {
-                    return gaps;
+                for (reply, body) in replies {
+                    out.push(0);
+                    let Ok(()) = wire::emit_frame(reply, &body, |p: &[u8]| {
+                        out.extend_from_slice(p);
+                        Ok::<(), std::convert::Infallible>(())
+                    });
+                }
+                if master.write_all(&out).is_err() {
+                    return seen;
                 }
             }
         }
-        gaps
+        seen
+    });
+    (path, stop, fake)
+}
+
+fn fake_caps() -> buscue_bridge::wire::Caps {
+    buscue_bridge::wire::Caps {
+        max_frame: 256,
+        max_bytes_per_op: 64,
+        max_ops_per_tx: 4,
+        max_tx_per_request: 8,
+        window: 4,
+        flags: 0,
+        min_speed_hz: 10_000,
+        max_speed_hz: 400_000,
+        speed_hz: 100_000,
+        stretch_timeout_us: 1000,
+    }
+}
+
+#[test]
+fn an_adapter_that_only_repeats_itself_fails_on_the_silence_limit() {
+    use buscue_bridge::wire::{Header, VERSION, kind};
+    // "Still waiting for a number before this one": never true, never answered.
+    let (path, stop, fake) = fake_adapter(fake_caps(), 0, |h, _| {
+        let [a, b] = h.seq.to_le_bytes();
+        vec![(Header { version: VERSION, kind: kind::GAP, seq: h.seq.wrapping_sub(1), session: h.session }, vec![a, b])]
     });
     let settings = NativeSettings { silence: Duration::from_millis(500), ..NativeSettings::default() };
     let mut a = NativeAdapter::open(&path, settings).expect("the handshake is answered");
@@ -464,6 +489,74 @@ fn an_adapter_that_only_repeats_itself_fails_on_the_silence_limit() {
     assert!(a.stats.gaps > 0, "the adapter kept talking: {:?}", a.stats);
     drop(a);
     assert!(fake.join().unwrap() > 0);
+}
+
+/// Runs one write through a fake adapter that loses the first copy of
+/// the request and otherwise follows PROTOCOL.md section 3 (no flags: a
+/// request ahead of the expected one is dropped and answered with a
+/// 2-byte `GAP`); the line shows `garbage` corrupt frames before the
+/// handshake's answer. At 2400 baud (assumed, a pty ignores it) the timer
+/// waits about a third of a second. Returns the host's counters and how
+/// often the fake ran the request.
+fn one_write_with_its_first_copy_lost(garbage: usize) -> (buscue::adapter::native::NativeStats, u64) {
+    use buscue_bridge::wire::{Header, TX_REPORT_LEN, TxReport, VERSION, kind};
+    let runs = Arc::new(std::sync::atomic::AtomicU64::new(0));
+    let counted = runs.clone();
+    let (mut expected, mut lost, mut cache) = (None::<u16>, false, None);
+    let (path, stop, fake) = fake_adapter(fake_caps(), garbage, move |h, _| {
+        let e = *expected.get_or_insert(h.seq);
+        let ahead = h.seq.wrapping_sub(e) as i16;
+        if ahead > 0 {
+            let [a, b] = h.seq.to_le_bytes();
+            return vec![(Header { version: VERSION, kind: kind::GAP, seq: e, session: h.session }, vec![a, b])];
+        }
+        if ahead < 0 {
+            return cache.iter().filter(|(r, _): &&(Header, Vec<u8>)| r.seq == h.seq).cloned().collect();
+        }
+        if !lost {
+            lost = true;
+            return Vec::new();
+        }
+        counted.fetch_add(1, Ordering::Relaxed);
+        let mut body = vec![0u8; 8 + TX_REPORT_LEN];
+        let mut report = [0u8; TX_REPORT_LEN];
+        TxReport::OK.write(&mut report);
+        body[8..].copy_from_slice(&report);
+        let reply = (Header { version: VERSION, kind: h.kind | kind::REPLY, seq: h.seq, session: h.session }, body);
+        cache = Some(reply.clone());
+        expected = Some(e.wrapping_add(1));
+        vec![reply]
+    });
+    let settings = NativeSettings { baud: 2400, ..NativeSettings::default() };
+    let mut a = NativeAdapter::open(&path, settings).expect("the handshake is answered");
+    let out = a.execute(&Transaction::new(Address::Seven(0x2B), vec![Operation::Write(vec![0x01, 0x02])]));
+    assert!(out.is_ok(), "{out:?}");
+    let stats = a.stats;
+    drop(a);
+    stop.store(true, Ordering::Relaxed);
+    fake.join().unwrap();
+    (stats, runs.load(Ordering::Relaxed))
+}
+
+// On a noisy line (a corrupt frame came before), the request is followed
+// by a status probe numbered far ahead; the adapter drops the probe and
+// answers with a GAP naming the request it still expects, so the lost
+// request goes again at once, not when its timer runs out.
+#[test]
+fn on_a_noisy_line_a_status_probe_repairs_a_loss_before_the_timer() {
+    let (stats, runs) = one_write_with_its_first_copy_lost(1);
+    assert_eq!(runs, 1, "ran exactly once: {stats:?}");
+    assert!(stats.probes >= 1 && stats.probe_answers >= 1, "{stats:?}");
+    assert_eq!(stats.timeouts, 0, "repaired by the probe's answer, not by a timer: {stats:?}");
+    assert!(stats.fast_resends >= 1, "{stats:?}");
+}
+
+// On a clean line the same loss waits for the timer: no probes.
+#[test]
+fn on_a_clean_line_nothing_is_probed_and_the_timer_repairs_a_loss() {
+    let (stats, runs) = one_write_with_its_first_copy_lost(0);
+    assert_eq!(runs, 1, "ran exactly once: {stats:?}");
+    assert_eq!((stats.probes, stats.timeouts), (0, 1), "{stats:?}");
 }
 
 #[test]

@@ -337,6 +337,32 @@ impl FrameSizer {
     }
 }
 
+/// How noisy the line is: the share of frames from the adapter that
+/// arrived corrupt (a bad CRC or broken framing), over about the last
+/// [`LOSS_MEMORY`] frames. Unlike the share of tries answered it does not
+/// mistake a host that woke late (a resend before the reply came) for a
+/// bad line: a corrupt frame is the line's doing.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct LineNoise {
+    frames: f64,
+    corrupt: f64,
+}
+
+impl LineNoise {
+    /// Counts `good` frames received whole and `corrupt` ones dropped.
+    pub fn add(&mut self, good: u64, corrupt: u64) {
+        let all = good.saturating_add(corrupt);
+        let keep = (1.0 - 1.0 / LOSS_MEMORY).powi(all.min(1 << 16) as i32);
+        self.frames = self.frames * keep + all as f64;
+        self.corrupt = self.corrupt * keep + corrupt as f64;
+    }
+
+    /// Share of recent frames that arrived corrupt; zero before any.
+    pub fn share(&self) -> f64 {
+        if self.frames < 0.5 { 0.0 } else { (self.corrupt / self.frames).clamp(0.0, 1.0) }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -359,6 +385,20 @@ mod tests {
         t.sample_sized(ms(0.2), 100);
         assert!(t.per_byte() <= Duration::from_nanos(2000), "{:?}", t.per_byte());
         assert!(t.rto_sized(100) < ms(2.5), "{:?}", t.rto_sized(100));
+    }
+
+    // Worked by hand, a weight of 63/64 per frame: 99 good and 1 corrupt
+    // give 1/100; 100 more good ones keep (63/64)^100 = e^(100·ln(63/64))
+    // = e^(−1.5748) = 0.20705 of the old counts, so the share is
+    // 0.20705 / (100·0.20705 + 100) = 0.0017153.
+    #[test]
+    fn line_noise_is_the_decayed_share_of_corrupt_frames() {
+        let mut n = LineNoise::default();
+        assert_eq!(n.share(), 0.0, "no frames yet");
+        n.add(99, 1);
+        assert!((n.share() - 0.01).abs() < 1e-12, "{}", n.share());
+        n.add(100, 0);
+        assert!((n.share() - 0.0017153).abs() < 1e-6, "{}", n.share());
     }
 
     // RFC 6298 §2.2 and §2.3 worked by hand, floor (G) 2 ms, ceiling 100 ms:
