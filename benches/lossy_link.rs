@@ -118,6 +118,7 @@ fn main() {
         Case { name: "5 % flipped", faults: f(0.0, 0.05, None), n: n / 10 },
         Case { name: "clean, 115200 baud", faults: f(0.0, 0.0, Some(115_200)), n },
         Case { name: "clean, 1000000 baud", faults: f(0.0, 0.0, Some(1_000_000)), n },
+        Case { name: "1 % flipped, 115200 baud", faults: f(0.0, 0.01, Some(115_200)), n: n / 10 },
     ];
     println!(
         "| case | transactions | seconds | transactions/s | of the 400 kHz bus rate | request frames/tx | retransmissions (timer, fast, gaps) | frames dropped | status probes | batch at end | RTO at end |"

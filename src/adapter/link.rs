@@ -96,6 +96,8 @@ pub struct SerialLink {
     inbox: Vec<u8>,
     inbox_pos: usize,
     out: Vec<u8>,
+    /// Frames in `out`.
+    queued: u64,
     pub stats: LinkStats,
 }
 
@@ -112,6 +114,7 @@ impl SerialLink {
             inbox: vec![0; 4096],
             inbox_pos: 0,
             out: Vec::with_capacity(MAX_FRAME + 32),
+            queued: 0,
             stats: LinkStats::default(),
         })
     }
@@ -124,21 +127,42 @@ impl SerialLink {
         LinkError::Gone { path: self.path.clone(), detail: detail.to_string() }
     }
 
-    /// Sends one frame.
+    /// Sends one frame, after any queued ones.
     pub fn send(&mut self, h: Header, body: &[u8]) -> Result<(), LinkError> {
+        self.queue(h, body);
+        self.flush()
+    }
+
+    /// Queues one frame, to go out with the next [`Self::send`],
+    /// [`Self::flush`] or [`Self::recv`] in one write: frames sent
+    /// together cost the adapter one wake-up, not one each.
+    pub fn queue(&mut self, h: Header, body: &[u8]) {
         // A delimiter before the frame makes the adapter drop any garbage
         // that arrived since the last one (common practice on COBS links).
-        self.out.clear();
         self.out.push(0);
         let out = &mut self.out;
         let Ok(()) = wire::emit_frame(h, body, |p: &[u8]| {
             out.extend_from_slice(p);
             Ok::<(), std::convert::Infallible>(())
         });
+        self.queued += 1;
+    }
+
+    /// Bytes queued and not yet written.
+    pub fn queued_bytes(&self) -> usize {
+        self.out.len()
+    }
+
+    /// Writes the queued frames.
+    pub fn flush(&mut self) -> Result<(), LinkError> {
+        if self.out.is_empty() {
+            return Ok(());
+        }
         let r = self.port.write_all(&self.out).and_then(|_| self.port.flush());
+        self.out.clear();
         match r {
             Ok(()) => {
-                self.stats.frames_sent += 1;
+                self.stats.frames_sent += std::mem::take(&mut self.queued);
                 Ok(())
             }
             Err(e) if e.kind() == io::ErrorKind::TimedOut => Err(self.gone(format!("a write did not complete: {e}"))),
@@ -148,6 +172,7 @@ impl SerialLink {
 
     /// The next good frame, or `None` if none arrives before `deadline`.
     pub fn recv(&mut self, deadline: Instant) -> Result<Option<(Header, Vec<u8>)>, LinkError> {
+        self.flush()?;
         loop {
             while self.inbox_pos < self.inbox.len() {
                 let b = self.inbox[self.inbox_pos];
@@ -186,5 +211,43 @@ impl SerialLink {
                 Err(e) => return Err(self.gone(e)),
             }
         }
+    }
+}
+
+#[cfg(all(test, unix))]
+mod tests {
+    use super::*;
+    use buscue_bridge::cobs::Decoder;
+    use buscue_bridge::wire::{Header, VERSION};
+    use std::io::Read;
+
+    // Queued frames go out in one write, in order, before the next frame
+    // sent, and count as sent only once written.
+    #[test]
+    fn queued_frames_go_out_in_order_before_the_next_one() {
+        let (mut master, slave) = serialport::TTYPort::pair().unwrap();
+        let path = serialport::SerialPort::name(&slave).unwrap();
+        let mut link = SerialLink::open(&path, 115_200).unwrap();
+        let h = |seq| Header { version: VERSION, kind: 0x02, seq, session: 7 };
+        link.queue(h(1), &[1]);
+        link.queue(h(2), &[2, 2]);
+        assert!(link.queued_bytes() > 0);
+        assert_eq!(link.stats.frames_sent, 0, "queued, not yet written");
+        link.send(h(3), &[3, 3, 3]).unwrap();
+        assert_eq!((link.queued_bytes(), link.stats.frames_sent), (0, 3));
+        serialport::SerialPort::set_timeout(&mut master, Duration::from_secs(5)).unwrap();
+        let mut d = Decoder::<64>::new();
+        let (mut seqs, mut buf) = (Vec::new(), [0u8; 256]);
+        while seqs.len() < 3 {
+            let n = master.read(&mut buf).unwrap();
+            for &b in &buf[..n] {
+                if let Some(Ok(f)) = d.push(b) {
+                    let (h, body) = wire::parse_frame(f).unwrap();
+                    assert_eq!(body.len(), h.seq as usize);
+                    seqs.push(h.seq);
+                }
+            }
+        }
+        assert_eq!(seqs, [1, 2, 3]);
     }
 }
