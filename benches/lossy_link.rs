@@ -81,7 +81,7 @@ fn run(case: &Case) {
     let secs = started.elapsed().as_secs_f64();
     let c = a.link_counters().unwrap();
     let requests = a.stats.sends - sent0;
-    let probes = a.stats.probes;
+    let probes = a.stats.status_probes;
     drop(a);
     stop.store(true, Ordering::Relaxed);
     let executed = server.join().unwrap();

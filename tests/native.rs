@@ -183,7 +183,7 @@ fn exactly_once_through(lose: f64, flip: f64, seed: u64) -> (usize, usize) {
             smallest = smallest.min(a.batch_in_use());
         }
     }
-    let (repeats, timeouts, probes) = (a.stats.repeats, a.stats.timeouts, a.stats.probes);
+    let (repeats, timeouts, probes) = (a.stats.repeats, a.stats.timeouts, a.stats.status_probes);
     drop(a);
     stop.store(true, Ordering::Relaxed);
     let (_, executions, dropped) = h.join().unwrap();
@@ -546,7 +546,7 @@ fn one_write_with_its_first_copy_lost(garbage: usize) -> (buscue::adapter::nativ
 fn on_a_noisy_line_a_status_probe_repairs_a_loss_before_the_timer() {
     let (stats, runs) = one_write_with_its_first_copy_lost(1);
     assert_eq!(runs, 1, "ran exactly once: {stats:?}");
-    assert!(stats.probes >= 1 && stats.probe_answers >= 1, "{stats:?}");
+    assert!(stats.status_probes >= 1 && stats.status_answers >= 1, "{stats:?}");
     assert_eq!(stats.timeouts, 0, "repaired by the probe's answer, not by a timer: {stats:?}");
     assert!(stats.fast_resends >= 1, "{stats:?}");
 }
@@ -556,7 +556,7 @@ fn on_a_noisy_line_a_status_probe_repairs_a_loss_before_the_timer() {
 fn on_a_clean_line_nothing_is_probed_and_the_timer_repairs_a_loss() {
     let (stats, runs) = one_write_with_its_first_copy_lost(0);
     assert_eq!(runs, 1, "ran exactly once: {stats:?}");
-    assert_eq!((stats.probes, stats.timeouts), (0, 1), "{stats:?}");
+    assert_eq!((stats.status_probes, stats.timeouts), (0, 1), "{stats:?}");
 }
 
 #[test]

@@ -133,9 +133,10 @@ impl SerialLink {
         self.flush()
     }
 
-    /// Queues one frame, to go out with the next [`Self::send`],
-    /// [`Self::flush`] or [`Self::recv`] in one write: frames sent
-    /// together cost the adapter one wake-up, not one each.
+    /// Queues one frame, to go out with the next [`Self::send`] or
+    /// [`Self::flush`], or when [`Self::recv`] has nothing whole left to
+    /// return and must wait, in one write: frames sent together cost the
+    /// adapter one wake-up, not one each.
     pub fn queue(&mut self, h: Header, body: &[u8]) {
         // A delimiter before the frame makes the adapter drop any garbage
         // that arrived since the last one (common practice on COBS links).
@@ -172,7 +173,6 @@ impl SerialLink {
 
     /// The next good frame, or `None` if none arrives before `deadline`.
     pub fn recv(&mut self, deadline: Instant) -> Result<Option<(Header, Vec<u8>)>, LinkError> {
-        self.flush()?;
         loop {
             while self.inbox_pos < self.inbox.len() {
                 let b = self.inbox[self.inbox_pos];
@@ -189,6 +189,9 @@ impl SerialLink {
                     },
                 }
             }
+            // Nothing whole is waiting: what is queued goes now, before
+            // the wait for more.
+            self.flush()?;
             let now = Instant::now();
             if now >= deadline {
                 return Ok(None);

@@ -180,8 +180,8 @@ pub struct NativeStats {
     /// Gap notices received.
     pub gaps: u64,
     /// Status probes sent, and gap notices that answered one.
-    pub probes: u64,
-    pub probe_answers: u64,
+    pub status_probes: u64,
+    pub status_answers: u64,
     /// Frames received from the adapter during exchanges (replies,
     /// repeats of replies, notices).
     pub received: u64,
@@ -559,7 +559,7 @@ impl NativeAdapter {
                 self.link.queue(h, &[0]);
                 send_no += 1;
                 probes.push((number, send_no));
-                self.stats.probes += 1;
+                self.stats.status_probes += 1;
             }
             // The timer runs from the oldest request's send or from the
             // last new reply, whichever is later (RFC 6298 §5.3: restart
@@ -639,7 +639,7 @@ impl NativeAdapter {
                         // Before `h.seq` every request ran, so one without
                         // a reply lost it; from `h.seq` on, one neither
                         // answered nor kept was lost.
-                        self.stats.probe_answers += 1;
+                        self.stats.status_answers += 1;
                         let ahead = in_flight(&p[done..sent]);
                         for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
                             if q.reply.is_none() && q.send_no < probe_no && (i <= idx || !q.held) {
