@@ -6,12 +6,13 @@
 //! written, and the board counts executions: exactly once, or the bench
 //! fails.
 //!
-//!   cargo bench --bench lossy_link                 # 10,000 per case (1,000 at 5 %)
+//!   cargo bench --bench lossy_link                 # 10,000 per case (1,000 at 5 % and on the lossy UART)
 //!   BUSCUE_BENCH_N=2000 cargo bench --bench lossy_link
 //!
 //! Cases: clean; 1 % flipped; 1 % dropped; 5 % flipped; clean at
-//! `--baud 115200` and `--baud 1000000`, against the modelled bus time of
-//! the same transactions at 400 kHz.
+//! `--baud 115200` and `--baud 1000000`; 1 % flipped at `--baud 115200`
+//! (1,000), against the modelled bus time of the same transactions at
+//! 400 kHz.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
