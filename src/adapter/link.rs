@@ -161,9 +161,10 @@ impl SerialLink {
         }
         let r = self.port.write_all(&self.out).and_then(|_| self.port.flush());
         self.out.clear();
+        let frames = std::mem::take(&mut self.queued);
         match r {
             Ok(()) => {
-                self.stats.frames_sent += std::mem::take(&mut self.queued);
+                self.stats.frames_sent += frames;
                 Ok(())
             }
             Err(e) if e.kind() == io::ErrorKind::TimedOut => Err(self.gone(format!("a write did not complete: {e}"))),

@@ -21,6 +21,13 @@
 //!   expiry is a try; duplicate replies are harmless, and a second reply
 //!   to a request sent twice times the first send (the resend was
 //!   needless), so a timer that fell short learns the longer round trip.
+//! - On a noisy line (at least 1 % of the adapter's frames arriving
+//!   corrupt, [`super::rto::LineNoise`]) whatever goes last is followed
+//!   by a status probe: a request numbered far past the window, which
+//!   every adapter drops unrun and answers with a `GAP` naming the
+//!   request it expects, so a loss shows one round trip later instead of
+//!   after a timer. Each immediate resend then goes twice. Resends and
+//!   probes go out in one write when the exchange would wait.
 //! - The batch follows the loss ([`super::rto::FrameSizer`]): it starts
 //!   at one and grows per clean reply, and once frames are lost it is the
 //!   size that moves the most transactions through the loss measured;
@@ -38,7 +45,7 @@
 //!   served simulated bench keeps its virtual time.
 //! - Any link failure (silence past the limit, wrong protocol
 //!   version, adapter reset, port gone) is final: the outcome carries
-//!   [`Fault::Adapter`] and every later call fails the same way.
+//!   [`Fault::Adapter`](crate::bus::Fault::Adapter) and every later call fails the same way.
 
 use std::time::{Duration, Instant};
 

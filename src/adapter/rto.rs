@@ -339,7 +339,7 @@ impl FrameSizer {
 
 /// How noisy the line is: the share of frames from the adapter that
 /// arrived corrupt (a bad CRC or broken framing), over about the last
-/// [`LOSS_MEMORY`] frames. Unlike the share of tries answered it does not
+/// 64 frames. Unlike the share of tries answered it does not
 /// mistake a host that woke late (a resend before the reply came) for a
 /// bad line: a corrupt frame is the line's doing.
 #[derive(Debug, Clone, Copy, Default, PartialEq)]
