@@ -491,6 +491,32 @@ fn an_adapter_that_only_repeats_itself_fails_on_the_silence_limit() {
     assert!(fake.join().unwrap() > 0);
 }
 
+// A GAP that names the very request it answers as the one expected (an
+// adapter that never takes it) calls for an immediate resend every time:
+// frames never stop, so the silence limit must be checked as frames
+// arrive, not only when a wait runs out.
+#[test]
+fn an_adapter_that_always_wants_the_same_request_fails_on_the_silence_limit() {
+    use buscue_bridge::wire::{Header, VERSION, kind};
+    let (path, stop, fake) = fake_adapter(fake_caps(), 0, |h, _| {
+        let [a, b] = h.seq.to_le_bytes();
+        vec![(Header { version: VERSION, kind: kind::GAP, seq: h.seq, session: h.session }, vec![a, b])]
+    });
+    let settings = NativeSettings { silence: Duration::from_millis(300), ..NativeSettings::default() };
+    let mut a = NativeAdapter::open(&path, settings).expect("the handshake is answered");
+    let started = std::time::Instant::now();
+    let out = a.execute(&Transaction::new(Address::Seven(0x2B), vec![Operation::Write(vec![0x01, 0x02])]));
+    let took = started.elapsed();
+    stop.store(true, Ordering::Relaxed);
+    let detail = format!("{:?}", out.fault);
+    assert!(detail.contains("no answer from the adapter") && detail.contains("silence_ms"), "{detail}");
+    // The margin only catches a run that goes on instead.
+    assert!(took < Duration::from_secs(10), "{took:?}");
+    assert!(a.stats.fast_resends > 0, "the notices did call for resends: {:?}", a.stats);
+    drop(a);
+    fake.join().unwrap();
+}
+
 /// Runs one write through a fake adapter that loses the first copy of
 /// the request and otherwise follows PROTOCOL.md section 3 (no flags: a
 /// request ahead of the expected one is dropped and answered with a

@@ -587,6 +587,14 @@ impl NativeAdapter {
             let timer = start + wait + oldest.extra;
             // A DELAY keeps the adapter quiet for as long as it asked.
             let give_up = progress + self.settings.silence + oldest.extra;
+            // Checked here too, not only when a wait runs out: frames
+            // already read come back without a look at the clock, and a
+            // steady stream of frames that answer nothing new (notices
+            // that call for a resend each time) must still end.
+            let now = Instant::now();
+            if now >= give_up {
+                return Err(NativeError::Silent { path: self.path(), waited_ms: (now - progress).as_millis() });
+            }
             let Some((h, body)) = self.link.recv(timer.min(give_up))? else {
                 let now = Instant::now();
                 if now >= give_up {
