@@ -720,7 +720,7 @@ fn the_summary_counts_the_native_link() {
     let stderr = String::from_utf8_lossy(&out.stderr);
     let line = stderr.lines().find(|l| l.starts_with("link: ")).unwrap_or_else(|| panic!("a link line: {stderr}"));
     // "link: S frames sent, R received, D dropped as damaged, N retransmissions
-    //  (T on timeout, F fast; G gap notices); Q requests, loss ~L%, RTO X ms,
+    //  (T on timeout, F fast; G gap notices, P status probes); Q requests, loss ~L%, RTO X ms,
     //  batch B/BM, window W/WM"
     let head = line.split(" (").next().unwrap();
     let n: Vec<u64> = head.split(|c: char| !c.is_ascii_digit()).filter_map(|w| w.parse().ok()).collect();
@@ -729,7 +729,7 @@ fn the_summary_counts_the_native_link() {
     // a clean pseudo-terminal damages nothing and needs no resend.
     assert!(n[0] >= 7 && n[1] >= 7, "{line}");
     assert_eq!(n[2], 0, "{line}");
-    assert!(line.contains("0 fast; 0 gap notices"), "nothing was lost on the way: {line}");
+    assert!(line.contains("0 fast; 0 gap notices, 0 status probes"), "nothing was lost on the way: {line}");
     assert!(line.contains("RTO ") && line.contains("window "), "{line}");
     assert_eq!(n[2], 0, "{line}");
 }

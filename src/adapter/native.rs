@@ -1104,6 +1104,7 @@ impl Adapter for NativeAdapter {
             timeouts: self.stats.timeouts,
             fast_resends: self.stats.fast_resends,
             gaps: self.stats.gaps,
+            status_probes: self.stats.status_probes,
             rto: self.timer.rto(),
             batch: self.batch_size.size() as u32,
             batch_max: self.batch_size.max() as u32,

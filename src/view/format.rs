@@ -616,11 +616,13 @@ pub fn link_summary(c: &crate::adapter::LinkCounters) -> String {
         use std::fmt::Write;
         let _ = write!(
             s,
-            " ({} on timeout, {} fast; {} gap notice{}); {} requests, loss ~{:.2}%, RTO {}, batch {}/{}, window {}/{}",
+            " ({} on timeout, {} fast; {} gap notice{}, {} status probe{}); {} requests, loss ~{:.2}%, RTO {}, batch {}/{}, window {}/{}",
             c.timeouts,
             c.fast_resends,
             c.gaps,
             if c.gaps == 1 { "" } else { "s" },
+            c.status_probes,
+            if c.status_probes == 1 { "" } else { "s" },
             c.requests,
             c.loss_estimate() * 100.0,
             human(c.rto),
@@ -674,6 +676,34 @@ pub fn cell_diff(cells: &[(usize, String, String)], colour: bool) -> Vec<String>
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // A native link's line names its status probes beside the gap
+    // notices, singular for one.
+    #[test]
+    fn the_link_line_counts_status_probes() {
+        let c = crate::adapter::LinkCounters {
+            frames_sent: 40,
+            frames_received: 30,
+            frames_dropped: 4,
+            retransmissions: 5,
+            requests: 20,
+            timeouts: 1,
+            fast_resends: 4,
+            gaps: 3,
+            status_probes: 1,
+            rto: Duration::from_micros(250),
+            batch: 3,
+            batch_max: 32,
+            window: 8,
+            window_max: 8,
+        };
+        let line = link_summary(&c);
+        assert!(line.contains("(1 on timeout, 4 fast; 3 gap notices, 1 status probe);"), "{line}");
+        // 5 resends of 25 sends.
+        assert!(line.contains("loss ~20.00%"), "{line}");
+        let line = link_summary(&crate::adapter::LinkCounters { status_probes: 7, ..c });
+        assert!(line.contains("7 status probes)"), "{line}");
+    }
 
     // The 64-bit and whole-seconds arithmetic of the frame line's times
     // against the 128-bit formulas it replaced, at the edges: rounding
