@@ -98,8 +98,15 @@ pub struct SerialLink {
     out: Vec<u8>,
     /// Frames in `out`.
     queued: u64,
+    /// Time a byte takes at the configured rate (10 bits).
+    byte_time: Duration,
     pub stats: LinkStats,
 }
+
+/// What a write may wait for room in the port's buffer beyond the wire
+/// time of its bytes: a USB adapter or a busy peer can hold the buffer
+/// full for a while without being gone.
+const WRITE_SLACK: Duration = Duration::from_secs(1);
 
 impl SerialLink {
     /// Opens `path` at `baud`, 8 data bits, no parity, one stop bit, no
@@ -115,6 +122,7 @@ impl SerialLink {
             inbox_pos: 0,
             out: Vec::with_capacity(MAX_FRAME + 32),
             queued: 0,
+            byte_time: Duration::from_secs_f64(10.0 / baud.max(1) as f64),
             stats: LinkStats::default(),
         })
     }
@@ -159,6 +167,12 @@ impl SerialLink {
         if self.out.is_empty() {
             return Ok(());
         }
+        // Room in the port's buffer may take a while: as long as the bytes
+        // take to cross at the line's rate, twice over, and a second more
+        // (the read timeout left by the last wait can be microseconds, and
+        // a write that times out fails the link).
+        let wire = self.byte_time.saturating_mul(2 * self.out.len().min(u32::MAX as usize) as u32);
+        self.port.set_timeout(WRITE_SLACK + wire).map_err(|e| self.gone(e))?;
         let r = self.port.write_all(&self.out).and_then(|_| self.port.flush());
         self.out.clear();
         let frames = std::mem::take(&mut self.queued);
