@@ -347,10 +347,8 @@ impl NativeAdapter {
                     // last send it is short if anything, which costs a
                     // spurious resend at worst and is corrected by the
                     // next samples, where the ceiling would cost a wait of
-                    // `timeout_ms` per lost frame until a clean reply. It
-                    // only seeds the timer: the first request's sample
-                    // starts it afresh.
-                    timer.seed(sent.elapsed());
+                    // `timeout_ms` per lost frame until a clean reply.
+                    timer.sample(sent.elapsed());
                     answer = Some((h, body));
                     break 'outer;
                 }

@@ -16,9 +16,6 @@
 //!   1 s for TCP; a serial adapter answers far sooner).
 //! - Karn's rule (RFC 6298 §3) is the caller's: only a reply to a request
 //!   sent once is a sample.
-//! - [`RetransmitTimer::seed`] takes a round trip that may hold one-off
-//!   costs (a handshake): it sets the timer as a first sample would, and
-//!   the next sample is a first measurement again.
 //! - [`RetransmitTimer::backed_off`] doubles per expiry (§5.5) up to
 //!   [`MAX_BACKOFF`]; a new sample ends the backoff (§5.7).
 //! - Frame length: on a slow UART the round trip grows with the bytes a
@@ -78,9 +75,6 @@ pub struct RetransmitTimer {
     fit: ByteFit,
     /// Time per byte (ns) assumed until the samples teach one.
     prior_ns_per_byte: f64,
-    /// The estimate so far is a seed ([`Self::seed`]): the next sample
-    /// starts it afresh.
-    seeded: bool,
 }
 
 /// Exponentially weighted least squares of round trip (ns) on bytes.
@@ -148,20 +142,7 @@ impl RetransmitTimer {
             ceiling,
             fit: ByteFit::default(),
             prior_ns_per_byte: 0.0,
-            seeded: false,
         }
-    }
-
-    /// Takes a seed: a round trip that may include one-off costs (the
-    /// handshake's answer comes from an adapter that may have just woken,
-    /// or a server that polls for a new peer), so it sets the timer as a
-    /// first sample would, and the first real sample then counts as the
-    /// first measurement of RFC 6298 §2.2 again instead of being averaged
-    /// with it.
-    pub fn seed(&mut self, r: Duration) {
-        self.srtt = None;
-        self.sample(r);
-        self.seeded = true;
     }
 
     /// Assumes `per_byte` on the wire until samples of different lengths
@@ -193,9 +174,6 @@ impl RetransmitTimer {
 
     /// Takes one round-trip sample of the fixed part (no byte count).
     pub fn sample(&mut self, r: Duration) {
-        if std::mem::take(&mut self.seeded) {
-            self.srtt = None;
-        }
         match self.srtt {
             None => {
                 self.srtt = Some(r);
@@ -421,28 +399,6 @@ mod tests {
         assert!((n.share() - 0.01).abs() < 1e-12, "{}", n.share());
         n.add(100, 0);
         assert!((n.share() - 0.0017153).abs() < 1e-6, "{}", n.share());
-    }
-
-    // A seed sets the timer as a first sample (RFC 6298 §2.2: SRTT = R,
-    // RTTVAR = R/2, RTO = R + 4·R/2 = 3R), and the first real sample
-    // starts afresh: seed 30 ms gives 90 ms; then 0.1 ms gives SRTT 0.1,
-    // RTTVAR 0.05, RTO = 0.1 + max(G = 0.25, 0.2) = 0.35 ms. Averaged with
-    // the seed instead it would give RTTVAR = 3/4·15 + 1/4·29.9 = 18.725,
-    // SRTT = 7/8·30 + 0.1/8 = 26.2625, an RTO of the 100 ms ceiling.
-    #[test]
-    fn a_seed_gives_way_to_the_first_real_sample() {
-        let mut t = RetransmitTimer::new(ms(0.25), ms(100.0));
-        t.seed(ms(30.0));
-        assert!(close(t.rto(), ms(90.0)), "{:?}", t.rto());
-        t.sample(ms(0.1));
-        assert!(close(t.srtt().unwrap(), ms(0.1)) && close(t.rto(), ms(0.35)), "{:?}", t);
-        t.sample(ms(0.1));
-        // An ordinary second sample now: RTTVAR = 3/4·0.05 = 0.0375.
-        assert!(close(t.rto(), ms(0.35)), "{:?}", t.rto());
-        let mut averaged = RetransmitTimer::new(ms(0.25), ms(100.0));
-        averaged.sample(ms(30.0));
-        averaged.sample(ms(0.1));
-        assert_eq!(averaged.rto(), ms(100.0), "without the seed rule");
     }
 
     // RFC 6298 §2.2 and §2.3 worked by hand, floor (G) 2 ms, ceiling 100 ms:
