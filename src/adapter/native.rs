@@ -491,6 +491,27 @@ impl NativeAdapter {
         Ok(())
     }
 
+    /// Re-sends at once (a repair) each request of `range` without a reply
+    /// that `lost` says was lost; each waits behind the replies still to
+    /// come for the requests in flight, `done..sent`.
+    fn repair(
+        &mut self,
+        p: &mut [Pending],
+        (done, sent): (usize, usize),
+        range: std::ops::Range<usize>,
+        base: u16,
+        send_no: &mut u64,
+        lost: impl Fn(usize, &Pending) -> bool,
+    ) -> Result<(), NativeError> {
+        let ahead = in_flight(&p[done..sent]);
+        for i in range {
+            if p[i].reply.is_none() && lost(i, &p[i]) {
+                self.send(&mut p[i], ahead, base.wrapping_add(i as u16), send_no, Resend::Fast)?;
+            }
+        }
+        Ok(())
+    }
+
     /// Sends requests pipelined and collects their replies in order.
     fn exchange(&mut self, reqs: Vec<Request>) -> Result<Vec<(u8, Vec<u8>)>, NativeError> {
         if let Some(e) = &self.failed {
@@ -655,12 +676,8 @@ impl NativeAdapter {
                         // a reply lost it; from `h.seq` on, one neither
                         // answered nor kept was lost.
                         self.stats.status_answers += 1;
-                        let ahead = in_flight(&p[done..sent]);
-                        for (i, q) in p.iter_mut().enumerate().take(sent).skip(done) {
-                            if q.reply.is_none() && q.send_no < probe_no && (i <= idx || !q.held) {
-                                self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
-                            }
-                        }
+                        let lost = |i: usize, q: &Pending| q.send_no < probe_no && (i <= idx || !q.held);
+                        self.repair(&mut p, (done, sent), done..sent, base, &mut send_no, lost)?;
                         continue;
                     }
                     let Some(j) = trigger.filter(|&j| j < sent) else { continue };
@@ -668,12 +685,8 @@ impl NativeAdapter {
                         p[j].held = true;
                     }
                     let limit = p[j].send_no;
-                    let ahead = in_flight(&p[done..sent]);
-                    for (i, q) in p.iter_mut().enumerate().take(j + 1).skip(idx.min(n)) {
-                        if q.reply.is_none() && !q.held && q.send_no <= limit {
-                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
-                        }
-                    }
+                    let lost = |_: usize, q: &Pending| !q.held && q.send_no <= limit;
+                    self.repair(&mut p, (done, sent), idx.min(n)..j + 1, base, &mut send_no, lost)?;
                 }
                 kind::REFUSED if body.first() == Some(&refusal::SESSION) => {
                     return Err(NativeError::Reset { path: self.path(), why: "it no longer knows this session" });
@@ -709,12 +722,8 @@ impl NativeAdapter {
                     // this one still without a reply (and sent before it)
                     // lost its reply on the way: ask again at once.
                     let limit = p[idx].send_no;
-                    let ahead = in_flight(&p[done..sent]);
-                    for (i, q) in p.iter_mut().enumerate().take(idx).skip(done) {
-                        if q.reply.is_none() && q.send_no < limit {
-                            self.send(q, ahead, seq(i), &mut send_no, Resend::Fast)?;
-                        }
-                    }
+                    let lost = |_: usize, q: &Pending| q.send_no < limit;
+                    self.repair(&mut p, (done, sent), done..idx, base, &mut send_no, lost)?;
                     progress = now;
                     while done < n && p[done].reply.is_some() {
                         done += 1;
